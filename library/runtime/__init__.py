@@ -1,0 +1,1 @@
+"""Skill runtime: execute skills and chains as options on batched simulations."""
