@@ -1,0 +1,1 @@
+"""Adapters for gymnasium's own MuJoCo envs: rigs and named state."""

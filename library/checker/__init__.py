@@ -1,0 +1,1 @@
+"""Chain checker: static (SMT), model and simulation methods, verdict per handoff."""

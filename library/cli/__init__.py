@@ -1,0 +1,1 @@
+"""Command-line interface: thin commands over kinetome.library.api."""

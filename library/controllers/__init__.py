@@ -1,0 +1,1 @@
+"""Controller kinds: torch modules with named, bounded parameters and a Gaussian exploration head."""

@@ -1,0 +1,1 @@
+"""Reports: PNG plots and the self-contained HTML report."""
