@@ -45,8 +45,11 @@ class SimBatch:
         self._qvel[ids] = qvel
         self._batch.forward(ids)
 
-    def state(self, ids: np.ndarray | None = None) -> dict[str, np.ndarray]:
-        """Named state of simulations ``ids``: name -> (len(ids), *shape)."""
+    def state(self, ids: np.ndarray | None = None, *, extra: tuple[str, ...] = ()) -> dict[str, np.ndarray]:
+        """Named state of simulations ``ids``: name -> (len(ids), *shape).
+
+        ``extra`` asks for on-demand quantities such as ``fingertip_jac``.
+        """
         ids = self._ids(ids)
         values = read_state(
             self.rig,
@@ -55,9 +58,11 @@ class SimBatch:
             sensordata=self._sensordata[ids],
             ctrl=self._ctrl[ids],
         )
-        if self._site_xpos is not None:
-            for name, site in self.rig.jacobian_sites.items():
-                values[f"{name}_jac"] = self.jacobian(site, ids)
+        for name in extra:
+            site = self.rig.jacobian_sites.get(name.removesuffix("_jac")) if name.endswith("_jac") else None
+            if site is None:
+                raise KeyError(f"rig {self.rig.env_id} cannot supply {name!r}; it has Jacobians for {sorted(self.rig.jacobian_sites)}")
+            values[name] = self.jacobian(site, ids)
         return values
 
     def clip(self, action: np.ndarray) -> np.ndarray:
@@ -81,3 +86,8 @@ class SimBatch:
 
     def _ids(self, ids: np.ndarray | None) -> np.ndarray:
         return np.arange(self.n) if ids is None else np.asarray(ids, dtype=np.int64)
+
+
+def _qpos_of(sim: SimBatch, ids: np.ndarray) -> np.ndarray:
+    """Current qpos rows (copy), for traces and filmstrips."""
+    return np.array(sim._qpos[ids])

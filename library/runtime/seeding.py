@@ -1,0 +1,26 @@
+"""Per-episode random streams, so results do not depend on batch size or workers."""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["episode_rng", "ExplorationNoise"]
+
+
+def episode_rng(seed: int, episode: int, stream: int = 0) -> np.random.Generator:
+    """The generator of one episode: ``default_rng([seed, episode, stream])``."""
+    return np.random.default_rng([int(seed), int(episode), int(stream)])
+
+
+class ExplorationNoise:
+    """Standard-normal action noise, one independent stream per episode."""
+
+    _STREAM = 7  # distinct from start sampling streams
+
+    def __init__(self, seed: int, n_episodes: int, n_act: int):
+        self._rngs = [episode_rng(seed, i, self._STREAM) for i in range(n_episodes)]
+        self._n_act = n_act
+
+    def draw(self, episodes: np.ndarray) -> np.ndarray:
+        """(len(episodes), n_act) noise; each row advances only its own stream."""
+        return np.stack([self._rngs[int(i)].standard_normal(self._n_act) for i in episodes]) if len(episodes) else np.zeros((0, self._n_act))

@@ -1,0 +1,83 @@
+"""A skill ready to execute: spec, built controller and parsed predicates."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..spec import Skill, skill_from_document
+
+__all__ = ["LoadedSkill", "skill_from_spec", "load_skill", "SPEC_FILE", "PARAMS_FILE"]
+
+SPEC_FILE = "spec.json"
+PARAMS_FILE = "params.safetensors"
+
+
+@dataclass(frozen=True, eq=False)
+class LoadedSkill:
+    """Everything the runtime needs to run one skill version as an option."""
+
+    ref: str
+    skill: Skill
+    controller: Any  # library.controllers.Controller
+    starts_when: Any  # library.predicates.Predicate
+    stops_when: Any
+    max_steps: int
+    parameters: dict[str, np.ndarray]
+
+    @property
+    def name(self) -> str:
+        return self.skill.name
+
+    def predicate_values(self) -> dict[str, np.ndarray]:
+        """Parameter values predicates may name (no batch axis: they broadcast)."""
+        return self.parameters
+
+
+def skill_from_spec(skill: Skill, *, ref: str | None = None, rig: Any = None, parameter_values: dict[str, np.ndarray] | None = None) -> LoadedSkill:
+    """Build controller and predicates for a validated spec.
+
+    ``parameter_values`` (e.g. read from a stored version's safetensors) replace
+    the spec's initial values; ``rig`` defaults to the spec's own env.
+    """
+    from kinetome.envs import make_rig
+
+    from ..controllers import build_controller, context_from_rig
+    from ..predicates import parse_predicate
+
+    rig = rig if rig is not None else make_rig(skill.env)
+    c = skill.controller
+    controller = build_controller(
+        c.kind,
+        context_from_rig(rig),
+        parameters=c.parameter_arrays(),
+        bounds=c.bound_arrays(),
+        options=dict(c.options),
+        exploration_std=c.exploration_std,
+    )
+    if parameter_values is not None:
+        controller.load_values(parameter_values)
+    params = {k: np.asarray(v, dtype=np.float64) for k, v in controller.parameter_values().items()}
+    names = {**{k: v.shape for k, v in params.items()}, **rig.layout.shapes()}
+    return LoadedSkill(
+        ref=ref or skill.name,
+        skill=skill,
+        controller=controller,
+        starts_when=parse_predicate(skill.starts_when, names, what="starts_when"),
+        stops_when=parse_predicate(skill.stops_when, names, what="stops_when"),
+        max_steps=skill.max_steps,
+        parameters=params,
+    )
+
+
+def load_skill(store: Any, ref: str, *, rig: Any = None) -> LoadedSkill:
+    """Load a stored version ``name@N`` (or the latest of ``name``)."""
+    from ..controllers import load_parameters
+
+    version = store.get(ref)
+    doc = json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))
+    values = load_parameters(store.read_file(version, PARAMS_FILE))
+    return skill_from_spec(skill_from_document(doc), ref=version.ref, rig=rig, parameter_values=values)

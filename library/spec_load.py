@@ -1,0 +1,200 @@
+"""Read a skill spec from YAML and validate it: schema first, then semantics.
+
+Every problem of a file is reported at once, each as
+``FILE:LINE: field.path: what is wrong; how to fix it``. Semantic checks
+need the env's named state and the controller kinds, so they import the
+envs and torch lazily (``list``/``show`` never come here).
+"""
+
+from __future__ import annotations
+
+import difflib
+import json
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from .errors import InvalidSpecError, Problem
+from .spec import ControllerSpec, Limits, Skill
+from .yaml_source import YamlDocument, load_yaml_file, load_yaml_text
+
+__all__ = ["load_spec", "parse_spec_text", "spec_schema", "validate_document", "check_semantics"]
+
+_FIX_BY_FIELD = {
+    "name": "use lowercase letters, digits, '-' or '_', e.g. arm-reach-tray",
+    "max_steps": "give a whole number of env steps, e.g. 200",
+    "env": "name a registered env, e.g. kinetome/BenchArm-v0",
+    "starts_when": "write a predicate over named state, e.g. norm(qvel) < 0.5",
+    "stops_when": "write a predicate over named state, e.g. norm(fingertip - target) < 0.02",
+}
+
+
+@lru_cache(maxsize=1)
+def spec_schema() -> dict[str, Any]:
+    """The JSON Schema shipped inside the package."""
+    text = resources.files("kinetome.library").joinpath("spec_schema.json").read_text(encoding="utf-8")
+    return json.loads(text)
+
+
+def _schema_at(schema: dict[str, Any], path: list[Any]) -> dict[str, Any]:
+    """Follow ``properties`` along a data path (enough for our flat schema)."""
+    node = schema
+    for part in path:
+        props = node.get("properties", {})
+        if part in props:
+            node = props[part]
+        elif isinstance(node.get("additionalProperties"), dict):
+            node = node["additionalProperties"]
+        else:
+            return {}
+    return node
+
+
+def _schema_problems(doc: YamlDocument) -> list[Problem]:
+    import jsonschema
+
+    schema = spec_schema()
+    validator = jsonschema.Draft202012Validator(schema)
+    problems: list[Problem] = []
+    for error in sorted(validator.iter_errors(doc.data), key=lambda e: (doc.line(tuple(e.absolute_path)) or 0, str(e.message))):
+        path = tuple(error.absolute_path)
+        field = path[-1] if path else ""
+        if error.validator == "additionalProperties":
+            known = sorted(_schema_at(schema, list(path)).get("properties", {}))
+            for key in sorted(set(error.instance) - set(known)):
+                close = difflib.get_close_matches(str(key), known, n=1)
+                fix = f"did you mean '{close[0]}'?" if close else ""
+                fix = (fix + " " if fix else "") + f"valid fields: {', '.join(known)}"
+                problems.append(doc.problem((*path, key), f"unknown field '{key}'", fix))
+        elif error.validator == "required":
+            missing = error.message.split("'")[1] if "'" in error.message else error.message
+            problems.append(doc.problem(path, f"missing required field '{missing}'", _FIX_BY_FIELD.get(missing, f"add '{missing}'")))
+        elif error.validator == "enum":
+            options = ", ".join(map(str, error.validator_value))
+            close = difflib.get_close_matches(str(error.instance), [str(o) for o in error.validator_value], n=1)
+            fix = (f"did you mean '{close[0]}'? " if close else "") + f"use one of: {options}"
+            problems.append(doc.problem(path, f"must be one of the known values, got {error.instance!r}", fix))
+        elif error.validator == "oneOf":
+            problems.append(doc.problem(path, f"must be a number or a list of numbers, got {error.instance!r}", "write e.g. 0.5 or [0.5, 0.5, 0.5]"))
+        elif error.validator == "type":
+            problems.append(doc.problem(path, f"must be of type {error.validator_value}, got {error.instance!r}", _FIX_BY_FIELD.get(str(field), "")))
+        elif error.validator == "pattern":
+            problems.append(doc.problem(path, f"has an invalid form {error.instance!r}", _FIX_BY_FIELD.get(str(field), f"must match {error.validator_value}")))
+        elif error.validator in ("minimum", "exclusiveMinimum", "maximum", "minLength", "maxLength", "minItems", "maxItems", "uniqueItems"):
+            problems.append(doc.problem(path, f"{error.message}", _FIX_BY_FIELD.get(str(field), "")))
+        else:
+            problems.append(doc.problem(path, error.message))
+    return problems
+
+
+def _skill_from_data(doc: YamlDocument) -> tuple[Skill | None, list[Problem]]:
+    data = doc.data
+    c = data["controller"]
+    try:
+        controller = ControllerSpec(
+            kind=c["kind"],
+            parameters=c.get("parameters", {}),
+            bounds={k: (v["low"], v["high"]) for k, v in c.get("bounds", {}).items()},
+            options=c.get("options", {}),
+            exploration_std=c.get("exploration_std", 0.1),
+        )
+        limits = Limits(**data["limits"]) if data.get("limits") else None
+        skill = Skill(
+            name=data["name"],
+            env=data["env"],
+            controller=controller,
+            starts_when=data["starts_when"],
+            stops_when=data["stops_when"],
+            max_steps=int(data["max_steps"]),
+            description=data.get("description", ""),
+            limits=limits,
+            tags=tuple(data.get("tags", ())),
+        )
+    except (TypeError, ValueError) as exc:
+        return None, [doc.problem(("controller",), str(exc))]
+    return skill, []
+
+
+def _path_from_message(message: str) -> tuple[str, ...]:
+    """Controller errors start with a dotted field path, e.g. ``controller.parameters.kp must ...``."""
+    head = message.split(" ", 1)[0]
+    if head.startswith("controller."):
+        return tuple(head.rstrip(":").split("."))
+    return ("controller",)
+
+
+def check_semantics(skill: Skill, doc: YamlDocument | None = None) -> list[Problem]:
+    """Problems that need the env and the controller kinds: names, bounds, sizes."""
+    doc = doc or YamlDocument("<spec>", {}, {})
+    problems: list[Problem] = []
+    from kinetome.envs import make_rig
+
+    try:
+        rig = make_rig(skill.env)
+    except KeyError as exc:
+        return [doc.problem(("env",), str(exc.args[0]), "use one of the envs listed")]
+    from .controllers import build_controller, context_from_rig
+
+    parameter_shapes: dict[str, tuple[int, ...]] = {}
+    try:
+        controller = build_controller(
+            skill.controller.kind,
+            context_from_rig(rig),
+            parameters=skill.controller.parameter_arrays(),
+            bounds=skill.controller.bound_arrays(),
+            options=dict(skill.controller.options),
+            exploration_std=skill.controller.exploration_std,
+        )
+        parameter_shapes = {k: tuple(v.shape) for k, v in controller.parameter_values().items()}
+    except (ValueError, KeyError, TypeError) as exc:
+        message = str(exc.args[0]) if exc.args else str(exc)
+        path = _path_from_message(message)
+        text = message[len(".".join(path)) :].strip() if message.startswith(".".join(path)) else message
+        fix = ""
+        if "; " in text:
+            text, fix = text.split("; ", 1)
+        problems.append(doc.problem(path, text, fix))
+        controller = None
+    if controller is not None:
+        for name in controller.inputs:
+            if name not in rig.layout:
+                problems.append(doc.problem(("controller", "options"), f"controller reads '{name}', which env {skill.env} does not have", f"known names: {', '.join(rig.layout.names)}"))
+    state_shapes = rig.layout.shapes()
+    clashes = sorted(set(state_shapes) & set(parameter_shapes))
+    for name in clashes:
+        problems.append(doc.problem(("controller", "parameters", name), f"parameter '{name}' has the name of a state quantity", "predicates would be ambiguous; the state quantity wins"))
+    names = {**parameter_shapes, **state_shapes}
+    from .predicates import PredicateError, parse_predicate
+
+    for label in ("starts_when", "stops_when"):
+        try:
+            parse_predicate(getattr(skill, label), names, what=label)
+        except PredicateError as exc:
+            problems.append(doc.problem((label,), str(exc), "predicates may use named state and the controller's parameters"))
+    return problems
+
+
+def validate_document(doc: YamlDocument) -> Skill:
+    """Schema, value-object and semantic checks; raises InvalidSpecError with every problem."""
+    if not isinstance(doc.data, dict):
+        raise InvalidSpecError([doc.problem((), "a skill spec must be a YAML mapping of fields", "start with 'name: ...'")])
+    problems = _schema_problems(doc)
+    if problems:
+        raise InvalidSpecError(problems)
+    skill, problems = _skill_from_data(doc)
+    if skill is not None:
+        problems += check_semantics(skill, doc)
+    if problems:
+        raise InvalidSpecError(problems)
+    return skill
+
+
+def parse_spec_text(text: str, source: str = "<string>") -> Skill:
+    """Validate a spec given as YAML text."""
+    return validate_document(load_yaml_text(text, source))
+
+
+def load_spec(path: str | Path) -> Skill:
+    """Read and validate one spec file."""
+    return validate_document(load_yaml_file(path))
