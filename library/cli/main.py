@@ -1,8 +1,72 @@
-"""kinetome command entry point."""
+"""kinetome command entry point: parse arguments, dispatch, map errors to exit codes.
 
+Command modules register their parsers here; each imports heavy libraries
+(torch, mujoco, z3) only inside its ``run`` so that ``list``, ``show`` and
+``history`` stay fast.
+"""
+
+from __future__ import annotations
+
+import argparse
 import sys
+from importlib import import_module
+
+from ..errors import KinetomeError
+from .output import print_error
+
+__all__ = ["main", "build_parser", "common_options"]
+
+
+def common_options() -> argparse.ArgumentParser:
+    """--store and --debug, accepted after the command name too."""
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--store", metavar="DIR", default=argparse.SUPPRESS, help="skill store folder")
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
+    return common
+
+# command modules, in the order ``--help`` lists them
+_COMMAND_MODULES = ("store_cmds", "run_cmds", "check_cmds", "train_cmds", "demo_cmds")
+
+_DESCRIPTION = (
+    "kinetome keeps a versioned library of robot skills (controllers packaged as options), "
+    "retrains them on changed tasks and checks that planned chains of skills compose."
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="kinetome", description=_DESCRIPTION)
+    parser.add_argument("--store", metavar="DIR", help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for module_name in _COMMAND_MODULES:
+        try:
+            module = import_module(f"{__package__}.{module_name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"{__package__}.{module_name}":
+                continue
+            raise
+        module.add_parsers(sub, common_options())
+    return parser
 
 
 def main(argv: list[str] | None = None) -> int:
-    print("kinetome: commands are being built", file=sys.stderr)
-    return 2
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or 0)
+    except KinetomeError as exc:
+        if args.debug:
+            raise
+        for line in exc.lines():
+            print_error(line)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print_error("interrupted")
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
