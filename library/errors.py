@@ -49,9 +49,10 @@ class KinetomeError(Exception):
 class InvalidInputError(KinetomeError):
     """A user file or argument is wrong; carries every problem found at once."""
 
-    def __init__(self, problems: list[Problem] | str):
+    def __init__(self, problems: "list[Problem | str] | str"):
         if isinstance(problems, str):
-            problems = [Problem("<input>", None, "", problems)]
+            problems = [problems]
+        # a str is a problem line already formatted elsewhere (e.g. by kinetome.envs)
         self.problems = list(problems)
         super().__init__("\n".join(str(p) for p in self.problems))
 

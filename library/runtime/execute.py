@@ -40,6 +40,14 @@ def _exploration_std(skill: LoadedSkill) -> np.ndarray:
         return np.exp(skill.controller.log_std.detach().cpu().numpy().astype(np.float64))
 
 
+# limit name -> (quantity, how one state's magnitude is measured)
+_PEAK_MEASURES = {
+    "joint_speed": ("qvel", lambda v: np.max(np.abs(v.reshape(len(v), -1)), axis=1)),
+    "end_effector_speed": ("fingertip_vel", lambda v: np.linalg.norm(v.reshape(len(v), -1), axis=1)),
+    "torque": ("torque", lambda v: np.max(np.abs(v.reshape(len(v), -1)), axis=1)),
+}
+
+
 class _Segment:
     """Accumulators of one chain step over all n episodes."""
 
@@ -48,6 +56,13 @@ class _Segment:
         self.steps = np.zeros(n, dtype=np.int64)
         self.reward = np.zeros(n)
         self.discounted = np.zeros(n)
+        self.peaks = {name: np.zeros(n) for name in _PEAK_MEASURES}
+
+    def observe(self, rows: np.ndarray, after: dict[str, np.ndarray]) -> None:
+        """Track the largest speed/torque each episode reached (for the limits lint)."""
+        for name, (quantity, measure) in _PEAK_MEASURES.items():
+            if quantity in after:
+                self.peaks[name][rows] = np.maximum(self.peaks[name][rows], measure(after[quantity]))
 
     def record(self, ref: str, start: dict, end: dict, gamma: float) -> SegmentRecord:
         return SegmentRecord(
@@ -59,6 +74,7 @@ class _Segment:
             reward=self.reward,
             discounted_return=self.discounted,
             discount=np.power(gamma, self.steps.astype(np.float64)),
+            peaks=self.peaks,
         )
 
 
@@ -104,6 +120,7 @@ def _run_segment(
         seg.reward[running] += reward
         seg.discounted[running] += gamma**t * reward
         seg.steps[running] += 1
+        seg.observe(running, after)
         if tracer is not None:
             tracer.record(sim, running, index)
         terminated, stopped, timed_out = _classify(skill, rig, after, t + 1)
@@ -245,6 +262,7 @@ def reference_run_chain(
                         seg.reward[i] += reward
                         seg.discounted[i] += gamma**t * reward
                         seg.steps[i] += 1
+                        seg.observe(np.array([i]), after)
                         terminated, stopped, timed_out = _classify(skill, rig, after, t + 1)
                         if terminated[0] or stopped[0] or timed_out[0]:
                             seg.reason[i] = int(EndReason.TERMINATED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)

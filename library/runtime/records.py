@@ -44,6 +44,7 @@ class SegmentRecord:
     reward: np.ndarray  # (n,) float64
     discounted_return: np.ndarray  # (n,) float64
     discount: np.ndarray  # (n,) float64, gamma ** steps
+    peaks: dict[str, np.ndarray] = field(default_factory=dict)  # limit name -> (n,) max seen
 
     def count(self, reason: EndReason) -> int:
         return int(np.sum(self.reason == int(reason)))
