@@ -149,10 +149,10 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
 
 
 def _read_params(data: bytes) -> dict[str, list]:
-    """Parameter values from safetensors bytes, with numpy only (no torch)."""
-    from safetensors.numpy import load
+    """Parameter values from safetensors bytes, standard library only (show stays fast)."""
+    from ..safetensors_view import read_tensors
 
-    return {k: v.tolist() for k, v in sorted(load(data).items())}
+    return read_tensors(data)
 
 
 def _fmt_value(value: Any) -> str:
