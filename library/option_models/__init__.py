@@ -1,0 +1,43 @@
+"""Option models of a skill (duration, reward, end state), their files, and chain prediction.
+
+Pure numpy: nothing here imports torch, mujoco, z3, the store or the CLI.
+Fitting from rollouts lives in ``kinetome.trainers.fitting``.
+"""
+
+from .bundle import ModelsMeta, OptionModels, OUTCOME_KEYS
+from .chain import ChainPrediction, Estimate, HandoffPrediction, predict_chain
+from .duration import DURATION_OUTPUTS, OUTCOME_CODES, DurationModel
+from .end_state import EndStateModel, conformal_offsets, envelope_arrays
+from .features import EXPANSIONS, FeatureMap, component_names, default_quantities, flatten_states, unflatten_states
+from .heads import LinearHead, SoftmaxHead
+from .metrics import classification_errors, interval_coverage, regression_errors
+from .reward import REWARD_OUTPUTS, RewardModel
+
+__all__ = [
+    "OptionModels",
+    "ModelsMeta",
+    "OUTCOME_KEYS",
+    "DurationModel",
+    "DURATION_OUTPUTS",
+    "OUTCOME_CODES",
+    "RewardModel",
+    "REWARD_OUTPUTS",
+    "EndStateModel",
+    "envelope_arrays",
+    "conformal_offsets",
+    "FeatureMap",
+    "EXPANSIONS",
+    "component_names",
+    "default_quantities",
+    "flatten_states",
+    "unflatten_states",
+    "LinearHead",
+    "SoftmaxHead",
+    "regression_errors",
+    "classification_errors",
+    "interval_coverage",
+    "predict_chain",
+    "ChainPrediction",
+    "HandoffPrediction",
+    "Estimate",
+]

@@ -1,0 +1,103 @@
+"""Duration model of an option: expected steps, expected discount and how its turn ends, per start state."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Mapping
+
+import numpy as np
+
+from .features import FeatureMap
+from .heads import LinearHead, SoftmaxHead
+from .serial import file_error, pack, unpack
+
+__all__ = ["DurationModel", "DURATION_OUTPUTS", "OUTCOME_CODES", "OUTCOME_LABELS"]
+
+# Mirrors kinetome.library.runtime.records.EndReason (a test pins the equality); kept
+# literal here so option models never import the runtime package (and mujoco with it).
+OUTCOME_CODES = {"stopped": 0, "timed_out": 1, "terminated": 2}
+OUTCOME_LABELS = {v: k for k, v in OUTCOME_CODES.items()}
+
+# steps:            E[k]                          (k env steps the skill ran)
+# discount:         E[gamma^k]                    (discounted duration)
+# handoff_discount: E[gamma^k * 1{stopped}]       (the discount carried to the next skill of a chain)
+DURATION_OUTPUTS = ("steps", "discount", "handoff_discount")
+
+
+@dataclass(frozen=True, eq=False)
+class DurationModel:
+    """How long a skill runs from a start state and how its turn ends.
+
+    ``head`` predicts DURATION_OUTPUTS; ``outcome`` gives the probabilities of
+    stopped / timed_out / terminated (multinomial logistic regression), so the
+    timeout probability is its ``timed_out`` column. ``errors`` holds the
+    held-out errors measured when the model was fitted.
+    """
+
+    features: FeatureMap
+    head: LinearHead
+    outcome: SoftmaxHead
+    gamma: float
+    errors: dict = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        if not 0.0 < float(self.gamma) <= 1.0:
+            raise ValueError(f"duration model gamma must be in (0, 1], got {self.gamma}")
+        object.__setattr__(self, "gamma", float(self.gamma))
+        if self.head.outputs != DURATION_OUTPUTS:
+            raise ValueError(f"duration head outputs must be {DURATION_OUTPUTS}, got {self.head.outputs}")
+        for name, part in (("head", self.head), ("outcome", self.outcome)):
+            if part.n_features != self.features.n_features:
+                raise ValueError(
+                    f"duration {name} reads {part.n_features} features but the feature map makes "
+                    f"{self.features.n_features}; the parts come from different fits"
+                )
+        unknown = [c for c in self.outcome.classes if c not in OUTCOME_LABELS]
+        if unknown:
+            raise ValueError(f"duration outcome classes must be among {sorted(OUTCOME_LABELS)}, got {unknown}")
+
+    def predict(self, start_states: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """name -> (B,): steps, discount, handoff_discount, p_stopped, p_timed_out, p_terminated."""
+        x = self.features(start_states)
+        heads = self.head(x)
+        out = {name: heads[:, i] for i, name in enumerate(DURATION_OUTPUTS)}
+        for label, code in OUTCOME_CODES.items():
+            out[f"p_{label}"] = self.outcome.probability(x, code)
+        # E[gamma^k 1{stopped}] can exceed neither E[gamma^k] nor P(stopped).
+        out["handoff_discount"] = np.minimum(out["handoff_discount"], np.minimum(out["discount"], out["p_stopped"]))
+        return out
+
+    def expected_steps(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
+        return self.head(self.features(start_states))[:, 0]
+
+    def expected_discount(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
+        return self.head(self.features(start_states))[:, 1]
+
+    def timeout_probability(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
+        return self.outcome.probability(self.features(start_states), OUTCOME_CODES["timed_out"])
+
+    def to_files(self) -> dict[str, bytes]:
+        meta = {
+            "gamma": self.gamma,
+            "features": self.features.meta(),
+            "outputs": list(self.head.outputs),
+            "outcome": self.outcome.meta(),
+            "errors": self.errors,
+        }
+        arrays = {**self.features.arrays(), **self.head.arrays("head."), **self.outcome.arrays("outcome.")}
+        return pack("duration", meta, arrays)
+
+    @classmethod
+    def from_files(cls, files: Mapping[str, bytes]) -> "DurationModel":
+        meta, arrays = unpack(files, "duration")
+        try:
+            fmap = FeatureMap.from_parts(meta["features"], arrays)
+            return cls(
+                fmap,
+                LinearHead.from_parts(meta["outputs"], arrays, "head."),
+                SoftmaxHead.from_parts(meta["outcome"], arrays, "outcome."),
+                meta["gamma"],
+                dict(meta.get("errors", {})),
+            )
+        except (KeyError, TypeError, ValueError) as exc:
+            raise file_error("duration.safetensors", "", f"does not form a valid duration model: {exc}", "re-export the model") from None

@@ -1,0 +1,326 @@
+"""Fit a skill's option models from rollouts by Monte Carlo regression on held-out-checked splits.
+
+Method (``monte_carlo_ridge``): each episode that ran gives one sample of
+(start state -> steps k, gamma^k, gamma^k 1{stopped}, discounted return,
+reward, end reason, end state). Targets are regressed on the start-state
+features (``FeatureMap``: standardised, then ``poly2`` for up to 12 inputs or
+random Fourier features beyond) by ridge with a leave-one-out penalty; end
+reasons by multinomial logistic regression; end states of stopped episodes
+by ridge for the mean plus a pool of 5-fold out-of-fold residuals, from which
+``EndStateModel`` samples and takes split-conformal intervals.
+
+Episodes are split once (``holdout`` fraction, seeded) into a training and a
+held-out part; the shipped models are the ones fitted on the training part,
+so the reported held-out errors belong to exactly these models.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from kinetome.library.errors import InvalidInputError
+from kinetome.library.option_models import (
+    DURATION_OUTPUTS,
+    OUTCOME_CODES,
+    REWARD_OUTPUTS,
+    DurationModel,
+    EndStateModel,
+    ModelsMeta,
+    OptionModels,
+    RewardModel,
+    classification_errors,
+    component_names,
+    default_quantities,
+    envelope_arrays,
+    flatten_states,
+    interval_coverage,
+    regression_errors,
+)
+
+from .fitting_kernels import fit_feature_map, fit_linear_head, fit_softmax, ridge_loo
+
+__all__ = ["fit_option_models", "collect_and_fit", "MIN_EPISODES", "MIN_STOPPED", "RESIDUAL_POOL", "CV_FOLDS"]
+
+MIN_EPISODES = 10  # episodes that ran, fewer cannot give a training and a held-out part
+MIN_STOPPED = 10  # stopped episodes needed for an end-state model
+RESIDUAL_POOL = 4096  # out-of-fold residual rows kept for sampling and intervals
+CV_FOLDS = 5
+_RAN = (OUTCOME_CODES["stopped"], OUTCOME_CODES["timed_out"], OUTCOME_CODES["terminated"])
+_REFUSED = 3  # EndReason.REFUSED
+
+
+def _bad(message: str) -> InvalidInputError:
+    return InvalidInputError(message)
+
+
+def _take(values: Mapping[str, np.ndarray], index: np.ndarray) -> dict[str, np.ndarray]:
+    return {k: np.asarray(v)[index] for k, v in values.items()}
+
+
+def _split(n: int, holdout: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Seeded (train, test) row indices; test gets round(holdout * n) rows, at least 1."""
+    perm = np.random.default_rng([seed, 0x0F17]).permutation(n)
+    n_test = min(n - 1, max(1, int(round(holdout * n))))
+    return np.sort(perm[n_test:]), np.sort(perm[:n_test])
+
+
+def _variant_of(meta: Mapping[str, Any]) -> tuple[str, str]:
+    v = meta.get("variant", "")
+    if isinstance(v, Mapping):
+        return str(v.get("name", "")), str(v.get("digest", meta.get("variant_digest", "")))
+    return ("" if v is None else str(v)), str(meta.get("variant_digest", ""))
+
+
+def _check_quantities(names: Sequence[str], values: Mapping[str, np.ndarray], label: str) -> tuple[str, ...]:
+    names = tuple(names)
+    if not names:
+        raise _bad(f"{label} must name at least one quantity, got none; e.g. ('qpos', 'qvel')")
+    unknown = [q for q in names if q not in values]
+    if unknown:
+        raise _bad(f"{label} must be recorded quantities, got unknown {unknown}; known: {sorted(values)}")
+    return names
+
+
+def _duration_targets(seg: Any, gamma: float, rows: np.ndarray) -> np.ndarray:
+    steps = np.asarray(seg.steps, dtype=np.float64)[rows]
+    discount = np.asarray(seg.discount, dtype=np.float64)[rows]
+    expect = gamma**steps
+    if not np.allclose(discount, expect, rtol=1e-9, atol=1e-12):
+        worst = int(np.argmax(np.abs(discount - expect)))
+        raise _bad(
+            f"segment discount must equal gamma**steps with gamma={gamma}, got {discount[worst]} for "
+            f"{int(steps[worst])} steps (expected {expect[worst]}); pass the gamma the rollout used"
+        )
+    stopped = np.asarray(seg.reason)[rows] == OUTCOME_CODES["stopped"]
+    return np.stack([steps, discount, discount * stopped], axis=1)
+
+
+def _regression_report(names: Sequence[str], y_true: np.ndarray, y_pred: np.ndarray) -> dict[str, dict]:
+    return {name: regression_errors(y_true[:, i], y_pred[:, i]) for i, name in enumerate(names)}
+
+
+def _fit_duration(fmap, x_tr, x_te, seg, gamma, train, test) -> DurationModel:
+    y_tr, y_te = _duration_targets(seg, gamma, train), _duration_targets(seg, gamma, test)
+    lo = np.array([y_tr[:, 0].min(), 0.0, 0.0])
+    hi = np.array([y_tr[:, 0].max(), 1.0, 1.0])
+    head = fit_linear_head(x_tr, y_tr, DURATION_OUTPUTS, low=lo, high=hi)
+    reasons = np.asarray(seg.reason).astype(np.int64)
+    lab_tr, lab_te = reasons[train], reasons[test]
+    outcome = fit_softmax(x_tr, lab_tr)
+    freq = np.array([np.mean(lab_tr == c) for c in outcome.classes])
+    p_te = outcome(x_te)
+    errors: dict[str, Any] = _regression_report(DURATION_OUTPUTS, y_te, head(x_te))
+    errors["outcome"] = classification_errors(lab_te, p_te, outcome.classes, baseline=freq)
+    # Timeout as a binary event: log loss and Brier score (Brier 1950) of P(timed out).
+    p_to = outcome.probability(x_te, OUTCOME_CODES["timed_out"])
+    is_to = (lab_te == OUTCOME_CODES["timed_out"]).astype(np.float64)
+    pc = np.clip(p_to, 1e-15, 1 - 1e-15)
+    errors["timeout"] = {
+        "n": int(is_to.size),
+        "rate_train": float(np.mean(lab_tr == OUTCOME_CODES["timed_out"])),
+        "rate_held_out": float(np.mean(is_to)),
+        "log_loss": float(np.mean(-(is_to * np.log(pc) + (1 - is_to) * np.log(1 - pc)))),
+        "brier": float(np.mean((p_to - is_to) ** 2)),
+    }
+    errors["n_train"], errors["n_held_out"] = int(train.size), int(test.size)
+    return DurationModel(fmap, head, outcome, gamma, errors)
+
+
+def _fit_reward(fmap, x_tr, x_te, seg, gamma, train, test, env_id, variant) -> RewardModel:
+    y = np.stack([np.asarray(seg.discounted_return, dtype=np.float64), np.asarray(seg.reward, dtype=np.float64)], axis=1)
+    if not np.all(np.isfinite(y[np.concatenate([train, test])])):
+        raise _bad("segment rewards must be finite, got NaN/Inf; check the env's reward function")
+    head = fit_linear_head(x_tr, y[train], REWARD_OUTPUTS)
+    errors: dict[str, Any] = _regression_report(REWARD_OUTPUTS, y[test], head(x_te))
+    errors["n_train"], errors["n_held_out"] = int(train.size), int(test.size)
+    return RewardModel(fmap, head, gamma, env_id, variant, errors)
+
+
+def _oof_residuals(x: np.ndarray, y: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """(n, D) out-of-fold residuals of ridge with CV_FOLDS folds."""
+    n = x.shape[0]
+    folds = np.array_split(rng.permutation(n), min(CV_FOLDS, n))
+    res = np.empty_like(y)
+    for held in folds:
+        mask = np.ones(n, dtype=bool)
+        mask[held] = False
+        w, b, _, _ = ridge_loo(x[mask], y[mask])
+        res[held] = y[held] - (x[held] @ w + b)
+    return res
+
+
+def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rng) -> EndStateModel:
+    shapes = tuple(tuple(np.asarray(ends[q]).shape[1:]) for q in quantities)
+    names = component_names(quantities, shapes)
+    y = flatten_states(ends, quantities, shapes, where="end states")
+    if not np.all(np.isfinite(y)):
+        raise _bad("end states must be finite, got NaN/Inf in the stopped episodes")
+    x = fmap(starts)
+    low, high = envelope_arrays(envelope, quantities, shapes)
+    x_tr, y_tr = x[train_s], y[train_s]
+    res = _oof_residuals(x_tr, y_tr, rng)
+    if res.shape[0] > RESIDUAL_POOL:
+        res = res[np.sort(rng.choice(res.shape[0], RESIDUAL_POOL, replace=False))]
+    head = fit_linear_head(x_tr, y_tr, names, low=low, high=high)
+    model = EndStateModel(fmap, quantities, shapes, head, res, low, high)
+    starts_te = _take(starts, test_s)
+    pred = model._mean_flat(starts_te)
+    lo, hi = model.interval_flat(starts_te, 0.9)
+    cover = interval_coverage(lo, hi, y[test_s])
+    per = _regression_report(names, y[test_s], pred)
+    r2s = [e["r2"] for e in per.values() if e["r2"] is not None]
+    errors = {
+        "components": per,
+        "r2_mean": float(np.mean(r2s)) if r2s else None,
+        "rmse_mean": float(np.mean([e["rmse"] for e in per.values()])),
+        "coverage_90": {
+            "mean": float(np.mean(cover)),
+            "min": float(np.min(cover)),
+            "max": float(np.max(cover)),
+            "joint": float(np.mean(np.all((y[test_s] >= lo) & (y[test_s] <= hi), axis=1))),
+            "per_component": {n: float(c) for n, c in zip(names, cover)},
+        },
+        "n_train": int(train_s.size),
+        "n_held_out": int(test_s.size),
+        "residual_pool": int(res.shape[0]),
+    }
+    return EndStateModel(fmap, quantities, shapes, head, res, low, high, errors)
+
+
+def fit_option_models(
+    rollout: Any,
+    segment_index: int = 0,
+    *,
+    gamma: float | None = None,
+    features: Sequence[str] | None = None,
+    end_quantities: Sequence[str] | None = None,
+    seed: int = 0,
+    holdout: float = 0.25,
+    envelope: Any = None,
+    expansion: str = "auto",
+    skill_ref: str | None = None,
+    variant: str | None = None,
+    variant_digest: str | None = None,
+    fitted_at: str | None = None,
+) -> OptionModels:
+    """Option models of the skill at ``rollout.segments[segment_index]``.
+
+    ``features``: start-state quantities the models read (default ``qpos`` and
+    ``qvel`` when recorded, the full simulator state; else every scalar/vector
+    quantity). ``end_quantities``: what the end-state model predicts (default
+    every scalar/vector quantity except Jacobians). ``envelope``: a state
+    layout or name -> (low, high) mapping; end-state samples and intervals are
+    clipped to it. ``gamma`` must be the rollout's (its returns were summed
+    with it). Episodes the skill refused or never reached are left out; the
+    end-state model uses stopped episodes only.
+    """
+    segments = tuple(rollout.segments)
+    if not -len(segments) <= int(segment_index) < len(segments):
+        raise _bad(f"segment_index must be in [0, {len(segments) - 1}] for this {len(segments)}-skill rollout, got {segment_index}")
+    seg = segments[segment_index]
+    r_gamma = float(rollout.gamma)
+    if gamma is not None and abs(float(gamma) - r_gamma) > 1e-15:
+        raise _bad(
+            f"gamma must equal the rollout's gamma {r_gamma} because its discounted returns were summed with it, "
+            f"got {gamma}; run the rollout again with gamma={gamma}"
+        )
+    if not 0.0 < holdout < 1.0:
+        raise _bad(f"holdout must be a fraction in (0, 1), got {holdout}; e.g. 0.25")
+    reasons = np.asarray(seg.reason).astype(np.int64)
+    counts = {label: int(np.sum(reasons == code)) for label, code in OUTCOME_CODES.items()}
+    counts["refused"] = int(np.sum(reasons == _REFUSED))
+    ran = np.flatnonzero(np.isin(reasons, _RAN))
+    if ran.size < MIN_EPISODES:
+        raise _bad(
+            f"segment {segment_index} ({seg.skill_ref}) must have at least {MIN_EPISODES} episodes that ran, got "
+            f"{ran.size} (outcomes {counts}); run more episodes or start inside starts_when"
+        )
+    starts_all, ends_all = seg.start_state, seg.end_state
+    if features is None:
+        features = ("qpos", "qvel") if "qpos" in starts_all and "qvel" in starts_all else default_quantities(starts_all)
+    features = _check_quantities(features, starts_all, "features")
+    if end_quantities is None:
+        end_quantities = default_quantities(ends_all)
+    end_quantities = _check_quantities(end_quantities, ends_all, "end_quantities")
+    too_big = [q for q in end_quantities if np.ndim(ends_all[q]) > 2]
+    if too_big:
+        raise _bad(f"end_quantities must be scalars or vectors, got matrix-valued {too_big}; leave Jacobians out")
+
+    rng = np.random.default_rng([seed, 0xF17])
+    tr_local, te_local = _split(ran.size, holdout, seed)
+    train, test = ran[tr_local], ran[te_local]
+    starts_tr = _take(starts_all, train)
+    fmap = fit_feature_map(starts_tr, features, expansion=expansion, rng=rng)
+    x_tr, x_te = fmap(starts_tr), fmap(_take(starts_all, test))
+    env_id = str(rollout.env_id)
+    v_name, v_digest = _variant_of(getattr(rollout, "meta", {}) or {})
+    v_name = v_name if variant is None else variant
+    v_digest = v_digest if variant_digest is None else variant_digest
+
+    duration = _fit_duration(fmap, x_tr, x_te, seg, r_gamma, train, test)
+    reward = _fit_reward(fmap, x_tr, x_te, seg, r_gamma, train, test, env_id, v_name)
+
+    notes: list[str] = []
+    stopped = reasons == OUTCOME_CODES["stopped"]
+    s_rows = np.flatnonzero(stopped[ran])  # positions within `ran`
+    s_train = np.intersect1d(s_rows, tr_local)
+    s_test = np.intersect1d(s_rows, te_local)
+    end_state = None
+    if s_train.size >= MIN_STOPPED and s_test.size >= 1:
+        starts_ran, ends_ran = _take(starts_all, ran), _take(ends_all, ran)
+        end_state = _fit_end_state(fmap, starts_ran, ends_ran, end_quantities, s_train, s_test, envelope, rng)
+    else:
+        notes.append(
+            f"no end-state model: {s_train.size} stopped training and {s_test.size} stopped held-out episodes "
+            f"(need {MIN_STOPPED} and 1)"
+        )
+    meta = ModelsMeta(
+        skill_ref=str(seg.skill_ref if skill_ref is None else skill_ref),
+        env_id=env_id,
+        gamma=r_gamma,
+        episodes=int(np.sum(reasons != 4)),  # offered the skill (NOT_REACHED = 4 left out)
+        outcomes=counts,
+        fitted_at=fitted_at or datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        features=features,
+        end_quantities=end_quantities,
+        variant=v_name,
+        variant_digest=v_digest,
+        seed=int(seed),
+        holdout=float(holdout),
+        notes=tuple(notes),
+    )
+    return OptionModels(duration, reward, end_state, meta)
+
+
+def collect_and_fit(
+    skill: Any,
+    rig: Any,
+    *,
+    episodes: int,
+    seed: int,
+    workers: int = 1,
+    start: Any = None,
+    gamma: float = 0.99,
+    **fit_options: Any,
+) -> OptionModels:
+    """Run ``skill`` for ``episodes`` episodes on ``rig`` and fit its option models.
+
+    Starts come from ``start`` (a StartDistribution) or the rig's default; the
+    end-state envelope is the rig's layout. ``fit_options`` go to
+    ``fit_option_models`` (features, end_quantities, holdout, expansion...).
+    """
+    from kinetome.library.runtime.execute import run_skill, sample_starts  # lazy: mujoco
+
+    qpos, qvel = sample_starts(rig, start, int(episodes), seed=seed)
+    rollout = run_skill(skill, rig, starts=(qpos, qvel), seed=seed, workers=workers, gamma=gamma)
+    fit_options.setdefault("envelope", rig.layout)
+    variant = getattr(rig, "variant", None)
+    if variant is not None:
+        fit_options.setdefault("variant", str(getattr(variant, "name", variant)))
+        digest = getattr(variant, "digest", None)
+        if digest is not None:
+            fit_options.setdefault("variant_digest", str(digest() if callable(digest) else digest))
+    return fit_option_models(rollout, 0, gamma=gamma, seed=seed, **fit_options)
