@@ -1,0 +1,210 @@
+"""``verify``: re-hash every blob, name every version and model revision a damaged blob breaks."""
+
+from __future__ import annotations
+
+import sqlite3
+from dataclasses import dataclass
+from pathlib import Path
+
+from kinetome.library.store.blobs import BlobDir, hash_file
+from kinetome.library.store.records import is_digest
+
+__all__ = ["BlobUse", "BlobProblem", "VerifyReport", "verify_store"]
+
+
+@dataclass(frozen=True)
+class BlobUse:
+    """One user of a blob: a version (``name@N``) or a model revision (``name@N/kind#R``) and its role."""
+
+    owner: str
+    role: str
+
+    def __str__(self) -> str:
+        return f"{self.owner} ({self.role})"
+
+
+@dataclass(frozen=True)
+class BlobProblem:
+    """A blob the index needs that is missing or whose content no longer matches its digest."""
+
+    digest: str
+    path: Path
+    problem: str  # "missing" | "corrupt"
+    expected_size: int
+    actual_size: int | None
+    actual_digest: str | None
+    used_by: tuple[BlobUse, ...]
+
+    def __str__(self) -> str:
+        users = ", ".join(str(u) for u in self.used_by) or "no version"
+        if self.problem == "missing":
+            what = f"is missing at {self.path}"
+        else:
+            what = (
+                f"is corrupt at {self.path}: sha256 {self.actual_digest}, "
+                f"{self.actual_size} bytes (expected {self.expected_size})"
+            )
+        return f"blob {self.digest} {what}; used by {users}"
+
+
+@dataclass(frozen=True)
+class VerifyReport:
+    """Result of ``Store.verify()``; ``ok`` ignores orphans and temp files (harmless leftovers)."""
+
+    root: Path
+    blobs_checked: int
+    bytes_checked: int
+    versions_checked: int
+    models_checked: int
+    problems: tuple[BlobProblem, ...]
+    index_problems: tuple[str, ...]
+    orphans: tuple[Path, ...]
+    temp_files: tuple[Path, ...]
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems and not self.index_problems
+
+    @property
+    def damaged(self) -> tuple[str, ...]:
+        """Every version and model ref that uses a damaged blob, sorted, each once."""
+        return tuple(sorted({u.owner for p in self.problems for u in p.used_by}))
+
+    def to_dict(self) -> dict:
+        """JSON-ready form (for ``kinetome verify --json``)."""
+        return {
+            "ok": self.ok,
+            "root": str(self.root),
+            "blobs_checked": self.blobs_checked,
+            "bytes_checked": self.bytes_checked,
+            "versions_checked": self.versions_checked,
+            "models_checked": self.models_checked,
+            "problems": [
+                {
+                    "digest": p.digest,
+                    "path": str(p.path),
+                    "problem": p.problem,
+                    "expected_size": p.expected_size,
+                    "actual_size": p.actual_size,
+                    "actual_digest": p.actual_digest,
+                    "used_by": [{"owner": u.owner, "role": u.role} for u in p.used_by],
+                }
+                for p in self.problems
+            ],
+            "damaged": list(self.damaged),
+            "index_problems": list(self.index_problems),
+            "orphans": [str(p) for p in self.orphans],
+            "temp_files": [str(p) for p in self.temp_files],
+        }
+
+    def format_text(self) -> str:
+        return "\n".join(self.lines())
+
+    def lines(self) -> list[str]:
+        """Human-readable lines: problems first, then a summary."""
+        out = [f"index: {p}" for p in self.index_problems]
+        out += [str(p) for p in self.problems]
+        if self.orphans:
+            out.append(f"{len(self.orphans)} orphan blob file(s) not used by any version (harmless leftovers of interrupted adds)")
+        if self.temp_files:
+            out.append(f"{len(self.temp_files)} temp file(s) in {self.root / 'tmp'} (left by interrupted writes, or a write in progress)")
+        status = "ok" if self.ok else f"DAMAGED: {len(self.problems)} bad blob(s), {len(self.index_problems)} index problem(s)"
+        out.append(
+            f"{status}: {self.versions_checked} versions, {self.models_checked} model revisions, "
+            f"{self.blobs_checked} blobs ({self.bytes_checked} bytes) checked in {self.root}"
+        )
+        return out
+
+
+def _index_problems(conn: sqlite3.Connection) -> list[str]:
+    problems = [r[0] for r in conn.execute("PRAGMA integrity_check") if r[0] != "ok"]
+    for table, rowid, parent, _ in conn.execute("PRAGMA foreign_key_check"):
+        problems.append(f"table {table} row {rowid} points at a missing row of {parent}")
+    for name, count, top in conn.execute("SELECT name, COUNT(*), MAX(number) FROM versions GROUP BY name"):
+        if count != top:
+            problems.append(f"skill {name} has {count} versions but numbers up to {top} (numbers must be gap-free)")
+    for (ref,) in conn.execute(
+        "SELECT v.name || '@' || v.number FROM versions v"
+        " WHERE NOT EXISTS (SELECT 1 FROM version_files f WHERE f.version_id = v.id)"
+    ):
+        problems.append(f"version {ref} has no files")
+    for ref, role, fsize, bsize in conn.execute(
+        "SELECT v.name || '@' || v.number, f.role, f.size, b.size FROM version_files f"
+        " JOIN versions v ON v.id = f.version_id JOIN blobs b ON b.digest = f.digest WHERE f.size != b.size"
+    ):
+        problems.append(f"version {ref} file {role} records {fsize} bytes but its blob records {bsize}")
+    return problems
+
+
+def _users(conn: sqlite3.Connection, digests: list[str]) -> dict[str, list[BlobUse]]:
+    out: dict[str, list[BlobUse]] = {d: [] for d in digests}
+    for start in range(0, len(digests), 500):
+        chunk = digests[start : start + 500]
+        marks = ",".join("?" * len(chunk))
+        for digest, owner, role in conn.execute(
+            "SELECT f.digest, v.name || '@' || v.number, f.role FROM version_files f"
+            f" JOIN versions v ON v.id = f.version_id WHERE f.digest IN ({marks})"
+            " ORDER BY v.name, v.number, f.role",
+            chunk,
+        ):
+            out[digest].append(BlobUse(owner, role))
+        for digest, owner, role in conn.execute(
+            "SELECT f.digest, v.name || '@' || v.number || '/' || m.kind || '#' || m.revision, f.role"
+            " FROM model_files f JOIN models m ON m.id = f.model_id JOIN versions v ON v.id = m.version_id"
+            f" WHERE f.digest IN ({marks}) ORDER BY v.name, v.number, m.kind, m.revision, f.role",
+            chunk,
+        ):
+            out[digest].append(BlobUse(owner, role))
+    return out
+
+
+def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> VerifyReport:
+    """Check the index, re-hash every blob it lists, and list leftovers.
+
+    A snapshot: a blob written by an add still in progress elsewhere may show as an orphan.
+    """
+    index_problems = _index_problems(conn)
+    expected = {d: int(s) for d, s in conn.execute("SELECT digest, size FROM blobs ORDER BY digest")}
+    (n_versions,) = conn.execute("SELECT COUNT(*) FROM versions").fetchone()
+    (n_models,) = conn.execute("SELECT COUNT(*) FROM models").fetchone()
+    bad: list[tuple[str, str, int | None, str | None]] = []
+    total = 0
+    for digest, size in expected.items():
+        path = blobs.path(digest)
+        try:
+            actual, actual_size = hash_file(path)
+        except FileNotFoundError:
+            bad.append((digest, "missing", None, None))
+            continue
+        total += actual_size
+        if actual != digest or actual_size != size:
+            bad.append((digest, "corrupt", actual_size, actual))
+    users = _users(conn, [b[0] for b in bad])
+    problems = tuple(
+        BlobProblem(
+            digest=d,
+            path=blobs.path(d),
+            problem=kind,
+            expected_size=expected[d],
+            actual_size=asize,
+            actual_digest=adigest,
+            used_by=tuple(users[d]),
+        )
+        for d, kind, asize, adigest in bad
+    )
+    orphans = tuple(
+        p
+        for p in blobs.stored_files()
+        if not (is_digest(p.name) and p.parent.name == p.name[:2] and p.name in expected and p.is_file())
+    )
+    return VerifyReport(
+        root=root,
+        blobs_checked=len(expected),
+        bytes_checked=total,
+        versions_checked=int(n_versions),
+        models_checked=int(n_models),
+        problems=problems,
+        index_problems=tuple(index_problems),
+        orphans=orphans,
+        temp_files=tuple(blobs.temp_files()),
+    )
