@@ -1,0 +1,333 @@
+"""The controller base class: named, bounded parameters, a deterministic mean and a Gaussian head."""
+
+from __future__ import annotations
+
+from types import MappingProxyType
+from typing import Any, ClassVar, Mapping
+
+import numpy as np
+import torch
+
+from ..errors import Problem
+from .context import ControllerContext
+from .errors import ControllerError, close_match_hint, problem
+from .params import ParamDecl, check_value
+
+__all__ = ["Controller", "log_std_decl", "LOG_STD_LOW", "LOG_STD_HIGH"]
+
+# log_std bounds for an actuator of half-range 1 (common practice for Gaussian
+# policies); wider actuators get the same range relative to their half-range too.
+LOG_STD_LOW = -5.0
+LOG_STD_HIGH = 1.0
+_F64 = torch.float64
+
+
+def log_std_decl(context: ControllerContext) -> ParamDecl:
+    """The exploration head's parameter, shared by every kind.
+
+    Bounds are [-5, 1] widened to [-5 + log h, 1 + log h] for an actuator whose
+    half-range h differs from 1; the default std is 10 % of the half-range.
+    """
+    log_half = np.log(context.action_half_range)
+    low = LOG_STD_LOW + np.minimum(0.0, log_half)
+    high = LOG_STD_HIGH + np.maximum(0.0, log_half)
+    return ParamDecl(
+        "log_std",
+        (context.n_act,),
+        low,
+        high,
+        default=np.log(0.1 * context.action_half_range),
+        doc="log of the exploration noise's standard deviation, per actuator",
+        unit="log ctrl",
+        shape_help="give one value per actuator",
+    )
+
+
+class Controller(torch.nn.Module):
+    """A skill's internal policy: a deterministic mean plus Gaussian exploration.
+
+    Subclasses register with ``@register_kind`` and provide ``OPTIONS`` (name ->
+    default), ``_declare`` (the parameters), ``reads`` (named-state inputs),
+    optionally ``requires`` (runtime extras such as ``fingertip_jac``) and
+    ``_mean``. Build instances with ``build_controller``.
+
+    Shapes: state values are (B, *quantity.shape), ``skill_time`` (B,) seconds
+    since the skill started, actions (B, n_act). Everything is float64.
+    """
+
+    kind: ClassVar[str] = ""
+    OPTIONS: ClassVar[Mapping[str, Any]] = MappingProxyType({})
+
+    # ----- kind hooks -------------------------------------------------------
+
+    @classmethod
+    def resolve_options(
+        cls, context: ControllerContext, options: Mapping[str, Any] | None = None, *, where: str = "controller"
+    ) -> dict[str, Any]:
+        """Options with defaults filled in and values checked; raises ``ControllerError``."""
+        given = dict(options or {})
+        problems: list[Problem] = []
+        for name in given:
+            if name not in cls.OPTIONS:
+                known = ", ".join(sorted(cls.OPTIONS)) or "none"
+                problems.append(problem(
+                    f"{where}.options.{name}",
+                    f"is not an option of kind {cls.kind!r}",
+                    f"{close_match_hint(name, cls.OPTIONS)}known options: {known}",
+                ))
+        merged = {**cls.OPTIONS, **{k: v for k, v in given.items() if k in cls.OPTIONS}}
+        resolved = cls._normalise_options(context, merged, where, problems)
+        if problems:
+            raise ControllerError(problems)
+        return resolved
+
+    @classmethod
+    def _normalise_options(
+        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
+    ) -> dict[str, Any]:
+        """Check option values (append problems) and return them in canonical form."""
+        return options
+
+    @classmethod
+    def declare(cls, context: ControllerContext, options: Mapping[str, Any] | None = None) -> tuple[ParamDecl, ...]:
+        """Every parameter of this kind for ``context`` and ``options``, ``log_std`` last."""
+        resolved = cls.resolve_options(context, options)
+        return (*cls._declare(context, resolved), log_std_decl(context))
+
+    @classmethod
+    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+        raise NotImplementedError
+
+    @classmethod
+    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+        """Named-state quantities the mean reads."""
+        raise NotImplementedError
+
+    @classmethod
+    def requires(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+        """Runtime extras beyond named state (``<site>_jac``, (B, 3, nv))."""
+        return ()
+
+    def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
+        raise NotImplementedError
+
+    # ----- construction -----------------------------------------------------
+
+    def __init__(
+        self,
+        context: ControllerContext,
+        options: Mapping[str, Any],
+        decls: tuple[ParamDecl, ...],
+        values: Mapping[str, np.ndarray],
+        bounds: Mapping[str, tuple[np.ndarray, np.ndarray]],
+    ):
+        super().__init__()
+        self.context = context
+        self._options = dict(options)
+        self.inputs: tuple[str, ...] = tuple(self.reads(context, self.options))
+        self.needs: tuple[str, ...] = tuple(self.requires(context, self.options))
+        self._decls: dict[str, ParamDecl] = {d.name: d for d in decls}
+        self.p = torch.nn.ParameterDict()
+        self.fixed = torch.nn.Module()
+        self._low: dict[str, torch.Tensor] = {}
+        self._high: dict[str, torch.Tensor] = {}
+        for d in decls:
+            tensor = torch.tensor(values[d.name], dtype=_F64)
+            if d.trainable:
+                self.p[d.name] = torch.nn.Parameter(tensor)
+            else:
+                self.fixed.register_buffer(d.name, tensor)
+            low, high = bounds[d.name]
+            self._low[d.name] = torch.tensor(low, dtype=_F64)
+            self._high[d.name] = torch.tensor(high, dtype=_F64)
+        self._action_low = torch.tensor(context.action_low, dtype=_F64)
+        self._action_high = torch.tensor(context.action_high, dtype=_F64)
+        self._qpos_index = torch.tensor(context.actuated_qpos, dtype=torch.long)
+        self._qvel_index = torch.tensor(context.actuated_qvel, dtype=torch.long)
+        self._shapes = {name: tuple(context.layout[name].shape) for name in self.inputs}
+        self._shapes.update({name: (3, context.nv) for name in self.needs})
+
+    # ----- parameters -------------------------------------------------------
+
+    @property
+    def options(self) -> Mapping[str, Any]:
+        """The resolved options (defaults filled in), read-only."""
+        return MappingProxyType(self._options)
+
+    @property
+    def n_act(self) -> int:
+        return self.context.n_act
+
+    @property
+    def log_std(self) -> torch.nn.Parameter:
+        """(n_act,) log standard deviation of the exploration noise."""
+        return self.p["log_std"]
+
+    @property
+    def declarations(self) -> tuple[ParamDecl, ...]:
+        return tuple(self._decls.values())
+
+    def value(self, name: str) -> torch.Tensor:
+        """The live tensor of parameter ``name`` (a Parameter, or a buffer when not trainable)."""
+        if name in self.p:
+            return self.p[name]
+        return getattr(self.fixed, name)
+
+    def parameter_values(self) -> dict[str, np.ndarray]:
+        """name -> float64 copy of every parameter (``log_std`` and fixed ones included)."""
+        return {name: self.value(name).detach().cpu().numpy().copy() for name in self._decls}
+
+    def parameter_bounds(self) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+        """name -> (low, high) full-shape float64 copies."""
+        return {name: (self._low[name].numpy().copy(), self._high[name].numpy().copy()) for name in self._decls}
+
+    def project_(self) -> "Controller":
+        """Clamp every parameter into its bounds, in place (call after each optimiser step)."""
+        with torch.no_grad():
+            for name in self._decls:
+                self.value(name).clamp_(self._low[name], self._high[name])
+        return self
+
+    def load_values(self, values: Mapping[str, Any], *, partial: bool = False, where: str = "controller") -> None:
+        """Replace parameter values, e.g. from ``load_parameters``; all must be present unless ``partial``.
+
+        Unknown or missing names, wrong shapes and out-of-bound values are all
+        reported in one ``ControllerError``; nothing changes when any is wrong.
+        """
+        problems: list[Problem] = []
+        known = list(self._decls)
+        for name in values:
+            if name not in self._decls:
+                problems.append(problem(
+                    f"{where}.parameters.{name}",
+                    f"is not a parameter of kind {self.kind!r}",
+                    f"{close_match_hint(name, known)}known parameters: {', '.join(sorted(known))}",
+                ))
+        if not partial:
+            for name in known:
+                if name not in values:
+                    problems.append(problem(
+                        f"{where}.parameters.{name}",
+                        "is missing from the loaded values",
+                        f"give every parameter of kind {self.kind!r}: {', '.join(known)}",
+                    ))
+        checked: dict[str, np.ndarray] = {}
+        for name, raw in values.items():
+            decl = self._decls.get(name)
+            if decl is None:
+                continue
+            arr, found = check_value(
+                decl,
+                raw,
+                self._low[name].numpy(),
+                self._high[name].numpy(),
+                field=f"{where}.parameters.{name}",
+                bounds_field=f"{where}.bounds.{name}",
+            )
+            problems.extend(found)
+            if arr is not None:
+                checked[name] = arr
+        if problems:
+            raise ControllerError(problems)
+        with torch.no_grad():
+            for name, arr in checked.items():
+                self.value(name).copy_(torch.from_numpy(arr))
+
+    def describe(self) -> list[dict[str, Any]]:
+        """Rows for tables and JSON: name, shape, unit, value, low, high, trainable, doc."""
+        values, bounds = self.parameter_values(), self.parameter_bounds()
+        return [
+            {
+                "name": d.name,
+                "shape": list(d.shape),
+                "unit": d.unit,
+                "value": values[d.name].tolist(),
+                "low": bounds[d.name][0].tolist(),
+                "high": bounds[d.name][1].tolist(),
+                "trainable": d.trainable,
+                "doc": d.doc,
+            }
+            for d in self._decls.values()
+        ]
+
+    # ----- evaluation -------------------------------------------------------
+
+    def _tensors(self, state: Mapping[str, Any], skill_time: Any) -> tuple[dict[str, torch.Tensor], torch.Tensor]:
+        """Checked float64 tensors of the quantities read, and skill_time as (B,)."""
+        missing = [n for n in self._shapes if n not in state]
+        if missing:
+            raise ValueError(
+                f"state must hold {', '.join(repr(n) for n in missing)} for controller kind {self.kind!r}, "
+                f"got only {', '.join(sorted(state)) or 'nothing'}; give every name in inputs {self.inputs} and needs {self.needs}"
+            )
+        x: dict[str, torch.Tensor] = {}
+        batch: int | None = None
+        for name, shape in self._shapes.items():
+            raw = state[name]
+            t = raw.to(_F64) if isinstance(raw, torch.Tensor) else torch.tensor(np.asarray(raw, dtype=np.float64))
+            if batch is None and t.dim() >= 1:
+                batch = int(t.shape[0])
+            if tuple(t.shape) != (batch, *shape):
+                raise ValueError(
+                    f"state[{name!r}] must have shape (batch, {', '.join(map(str, shape))}) = {(batch, *shape)}, "
+                    f"got {tuple(t.shape)}; give one row per state"
+                )
+            x[name] = t
+        assert batch is not None
+        t = skill_time.to(_F64) if isinstance(skill_time, torch.Tensor) else torch.tensor(np.asarray(skill_time, dtype=np.float64))
+        if t.dim() == 0:
+            t = t.expand(batch)
+        if tuple(t.shape) != (batch,):
+            raise ValueError(f"skill_time must have shape ({batch},) like the state batch, got {tuple(t.shape)}; give one time per state")
+        return x, t
+
+    def mean(self, state: Mapping[str, Any], skill_time: Any) -> torch.Tensor:
+        """(B, n_act) mean action, unclipped, differentiable in the parameters."""
+        x, t = self._tensors(state, skill_time)
+        return self._mean(x, t)
+
+    def distribution(self, state: Mapping[str, Any], skill_time: Any) -> torch.distributions.Normal:
+        """Gaussian over actions: loc = mean, scale = exp(log_std) per actuator."""
+        loc = self.mean(state, skill_time)
+        return torch.distributions.Normal(loc, torch.exp(self.log_std).expand_as(loc))
+
+    def act(
+        self,
+        state: Mapping[str, np.ndarray],
+        skill_time: np.ndarray,
+        *,
+        explore: bool = False,
+        generator: torch.Generator | None = None,
+        noise: np.ndarray | None = None,
+    ) -> np.ndarray:
+        """(B, n_act) float64 actions for a whole batch, clipped to the actuator limits.
+
+        ``explore`` adds exp(log_std) * N(0, 1) drawn from ``generator`` (torch's
+        global generator when None). ``noise`` instead supplies the standard-normal
+        draws (B, n_act), e.g. from per-episode streams; the sum is then clipped.
+        """
+        with torch.no_grad():
+            mean = self.mean(state, skill_time)
+            if noise is not None:
+                eps = torch.tensor(np.asarray(noise, dtype=np.float64))
+                if tuple(eps.shape) != tuple(mean.shape):
+                    raise ValueError(f"noise must have shape {tuple(mean.shape)}, got {tuple(eps.shape)}; give one row per state")
+                mean = mean + torch.exp(self.log_std) * eps
+            elif explore:
+                eps = torch.randn(mean.shape, generator=generator, dtype=_F64)
+                mean = mean + torch.exp(self.log_std) * eps
+            action = torch.clamp(mean, self._action_low, self._action_high)
+            return action.numpy().astype(np.float64, copy=True)
+
+    # ----- helpers for kinds ------------------------------------------------
+
+    def actuated_qpos(self, x: dict[str, torch.Tensor]) -> torch.Tensor:
+        """(B, n_act) positions of the actuated joints."""
+        return x["qpos"].index_select(1, self._qpos_index)
+
+    def actuated_qvel(self, x: dict[str, torch.Tensor]) -> torch.Tensor:
+        """(B, n_act) velocities of the actuated joints."""
+        return x["qvel"].index_select(1, self._qvel_index)
+
+    def extra_repr(self) -> str:
+        return f"kind={self.kind!r}, n_act={self.n_act}, inputs={self.inputs}, needs={self.needs}"

@@ -1,0 +1,98 @@
+"""``build_controller``: kind + context + spec values -> a checked, ready controller."""
+
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..errors import Problem
+from .base import Controller, log_std_decl
+from .context import ControllerContext
+from .errors import ControllerError, problem
+from .params import check_parameters, format_number, resolve_bounds
+from .registry import kind_class
+
+__all__ = ["build_controller"]
+
+
+def _log_std_from(
+    std: Any, bounds: Any, context: ControllerContext, *, where: str
+) -> tuple[np.ndarray | None, list[Problem]]:
+    """log of a user exploration std (a number or one per actuator), checked against log_std's bounds."""
+    field = f"{where}.exploration_std"
+    decl = log_std_decl(context)
+    try:
+        arr = np.asarray(std, dtype=np.float64)
+    except (TypeError, ValueError):
+        return None, [problem(field, f"must be a positive number or one per actuator, got {std!r}", "give e.g. 0.1")]
+    if arr.shape not in ((), decl.shape):
+        return None, [problem(field, f"must be a number or have shape {decl.shape}, got shape {arr.shape}", "give one std for all actuators or one per actuator")]
+    arr = np.broadcast_to(arr, decl.shape)
+    bad = np.flatnonzero(~(np.isfinite(arr) & (arr > 0)))
+    if bad.size:
+        i = int(bad[0])
+        return None, [problem(field, f"must be positive and finite, got {format_number(arr[i])} at element {i}", "give e.g. 0.1")]
+    pair, found = resolve_bounds(decl, bounds, field=f"{where}.bounds.log_std")
+    if pair is None:
+        return None, found
+    log = np.log(arr)
+    low, high = pair
+    bad = np.flatnonzero((log < low) | (log > high))
+    if bad.size:
+        i = int(bad[0])
+        return None, [problem(
+            field,
+            f"must lie within [{format_number(np.exp(low[i]))}, {format_number(np.exp(high[i]))}] (exp of the log_std bounds), "
+            f"got {format_number(arr[i])} at element {i}",
+            f"give a std inside that range or widen {where}.bounds.log_std",
+        )]
+    return np.array(log, dtype=np.float64), []
+
+
+def build_controller(
+    kind: str,
+    context: ControllerContext,
+    *,
+    parameters: Mapping[str, Any] | None = None,
+    bounds: Mapping[str, Any] | None = None,
+    options: Mapping[str, Any] | None = None,
+    exploration_std: Any = None,
+    where: str = "controller",
+) -> Controller:
+    """A controller of ``kind`` for ``context``.
+
+    ``parameters``: name -> array-like; missing names take the declared default
+    (a missing required one is an error). ``bounds``: name -> (low, high), each a
+    number or one per element, inside the kind's hard limits. ``exploration_std``:
+    a number or one per actuator (default 10 % of each actuator's half-range);
+    or give ``log_std`` in ``parameters`` instead. Every problem is reported at
+    once in a ``ControllerError`` whose fields start with ``where``.
+    """
+    cls = kind_class(kind, where=where)
+    resolved = cls.resolve_options(context, options, where=where)
+    decls = (*cls._declare(context, resolved), log_std_decl(context))
+    params = dict(parameters or {})
+    problems: list[Problem] = []
+    if exploration_std is not None:
+        if "log_std" in params:
+            problems.append(problem(
+                f"{where}.exploration_std",
+                "conflicts with the given log_std parameter",
+                "give exploration_std or parameters.log_std, not both",
+            ))
+        else:
+            log, found = _log_std_from(exploration_std, (bounds or {}).get("log_std"), context, where=where)
+            problems.extend(found)
+            if log is not None:
+                params["log_std"] = log
+    try:
+        values, resolved_bounds = check_parameters(decls, params, bounds, kind=kind, where=where)
+    except ControllerError as exc:
+        # A bad exploration_std already reported its log_std bounds problem once.
+        seen = {(p.field, p.message) for p in problems}
+        problems.extend(p for p in exc.problems if (p.field, p.message) not in seen)
+        values, resolved_bounds = {}, {}
+    if problems:
+        raise ControllerError(problems)
+    return cls(context, resolved, decls, values, resolved_bounds)
