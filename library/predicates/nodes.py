@@ -93,7 +93,7 @@ class Num(Node):
         value = float(self.value)
         if not math.isfinite(value) or abs(value) > MAX_LITERAL:
             raise ValueError(
-                f"number literal must be finite with magnitude <= {MAX_LITERAL:g}, got {value!r}"
+                f"number literal must be finite with magnitude <= 1e9, got {value!r}"
             )
         object.__setattr__(self, "value", value)
 

@@ -79,11 +79,9 @@ def _functions_hint() -> str:
 class _Converter:
     """Turns an ``ast`` expression into nodes, recording where each node came from."""
 
-    def __init__(self, body: str, *, line_shift: int, column_shift: int, text: str, what: str):
+    def __init__(self, body: str, *, lead: int, text: str, what: str):
         self.body = body
-        self.lines = body.split("\n")
-        self.line_shift = line_shift
-        self.column_shift = column_shift
+        self.lead = lead
         self.text = text
         self.what = what
         self.spans: dict[int, Span] = {}
@@ -104,13 +102,9 @@ class _Converter:
     # -- positions ----------------------------------------------------------------
     def position(self, node: ast.AST) -> tuple[int, int]:
         """1-based (line, column) in the original text, in characters."""
-        lineno = getattr(node, "lineno", 1)
-        byte_col = getattr(node, "col_offset", 0)
-        line_text = self.lines[lineno - 1] if 0 < lineno <= len(self.lines) else ""
-        column = len(line_text.encode("utf-8")[:byte_col].decode("utf-8", errors="ignore")) + 1
-        if lineno == 1:
-            column += self.column_shift
-        return lineno + self.line_shift, column
+        byte_col = getattr(node, "col_offset", 0)  # the body is one line: newlines became spaces
+        chars = len(self.body.encode("utf-8")[:byte_col].decode("utf-8", errors="ignore"))
+        return _line_column(self.text, self.lead + chars)
 
     def source(self, node: ast.AST) -> str:
         return ast.get_source_segment(self.body, node) or ""
@@ -331,20 +325,23 @@ def _int_literal(node: ast.AST) -> int | None:
     return None
 
 
-def _syntax_error(exc: SyntaxError, *, text: str, line_shift: int, column_shift: int, what: str) -> PredicateError:
-    lineno = exc.lineno or 1
-    body_lines = text.lstrip().split("\n")
-    if not exc.offset:  # Python gives 0 when the text ends too early: point past the end
-        column = len(body_lines[min(lineno, len(body_lines)) - 1].rstrip()) + 1
-    else:
-        column = exc.offset
-    column += column_shift if lineno == 1 else 0
+def _line_column(text: str, offset: int) -> tuple[int, int]:
+    """1-based (line, column) of a 0-based character offset into ``text``."""
+    line = text.count("\n", 0, offset) + 1
+    column = offset - (text.rfind("\n", 0, offset) + 1) + 1
+    return line, column
+
+
+def _syntax_error(exc: SyntaxError, *, text: str, body: str, lead: int, what: str) -> PredicateError:
+    # Python gives offset 0 when the text ends too early: point just past the end.
+    offset = (exc.offset - 1) if exc.offset else len(body.rstrip())
+    line, column = _line_column(text, lead + min(offset, len(body)))
     detail = "" if exc.msg == "invalid syntax" else f": {exc.msg}"
     return PredicateError(
         f"invalid syntax{detail}",
         fix="write one Python-style expression, e.g. 'norm(fingertip - target) < 0.02 and torso_height > 0.8'",
         text=text,
-        line=lineno + line_shift,
+        line=line,
         column=column,
         what=what,
     )
@@ -370,21 +367,22 @@ def parse_predicate(
             text=text,
             what=what,
         )
-    body = text.lstrip()
+    # Newlines are plain whitespace in a predicate (YAML block scalars keep them);
+    # replacing them one for one keeps every character offset.
+    flat = text.replace("\r", " ").replace("\n", " ")
+    body = flat.lstrip()
     if not body.strip():
         raise PredicateError("is empty", fix="write a condition such as 'torso_height > 0.8'", text=text, what=what)
-    lead = text[: len(text) - len(body)]
-    line_shift = lead.count("\n")
-    column_shift = len(lead) - (lead.rfind("\n") + 1)
+    lead = len(flat) - len(body)
     try:
         tree = ast.parse(body, mode="eval")
     except SyntaxError as exc:
-        raise _syntax_error(exc, text=text, line_shift=line_shift, column_shift=column_shift, what=what) from None
+        raise _syntax_error(exc, text=text, body=body, lead=lead, what=what) from None
     except (RecursionError, MemoryError):
         raise PredicateError(
             f"nests deeper than {MAX_DEPTH} levels", fix="split it into simpler clauses", text=text, what=what
         ) from None
-    converter = _Converter(body, line_shift=line_shift, column_shift=column_shift, text=text, what=what)
+    converter = _Converter(body, lead=lead, text=text, what=what)
     root = converter.convert(tree.body, 1)
     TypeChecker(shapes, spans=converter.spans, text=text, what=what).check_predicate(root)
     return Predicate(root, shapes)
