@@ -1,0 +1,56 @@
+"""Several processes adding at once: no version lost, numbers unique and gap-free per name."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from kinetome.library.store import Store
+
+WORKER = Path(__file__).with_name("store_worker.py")
+WRITERS = 4
+PER_WRITER = 50
+
+
+def _run_all(commands: list[list[str]], go: Path) -> None:
+    procs = [subprocess.Popen([sys.executable, str(WORKER), *c], stderr=subprocess.PIPE, text=True) for c in commands]
+    go.touch()  # all start adding at (nearly) the same moment
+    errors = []
+    for p in procs:
+        _, err = p.communicate(timeout=240)
+        if p.returncode != 0:
+            errors.append(err)
+    assert not errors, "\n".join(errors)
+
+
+@pytest.mark.parametrize("shared_name", [True, False], ids=["same-name", "distinct-names"])
+def test_parallel_adders_lose_nothing(tmp_path, shared_name):
+    root, go = tmp_path / "store", tmp_path / "go"
+    Store(root).close()
+    names = ["shared"] * WRITERS if shared_name else [f"skill-{w}" for w in range(WRITERS)]
+    _run_all([["add", str(root), names[w], str(w), str(PER_WRITER), str(go)] for w in range(WRITERS)], go)
+
+    with Store(root, create=False) as store:
+        assert store.verify().ok
+        versions = [v for name in sorted(set(names)) for v in store.history(name)]
+        assert len(versions) == WRITERS * PER_WRITER
+        for name in set(names):
+            numbers = [v.number for v in store.history(name)]
+            assert numbers == list(range(1, len(numbers) + 1)), f"{name}: numbers must be unique and gap-free"
+        written = sorted((v.meta["writer"], v.meta["i"]) for v in versions)
+        assert written == [(w, i) for w in range(WRITERS) for i in range(PER_WRITER)], "a version was lost or doubled"
+
+
+def test_parallel_identical_adds_create_each_version_once(tmp_path):
+    root, go = tmp_path / "store", tmp_path / "go"
+    Store(root).close()
+    count = 20
+    _run_all([["same", str(root), "twin", str(count), str(go)] for _ in range(WRITERS)], go)
+    with Store(root, create=False) as store:
+        history = store.history("twin")
+        assert [v.number for v in history] == list(range(1, count + 1))
+        # each distinct content exists exactly once, whichever writer got there first
+        assert sorted(v.meta["i"] for v in history) == list(range(count))

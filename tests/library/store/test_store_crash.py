@@ -1,0 +1,65 @@
+"""A store survives adders killed with SIGKILL at random moments: no partial version, ever."""
+
+from __future__ import annotations
+
+import importlib.util
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from kinetome.library.store import Store
+
+WORKER = Path(__file__).with_name("store_worker.py")
+_spec = importlib.util.spec_from_file_location("kinetome_store_worker", WORKER)
+worker = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(worker)
+
+KILLS = 32  # the brief asks for at least 30
+
+
+@pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX SIGKILL")
+def test_sigkilled_adders_leave_only_complete_versions(tmp_path):
+    root = tmp_path / "store"
+    rng = random.Random(20260131)
+    killed_while_running = 0
+    started = time.monotonic()
+    for k in range(KILLS):
+        proc = subprocess.Popen(
+            [sys.executable, str(WORKER), "crash", str(root), str(k)],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        assert proc.stdout.readline().strip() == "ready", proc.stderr.read()
+        time.sleep(rng.uniform(0.0, 0.2))  # seeded delay: kill lands anywhere in the add loop
+        if proc.poll() is None:
+            killed_while_running += 1
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=30)
+        proc.stdout.close()
+        proc.stderr.close()
+    elapsed = time.monotonic() - started
+    assert killed_while_running == KILLS, "a worker exited on its own; see its stderr"
+
+    with Store(root, create=False) as store:
+        report = store.verify()
+        assert report.ok, report.lines()  # orphans and temp files are allowed, damage is not
+        history = store.history("crash")
+        numbers = [v.number for v in history]
+        assert numbers == list(range(1, len(numbers) + 1)), "version numbers must be gap-free"
+        assert len(history) >= KILLS // 2, f"only {len(history)} versions in {elapsed:.1f} s: workers made no progress"
+        for v in history:
+            files, meta = worker.crash_files(v.meta["seed"], v.meta["i"])
+            assert set(v.roles) == set(files), f"{v.ref} is partial: {v.roles}"
+            for role, data in files.items():
+                assert store.read_file(v, role) == data, f"{v.ref} {role} differs from what was added"
+            for m in store.models(v.ref, all_revisions=True):
+                assert store.read_model(m, "table.bin") == worker.payload(f"model-{meta['seed']}-{m.meta['i']}", "t", 4096)
+        # every add named the latest version as parent, so the lineage of the newest runs through all
+        assert [v.ref for v in store.lineage(history[-1].ref)] == [v.ref for v in reversed(history)]
