@@ -42,13 +42,12 @@ def envelope_arrays(
     for name, shape in zip(quantities, shapes):
         size = int(np.prod(shape, dtype=np.int64)) if shape else 1
         lo = hi = None
-        if envelope is not None:
-            if isinstance(envelope, Mapping):
-                if name in envelope:
-                    lo, hi = envelope[name]
-            elif name in envelope:
-                q = envelope[name]
-                lo, hi = getattr(q, "low", None), getattr(q, "high", None)
+        if envelope is not None and name in envelope:
+            entry = envelope[name]
+            if hasattr(entry, "low") and hasattr(entry, "high"):  # a layout's Quantity
+                lo, hi = entry.low, entry.high
+            else:
+                lo, hi = entry
         lo_arr = np.full(size, -np.inf) if lo is None else np.broadcast_to(np.asarray(lo, dtype=np.float64).ravel(), (size,))
         hi_arr = np.full(size, np.inf) if hi is None else np.broadcast_to(np.asarray(hi, dtype=np.float64).ravel(), (size,))
         if np.any(lo_arr > hi_arr):
@@ -69,8 +68,9 @@ def conformal_offsets(residuals: np.ndarray, level: float) -> tuple[np.ndarray, 
     n = residuals.shape[0]
     alpha = 1.0 - level
     ordered = np.sort(residuals, axis=0)
-    lo_rank = math.floor((n + 1) * alpha / 2.0)  # 1-based
-    hi_rank = math.ceil((n + 1) * (1.0 - alpha / 2.0))
+    eps = 1e-9  # (n+1) a/2 is often an integer up to rounding (1 - 0.9 = 0.0999...98)
+    lo_rank = math.floor((n + 1) * alpha / 2.0 + eps)  # 1-based
+    hi_rank = math.ceil((n + 1) * (1.0 - alpha / 2.0) - eps)
     d = residuals.shape[1]
     lo = ordered[lo_rank - 1] if lo_rank >= 1 else np.full(d, -np.inf)
     hi = ordered[hi_rank - 1] if hi_rank <= n else np.full(d, np.inf)

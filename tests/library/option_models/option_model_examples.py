@@ -41,13 +41,14 @@ def linear_models(
     p_stop: float = 1.0,
     residuals: np.ndarray | None = None,
     dim: int = 2,
+    name: str = "x",
 ) -> OptionModels:
     """Models of a skill with constant duration, linear reward and a linear end state end = M x + c.
 
     Constant stop probability ``p_stop`` (timed out otherwise); the handoff
     discount is then p_stop * gamma^steps, the return a linear function of x.
     """
-    fmap = identity_map(dim=dim)
+    fmap = identity_map(name, dim=dim)
     disc = gamma**steps
     inf = np.inf
     dur_head = LinearHead(DURATION_OUTPUTS, np.zeros((dim, 3)), np.array([steps, disc, p_stop * disc]), np.full(3, -inf), np.full(3, inf))
@@ -60,11 +61,11 @@ def linear_models(
     reward = RewardModel(fmap, LinearHead(REWARD_OUTPUTS, rw, np.array([reward_b, 0.0]), np.full(2, -inf), np.full(2, inf)), gamma, "kinetome/Test-v0")
     end_state = None
     if end_m is not None:
-        names = component_names(("x",), ((dim,),))
+        names = component_names((name,), ((dim,),))
         c = np.zeros(dim) if end_c is None else np.asarray(end_c, float)
         res = np.zeros((1, dim)) if residuals is None else residuals
         head = LinearHead(names, np.asarray(end_m, float).T, c, np.full(dim, -inf), np.full(dim, inf))
-        end_state = EndStateModel(fmap, ("x",), ((dim,),), head, res, np.full(dim, -inf), np.full(dim, inf))
+        end_state = EndStateModel(fmap, (name,), ((dim,),), head, res, np.full(dim, -inf), np.full(dim, inf))
     meta = ModelsMeta(
         skill_ref=ref,
         env_id="kinetome/Test-v0",
@@ -72,8 +73,8 @@ def linear_models(
         episodes=100,
         outcomes={"stopped": 100, "timed_out": 0, "terminated": 0, "refused": 0},
         fitted_at="2024-01-01T00:00:00Z",
-        features=("x",),
-        end_quantities=("x",) if end_m is not None else (),
+        features=(name,),
+        end_quantities=(name,) if end_m is not None else (),
     )
     return OptionModels(duration, reward, end_state, meta)
 
