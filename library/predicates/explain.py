@@ -115,7 +115,8 @@ class _Explainer:
         if isinstance(node, Vector):
             return node.items[i]
         if isinstance(node, Index):
-            return self.element(self.element(node.target, node.index), i)
+            pushed = self.element(node.target, node.index)
+            return Index(node, i) if pushed == node else self.element(pushed, i)
         if isinstance(node, Neg):
             inner = self.element(node.operand, i)
             return Num(-inner.value) if isinstance(inner, Num) else Neg(inner)
@@ -199,14 +200,17 @@ class _Explainer:
         return Violation(self.clause_text, to_text(node), nan, nan, "true", nan)
 
 
-def explain(pred: Predicate, values: Mapping[str, np.ndarray], row: int) -> list[Violation]:
+def explain(
+    pred: Predicate, values: Mapping[str, np.ndarray], row: int, *, batch: int | None = None
+) -> list[Violation]:
     """Violations of the failing top-level clauses of ``pred`` on batch row ``row``.
 
     Empty when the predicate holds there. A vector comparison inside all(...)
     is explained by its worst element; inside any(...) by the element closest
-    to holding; an ``or`` by its part closest to holding.
+    to holding; an ``or`` by its part closest to holding. ``values`` and
+    ``batch`` are as for ``Predicate.evaluate``.
     """
-    arrays, batch = prepare_values(values, dict(pred.shapes))
+    arrays, batch = prepare_values(values, dict(pred.shapes), batch=batch)
     if isinstance(row, bool) or not isinstance(row, (int, np.integer)) or not -batch <= row < batch:
         raise IndexError(f"row must be an integer in {-batch}..{batch - 1}, got {row!r}")
     row = int(row) % batch

@@ -32,17 +32,22 @@ __all__ = ["prepare_values", "evaluate_node", "NumpyEvaluator"]
 
 
 def prepare_values(
-    values: Mapping[str, np.ndarray], shapes: Mapping[str, tuple[int, ...]]
+    values: Mapping[str, np.ndarray],
+    shapes: Mapping[str, tuple[int, ...]],
+    *,
+    batch: int | None = None,
 ) -> tuple[dict[str, np.ndarray], int]:
     """Arrays of shape (B or 1, *shape) for every name in ``shapes``, and the batch size B.
 
     A value of shape ``shape`` has no batch axis and is shared by all rows (a
     skill parameter); a value of shape ``(B, *shape)`` gives one row per state.
-    All batched values must agree on B; with none batched, B is 1.
+    All batched values must agree on B (and with ``batch`` when given); with
+    none batched, B is ``batch``, or 1.
     """
+    if batch is not None and (isinstance(batch, bool) or not isinstance(batch, int) or batch < 1):
+        raise ValueError(f"batch must be a positive integer, got {batch!r}")
     arrays: dict[str, np.ndarray] = {}
-    batch: int | None = None
-    batch_from = ""
+    batch_from = "the batch argument"  # where the batch size came from, for messages
     for name, shape in shapes.items():
         if name not in values:
             raise ValueError(
@@ -58,10 +63,10 @@ def prepare_values(
                 f"value of {name!r} must have shape (B, *{shape}) or {shape}, got {arr.shape}"
             )
         if batch is None:
-            batch, batch_from = arr.shape[0], name
+            batch, batch_from = arr.shape[0], repr(name)
         elif arr.shape[0] != batch:
             raise ValueError(
-                f"batch sizes must agree, got {batch} rows for {batch_from!r} "
+                f"batch sizes must agree, got {batch} rows for {batch_from} "
                 f"and {arr.shape[0]} for {name!r}"
             )
         arrays[name] = arr
@@ -183,5 +188,9 @@ class NumpyEvaluator(Visitor[np.ndarray]):
 
 
 def evaluate_node(node: Node, arrays: Mapping[str, np.ndarray]) -> np.ndarray:
-    """Value of any sub-expression over prepared arrays: shape (B or 1, *node shape)."""
-    return NumpyEvaluator(arrays).visit(node)
+    """Value of any sub-expression over prepared arrays: shape (B or 1, *node shape).
+
+    Overflow to inf and inf - inf = NaN are ordinary float results here, not warnings.
+    """
+    with np.errstate(all="ignore"):
+        return NumpyEvaluator(arrays).visit(node)

@@ -83,15 +83,18 @@ class Predicate:
         return Predicate(BoolOp("and", tuple(p.root for p in preds)), table)
 
     # -- back-ends ------------------------------------------------------------------
-    def evaluate(self, values: Mapping[str, np.ndarray]) -> np.ndarray:
+    def evaluate(self, values: Mapping[str, np.ndarray], *, batch: int | None = None) -> np.ndarray:
         """(B,) bool: the predicate on every row of a batch.
 
         ``values`` maps each used name to an array of shape (B, *shape), or
-        (*shape) for a value shared by all rows (a skill parameter).
+        (*shape) for a value shared by all rows (a skill parameter); other
+        names are ignored. B comes from the batched values; give ``batch`` when
+        none of the used names is batched (e.g. a predicate over parameters
+        only) to get B rows anyway.
         """
-        arrays, batch = prepare_values(values, dict(self.shapes))
+        arrays, rows = prepare_values(values, dict(self.shapes), batch=batch)
         result = evaluate_node(self.root, arrays)
-        return np.broadcast_to(result, (batch,)).astype(bool, copy=True)
+        return np.broadcast_to(result, (rows,)).astype(bool, copy=True)
 
     @property
     def text(self) -> str:
