@@ -65,6 +65,7 @@ class EpisodeStats:
     terminations: int = 0
     learned_terminations: int = 0
     no_skill_available: int = 0
+    skill_counts: np.ndarray | None = None  # (n_skills,) env steps each skill ran
 
     def summary(self) -> dict[str, float]:
         nan = float("nan")
@@ -76,6 +77,9 @@ class EpisodeStats:
             "termination_rate": self.terminations / self.skill_steps if self.skill_steps else nan,
             "mean_skill_duration": float(np.mean(self.skill_durations)) if self.skill_durations else nan,
             "no_skill_available": self.no_skill_available,
+            "skill_share": (self.skill_counts / self.skill_counts.sum()).tolist()
+            if self.skill_counts is not None and self.skill_counts.sum() > 0
+            else [],
         }
 
 
@@ -262,6 +266,12 @@ class Collector:
             after = self.sim.state(extra=self.extra)
             reward, _ = rig.reward(state, applied, after)
             reward = np.asarray(reward, dtype=np.float64)
+            if not np.all(np.isfinite(reward)):
+                bad = np.flatnonzero(~np.isfinite(reward))
+                raise TrainingError(
+                    f"reward must be finite, got {reward[bad[0]]} in simulations {bad[:5].tolist()} of {rig.env_id}; "
+                    "check the task reward and the variant's physics"
+                )
             terminated = np.asarray(rig.terminated(after), dtype=bool)
             self.episode_steps += 1
             self.skill_steps += 1
@@ -322,6 +332,8 @@ class Collector:
             ep_end = terminal | truncated
             # statistics
             self.stats.skill_steps += n
+            counts = np.bincount(w, minlength=K)
+            self.stats.skill_counts = counts if self.stats.skill_counts is None else self.stats.skill_counts + counts
             ended = np.flatnonzero(skill_ends)
             self.stats.skill_durations.extend(self.skill_steps[ended].tolist())
             self.stats.terminations += int(np.sum(skill_ends & ~ep_end))
@@ -396,7 +408,7 @@ class Collector:
             mean_buf, std_buf = self.skills[k].input_normaliser
             with torch.no_grad():
                 mean_buf.copy_(torch.from_numpy(moments.mean))
-                std_buf.copy_(torch.from_numpy(np.sqrt(moments.var) + 1e-8))
+                std_buf.copy_(torch.from_numpy(np.maximum(np.sqrt(moments.var), 1e-3)))
             self.skills[k].controller.project_()
 
     # ----- checkpoint support -----------------------------------------------------

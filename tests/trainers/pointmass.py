@@ -94,3 +94,38 @@ def reach_skill(rig: Rig, *, gain: float = 0.0, max_steps: int = 60, tol: float 
         starts_when=parse_predicate("norm(qpos - target) > 0.06", names),
         stops_when=parse_predicate(f"norm(qpos - target) < {tol}", names),
     )
+
+
+def loaded_reach(rig: Rig, *, gain: float = 0.0, max_steps: int = 60, tol: float = 0.05, std: float = 0.3, name: str = "reach"):
+    """The reach skill as a runtime ``LoadedSkill`` (built from a spec, as the store would)."""
+    from kinetome.library.runtime.skill import skill_from_spec
+    from kinetome.library.spec import ControllerSpec, Skill
+
+    g = np.zeros((2, 4))
+    g[0, 0] = g[1, 1] = -gain
+    spec = Skill(
+        name=name,
+        env=rig.env_id,
+        controller=ControllerSpec(
+            kind="linear",
+            parameters={"gain": g.tolist(), "reference": [float(GOAL[0]), float(GOAL[1]), 0.0, 0.0]},
+            bounds={"gain": (-50.0, 50.0)},
+            exploration_std=std,
+        ),
+        starts_when="norm(qpos - target) > 0.06",
+        stops_when=f"norm(qpos - target) < {tol}",
+        max_steps=max_steps,
+    )
+    return skill_from_spec(spec, rig=rig)
+
+
+def quick_config(**overrides):
+    """A budget that trains the point mass in a couple of seconds."""
+    from kinetome.trainers.config import TrainConfig
+
+    base = dict(
+        steps=16 * 32 * 12, n_envs=16, rollout_len=32, epochs=4, minibatch=128, lr=0.02,
+        success_bonus=1.0, checkpoint_every=0, eval_episodes=16, critic_hidden=(32,), seed=3,
+    )
+    base.update(overrides)
+    return TrainConfig(**base)

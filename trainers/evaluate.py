@@ -1,0 +1,63 @@
+"""Before/after measurements of a skill with exploration off, on fixed start states and seed."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+__all__ = ["SkillMetrics", "evaluate_skill"]
+
+
+@dataclass(frozen=True)
+class SkillMetrics:
+    """How a skill did over ``episodes`` runs from the same starts.
+
+    ``success_rate``: fraction of episodes that ended by ``stops_when`` (refused
+    starts and timeouts count as failures); ``mean_return``: mean undiscounted
+    task reward per episode; ``reasons``: episodes per end reason label.
+    """
+
+    episodes: int
+    success_rate: float
+    mean_return: float
+    mean_steps: float
+    reasons: dict[str, int]
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "episodes": self.episodes,
+            "success_rate": self.success_rate,
+            "mean_return": self.mean_return,
+            "mean_steps": self.mean_steps,
+            "reasons": dict(self.reasons),
+        }
+
+
+def evaluate_skill(skill: Any, rig: Any, *, start: Any = None, episodes: int, seed: int, workers: int = 1, gamma: float = 0.99) -> SkillMetrics:
+    """Run a ``LoadedSkill`` with the runtime's ``run_skill`` (explore=False) from seeded starts."""
+    from kinetome.library.runtime.execute import run_skill
+    from kinetome.library.runtime.records import EndReason
+
+    starts = _starts(rig, start, episodes, seed)
+    rollout = run_skill(skill, rig, starts=starts, seed=seed, workers=workers, gamma=gamma, explore=False)
+    seg = rollout.segments[0]
+    reasons = {EndReason(r).label: int(np.sum(seg.reason == r)) for r in np.unique(seg.reason)}
+    return SkillMetrics(
+        episodes=episodes,
+        success_rate=float(np.mean(seg.reason == int(EndReason.STOPPED))),
+        mean_return=float(np.mean(seg.reward)),
+        mean_steps=float(np.mean(seg.steps)),
+        reasons=reasons,
+    )
+
+
+def _starts(rig: Any, start: Any, n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    if isinstance(start, tuple):
+        qpos, qvel = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in start)
+        pick = np.random.default_rng(seed).integers(0, qpos.shape[0], size=n)
+        return qpos[pick], qvel[pick]
+    from kinetome.library.runtime.starts import sample_starts
+
+    return sample_starts(rig, start, n, seed=seed)

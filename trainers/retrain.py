@@ -1,0 +1,161 @@
+"""``retrain_skill``: refine one skill on a (changed) task in flat mode and measure it before and after."""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, TextIO
+
+import numpy as np
+
+from .config import TrainConfig
+from .curves import curve_csv
+from .evaluate import SkillMetrics, evaluate_skill
+from .normaliser import save_normalisers
+from .option_critic import OptionCriticTrainer
+from .progress import ProgressFn
+from .trainable import trainable_from_loaded
+
+__all__ = ["RetrainResult", "retrain_skill", "reinitialise_controller"]
+
+
+@dataclass(frozen=True, eq=False)
+class RetrainResult:
+    """A refined skill: its new controller values, how it was made and how it does.
+
+    ``parameters`` (name -> array) and ``parameters_bytes`` (safetensors, the
+    store's ``params.safetensors`` format) hold the refined controller;
+    ``normaliser`` the trainer's observation/return normalisers (safetensors);
+    ``curve`` one row per update (see ``curves.CURVE_COLUMNS``); ``before`` the
+    skill as given (the stored version), ``after`` the refined one, both
+    measured on the same seeded starts with exploration off.
+    """
+
+    skill_ref: str
+    parameters: dict[str, np.ndarray]
+    parameters_bytes: bytes
+    normaliser: bytes
+    curve: list[dict[str, Any]]
+    before: SkillMetrics
+    after: SkillMetrics
+    steps: int
+    updates: int
+    config: TrainConfig
+    seed: int
+    from_scratch: bool
+    completed: bool
+    wall_time: float
+    variant: str | None = None
+
+    @property
+    def improved(self) -> bool:
+        return (self.after.success_rate, self.after.mean_return) > (self.before.success_rate, self.before.mean_return)
+
+    def curve_csv(self) -> str:
+        return curve_csv(self.curve)
+
+    def metadata(self) -> dict[str, Any]:
+        """JSON-able record for the child version's lineage."""
+        return {
+            "parent": self.skill_ref,
+            "variant": self.variant,
+            "seed": self.seed,
+            "from_scratch": self.from_scratch,
+            "steps": self.steps,
+            "updates": self.updates,
+            "completed": self.completed,
+            "wall_time_s": round(self.wall_time, 3),
+            "config": self.config.as_dict(),
+            "before": self.before.as_dict(),
+            "after": self.after.as_dict(),
+        }
+
+
+def reinitialise_controller(controller: Any, *, keep: tuple[str, ...] = ()) -> None:
+    """Put every parameter except ``keep`` at its kind's default, else the middle of its bounds."""
+    values = controller.parameter_values()
+    bounds = controller.parameter_bounds()
+    fresh: dict[str, np.ndarray] = {}
+    for decl in controller.declarations:
+        if decl.name in keep:
+            fresh[decl.name] = values[decl.name]
+            continue
+        low, high = bounds[decl.name]
+        if decl.default is not None:
+            fresh[decl.name] = np.clip(np.asarray(decl.default, dtype=np.float64), low, high)
+        else:
+            fresh[decl.name] = 0.5 * (low + high)
+    controller.load_values(fresh)
+
+
+def retrain_skill(
+    skill: Any,
+    rig: Any,
+    config: TrainConfig,
+    *,
+    start: Any = None,
+    seed: int,
+    workers: int = 1,
+    progress: ProgressFn | TextIO | None = None,
+    checkpoint_dir: str | Path | None = None,
+    resume: bool = False,
+    from_scratch: bool = False,
+) -> RetrainResult:
+    """Refine ``skill`` (a ``LoadedSkill``) on ``rig``; the given skill is not modified.
+
+    Flat mode: one skill, an episode per skill run from a start inside
+    ``starts_when`` until ``stops_when`` (success: terminal, plus
+    ``config.success_bonus``), env termination, or ``max_steps`` (truncated).
+    Parameters named by the predicates stay fixed. ``seed`` overrides
+    ``config.seed``; evaluation uses the same seed before and after.
+    """
+    from kinetome.library.controllers import save_parameters
+
+    t0 = time.perf_counter()
+    config = dataclasses.replace(config, seed=int(seed))
+    controller = copy.deepcopy(skill.controller)
+    work = dataclasses.replace(skill, controller=controller)
+    trainable = trainable_from_loaded(work)
+    if from_scratch:
+        reinitialise_controller(controller, keep=trainable.frozen)
+        trainable.adapt_inputs = True
+    before = evaluate_skill(skill, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+
+    def evaluate() -> dict[str, float]:
+        m = evaluate_skill(work, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+        return {"eval_success_rate": m.success_rate, "eval_return": m.mean_return}
+
+    trainer = OptionCriticTrainer(
+        [trainable],
+        rig,
+        config,
+        start=start,
+        episode_per_skill=True,
+        workers=workers,
+        checkpoint_dir=checkpoint_dir,
+        progress=progress,
+        evaluate=evaluate,
+    )
+    outcome = trainer.run(resume=resume)
+    after = evaluate_skill(work, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+    variant = getattr(rig, "variant", None)
+    return RetrainResult(
+        skill_ref=skill.ref,
+        parameters=controller.parameter_values(),
+        parameters_bytes=save_parameters(controller),
+        normaliser=save_normalisers(None, outcome.obs_norm, outcome.ret_norm),
+        curve=list(outcome.rows),
+        before=before,
+        after=after,
+        steps=outcome.steps,
+        updates=outcome.updates,
+        config=config,
+        seed=int(seed),
+        from_scratch=from_scratch,
+        completed=outcome.completed,
+        wall_time=time.perf_counter() - t0,
+        variant=getattr(variant, "name", None) if variant is not None else None,
+    )
