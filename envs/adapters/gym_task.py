@@ -20,10 +20,12 @@ import numpy as np
 from ..named_state import Quantity, StateLayout
 from ..rig import ObserveFn, RewardFn, Rig, TerminatedFn
 from .readings import Reading, name_unnamed_bodies
+from .variant_hooks import FixedGoal, goal_coordinates, prepare_variant
 
 __all__ = ["Named", "GymTask", "asset_path", "load_spec", "build_rig", "task_layout", "site_name"]
 
-_VARIANT_TARGET_KEYS = ("payload_body", "floor_geom", "foot_geoms", "target_site")
+# VariantTargets fields a task declares; payload_body and target_site are added by variant_hooks.
+_VARIANT_TARGET_KEYS = ("floor_geom", "foot_geoms", "damped_joints", "actuators", "task_fields")
 
 
 @dataclass(frozen=True)
@@ -64,8 +66,10 @@ class GymTask:
     the env step's duration). ``start`` is a callable ``(model, rng, n)`` with a
     ``qpos_support(model)`` method (see ``resets.py``). ``sites`` lists bodies
     that get a site at their frame origin (``site_name(body)``); ``jacobian``
-    maps a quantity to one of those bodies. ``targets`` are the keyword
-    arguments of ``envs.variants.VariantTargets`` for this robot.
+    maps a quantity to one of those bodies. ``targets`` are keyword arguments
+    of ``envs.variants.VariantTargets`` for this robot; ``payload_parent`` is
+    the body a variant's payload is welded to and ``goal`` the (body, slide
+    joints) that a variant's ``target_position`` places (see ``variant_hooks``).
     """
 
     env_id: str
@@ -82,6 +86,8 @@ class GymTask:
     sites: tuple[str, ...] = ()
     jacobian: Mapping[str, str] = field(default_factory=dict)
     targets: Mapping[str, Any] = field(default_factory=dict)
+    payload_parent: str | None = None
+    goal: tuple[str, tuple[str, ...]] | None = None
     notes: str = ""
 
     def __post_init__(self) -> None:
@@ -131,20 +137,12 @@ def _compile(spec: mujoco.MjSpec) -> mujoco.MjModel:
         return spec.compile()
 
 
-def _apply_variant(spec: mujoco.MjSpec, task: GymTask, variant: Any) -> None:
-    try:
-        from .. import variants
-    except ImportError:
-        raise ValueError(
-            f"variant for {task.env_id} must be None for now, got {variant!r}: envs/variants.py is not available; "
-            f"once it is, variants act on {dict(task.targets)}"
-        ) from None
-    variants.apply_variant(spec, variant, variants.VariantTargets(**task.targets))
+def task_layout(task: GymTask, model: mujoco.MjModel, *, start: Any = None) -> StateLayout:
+    """The task's named-state layout for ``model`` (gymnasium's plain model or the rig's compiled one).
 
-
-def task_layout(task: GymTask, model: mujoco.MjModel) -> StateLayout:
-    """The task's named-state layout for ``model`` (gymnasium's plain model or the rig's compiled one)."""
-    support = task.start.qpos_support(model)
+    Joint envelopes are widened to the qpos support of ``start`` (default: the task's).
+    """
+    support = (start if start is not None else task.start).qpos_support(model)
     quantities = []
     for named in task.quantities:
         low = high = None
@@ -165,7 +163,11 @@ def task_layout(task: GymTask, model: mujoco.MjModel) -> StateLayout:
 
 
 def build_rig(task: GymTask, *, variant: Any = None) -> Rig:
-    """Compile ``task``'s model with its sensors (and ``variant``) and describe it as a Rig."""
+    """Compile ``task``'s model with its sensors (and ``variant``) and describe it as a Rig.
+
+    ``variant`` is anything ``envs.variants.resolve_variant`` takes (a TaskVariant,
+    a YAML path, a mapping); the rig records the resolved TaskVariant.
+    """
     spec = load_spec(task.asset)
     for named in task.quantities:
         if named.reading is not None:
@@ -173,8 +175,18 @@ def build_rig(task: GymTask, *, variant: Any = None) -> Rig:
     for body in task.sites:
         spec.body(body).add_site(name=site_name(body), pos=[0.0, 0.0, 0.0], size=[0.005, 0.005, 0.005], group=5)
     if variant is not None:
-        _apply_variant(spec, task, variant)
+        variant = prepare_variant(
+            spec,
+            robot=task.robot,
+            targets=dict(task.targets),
+            payload_parent=task.payload_parent,
+            has_goal=task.goal is not None,
+            variant=variant,
+        )
     model = _compile(spec)
+    start = task.start
+    if variant is not None and variant.target_position is not None and task.goal is not None:
+        start = FixedGoal(start, *goal_coordinates(model, task.goal[0], task.goal[1], variant.target_position))
 
     sources = {q.name: q.reading.source(model) for q in task.quantities if q.reading is not None}
     derived = {q.name: q.derive for q in task.quantities if q.derive is not None}
@@ -187,13 +199,13 @@ def build_rig(task: GymTask, *, variant: Any = None) -> Rig:
         env_id=task.env_id,
         model=model,
         frame_skip=task.frame_skip,
-        layout=task_layout(task, model),
+        layout=task_layout(task, model, start=start),
         sources=sources,
         derived=derived,
         reward=task.reward(dt),
         terminated=task.terminated,
         observe=task.observe,
-        start=task.start,
+        start=start,
         jacobian_sites={q: int(model.site(site_name(b)).id) for q, b in task.jacobian.items()},
         actuated_qpos=tuple(int(model.jnt_qposadr[j]) for j in actuated_joint),
         actuated_qvel=tuple(int(model.jnt_dofadr[j]) for j in actuated_joint),

@@ -125,7 +125,8 @@ HOPPER = GymTask(
     observe=partial(k.planar_observation, velocity_clip=10.0),
     start=NoisyReset(5e-3),
     camera="track",
-    targets={"payload_body": "torso", "floor_geom": "floor", "foot_geoms": ("foot_geom",)},
+    targets={"floor_geom": "floor", "foot_geoms": ("foot_geom",), "damped_joints": ("thigh_joint", "leg_joint", "foot_joint")},
+    payload_parent="torso",
 )
 
 WALKER2D = GymTask(
@@ -144,7 +145,12 @@ WALKER2D = GymTask(
     observe=partial(k.planar_observation, velocity_clip=10.0),
     start=NoisyReset(5e-3),
     camera="track",
-    targets={"payload_body": "torso", "floor_geom": "floor", "foot_geoms": ("foot_geom", "foot_left_geom")},
+    targets={
+        "floor_geom": "floor",
+        "foot_geoms": ("foot_geom", "foot_left_geom"),
+        "damped_joints": ("thigh_joint", "leg_joint", "foot_joint", "thigh_left_joint", "leg_left_joint", "foot_left_joint"),
+    },
+    payload_parent="torso",
 )
 
 HALF_CHEETAH = GymTask(
@@ -181,7 +187,12 @@ HALF_CHEETAH = GymTask(
     observe=partial(k.planar_observation, velocity_clip=None),
     start=NoisyReset(0.1, normal_velocity=True),
     camera="track",
-    targets={"payload_body": "torso", "floor_geom": "floor", "foot_geoms": ("bfoot", "ffoot")},
+    targets={
+        "floor_geom": "floor",
+        "foot_geoms": ("bfoot", "ffoot"),
+        "damped_joints": ("bthigh", "bshin", "bfoot", "fthigh", "fshin", "ffoot"),
+    },
+    payload_parent="torso",
 )
 
 # -- Ant-v5 -------------------------------------------------------------------------------
@@ -282,10 +293,11 @@ ANT = GymTask(
     start=NoisyReset(0.1, normal_velocity=True),
     camera="track",
     targets={
-        "payload_body": "torso",
         "floor_geom": "floor",
         "foot_geoms": ("left_ankle_geom", "right_ankle_geom", "third_ankle_geom", "fourth_ankle_geom"),
+        "damped_joints": ("hip_1", "ankle_1", "hip_2", "ankle_2", "hip_3", "ankle_3", "hip_4", "ankle_4"),
     },
+    payload_parent="torso",
     notes="forward reward, contact cost and cfrc_ext observation use current values; " + STALE_NOTE,
 )
 
@@ -309,9 +321,11 @@ REACHER = GymTask(
     terminated=k.never,
     observe=k.reacher_observation,
     start=ReacherReset(),
-    sites=("fingertip", "target"),
+    sites=("fingertip",),
     jacobian={"fingertip": "fingertip"},
-    targets={"payload_body": "fingertip", "floor_geom": "ground", "foot_geoms": (), "target_site": "kt_site_target"},
+    targets={"damped_joints": ("joint0", "joint1")},
+    payload_parent="fingertip",
+    goal=("target", ("target_x", "target_y")),
     notes="distance reward and fingertip - target observation use current positions; " + STALE_NOTE,
 )
 
@@ -336,9 +350,16 @@ PUSHER = GymTask(
     terminated=k.never,
     observe=k.pusher_observation,
     start=PusherReset(),
-    sites=("tips_arm", "goal"),
+    sites=("tips_arm",),
     jacobian={"fingertip": "tips_arm"},
-    targets={"payload_body": "object", "floor_geom": "table", "foot_geoms": (), "target_site": "kt_site_goal"},
+    targets={
+        "damped_joints": (
+            "r_shoulder_pan_joint", "r_shoulder_lift_joint", "r_upper_arm_roll_joint", "r_elbow_flex_joint",
+            "r_forearm_roll_joint", "r_wrist_flex_joint", "r_wrist_roll_joint",
+        ),
+    },
+    payload_parent="tips_arm",
+    goal=("goal", ("goal_slidex", "goal_slidey")),
     notes="distance rewards and position observations use current positions; " + STALE_NOTE,
 )
 
@@ -376,7 +397,8 @@ INVERTED_PENDULUM = GymTask(
     terminated=partial(k.pendulum_fallen, max_angle=_POLE_MAX_ANGLE),
     observe=k.pendulum_observation,
     start=NoisyReset(0.01),
-    targets={"payload_body": "pole"},
+    targets={"damped_joints": ("slider",)},
+    payload_parent="pole",
 )
 
 TASKS: dict[str, GymTask] = {
