@@ -165,10 +165,24 @@ def _read_archive(
     source: Path, staging: Path, *, max_member_bytes: int, max_total_bytes: int, max_members: int
 ) -> tuple[bytes, dict[str, tuple[Path, int]]]:
     """(manifest bytes, digest -> (staged file, size)) after checking every member."""
+    with open(source, "rb") as raw:
+        # gzip via GzipFile (not tarfile's own stream) so a truncated archive raises EOFError
+        stream = gzip.GzipFile(fileobj=raw, mode="rb") if raw.read(2) == b"\x1f\x8b" else raw
+        raw.seek(0)
+        return _read_stream(
+            source, stream, staging, max_member_bytes=max_member_bytes, max_total_bytes=max_total_bytes, max_members=max_members
+        )
+
+
+def _read_stream(
+    source: Path, stream, staging: Path, *, max_member_bytes: int, max_total_bytes: int, max_members: int
+) -> tuple[bytes, dict[str, tuple[Path, int]]]:
     try:
-        tar = tarfile.open(source, mode="r|*")
+        tar = tarfile.open(fileobj=stream, mode="r|")
     except (tarfile.TarError, OSError, EOFError, zlib.error) as e:
-        raise BundleError(f"{source} is not a readable tar archive ({e}); export it again with `kinetome export`") from None
+        raise BundleError(
+            f"{source} is not a readable tar or tar.gz archive ({e}); export it again with `kinetome export`"
+        ) from None
     manifest: bytes | None = None
     staged: dict[str, tuple[Path, int]] = {}
     seen: set[str] = set()
