@@ -18,7 +18,7 @@ import mujoco
 import numpy as np
 
 from .errors import EnvConfigError
-from .variants import LinedDict, read_yaml_with_lines
+from .variants import LinedDict, read_yaml_with_lines, sort_problems
 
 __all__ = [
     "Noise",
@@ -538,7 +538,7 @@ def start_from_mapping(data: Any, *, source: str = "<mapping>") -> StartDistribu
             p.add(_line(data, "max_tries"), "max_tries", f"must be an integer >= 1, got {mt!r}; e.g. 200")
         kwargs["max_tries"] = mt
     if p.items:
-        raise EnvConfigError(p.items)
+        raise EnvConfigError(sort_problems(p.items))
     return StartDistribution(**kwargs, source=source)
 
 
@@ -565,9 +565,7 @@ def load_start(path: str | Path) -> StartDistribution:
 
 def rig_named_state(rig: Any) -> NamedStateFn:
     """``named_state(qpos, qvel)`` for a rig: reset-and-forward each row, then ``read_state``."""
-    from .rig import read_state
-
-    return forward_named_state(rig.model, lambda q, v, s: read_state(rig, qpos=q, qvel=v, sensordata=s))
+    return forward_named_state(rig.model, _reader_for(rig))
 
 
 class RigStart:

@@ -60,7 +60,7 @@ HEIGHT_REF = 0.38  # m: below this the reward's height term starts to cost
 # Declared maximum leg joint speed (demo datasheet value, invented; not
 # enforced by MuJoCo): the operating envelope for qvel.
 MAX_JOINT_SPEED = 20.0  # rad/s
-LIMIT_MARGIN = 0.02  # rad: MuJoCo's joint limits are soft, see envs/bench_arm.py
+LIMIT_MARGIN = 0.03  # rad: MuJoCo's joint limits are soft, see envs/bench_arm.py
 SPEED_WEIGHT = 1.0
 PITCH_WEIGHT = 1.0
 HEIGHT_WEIGHT = 5.0

@@ -38,6 +38,7 @@ __all__ = [
     "variant_digest",
     "apply_variant",
     "read_yaml_with_lines",
+    "sort_problems",
     "LinedDict",
 ]
 
@@ -104,6 +105,16 @@ def read_yaml_with_lines(path: str | Path) -> tuple[Any, list[str]]:
     return data, problems
 
 
+def sort_problems(problems: list[str]) -> list[str]:
+    """Order ``FILE:LINE: ...`` problems by line (stable), so they read top to bottom."""
+
+    def line(p: str) -> int:
+        m = re.match(r"^.*?:(\d+): ", p)
+        return int(m.group(1)) if m else 0
+
+    return sorted(problems, key=line)
+
+
 def _all_duplicates(data: Any):
     if isinstance(data, LinedDict):
         yield from data.duplicates
@@ -123,11 +134,12 @@ class _Bad(ValueError):
 
 
 def _number(value: Any, unit: str) -> float:
+    in_unit = f" in {unit}" if unit else ""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise _Bad(f"must be a number in {unit}, got {value!r} ({type(value).__name__}); write a plain number")
+        raise _Bad(f"must be a number{in_unit}, got {value!r} ({type(value).__name__}); write a plain number")
     x = float(value)
     if not math.isfinite(x):
-        raise _Bad(f"must be a finite number in {unit}, got {value!r}; write a finite value")
+        raise _Bad(f"must be a finite number{in_unit}, got {value!r}; write a finite value")
     return x
 
 
@@ -143,7 +155,7 @@ def _positive(unit: str, example: str) -> Callable[[Any], float]:
     def check(value: Any) -> float:
         x = _number(value, unit)
         if x <= 0:
-            raise _Bad(f"must be > 0 {unit}, got {x:g}; give a positive value, e.g. {example}")
+            raise _Bad(f"must be > 0{' ' + unit if unit else ''}, got {x:g}; give a positive value, e.g. {example}")
         return x
 
     return check
@@ -153,7 +165,7 @@ def _nonnegative(unit: str, example: str) -> Callable[[Any], float]:
     def check(value: Any) -> float:
         x = _number(value, unit)
         if x < 0:
-            raise _Bad(f"must be >= 0 {unit}, got {x:g}; give a non-negative value, e.g. {example}")
+            raise _Bad(f"must be >= 0{' ' + unit if unit else ''}, got {x:g}; give a non-negative value, e.g. {example}")
         return x
 
     return check
@@ -389,7 +401,7 @@ def variant_from_mapping(
     if "name" not in data:
         problems.append(f"{where(None)}: name: missing; add a line 'name: <variant name>'")
     if problems:
-        raise EnvConfigError(problems)
+        raise EnvConfigError(sort_problems(problems))
     return TaskVariant(**values, source=source)
 
 
@@ -511,7 +523,7 @@ def _friction_applicable(value: Any, t: VariantTargets) -> str | None:
     "friction",
     unit="1",
     meaning="sliding friction coefficient of the floor and the feet",
-    check=_nonnegative("(dimensionless)", "0.3"),
+    check=_nonnegative("", "0.3"),
     applicable=_friction_applicable,
 )
 def _apply_friction(spec: mujoco.MjSpec, mu: float, t: VariantTargets) -> None:
@@ -540,7 +552,7 @@ def _gain_applicable(value: Any, t: VariantTargets) -> str | None:
     "actuator_gain",
     unit="1",
     meaning="factor on every motor's gear: joint torque = factor x command",
-    check=_positive("(factor)", "0.6"),
+    check=_positive("", "0.6"),
     applicable=_gain_applicable,
 )
 def _apply_actuator_gain(spec: mujoco.MjSpec, k: float, t: VariantTargets) -> None:

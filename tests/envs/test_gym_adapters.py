@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import functools
 import warnings
+from pathlib import Path
 
 import gymnasium
 import mujoco
@@ -22,8 +23,9 @@ import pytest
 from gymnasium.utils import seeding
 from gymnasium.utils.env_checker import check_env
 
+import kinetome.envs.adapters
 from kinetome.envs import make_rig
-from kinetome.envs.adapters import GYM_ENV_IDS, layout_of, named_state_of
+from kinetome.envs.adapters import GYM_ENV_IDS, layout_of, layout_table, named_state_of
 from kinetome.envs.adapters import kernels as k
 from kinetome.envs.adapters.gym_task import GymTask, Named
 from kinetome.envs.adapters.readings import BodyContact, BodyFrame, Coordinate
@@ -343,6 +345,12 @@ def test_named_state_of_live_env_matches_rig_sensors(env_id):
 @pytest.mark.parametrize("env_id", IDS)
 def test_layout_of_equals_rig_layout(env_id):
     assert layout_of(env_id) == _rig(env_id).layout
+
+
+@pytest.mark.parametrize("env_id", IDS)
+def test_readme_layout_tables_are_current(env_id):
+    readme = Path(kinetome.envs.adapters.__file__).with_name("README.md").read_text(encoding="utf-8")
+    assert layout_table(env_id) in readme, f"regenerate the {env_id} table in envs/adapters/README.md with layout_table"
 
 
 @pytest.mark.parametrize("env_id", IDS)
