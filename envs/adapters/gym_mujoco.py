@@ -13,7 +13,7 @@ from typing import Any
 
 from ..rig import Rig, register_rig
 from .gym_task import build_rig
-from .live import layout_of, named_state_of
+from .live import layout_of, layout_table, named_state_of
 from .robots import TASKS
 
 __all__ = [
@@ -27,6 +27,7 @@ __all__ = [
     "inverted_pendulum_rig",
     "named_state_of",
     "layout_of",
+    "layout_table",
 ]
 
 GYM_ENV_IDS: tuple[str, ...] = tuple(TASKS)

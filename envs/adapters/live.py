@@ -20,7 +20,7 @@ from ..named_state import StateLayout
 from .gym_task import GymTask, asset_path, task_layout
 from .robots import TASKS
 
-__all__ = ["named_state_of", "layout_of", "gym_task", "live_values"]
+__all__ = ["named_state_of", "layout_of", "layout_table", "gym_task", "live_values"]
 
 
 def gym_task(env_id: str) -> GymTask:
@@ -47,6 +47,34 @@ def layout_of(env_id: str) -> StateLayout:
     """Named-state layout of a gymnasium env id (the same as ``make_rig(env_id).layout``)."""
     task = gym_task(env_id)
     return task_layout(task, _plain_model(task.asset))
+
+
+def _bounds(values) -> str:
+    if values is None:
+        return "-"
+    return "[" + ", ".join(f"{v:.4g}" for v in values) + "]"
+
+
+def layout_table(env_id: str) -> str:
+    """Markdown table of an env's named-state layout (the tables in ``envs/adapters/README.md``)."""
+    task = gym_task(env_id)
+    model = _plain_model(task.asset)
+    dt = float(model.opt.timestep) * task.frame_skip
+    lines = [
+        f"### {env_id}",
+        "",
+        f"robot `{task.robot}`, frame skip {task.frame_skip}, env step {dt:g} s, {task.max_episode_steps} steps",
+        "",
+        "| name | shape | unit | meaning | low | high | derived |",
+        "| --- | --- | --- | --- | --- | --- | --- |",
+    ]
+    for q in layout_of(env_id):
+        shape = "()" if not q.shape else "(" + ", ".join(map(str, q.shape)) + ("," if len(q.shape) == 1 else "") + ")"
+        lines.append(
+            f"| `{q.name}` | {shape} | {q.unit} | {q.meaning} | {_bounds(q.low)} | {_bounds(q.high)} | "
+            f"{'yes' if q.derived else 'no'} |"
+        )
+    return "\n".join(lines) + "\n"
 
 
 def live_values(task: GymTask, model: mujoco.MjModel, data: mujoco.MjData) -> dict[str, np.ndarray]:

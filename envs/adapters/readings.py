@@ -47,8 +47,11 @@ def name_unnamed_bodies(spec: mujoco.MjSpec) -> None:
     Call before any edit that adds bodies: ``i`` is the body's id in the
     asset as gymnasium compiles it.
     """
+    taken = {body.name for body in spec.bodies}
     for i, body in enumerate(spec.bodies):
         if i > 0 and not body.name:
+            if f"body{i}" in taken:
+                raise ValueError(f"cannot name unnamed body {i} 'body{i}': the name is taken; rename that body in the MJCF")
             body.name = f"body{i}"
 
 

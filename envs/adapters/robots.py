@@ -31,8 +31,8 @@ def _fixed(reward):
 
 def _joint_state(joints: str, actuators: str, *, effort: str = "N m") -> tuple[Named, ...]:
     return (
-        Named("qpos", "m | rad", f"generalised positions, gymnasium's order: {joints}", Coordinate("qpos")),
-        Named("qvel", "m/s | rad/s", f"generalised velocities, same order as qpos ({joints})", Coordinate("qvel")),
+        Named("qpos", "m or rad", f"generalised positions, gymnasium's order: {joints}", Coordinate("qpos")),
+        Named("qvel", "m/s or rad/s", f"generalised velocities, same order as qpos ({joints})", Coordinate("qvel")),
         Named(
             "torque",
             f"1 (x gear = {effort})",
@@ -263,7 +263,7 @@ ANT = GymTask(
         ),
         Named(
             "contact_wrench",
-            "N m | N",
+            "N m, N",
             "MuJoCo cfrc_ext of bodies 1-13: [torque about robot_com, force], world axes",
             derive=k.contact_wrench,
             shape=(13, 6),

@@ -83,7 +83,7 @@ def test_constants_match_gymnasium(env_id):
     gu = env.unwrapped
     assert rig.frame_skip == gu.frame_skip
     assert rig.model.opt.timestep == gu.model.opt.timestep
-    assert rig.dt == pytest.approx(gu.dt, rel=0, abs=0)
+    assert rig.dt == gu.dt
     assert rig.max_episode_steps == gymnasium.spec(env_id).max_episode_steps  # gymnasium's registration
     assert (rig.model.nq, rig.model.nv, rig.model.nu) == (gu.model.nq, gu.model.nv, gu.model.nu)
     np.testing.assert_array_equal(rig.action_low.astype(np.float32), env.action_space.low)
@@ -242,6 +242,29 @@ def test_fingertip_velocity_and_jacobian_site(env_id):
         mujoco.mj_kinematics(rig.model, data)
         tips.append(data.xpos[rig.model.site_bodyid[site]].copy())
     np.testing.assert_allclose((tips[0] - tips[1]) / (2 * eps), state["fingertip_vel"][0], rtol=0, atol=1e-7)
+
+
+@pytest.mark.parametrize("env_id", ["Hopper-v5", "Walker2d-v5", "HalfCheetah-v5", "Ant-v5"])
+def test_torso_quantities_against_mujoco_body_frame(env_id):
+    """torso_height = xpos z, torso_vel = mj_objectVelocity of the torso frame, pitch from the torso's rotation matrix."""
+    rig = _rig(env_id)
+    env = RigEnv(rig)
+    env.reset(seed=6)
+    for action in _actions(rig, 8):
+        env.step(action)
+    state, data = env.named_state(), env.data
+    torso = rig.model.body("torso").id
+    velocity = np.zeros(6)
+    mujoco.mj_objectVelocity(rig.model, data, mujoco.mjtObj.mjOBJ_XBODY, torso, velocity, 0)
+    np.testing.assert_allclose(state["torso_height"][0], data.xpos[torso, 2], rtol=0, atol=1e-12)
+    planar = env_id != "Ant-v5"
+    np.testing.assert_allclose(state["torso_vel"][0], velocity[3:][[0, 2]] if planar else velocity[3:], rtol=0, atol=1e-12)
+    if planar:
+        # Rotation about +y by theta maps the torso's x axis to (cos theta, 0, -sin theta).
+        xmat = data.xmat[torso].reshape(3, 3)
+        np.testing.assert_allclose(state["torso_pitch"][0], np.arctan2(-xmat[2, 0], xmat[0, 0]), rtol=0, atol=1e-12)
+    else:
+        np.testing.assert_allclose(state["torso_orientation"][0], data.xquat[torso], rtol=0, atol=1e-12)
 
 
 def test_ant_contact_forces_balance_weight_and_equal_cfrc_ext():
@@ -526,11 +549,6 @@ def test_contact_reading_live_equals_sensor(gravity, z, tilt, vz):
 
 
 # -- error paths ----------------------------------------------------------------------------------
-
-
-class _NotMujoco:
-    spec = None
-    unwrapped = None
 
 
 @pytest.mark.parametrize(
