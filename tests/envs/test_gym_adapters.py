@@ -489,6 +489,25 @@ def test_floor_and_friction_variants_reach_the_named_geoms():
     assert not np.allclose(model.geom("floor").quat, [1, 0, 0, 0])
 
 
+def test_variant_from_yaml_file(tmp_path):
+    path = tmp_path / "slippery.yaml"
+    path.write_text("name: slippery\nfriction: 0.25\ngravity: [0, 0, -7.0]\n", encoding="utf-8")
+    rig = make_rig("Hopper-v5", variant=path)
+    assert rig.variant.name == "slippery" and rig.variant.digest == TaskVariant(name="slippery", friction=0.25, gravity=(0, 0, -7.0)).digest
+    assert rig.model.geom("foot_geom").friction[0] == 0.25
+    np.testing.assert_array_equal(rig.model.opt.gravity, [0, 0, -7.0])
+
+
+def test_timestep_variant_sets_the_reward_step_duration():
+    rig = make_rig("HalfCheetah-v5", variant=TaskVariant(name="fine", timestep=0.005))
+    assert rig.dt == pytest.approx(5 * 0.005, rel=1e-15)
+    env = RigEnv(rig)
+    env.reset(seed=0)
+    x0 = env.data.qpos[0]
+    _, _, _, _, info = env.step(np.zeros(rig.n_act))
+    assert info["reward_terms"]["forward"] == pytest.approx((env.data.qpos[0] - x0) / rig.dt, rel=1e-12)
+
+
 def test_target_variant_pins_reacher_target():
     rig = make_rig("Reacher-v5", variant=TaskVariant(name="corner", target_position=(0.15, -0.05, 0.01)))
     env = RigEnv(rig)
