@@ -211,7 +211,9 @@ def _read_stream(
             try:
                 if name == MANIFEST_NAME:
                     if member.size > MAX_MANIFEST_BYTES:
-                        raise BundleError(f"member {name!r} is {member.size} bytes, over the limit of {MAX_MANIFEST_BYTES}; refused")
+                        raise BundleError(
+                            f"member {name!r} is {member.size} bytes, over the limit of {MAX_MANIFEST_BYTES}; refused"
+                        )
                     buf = io.BytesIO()
                     _copy_member(tar, member, buf)
                     manifest = buf.getvalue()
@@ -246,7 +248,13 @@ def _match_manifest(manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> 
     for digest, size in manifest.blobs.items():
         if digest not in staged:
             users = [f"{v.ref} {e.role}" for v in manifest.versions for e in v.files if e.digest == digest]
-            users += [f"{v.ref}/{m.kind}#{m.revision} {e.role}" for v in manifest.versions for m in v.models for e in m.files if e.digest == digest]
+            users += [
+                f"{v.ref}/{m.kind}#{m.revision} {e.role}"
+                for v in manifest.versions
+                for m in v.models
+                for e in m.files
+                if e.digest == digest
+            ]
             raise BundleError(
                 f"{MANIFEST_NAME} lists blob {digest} (used by {', '.join(users)}) but the archive has no "
                 f"member 'blobs/{digest}'; refused"
@@ -295,7 +303,12 @@ def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]
                     meta = dict(bm.meta)
                     meta["imported_from"] = {"ref": f"{bv.ref}/{bm.kind}#{bm.revision}", "created_at": bm.created_at}
                     index.insert_model(
-                        conn, version_row=row, kind=bm.kind, files=bm.files, meta_json=canonical_meta(meta), created_at=index.utc_now()
+                        conn,
+                        version_row=row,
+                        kind=bm.kind,
+                        files=bm.files,
+                        meta_json=canonical_meta(meta),
+                        created_at=index.utc_now(),
                     )
     return [store._load_id(rows[bv.ref]) for bv in manifest.versions]
 

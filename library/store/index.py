@@ -107,7 +107,9 @@ def _files_by_owner(conn: sqlite3.Connection, table: str, owner_col: str, ids: l
     return out
 
 
-def load_versions(conn: sqlite3.Connection, where: str, params: tuple = (), order: str = "v.name, v.number") -> list[tuple[int, VersionRecord]]:
+def load_versions(
+    conn: sqlite3.Connection, where: str, params: tuple = (), order: str = "v.name, v.number"
+) -> list[tuple[int, VersionRecord]]:
     """(row id, record) of the versions matching ``where`` (an SQL condition on alias ``v``)."""
     rows = conn.execute(f"{_VERSION_SELECT} WHERE {where} ORDER BY {order}", params).fetchall()
     files = _files_by_owner(conn, "version_files", "version_id", [int(r["id"]) for r in rows])

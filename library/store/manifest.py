@@ -81,7 +81,13 @@ def build_manifest(
             for e in m.files:
                 blobs[e.digest] = e.size
             model_entries.append(
-                {"kind": m.kind, "revision": m.revision, "created_at": m.created_at, "meta": m.meta, "files": _files_json(m.files)}
+                {
+                    "kind": m.kind,
+                    "revision": m.revision,
+                    "created_at": m.created_at,
+                    "meta": m.meta,
+                    "files": _files_json(m.files),
+                }
             )
         entries.append(
             {
@@ -221,7 +227,9 @@ def parse_manifest(data: bytes) -> Manifest:
     try:
         doc = json.loads(data.decode("utf-8"))
     except UnicodeDecodeError as e:
-        raise BundleError(f"member {MANIFEST_NAME!r} is not UTF-8 text ({e.reason} at byte {e.start}); re-export the bundle") from None
+        raise BundleError(
+            f"member {MANIFEST_NAME!r} is not UTF-8 text ({e.reason} at byte {e.start}); re-export the bundle"
+        ) from None
     except json.JSONDecodeError as e:
         raise BundleError(
             f"member {MANIFEST_NAME!r} is not valid JSON: {e.msg} at line {e.lineno} column {e.colno}; re-export the bundle"

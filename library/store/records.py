@@ -12,6 +12,7 @@ from kinetome.library.store.names import format_ref, validate_kind, validate_nam
 
 __all__ = [
     "REASONS",
+    "is_digest",
     "FileEntry",
     "VersionRecord",
     "ModelRecord",

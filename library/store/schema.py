@@ -82,30 +82,42 @@ def write_transaction(conn: sqlite3.Connection) -> Iterator[sqlite3.Connection]:
     conn.execute("COMMIT")
 
 
+def _prepare(conn: sqlite3.Connection, path: Path, *, create: bool) -> None:
+    conn.execute("PRAGMA foreign_keys = ON")
+    conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+    if conn.execute("PRAGMA journal_mode").fetchone()[0].lower() != "wal":
+        conn.execute("PRAGMA journal_mode = WAL")
+    conn.execute("PRAGMA synchronous = FULL")
+    version = conn.execute("PRAGMA user_version").fetchone()[0]
+    if version == 0:
+        if not create:
+            raise StoreIntegrityError(f"{path} has no kinetome tables; point --store at a kinetome store folder")
+        with write_transaction(conn):
+            # several processes may create the store at once: only the first builds the schema
+            if conn.execute("PRAGMA user_version").fetchone()[0] == 0:
+                for statement in SCHEMA:
+                    conn.execute(statement)
+                conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+    elif version > SCHEMA_VERSION:
+        raise StoreIntegrityError(
+            f"{path} has index schema {version}, newer than this kinetome understands ({SCHEMA_VERSION}); "
+            "upgrade kinetome"
+        )
+
+
 def connect(path: Path, *, create: bool) -> sqlite3.Connection:
     """Open the index (autocommit mode; transactions are explicit) and make sure the schema exists."""
     try:
         conn = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
-        conn.row_factory = sqlite3.Row
-        conn.execute("PRAGMA foreign_keys = ON")
-        conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
-        if conn.execute("PRAGMA journal_mode").fetchone()[0].lower() != "wal":
-            conn.execute("PRAGMA journal_mode = WAL")
-        conn.execute("PRAGMA synchronous = FULL")
-        version = conn.execute("PRAGMA user_version").fetchone()[0]
-        if version == 0:
-            if not create:
-                raise StoreIntegrityError(f"{path} has no kinetome tables; point --store at a kinetome store folder")
-            with write_transaction(conn):
-                if conn.execute("PRAGMA user_version").fetchone()[0] == 0:
-                    for statement in SCHEMA:
-                        conn.execute(statement)
-                    conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
-        elif version > SCHEMA_VERSION:
-            raise StoreIntegrityError(
-                f"{path} has index schema {version}, newer than this kinetome understands ({SCHEMA_VERSION}); "
-                "upgrade kinetome"
-            )
+    except sqlite3.Error as e:
+        raise StoreIntegrityError(f"{path} cannot be opened as a SQLite index ({e}); check the path and its permissions") from e
+    conn.row_factory = sqlite3.Row
+    try:
+        _prepare(conn, path, create=create)
     except sqlite3.DatabaseError as e:
+        conn.close()
         raise StoreIntegrityError(f"{path} is not a readable SQLite index ({e}); restore it from a backup") from e
+    except BaseException:
+        conn.close()
+        raise
     return conn

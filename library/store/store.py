@@ -295,7 +295,10 @@ class Store:
         row_id, _ = self._row(ref)
         where = "m.version_id = ?"
         if not all_revisions:
-            where += " AND m.revision = (SELECT MAX(revision) FROM models m2 WHERE m2.version_id = m.version_id AND m2.kind = m.kind)"
+            where += (
+                " AND m.revision = (SELECT MAX(revision) FROM models m2"
+                " WHERE m2.version_id = m.version_id AND m2.kind = m.kind)"
+            )
         return index.load_models(self._conn, where, (row_id,))
 
     def get_model(self, ref: str, kind: str, *, revision: int | None = None) -> ModelRecord:

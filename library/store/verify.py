@@ -105,9 +105,15 @@ class VerifyReport:
         out = [f"index: {p}" for p in self.index_problems]
         out += [str(p) for p in self.problems]
         if self.orphans:
-            out.append(f"{len(self.orphans)} orphan blob file(s) not used by any version (harmless leftovers of interrupted adds)")
+            out.append(
+                f"{len(self.orphans)} orphan blob file(s) not used by any version "
+                "(harmless leftovers of interrupted adds)"
+            )
         if self.temp_files:
-            out.append(f"{len(self.temp_files)} temp file(s) in {self.root / 'tmp'} (left by interrupted writes, or a write in progress)")
+            out.append(
+                f"{len(self.temp_files)} temp file(s) in {self.root / 'tmp'} "
+                "(left by interrupted writes, or a write in progress)"
+            )
         status = "ok" if self.ok else f"DAMAGED: {len(self.problems)} bad blob(s), {len(self.index_problems)} index problem(s)"
         out.append(
             f"{status}: {self.versions_checked} versions, {self.models_checked} model revisions, "

@@ -42,7 +42,7 @@ def main(argv: list[str]) -> int:
     from kinetome.library.store import Store
 
     mode, root = argv[0], Path(argv[1])
-    store = Store(root)
+    store = Store(root)  # workers may race to create the store: schema setup is one immediate transaction
     if mode == "crash":
         seed = int(argv[2])
         print("ready", flush=True)

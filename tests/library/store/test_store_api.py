@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import sqlite3
 import subprocess
 import sys
 from datetime import datetime, timezone
@@ -273,6 +274,16 @@ def test_open_errors(tmp_path):
     (tmp_path / "junk" / "index.sqlite").write_bytes(b"this is not sqlite" * 100)
     with pytest.raises(StoreIntegrityError, match=r"is not a readable SQLite index"):
         Store(tmp_path / "junk")
+    (tmp_path / "empty").mkdir()
+    sqlite3.connect(tmp_path / "empty" / "index.sqlite").close()
+    with pytest.raises(StoreIntegrityError, match=r"has no kinetome tables"):
+        Store(tmp_path / "empty", create=False)
+    Store(tmp_path / "newer").close()
+    conn = sqlite3.connect(tmp_path / "newer" / "index.sqlite")
+    conn.execute("PRAGMA user_version = 99")
+    conn.close()
+    with pytest.raises(StoreIntegrityError, match=r"has index schema 99, newer than this kinetome understands \(1\); upgrade"):
+        Store(tmp_path / "newer")
 
 
 def test_resolve_store_root_precedence(tmp_path, monkeypatch):

@@ -26,10 +26,15 @@ def _run_all(commands: list[list[str]], go: Path) -> None:
     assert not errors, "\n".join(errors)
 
 
-@pytest.mark.parametrize("shared_name", [True, False], ids=["same-name", "distinct-names"])
-def test_parallel_adders_lose_nothing(tmp_path, shared_name):
+@pytest.mark.parametrize(
+    "shared_name, precreate",
+    [(True, True), (False, True), (True, False)],
+    ids=["same-name", "distinct-names", "same-name-all-creating-the-store"],
+)
+def test_parallel_adders_lose_nothing(tmp_path, shared_name, precreate):
     root, go = tmp_path / "store", tmp_path / "go"
-    Store(root).close()
+    if precreate:
+        Store(root).close()
     names = ["shared"] * WRITERS if shared_name else [f"skill-{w}" for w in range(WRITERS)]
     _run_all([["add", str(root), names[w], str(w), str(PER_WRITER), str(go)] for w in range(WRITERS)], go)
 
