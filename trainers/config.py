@@ -152,7 +152,11 @@ def _validate(c: TrainConfig) -> list[str]:
 
 @dataclass(frozen=True)
 class TrainTask:
-    """What a training file is for: skills (refs or spec paths), env, variant and starts."""
+    """What a training file is for: skills (refs or spec paths), env, variant and starts.
+
+    ``variant``/``start`` are names or YAML paths; relative paths in a file
+    are resolved against that file's folder by ``load_train_task``.
+    """
 
     skills: tuple[str, ...] = ()
     env: str | None = None
@@ -246,6 +250,11 @@ def load_train_task(path: str | Path) -> TrainTask | None:
     if problems:
         raise InvalidInputError(problems)
     values = dict(task)
+    for key in ("variant", "start"):
+        # a relative .yaml path is read relative to the training file's folder
+        v = values.get(key)
+        if isinstance(v, str) and v.endswith((".yaml", ".yml")) and not Path(v).is_absolute():
+            values[key] = str((Path(path).parent / v).resolve())
     if isinstance(values.get("skills"), list):
         values["skills"] = tuple(values["skills"])
     elif isinstance(values.get("skills"), str):
