@@ -153,27 +153,35 @@ class Store:
         return self._blobs.read(entry.digest, size=entry.size, used_by=f"{record.ref} {role}")
 
     def list_skills(self) -> list[SkillSummary]:
-        """One summary per skill name, sorted by name; description/env come from the latest meta."""
+        """One summary per skill name, sorted by name.
+
+        description/env come from the newest version whose meta holds them as text
+        (a newer version whose meta omits them keeps showing an older version's).
+        """
         rows = self._conn.execute(
-            "SELECT v.name, v.number, c.n, v.created_at, v.meta FROM versions v"
+            "SELECT v.name, v.number, c.n, v.created_at FROM versions v"
             " JOIN (SELECT name, MAX(number) AS top, COUNT(*) AS n FROM versions GROUP BY name) c"
             " ON c.name = v.name AND c.top = v.number ORDER BY v.name"
         ).fetchall()
-        out = []
-        for name, number, count, created_at, meta_json in rows:
-            meta = json.loads(meta_json)
-            desc, env = meta.get("description"), meta.get("env")
-            out.append(
-                SkillSummary(
-                    name=name,
-                    latest=int(number),
-                    count=int(count),
-                    latest_created_at=created_at,
-                    description=desc if isinstance(desc, str) else None,
-                    env=env if isinstance(env, str) else None,
-                )
+        found: dict[str, dict[str, str]] = {row[0]: {} for row in rows}
+        for name, meta_json in self._conn.execute("SELECT name, meta FROM versions ORDER BY name, number DESC"):
+            have = found[name]
+            if len(have) < 2:
+                meta = json.loads(meta_json)
+                for key in ("description", "env"):
+                    if key not in have and isinstance(meta.get(key), str):
+                        have[key] = meta[key]
+        return [
+            SkillSummary(
+                name=name,
+                latest=int(number),
+                count=int(count),
+                latest_created_at=created_at,
+                description=found[name].get("description"),
+                env=found[name].get("env"),
             )
-        return out
+            for name, number, count, created_at in rows
+        ]
 
     def history(self, name: str) -> list[VersionRecord]:
         """Every version of a skill, oldest first (a ref's number is ignored)."""

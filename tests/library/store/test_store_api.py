@@ -77,13 +77,16 @@ def test_list_history_lineage_children(store):
     assert (reach.description, reach.env) == ("new", "kinetome/Arm2-v0")
     assert reach.latest_created_at == store.get("reach@2").created_at
     assert summaries[2].description is None  # a non-text description is not shown as one
+    store.add("reach", {"spec.json": b"6"}, parent="reach@2", reason="retrained", meta={"seed": 4})
+    reach = store.list_skills()[1]
+    assert (reach.latest_ref, reach.description, reach.env) == ("reach@3", "new", "kinetome/Arm2-v0")  # from reach@2
 
-    assert [v.ref for v in store.history("reach")] == ["reach@1", "reach@2"]
-    assert [v.ref for v in store.history("reach@1")] == ["reach@1", "reach@2"]
+    assert [v.ref for v in store.history("reach")] == ["reach@1", "reach@2", "reach@3"]
+    assert [v.ref for v in store.history("reach@1")] == ["reach@1", "reach@2", "reach@3"]
     assert [v.ref for v in store.lineage("lift@2")] == ["lift@2", "lift@1", "reach@2", "reach@1"]
     assert [v.ref for v in store.lineage("reach@1")] == ["reach@1"]
     assert store.get("lift@1").parent == "reach@2"
-    assert [v.ref for v in store.children("reach@2")] == ["lift@1"]
+    assert [v.ref for v in store.children("reach@2")] == ["lift@1", "reach@3"]
     assert [v.ref for v in store.children("reach@1")] == ["reach@2"]
     assert store.children("lift@2") == []
 
