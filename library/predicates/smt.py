@@ -157,16 +157,16 @@ class SmtContext:
         return z3.Real(f"{label}!{self._aux}")
 
     def bound_constraints(self, bounds: Mapping[str, tuple[object, object]]) -> list[z3.BoolRef]:
-        """``low <= x <= high`` per component; infinite ends are left open; constants are skipped."""
+        """``low <= x <= high`` per component of each declared name; infinite ends are left open.
+
+        Constants, and names neither declared nor used by a translated
+        predicate, are skipped: they have no variable, so a whole physical
+        envelope can be passed as is (declare names to have them in models).
+        """
         out: list[z3.BoolRef] = []
         for name, pair in bounds.items():
-            if name not in self.shapes:
-                raise ValueError(
-                    f"bounds name {name!r} is not used by any predicate nor declared in the context; "
-                    f"known: {sorted(self.shapes)}"
-                )
-            if name in self.constants:
-                continue  # a fixed value has no freedom to bound
+            if name not in self.shapes or name in self.constants:
+                continue
             low, high = _bound_arrays(name, pair, self.shapes[name])
             for var, lo, hi in zip(self.components(name), low, high):
                 if np.isfinite(lo):
@@ -176,15 +176,16 @@ class SmtContext:
         return out
 
     def values_from(self, model: z3.ModelRef, bounds: Mapping[str, tuple[object, object]]) -> dict[str, np.ndarray]:
-        """Every declared name as float64 arrays: variables from ``model``, constants as given.
+        """Every declared or used name and every constant as float64 arrays.
+
+        Variables come from ``model``, constants are as given.
 
         A variable the model leaves free takes the middle of its bounds (or a
         finite end, or 0), so the result is always a complete, in-bounds state.
         """
-        out: dict[str, np.ndarray] = {}
+        out: dict[str, np.ndarray] = {name: value.copy() for name, value in self.constants.items()}
         for name, shape in self.shapes.items():
             if name in self.constants:
-                out[name] = self.constants[name].copy()
                 continue
             if name in bounds:
                 low, high = _bound_arrays(name, bounds[name], shape)
@@ -457,7 +458,8 @@ def check_implication(
     premises, the bounds and ``not conclusion`` can hold at once.
 
     ``bounds`` maps names to ``(low, high)``: numbers or one per component,
-    ``None`` or infinities for an open end; bounds on constants are ignored.
+    ``None`` or infinities for an open end; bounds on constants and on names
+    the context neither declares nor has seen in a predicate are ignored.
     """
     if isinstance(timeout_ms, bool) or not isinstance(timeout_ms, int) or timeout_ms < 1:
         raise ValueError(f"timeout_ms must be a positive integer, got {timeout_ms!r}")
