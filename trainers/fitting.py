@@ -5,8 +5,8 @@ Method (``monte_carlo_ridge``): each episode that ran gives one sample of
 reward, end reason, end state). Targets are regressed on the start-state
 features (``FeatureMap``: standardised, then ``poly2`` for up to 12 inputs or
 random Fourier features beyond) by ridge with a leave-one-out penalty; end
-reasons by multinomial logistic regression; end states of stopped episodes
-by ridge for the mean plus a pool of 5-fold out-of-fold residuals, from which
+reasons by multinomial logistic regression; end states of stopped (and,
+separately, of timed-out) episodes by ridge for the mean plus a pool of 5-fold out-of-fold residuals, from which
 ``EndStateModel`` samples and takes split-conformal intervals.
 
 Episodes are split once (``holdout`` fraction, seeded) into a training and a
@@ -94,8 +94,10 @@ def _duration_targets(seg: Any, gamma: float, rows: np.ndarray) -> np.ndarray:
             f"segment discount must equal gamma**steps with gamma={gamma}, got {discount[worst]} for "
             f"{int(steps[worst])} steps (expected {expect[worst]}); pass the gamma the rollout used"
         )
-    stopped = np.asarray(seg.reason)[rows] == OUTCOME_CODES["stopped"]
-    return np.stack([steps, discount, discount * stopped], axis=1)
+    reason = np.asarray(seg.reason)[rows]
+    stopped = reason == OUTCOME_CODES["stopped"]
+    timed_out = reason == OUTCOME_CODES["timed_out"]
+    return np.stack([steps, discount, discount * stopped, discount * timed_out], axis=1)
 
 
 def _regression_report(names: Sequence[str], y_true: np.ndarray, y_pred: np.ndarray) -> dict[str, dict]:
@@ -104,8 +106,8 @@ def _regression_report(names: Sequence[str], y_true: np.ndarray, y_pred: np.ndar
 
 def _fit_duration(fmap, x_tr, x_te, seg, gamma, train, test) -> DurationModel:
     y_tr, y_te = _duration_targets(seg, gamma, train), _duration_targets(seg, gamma, test)
-    lo = np.array([y_tr[:, 0].min(), 0.0, 0.0])
-    hi = np.array([y_tr[:, 0].max(), 1.0, 1.0])
+    lo = np.array([y_tr[:, 0].min(), 0.0, 0.0, 0.0])
+    hi = np.array([y_tr[:, 0].max(), 1.0, 1.0, 1.0])
     head = fit_linear_head(x_tr, y_tr, DURATION_OUTPUTS, low=lo, high=hi)
     reasons = np.asarray(seg.reason).astype(np.int64)
     lab_tr, lab_te = reasons[train], reasons[test]
@@ -152,7 +154,7 @@ def _oof_residuals(x: np.ndarray, y: np.ndarray, rng: np.random.Generator) -> np
     return res
 
 
-def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rng) -> EndStateModel:
+def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rng, outcome) -> EndStateModel:
     shapes = tuple(tuple(np.asarray(ends[q]).shape[1:]) for q in quantities)
     names = component_names(quantities, shapes)
     y = flatten_states(ends, quantities, shapes, where="end states")
@@ -165,7 +167,7 @@ def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rn
     if res.shape[0] > RESIDUAL_POOL:
         res = res[np.sort(rng.choice(res.shape[0], RESIDUAL_POOL, replace=False))]
     head = fit_linear_head(x_tr, y_tr, names, low=low, high=high)
-    model = EndStateModel(fmap, quantities, shapes, head, res, low, high)
+    model = EndStateModel(fmap, quantities, shapes, head, res, low, high, outcome=outcome)
     starts_te = _take(starts, test_s)
     pred = model._mean_flat(starts_te)
     lo, hi = model.interval_flat(starts_te, 0.9)
@@ -187,7 +189,7 @@ def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rn
         "n_held_out": int(test_s.size),
         "residual_pool": int(res.shape[0]),
     }
-    return EndStateModel(fmap, quantities, shapes, head, res, low, high, errors)
+    return EndStateModel(fmap, quantities, shapes, head, res, low, high, errors, outcome)
 
 
 def fit_option_models(
@@ -214,8 +216,9 @@ def fit_option_models(
     every scalar/vector quantity except Jacobians). ``envelope``: a state
     layout or name -> (low, high) mapping; end-state samples and intervals are
     clipped to it. ``gamma`` must be the rollout's (its returns were summed
-    with it). Episodes the skill refused or never reached are left out; the
-    end-state model uses stopped episodes only.
+    with it). Episodes the skill refused or never reached are left out; end
+    states of stopped and of timed-out turns get separate models (each needs
+    MIN_STOPPED training episodes), those of terminated turns none.
     """
     segments = tuple(rollout.segments)
     if not -len(segments) <= int(segment_index) < len(segments):
@@ -264,19 +267,21 @@ def fit_option_models(
     reward = _fit_reward(fmap, x_tr, x_te, seg, r_gamma, train, test, env_id, v_name)
 
     notes: list[str] = []
-    stopped = reasons == OUTCOME_CODES["stopped"]
-    s_rows = np.flatnonzero(stopped[ran])  # positions within `ran`
-    s_train = np.intersect1d(s_rows, tr_local)
-    s_test = np.intersect1d(s_rows, te_local)
-    end_state = None
-    if s_train.size >= MIN_STOPPED and s_test.size >= 1:
-        starts_ran, ends_ran = _take(starts_all, ran), _take(ends_all, ran)
-        end_state = _fit_end_state(fmap, starts_ran, ends_ran, end_quantities, s_train, s_test, envelope, rng)
-    else:
-        notes.append(
-            f"no end-state model: {s_train.size} stopped training and {s_test.size} stopped held-out episodes "
-            f"(need {MIN_STOPPED} and 1)"
-        )
+    starts_ran, ends_ran = _take(starts_all, ran), _take(ends_all, ran)
+    end_models: dict[str, EndStateModel | None] = {}
+    for outcome in ("stopped", "timed_out"):
+        rows = np.flatnonzero(reasons[ran] == OUTCOME_CODES[outcome])  # positions within `ran`
+        o_train, o_test = np.intersect1d(rows, tr_local), np.intersect1d(rows, te_local)
+        end_models[outcome] = None
+        if o_train.size >= MIN_STOPPED and o_test.size >= 1:
+            end_models[outcome] = _fit_end_state(
+                fmap, starts_ran, ends_ran, end_quantities, o_train, o_test, envelope, rng, outcome
+            )
+        elif rows.size:
+            notes.append(
+                f"no {outcome} end-state model: {o_train.size} {outcome} training and {o_test.size} held-out "
+                f"episodes (need {MIN_STOPPED} and 1)"
+            )
     meta = ModelsMeta(
         skill_ref=str(seg.skill_ref if skill_ref is None else skill_ref),
         env_id=env_id,
@@ -292,7 +297,7 @@ def fit_option_models(
         holdout=float(holdout),
         notes=tuple(notes),
     )
-    return OptionModels(duration, reward, end_state, meta)
+    return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"])
 
 
 def collect_and_fit(
@@ -312,7 +317,8 @@ def collect_and_fit(
     end-state envelope is the rig's layout. ``fit_options`` go to
     ``fit_option_models`` (features, end_quantities, holdout, expansion...).
     """
-    from kinetome.library.runtime.execute import run_skill, sample_starts  # lazy: mujoco
+    from kinetome.library.runtime.execute import run_skill  # lazy: mujoco
+    from kinetome.library.runtime.starts import sample_starts
 
     qpos, qvel = sample_starts(rig, start, int(episodes), seed=seed)
     rollout = run_skill(skill, rig, starts=(qpos, qvel), seed=seed, workers=workers, gamma=gamma)

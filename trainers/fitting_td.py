@@ -38,7 +38,7 @@ from .fitting_kernels import fit_feature_map
 
 __all__ = ["StepTransitions", "TDModels", "TD_OUTPUTS", "fit_td_models"]
 
-TD_OUTPUTS = ("steps", "discount", "handoff_discount", "p_stopped", "discounted_return")
+TD_OUTPUTS = ("steps", "discount", "stop_discount", "p_stopped", "discounted_return")
 
 
 @dataclass(frozen=True, eq=False)
@@ -92,7 +92,7 @@ class TDModels:
         phi = self.features(states)
         v = np.concatenate([phi, np.ones((phi.shape[0], 1))], axis=1) @ self.weights
         out = {name: v[:, i] for i, name in enumerate(TD_OUTPUTS)}
-        for name in ("discount", "handoff_discount", "p_stopped"):
+        for name in ("discount", "stop_discount", "p_stopped"):
             out[name] = np.clip(out[name], 0.0, 1.0)
         out["steps"] = np.maximum(out["steps"], 1.0)
         return out

@@ -295,7 +295,8 @@ class Collector:
                 skill_ends = terminal | truncated
                 switched = np.zeros(n, dtype=bool)
                 reward_raw = reward + cfg.success_bonus * success
-                self.stats.successes.extend(success[terminal | truncated].tolist())
+                if self.skills[0].stops_when is not None:  # a skill that cannot stop has no success rate
+                    self.stats.successes.extend(success[terminal | truncated].tolist())
                 learned_stop = np.zeros(n, dtype=bool)
             else:
                 terminal = terminated
