@@ -2,8 +2,9 @@
 
 Works without a display: if ``MUJOCO_GL`` is unset this module sets it to
 ``osmesa`` (software OpenGL) before mujoco is imported. MuJoCo picks its GL
-backend at import time, so import ``kinetome.envs`` (which imports this module
-first) before anything else imports mujoco, or set ``MUJOCO_GL`` yourself.
+backend when it is first imported; if that happened earlier with MUJOCO_GL
+unset (so it chose GLFW, which needs a display) and there is no display, this
+module switches mujoco's Renderer to the OSMesa context on import.
 """
 
 from __future__ import annotations
@@ -22,6 +23,27 @@ import mujoco  # noqa: E402
 import numpy as np  # noqa: E402
 
 __all__ = ["render_frames", "filmstrip_png"]
+
+
+def _offscreen_fallback() -> None:
+    """Use OSMesa when mujoco already chose GLFW (MUJOCO_GL unset at its import) but no display exists."""
+    if platform.system() != "Linux" or os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"):
+        return
+    try:
+        from mujoco.rendering.classic import gl_context
+    except ImportError:
+        return
+    chosen = getattr(gl_context, "_MUJOCO_GL", "osmesa")
+    if chosen not in ("", "glfw", "enable", "enabled", "on", "true", "1"):
+        return  # the user picked a backend on purpose (osmesa, egl, ...): keep it
+    try:
+        from mujoco.osmesa import GLContext as OSMesaContext
+    except ImportError:
+        return  # PyOpenGL already bound to another platform: leave mujoco's choice alone
+    gl_context.GLContext = OSMesaContext
+
+
+_offscreen_fallback()
 
 
 def render_frames(
