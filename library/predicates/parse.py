@@ -367,6 +367,17 @@ def parse_predicate(
             text=text,
             what=what,
         )
+    if "#" in text:
+        # Comments are refused: with newlines read as spaces, one would silently swallow the rest.
+        line, column = _line_column(text, text.index("#"))
+        raise PredicateError(
+            "comments ('#') are not allowed in a predicate",
+            fix="remove the comment; describe the skill in its description field instead",
+            text=text,
+            line=line,
+            column=column,
+            what=what,
+        )
     # Newlines are plain whitespace in a predicate (YAML block scalars keep them);
     # replacing them one for one keeps every character offset.
     flat = text.replace("\r", " ").replace("\n", " ")

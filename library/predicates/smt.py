@@ -178,9 +178,7 @@ class SmtContext:
     def values_from(self, model: z3.ModelRef, bounds: Mapping[str, tuple[object, object]]) -> dict[str, np.ndarray]:
         """Every declared or used name and every constant as float64 arrays.
 
-        Variables come from ``model``, constants are as given.
-
-        A variable the model leaves free takes the middle of its bounds (or a
+        Variables come from ``model``, constants are as given. A variable the model leaves free takes the middle of its bounds (or a
         finite end, or 0), so the result is always a complete, in-bounds state.
         """
         out: dict[str, np.ndarray] = {name: value.copy() for name, value in self.constants.items()}
@@ -200,6 +198,9 @@ class SmtContext:
                     values[k] = _to_float(value)
                 else:
                     values[k] = _fill(low[k], high[k])
+            # rounding an algebraic witness to float64 must not step outside the box
+            values = np.where(np.isnan(low), values, np.maximum(values, low))
+            values = np.where(np.isnan(high), values, np.minimum(values, high))
             out[name] = values.reshape(shape)
         return out
 

@@ -23,6 +23,7 @@ from kinetome.library.predicates.nodes import (
     Vector,
     Visitor,
 )
+from kinetome.library.predicates.printer import to_text
 
 __all__ = ["ExprType", "Span", "TypeChecker", "check_shapes", "describe_type", "suggest"]
 
@@ -148,11 +149,7 @@ class TypeChecker(Visitor[ExprType]):
 
     def _source(self, node: Node) -> str:
         span = self.spans.get(id(node))
-        if span is not None:
-            return span.source
-        from kinetome.library.predicates.printer import to_text
-
-        return to_text(node)
+        return span.source if span is not None else to_text(node)
 
     def _number(self, node: Node, role: str) -> ExprType:
         t = self.type_of(node)

@@ -130,6 +130,8 @@ REJECTED = [
     ("", ["is empty"], None),
     ("   \n ", ["is empty"], None),
     ("import os", ["invalid syntax"], None),
+    ("torso_height > 1 # and\n qpos[0] > 0", ["comments ('#') are not allowed"], 18),
+    ("'#' > 1", ["comments ('#') are not allowed"], 2),
 ]
 
 

@@ -69,7 +69,7 @@ def test_table_matches_reference(text: str) -> None:
     assert 0 < got.sum() < batch or text.startswith("any(min")
 
 
-@settings(max_examples=200, deadline=None, derandomize=True, database=None)
+@settings(max_examples=100, deadline=None, derandomize=True, database=None)
 @given(booleans(depth=4), st.integers(0, 2**32 - 1))
 def test_random_predicates_match_reference(root, seed: int) -> None:
     pred = Predicate(root, SHAPES)
@@ -78,7 +78,7 @@ def test_random_predicates_match_reference(root, seed: int) -> None:
     assert pred.evaluate(values, batch=batch).tolist() == reference_batch(root, values, batch, SHAPES)
 
 
-@settings(max_examples=200, deadline=None, derandomize=True, database=None)
+@settings(max_examples=100, deadline=None, derandomize=True, database=None)
 @given(st.sampled_from([(), (3,), (2, 3)]).flatmap(lambda s: numbers(s, depth=4)), st.integers(0, 2**32 - 1))
 def test_random_numbers_match_reference_bit_for_bit(root, seed: int) -> None:
     batch = 8

@@ -147,7 +147,7 @@ _RELATIONS = {
 }
 
 
-@settings(max_examples=150, deadline=None, derandomize=True, database=None)
+@settings(max_examples=80, deadline=None, derandomize=True, database=None)
 @given(booleans(depth=3), st.integers(0, 2**32 - 1))
 def test_random_explanations_are_consistent(root, seed: int) -> None:
     """Every failing row gets one violation per failing clause, each stating a relation that is false."""

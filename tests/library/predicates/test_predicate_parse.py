@@ -13,7 +13,6 @@ from kinetome.library.predicates import (
     Index,
     Name,
     Neg,
-    Not,
     Num,
     Power,
     Predicate,
@@ -185,7 +184,7 @@ def test_node_constructors_validate(build, message: str) -> None:
         build()
 
 
-@settings(max_examples=300, deadline=None, derandomize=True, database=None)
+@settings(max_examples=150, deadline=None, derandomize=True, database=None)
 @given(booleans(depth=4))
 def test_random_trees_round_trip(root) -> None:
     pred = Predicate(root, SHAPES)
