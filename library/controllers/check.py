@@ -128,11 +128,13 @@ def check_controller(controller: Any, *, states: Mapping[str, np.ndarray], seed:
         if not (np.all(v >= low) and np.all(v <= high)):
             problems.append(f"parameter {name!r} is outside its bounds after project_()")
 
-    with torch.no_grad():
-        dist = controller.distribution(states, times)
-        logp = dist.log_prob(torch.from_numpy(plain)).sum(-1)
-    if not bool(torch.all(torch.isfinite(logp))):
-        problems.append("the Gaussian head gives non-finite log-probabilities")
+    try:
+        with torch.no_grad():
+            logp = controller.distribution(states, times).log_prob(torch.from_numpy(plain)).sum(-1)
+        if not bool(torch.all(torch.isfinite(logp))):
+            problems.append("the Gaussian head gives non-finite log-probabilities")
+    except ValueError as exc:  # torch's argument validation rejects a NaN mean
+        problems.append(f"the Gaussian head cannot be built: {str(exc).splitlines()[0]}")
     if any(not np.array_equal(before[k], np.asarray(states[k])) for k in before):
         problems.append("the controller changed the state arrays it was given")
     return problems
