@@ -77,11 +77,13 @@ HOME_START = StartDistribution(
 
 def arm_reward(before: StateValues, action: np.ndarray, after: StateValues) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Carry the payload to the tray: -distance - 1e-3 |torque|^2, +1 within 2 cm."""
-    dist = np.linalg.norm(after["payload"] - after["target"], axis=-1)
+    gap = after["payload"] - after["target"]
+    dist = np.sqrt(np.einsum("bi,bi->b", gap, gap))
+    torque = after["torque"]
     terms = {
         "distance": -dist,
-        "effort": -EFFORT_WEIGHT * np.sum(np.asarray(after["torque"]) ** 2, axis=-1),
-        "bonus": BONUS * (dist < SUCCESS_RADIUS).astype(np.float64),
+        "effort": -EFFORT_WEIGHT * np.einsum("bi,bi->b", torque, torque),
+        "bonus": np.where(dist < SUCCESS_RADIUS, BONUS, 0.0),
     }
     return terms["distance"] + terms["effort"] + terms["bonus"], terms
 

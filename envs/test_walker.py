@@ -94,19 +94,21 @@ def walker_reward(
 ) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Track the commanded speed, stay upright and high, small control cost; +1 per step alive."""
     vx = after["torso_vel"][:, 0]
+    pitch, torque = after["torso_pitch"], after["torque"]
     terms = {
         "alive": np.full(vx.shape, ALIVE),
         "speed": -SPEED_WEIGHT * (vx - speed_command) ** 2,
-        "upright": -PITCH_WEIGHT * np.asarray(after["torso_pitch"]) ** 2,
-        "height": -HEIGHT_WEIGHT * np.maximum(0.0, HEIGHT_REF - np.asarray(after["torso_height"])),
-        "control": -CONTROL_WEIGHT * np.sum(np.asarray(after["torque"]) ** 2, axis=-1),
+        "upright": -PITCH_WEIGHT * pitch * pitch,
+        "height": -HEIGHT_WEIGHT * np.maximum(0.0, HEIGHT_REF - after["torso_height"]),
+        "control": -CONTROL_WEIGHT * np.einsum("bi,bi->b", torque, torque),
     }
-    return sum(terms.values()), terms
+    total = terms["alive"] + terms["speed"] + terms["upright"] + terms["height"] + terms["control"]
+    return total, terms
 
 
 def walker_terminated(state: StateValues) -> np.ndarray:
     """Fell: torso_height < 0.25 m or |torso_pitch| > 0.8 rad."""
-    return (np.asarray(state["torso_height"]) < MIN_HEIGHT) | (np.abs(np.asarray(state["torso_pitch"])) > MAX_PITCH)
+    return (state["torso_height"] < MIN_HEIGHT) | (np.abs(state["torso_pitch"]) > MAX_PITCH)
 
 
 def walker_observe(state: StateValues, *, speed_command: float, weight: float) -> np.ndarray:
