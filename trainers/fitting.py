@@ -1,7 +1,7 @@
 """Fit a skill's option models from rollouts by Monte Carlo regression on held-out-checked splits.
 
 Method (``monte_carlo_ridge``): each episode that ran gives one sample of
-(start state -> steps k, gamma^k, gamma^k 1{stopped}, discounted return,
+(start state -> steps k, gamma^k, gamma^k 1{stopped}, gamma^k 1{timed out}, discounted return,
 reward, end reason, end state). Targets are regressed on the start-state
 features (``FeatureMap``: standardised, then ``poly2`` for up to 12 inputs or
 random Fourier features beyond) by ridge with a leave-one-out penalty; end
@@ -45,7 +45,7 @@ from .fitting_kernels import fit_feature_map, fit_linear_head, fit_softmax, ridg
 __all__ = ["fit_option_models", "collect_and_fit", "MIN_EPISODES", "MIN_STOPPED", "RESIDUAL_POOL", "CV_FOLDS"]
 
 MIN_EPISODES = 10  # episodes that ran, fewer cannot give a training and a held-out part
-MIN_STOPPED = 10  # stopped episodes needed for an end-state model
+MIN_STOPPED = 10  # training episodes of one outcome needed for its end-state model
 RESIDUAL_POOL = 4096  # out-of-fold residual rows kept for sampling and intervals
 CV_FOLDS = 5
 _RAN = (OUTCOME_CODES["stopped"], OUTCOME_CODES["timed_out"], OUTCOME_CODES["terminated"])
@@ -159,7 +159,7 @@ def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rn
     names = component_names(quantities, shapes)
     y = flatten_states(ends, quantities, shapes, where="end states")
     if not np.all(np.isfinite(y)):
-        raise _bad("end states must be finite, got NaN/Inf in the stopped episodes")
+        raise _bad(f"end states must be finite, got NaN/Inf in the {outcome} episodes")
     x = fmap(starts)
     low, high = envelope_arrays(envelope, quantities, shapes)
     x_tr, y_tr = x[train_s], y[train_s]

@@ -7,7 +7,7 @@ Fitting from rollouts lives in ``kinetome.trainers.fitting``.
 from .bundle import ModelsMeta, OptionModels, OUTCOME_KEYS
 from .chain import ChainPrediction, Estimate, HandoffPrediction, predict_chain
 from .duration import DURATION_OUTPUTS, OUTCOME_CODES, DurationModel
-from .end_state import EndStateModel, conformal_offsets, envelope_arrays
+from .end_state import END_STATE_OUTCOMES, EndStateModel, conformal_offsets, envelope_arrays
 from .features import EXPANSIONS, FeatureMap, component_names, default_quantities, flatten_states, unflatten_states
 from .heads import LinearHead, SoftmaxHead
 from .metrics import classification_errors, interval_coverage, regression_errors
@@ -23,6 +23,7 @@ __all__ = [
     "RewardModel",
     "REWARD_OUTPUTS",
     "EndStateModel",
+    "END_STATE_OUTCOMES",
     "envelope_arrays",
     "conformal_offsets",
     "FeatureMap",

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping
 
 from .duration import DurationModel
-from .end_state import EndStateModel
+from .end_state import END_STATE_OUTCOMES, EndStateModel
 from .reward import RewardModel
 from .serial import FORMAT, file_error
 
@@ -79,23 +79,39 @@ class ModelsMeta:
 
 @dataclass(frozen=True, eq=False)
 class OptionModels:
-    """All option models of one skill version; ``end_state`` is None when no episode stopped."""
+    """All option models of one skill version.
+
+    ``end_state`` models where stopped turns end, ``end_state_timed_out``
+    where timed-out turns end (the runtime hands over after both); either is
+    None when too few episodes ended that way to fit it.
+    """
 
     duration: DurationModel
     reward: RewardModel
     end_state: EndStateModel | None
     meta: ModelsMeta
+    end_state_timed_out: EndStateModel | None = None
+
+    def end_states(self) -> dict[str, EndStateModel]:
+        """outcome -> end-state model, for the outcomes that have one."""
+        out = {}
+        for outcome, model in (("stopped", self.end_state), ("timed_out", self.end_state_timed_out)):
+            if model is not None:
+                out[outcome] = model
+        return out
 
     def __post_init__(self) -> None:
         for name, model in (("duration", self.duration), ("reward", self.reward)):
             if model.gamma != self.meta.gamma:
                 raise ValueError(f"{name} model gamma {model.gamma} must equal the models' gamma {self.meta.gamma}")
         parts = [("duration", self.duration.features), ("reward", self.reward.features)]
-        if self.end_state is not None:
-            parts.append(("end_state", self.end_state.features))
-            if self.end_state.quantities != self.meta.end_quantities:
+        for outcome, model in self.end_states().items():
+            if model.outcome != outcome:
+                raise ValueError(f"the {outcome} end-state slot holds a model of {model.outcome!r} turns")
+            parts.append((f"{outcome} end-state", model.features))
+            if model.quantities != self.meta.end_quantities:
                 raise ValueError(
-                    f"end-state quantities {list(self.end_state.quantities)} must equal meta end_quantities "
+                    f"{outcome} end-state quantities {list(model.quantities)} must equal meta end_quantities "
                     f"{list(self.meta.end_quantities)}"
                 )
         for name, fmap in parts:
@@ -137,18 +153,24 @@ class OptionModels:
             "duration": self.duration.errors,
             "reward": self.reward.errors,
             "end_state": self.end_state.errors if self.end_state is not None else None,
+            "end_state_timed_out": self.end_state_timed_out.errors if self.end_state_timed_out is not None else None,
         }
         if self.meta.notes:
             out["notes"] = list(self.meta.notes)
         return out
 
     def to_files(self) -> dict[str, bytes]:
-        header = {"format": FORMAT, "kind": "option_models", "meta": self.meta.to_json(), "end_state": self.end_state is not None}
+        header = {
+            "format": FORMAT,
+            "kind": "option_models",
+            "meta": self.meta.to_json(),
+            "end_states": sorted(self.end_states()),
+        }
         files = {"models.json": (json.dumps(header, sort_keys=True, indent=2, allow_nan=False) + "\n").encode()}
         files.update(self.duration.to_files())
         files.update(self.reward.to_files())
-        if self.end_state is not None:
-            files.update(self.end_state.to_files())
+        for model in self.end_states().values():
+            files.update(model.to_files())
         return files
 
     @classmethod
@@ -166,8 +188,13 @@ class OptionModels:
             meta = ModelsMeta.from_json(header["meta"])
         except (KeyError, TypeError, ValueError) as exc:
             raise file_error("models.json", "meta", f"is not valid model metadata: {exc}", "re-export the models") from None
-        end_state = EndStateModel.from_files(files) if header.get("end_state") else None
+        outcomes = header.get("end_states", [])
+        if not isinstance(outcomes, list) or any(o not in END_STATE_OUTCOMES for o in outcomes):
+            raise file_error("models.json", "end_states", f"must list outcomes among {sorted(END_STATE_OUTCOMES)}, got {outcomes!r}")
+        ends = {o: EndStateModel.from_files(files, o) for o in outcomes}
         try:
-            return cls(DurationModel.from_files(files), RewardModel.from_files(files), end_state, meta)
+            return cls(
+                DurationModel.from_files(files), RewardModel.from_files(files), ends.get("stopped"), meta, ends.get("timed_out")
+            )
         except ValueError as exc:
             raise file_error("models.json", "", f"models do not fit together: {exc}", "pass files from one export") from None

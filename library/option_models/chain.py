@@ -1,20 +1,27 @@
 """Chain prediction from option models: propagate sampled end states through consecutive skills.
 
-For skills 1..n with start state s_1 and, per skill i, the models
-K_i(s) = E[k], P_i(s) = P(stopped), D_i(s) = E[gamma^k 1{stopped}] and
-R_i(s) = E[discounted return], each particle draws s_{i+1} from skill i's
-end-state model and accumulates (the option-model composition of Sutton,
-Precup & Singh, 1999, with the end state and the duration assumed
-independent given the start state and a stop):
+The runtime hands over to the next skill after a stop or a timeout (an env
+termination ends the episode), and the next skill refuses a start outside its
+``starts_when``. For skills 1..n with start state s_1 and, per skill i,
+K_i(s) = E[k], R_i(s) = E[discounted return], p_b(s) = P(outcome b) and
+d_b(s) = E[gamma^k 1{outcome b}] for b in {stopped, timed_out}, each particle
+picks an outcome b with probability q_b = p_b / (p_stopped + p_timed_out),
+draws s_{i+1} from that outcome's end-state model and accumulates
 
-    steps  = sum_i  W_i K_i(s_i),           W_1 = 1,  W_{i+1} = W_i P_i(s_i) a_i
-    return = sum_i  G_i R_i(s_i),           G_1 = 1,  G_{i+1} = G_i D_i(s_i) a_i
+    steps  += W_i K_i(s_i),     W_{i+1} = W_i (p_stopped + p_timed_out) a_i
+    return += G_i R_i(s_i),     G_{i+1} = G_i d_b / q_b a_i
 
-where a_i = accepts_i(s_{i+1}) is 1 if the next skill's initiation set holds
-(a refused handoff ends the chain) and 1 when no predicate is given. Each
-particle's values are expectations over the skills' outcomes given its sampled
-states, so the reported spread (std across particles, standard error of the
-mean) is that of the start states and the sampled end states.
+(W_1 = G_1 = 1; a_i = accepts_i(s_{i+1}), 1 without a predicate). In
+expectation over b this is the option-model composition of Sutton, Precup &
+Singh (1999): sum_b d_b E[R_{i+1}(s') | b], with the end state and the
+duration assumed independent given the start state and the outcome. An
+outcome without an end-state model (too few such episodes to fit one) ends
+the chain; its probability is reported as ``unmodelled``.
+
+Each particle's values are expectations over the skills' durations given its
+sampled states and outcomes, so the reported spread (std across particles,
+standard error of the mean) is that of the start states, outcomes and end
+states drawn.
 """
 
 from __future__ import annotations
@@ -49,19 +56,27 @@ class Estimate:
 
 @dataclass(frozen=True)
 class HandoffPrediction:
-    """Handoff ``index`` -> ``index + 1``: how often it happens and how often the next skill accepts.
+    """Handoff ``index`` -> ``index + 1`` (1-based skills): how often it happens and is accepted.
 
-    ``accepted`` is the fraction of sampled stopped end states the next skill's
-    ``accepts`` admits, weighted by how likely each particle's handoff is;
-    ``se`` uses the effective sample size of those weights. None when no
-    predicate was given or the handoff never happens.
+    ``reach``: probability the handoff is offered (skill ``index`` ran and
+    stopped or timed out, with an end-state model for that outcome);
+    ``after_stop``: the share of offered handoffs that follow a stop.
+    ``accepted``: fraction of offered handoffs whose sampled end state the next
+    skill's predicate admits, weighted by each particle's probability of
+    getting there (``se`` from the effective sample size of the weights);
+    ``accepted_after_stop``: the same over handoffs after a stop only. Both
+    None without a predicate or when nothing is offered. ``unmodelled``:
+    probability of a stop/timeout whose end-state model is missing.
     """
 
     index: int
-    reach: float  # probability the earlier skill stops (the handoff is offered)
+    reach: float
+    after_stop: float | None
     accepted: float | None
     se: float | None
+    accepted_after_stop: float | None
     effective_n: float
+    unmodelled: float
 
 
 @dataclass(frozen=True)
@@ -70,8 +85,8 @@ class ChainPrediction:
 
     steps: Estimate  # expected total env steps
     discounted_return: Estimate  # expected sum over skills of prod(previous discounts) * return
-    discount: Estimate  # E[gamma^(total steps) * 1{every skill stopped}]
-    success: Estimate  # probability every skill stops and every handoff is accepted
+    discount: Estimate  # E[gamma^(total steps) * 1{the last skill handed over}]
+    success: Estimate  # probability every skill stops (and every handoff is accepted)
     reach: tuple[float, ...]  # probability that skill i runs
     handoffs: tuple[HandoffPrediction, ...]
 
@@ -87,15 +102,14 @@ def _check_chain(models: Sequence[OptionModels], accepts: Sequence[Accepts | Non
         )
     for i in range(len(models) - 1):
         a, b = models[i], models[i + 1]
-        if a.end_state is None:
-            continue  # never stops in the data: the chain ends at skill i
-        missing = [q for q in b.features if q not in a.end_state.quantities]
-        if missing:
-            raise ValueError(
-                f"skill {i + 2} ({b.meta.skill_ref}) reads start quantities {missing} that skill {i + 1} "
-                f"({a.meta.skill_ref})'s end-state model does not predict (it has {list(a.end_state.quantities)}); "
-                f"refit skill {i + 1} with end_quantities including {missing}"
-            )
+        for outcome, end_model in a.end_states().items():
+            missing = [q for q in b.features if q not in end_model.quantities]
+            if missing:
+                raise ValueError(
+                    f"skill {i + 2} ({b.meta.skill_ref}) reads start quantities {missing} that skill {i + 1} "
+                    f"({a.meta.skill_ref})'s {outcome} end-state model does not predict (it has "
+                    f"{list(end_model.quantities)}); refit skill {i + 1} with end_quantities including {missing}"
+                )
     n_handoffs = len(models) - 1
     if accepts is None:
         return [None] * n_handoffs
@@ -118,6 +132,34 @@ def _accepted(fn: Accepts, values: dict[str, np.ndarray], index: int, batch: int
     return ok
 
 
+def _weighted_fraction(weights: np.ndarray, ok: np.ndarray) -> tuple[float | None, float | None, float]:
+    total = float(np.sum(weights))
+    if total <= 0:
+        return None, None, 0.0
+    frac = float(np.sum(weights * ok) / total)
+    ess = total**2 / float(np.sum(weights**2))
+    return frac, float(np.sqrt(frac * (1.0 - frac) / ess)), ess
+
+
+def _draw_end_states(m: OptionModels, state: dict[str, np.ndarray], stop_branch: np.ndarray, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """One end state per particle from the end-state model of its outcome."""
+    batch = stop_branch.shape[0]
+    out: dict[str, np.ndarray] = {}
+    for outcome, rows in (("stopped", np.flatnonzero(stop_branch)), ("timed_out", np.flatnonzero(~stop_branch))):
+        model = m.end_states().get(outcome)
+        if model is None or rows.size == 0:
+            continue
+        draws = model.sample({k: v[rows] for k, v in state.items()}, rng, 1)
+        for k, v in draws.items():
+            if k not in out:
+                out[k] = np.zeros((batch, *v.shape[2:]))
+            out[k][rows] = v[:, 0]
+    if not out:  # no particle hands over: keep shapes from any model
+        model = next(iter(m.end_states().values()))
+        out = {q: np.zeros((batch, *s)) for q, s in zip(model.quantities, model.shapes)}
+    return out
+
+
 def predict_chain(
     models: Sequence[OptionModels],
     start_states: Mapping[str, np.ndarray],
@@ -125,12 +167,14 @@ def predict_chain(
     rng: np.random.Generator,
     samples: int = 1,
     accepts: Sequence[Accepts | None] | None = None,
+    handoff_after_timeout: bool = True,
 ) -> ChainPrediction:
     """Predict a chain of skills from ``start_states`` (name -> (B, *shape)).
 
-    ``samples`` particles per start state; ``accepts[i]`` tests the sampled
-    end states of skill i+1 against skill i+2's initiation set
-    (``values -> (B,) bool``, e.g. a parsed ``starts_when``).
+    ``samples`` particles per start state. ``accepts[i]`` tests sampled end
+    states of skill i+1 against skill i+2's initiation set (``values -> (B,)
+    bool``, e.g. a parsed ``starts_when``). ``handoff_after_timeout=False``
+    ends the chain at a timeout (only stops hand over).
     """
     accepts_list = _check_chain(models, accepts)
     if int(samples) < 1:
@@ -141,45 +185,61 @@ def predict_chain(
         raise ValueError("start_states must hold at least one start state, got an empty batch")
     reach_w = np.ones(batch)  # W_i: probability skill i runs
     carry = np.ones(batch)  # G_i: expected discount carried into skill i
+    all_stopped = np.ones(batch, dtype=bool)  # every earlier outcome drawn was a stop
     steps = np.zeros(batch)
     ret = np.zeros(batch)
     reach: list[float] = []
     handoffs: list[HandoffPrediction] = []
+    success = np.zeros(batch)
     for i, m in enumerate(models):
         reach.append(float(np.mean(reach_w)))
         dur = m.duration.predict(state)
         steps += reach_w * dur["steps"]
         ret += carry * m.reward.expected_return(state)
-        stop_w = reach_w * dur["p_stopped"]
-        stop_d = carry * dur["handoff_discount"]
+        success = reach_w * dur["p_stopped"] * all_stopped
+        ends = m.end_states()
+        p_s = dur["p_stopped"]
+        d_s = dur["stop_discount"]
+        p_t = dur["p_timed_out"] if handoff_after_timeout else np.zeros(batch)
+        d_t = dur["timeout_discount"] if handoff_after_timeout else np.zeros(batch)
         if i == len(models) - 1:
-            reach_w, carry = stop_w, stop_d
+            carry = carry * (d_s + d_t)
             break
-        if m.end_state is None:
-            handoffs.append(HandoffPrediction(i + 1, float(np.mean(stop_w)), None, None, 0.0))
-            reach_w, carry = np.zeros(batch), np.zeros(batch)
-            continue
-        draws = m.end_state.sample(state, rng, 1)
-        nxt = {k: v[:, 0] for k, v in draws.items()}
-        if accepts_list[i] is not None:
-            ok = _accepted(accepts_list[i], nxt, i, batch)
-            w_sum = float(np.sum(stop_w))
-            if w_sum > 0:
-                frac = float(np.sum(stop_w * ok) / w_sum)
-                ess = w_sum**2 / float(np.sum(stop_w**2))
-                handoffs.append(HandoffPrediction(i + 1, float(np.mean(stop_w)), frac, float(np.sqrt(frac * (1 - frac) / ess)), ess))
-            else:
-                handoffs.append(HandoffPrediction(i + 1, 0.0, None, None, 0.0))
-            stop_w = stop_w * ok
-            stop_d = stop_d * ok
+        lost = reach_w * (p_s * ("stopped" not in ends) + p_t * ("timed_out" not in ends))
+        if "stopped" not in ends:
+            p_s, d_s = np.zeros(batch), np.zeros(batch)
+        if "timed_out" not in ends:
+            p_t, d_t = np.zeros(batch), np.zeros(batch)
+        total = p_s + p_t
+        q_s = np.divide(p_s, total, out=np.zeros(batch), where=total > 0)
+        stop_branch = rng.random(batch) < q_s
+        q_b = np.where(stop_branch, q_s, 1.0 - q_s)
+        d_b = np.where(stop_branch, d_s, d_t)
+        offered_w = reach_w * total
+        if not ends:
+            nxt = state
         else:
-            handoffs.append(HandoffPrediction(i + 1, float(np.mean(stop_w)), None, None, 0.0))
-        reach_w, carry, state = stop_w, stop_d, nxt
+            nxt = _draw_end_states(m, state, stop_branch, rng)
+        next_carry = carry * np.divide(d_b, q_b, out=np.zeros(batch), where=q_b > 0)
+        ok = np.ones(batch, dtype=bool)
+        frac = se = frac_stop = None
+        ess = 0.0
+        if accepts_list[i] is not None and ends:
+            ok = _accepted(accepts_list[i], nxt, i, batch)
+            frac, se, ess = _weighted_fraction(offered_w, ok)
+            frac_stop, _, _ = _weighted_fraction(offered_w * stop_branch, ok)
+        w_sum = float(np.sum(offered_w))
+        after_stop = float(np.sum(offered_w * stop_branch) / w_sum) if w_sum > 0 else None
+        handoffs.append(HandoffPrediction(i + 1, float(np.mean(offered_w)), after_stop, frac, se, frac_stop, ess, float(np.mean(lost))))
+        reach_w = offered_w * ok
+        carry = next_carry * ok
+        all_stopped = all_stopped & stop_branch
+        state = nxt
     return ChainPrediction(
         steps=Estimate.of(steps),
         discounted_return=Estimate.of(ret),
         discount=Estimate.of(carry),
-        success=Estimate.of(reach_w),
+        success=Estimate.of(success),
         reach=tuple(reach),
         handoffs=tuple(handoffs),
     )

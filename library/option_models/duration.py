@@ -20,15 +20,18 @@ OUTCOME_LABELS = {v: k for k, v in OUTCOME_CODES.items()}
 
 # steps:            E[k]                          (k env steps the skill ran)
 # discount:         E[gamma^k]                    (discounted duration)
-# handoff_discount: E[gamma^k * 1{stopped}]       (the discount carried to the next skill of a chain)
-DURATION_OUTPUTS = ("steps", "discount", "handoff_discount")
+# stop_discount:    E[gamma^k * 1{stopped}]
+# timeout_discount: E[gamma^k * 1{timed out}]
+# The runtime hands over to the next skill of a chain after a stop or a timeout, so
+# stop_discount + timeout_discount is the discount carried into the next skill.
+DURATION_OUTPUTS = ("steps", "discount", "stop_discount", "timeout_discount")
 
 
 @dataclass(frozen=True, eq=False)
 class DurationModel:
     """How long a skill runs from a start state and how its turn ends.
 
-    ``head`` predicts DURATION_OUTPUTS; ``outcome`` gives the probabilities of
+    ``head`` predicts DURATION_OUTPUTS (ridge); ``outcome`` gives the probabilities of
     stopped / timed_out / terminated (multinomial logistic regression), so the
     timeout probability is its ``timed_out`` column. ``errors`` holds the
     held-out errors measured when the model was fitted.
@@ -57,14 +60,16 @@ class DurationModel:
             raise ValueError(f"duration outcome classes must be among {sorted(OUTCOME_LABELS)}, got {unknown}")
 
     def predict(self, start_states: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
-        """name -> (B,): steps, discount, handoff_discount, p_stopped, p_timed_out, p_terminated."""
+        """name -> (B,): DURATION_OUTPUTS, handoff_discount, p_stopped, p_timed_out, p_terminated."""
         x = self.features(start_states)
         heads = self.head(x)
         out = {name: heads[:, i] for i, name in enumerate(DURATION_OUTPUTS)}
         for label, code in OUTCOME_CODES.items():
             out[f"p_{label}"] = self.outcome.probability(x, code)
-        # E[gamma^k 1{stopped}] can exceed neither E[gamma^k] nor P(stopped).
-        out["handoff_discount"] = np.minimum(out["handoff_discount"], np.minimum(out["discount"], out["p_stopped"]))
+        # E[gamma^k 1{A}] can exceed neither E[gamma^k] nor P(A).
+        out["stop_discount"] = np.minimum(out["stop_discount"], np.minimum(out["discount"], out["p_stopped"]))
+        out["timeout_discount"] = np.minimum(out["timeout_discount"], np.minimum(out["discount"], out["p_timed_out"]))
+        out["handoff_discount"] = out["stop_discount"] + out["timeout_discount"]
         return out
 
     def expected_steps(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:

@@ -10,8 +10,10 @@ regression"): with n pooled residuals, the two-sided level-(1 - a) interval
 uses the floor((n+1) a/2)-th and ceil((n+1)(1 - a/2))-th order statistics,
 which covers at least 1 - a of exchangeable new end states.
 
-Only episodes that stopped (``stops_when`` became true) are modelled: a
-timed-out or terminated turn never hands over to the next skill.
+One model covers one way a turn ends (``outcome``): ``stopped``
+(``stops_when`` became true) or ``timed_out`` (``max_steps`` passed); the
+runtime hands over to the next skill after either. End states of other
+outcomes never enter a model.
 """
 
 from __future__ import annotations
@@ -26,7 +28,10 @@ from .features import FeatureMap, _frozen, component_names, unflatten_states
 from .heads import LinearHead
 from .serial import file_error, pack, unpack
 
-__all__ = ["EndStateModel", "envelope_arrays", "conformal_offsets"]
+__all__ = ["EndStateModel", "END_STATE_OUTCOMES", "envelope_arrays", "conformal_offsets"]
+
+# outcome -> file kind ("end_state.json", "end_state_timed_out.json", ...)
+END_STATE_OUTCOMES = {"stopped": "end_state", "timed_out": "end_state_timed_out"}
 
 
 def envelope_arrays(
@@ -79,7 +84,7 @@ def conformal_offsets(residuals: np.ndarray, level: float) -> tuple[np.ndarray, 
 
 @dataclass(frozen=True, eq=False)
 class EndStateModel:
-    """p(end state | start state, stopped) over ``quantities``."""
+    """p(end state | start state, outcome) over ``quantities``."""
 
     features: FeatureMap
     quantities: tuple[str, ...]
@@ -89,8 +94,11 @@ class EndStateModel:
     low: np.ndarray  # (D,) physical envelope, -inf where unknown
     high: np.ndarray  # (D,)
     errors: dict = field(default_factory=dict)
+    outcome: str = "stopped"
 
     def __post_init__(self) -> None:
+        if self.outcome not in END_STATE_OUTCOMES:
+            raise ValueError(f"end-state outcome must be one of {sorted(END_STATE_OUTCOMES)}, got {self.outcome!r}")
         object.__setattr__(self, "quantities", tuple(self.quantities))
         object.__setattr__(self, "shapes", tuple(tuple(int(x) for x in s) for s in self.shapes))
         if not self.quantities or len(self.shapes) != len(self.quantities):
@@ -161,11 +169,14 @@ class EndStateModel:
             "envelope.low": self.low,
             "envelope.high": self.high,
         }
-        return pack("end_state", meta, arrays)
+        return pack(END_STATE_OUTCOMES[self.outcome], meta, arrays)
 
     @classmethod
-    def from_files(cls, files: Mapping[str, bytes]) -> "EndStateModel":
-        meta, arrays = unpack(files, "end_state")
+    def from_files(cls, files: Mapping[str, bytes], outcome: str = "stopped") -> "EndStateModel":
+        if outcome not in END_STATE_OUTCOMES:
+            raise ValueError(f"end-state outcome must be one of {sorted(END_STATE_OUTCOMES)}, got {outcome!r}")
+        kind = END_STATE_OUTCOMES[outcome]
+        meta, arrays = unpack(files, kind)
         try:
             quantities = tuple(str(q) for q in meta["quantities"])
             shapes = tuple(tuple(int(x) for x in s) for s in meta["shapes"])
@@ -178,6 +189,7 @@ class EndStateModel:
                 arrays["envelope.low"],
                 arrays["envelope.high"],
                 dict(meta.get("errors", {})),
+                outcome,
             )
         except (KeyError, TypeError, ValueError) as exc:
-            raise file_error("end_state.safetensors", "", f"does not form a valid end-state model: {exc}", "re-export the model") from None
+            raise file_error(f"{kind}.safetensors", "", f"does not form a valid end-state model: {exc}", "re-export the model") from None

@@ -48,7 +48,8 @@ def test_geometric_option_models_match_closed_forms() -> None:
     assert b * gamma / (1 - (1 - b) * gamma) == pytest.approx(0.908257, abs=5e-7)
     np.testing.assert_allclose(dur["steps"], 1 / b, rtol=0.01)
     np.testing.assert_allclose(dur["discount"], b * gamma / (1 - (1 - b) * gamma), rtol=0.01)
-    np.testing.assert_allclose(dur["handoff_discount"], dur["discount"], rtol=1e-12)  # every episode stopped
+    np.testing.assert_allclose(dur["stop_discount"], dur["discount"], rtol=1e-12)  # every episode stopped
+    assert np.all(dur["timeout_discount"] == 0.0)
     np.testing.assert_allclose(models.reward.expected_return(start), r / (1 - gamma * (1 - b)), rtol=0.01)
     np.testing.assert_allclose(models.reward.predict(start)["reward"], r / b, rtol=0.01)
     assert np.all(dur["p_timed_out"] == 0.0) and np.all(dur["p_stopped"] == 1.0)
@@ -127,9 +128,17 @@ def test_timeouts_are_modelled_by_state_and_kept_out_of_end_states() -> None:
     fr = models.outcome_fractions()
     assert fr["stopped"] + fr["timed_out"] == pytest.approx(1.0)
     assert fr["timed_out"] == pytest.approx(np.mean(timed_out))
-    # handoff discount counts stopped turns only
+    # timed-out turns (all 50 steps) get their own end-state model
+    np.testing.assert_allclose(models.end_state_timed_out.predict(grid)["y"][:, 0], 100.0, atol=1e-9)
     pred = models.duration.predict(grid)
-    assert np.all(pred["handoff_discount"] <= pred["discount"] + 1e-12)
+    # E[gamma^k 1{timed out}] = P(timed out) gamma^50 since every timeout runs 50 steps. The
+    # linear head cannot follow the sigmoid pointwise, but ridge with an intercept matches
+    # the mean over the start distribution (fresh draws: sd of the mean ~0.002).
+    fresh = {"s": np.random.default_rng(10).normal(size=(20_000, 1))}
+    p_fresh = 1 / (1 + np.exp(-(3 * fresh["s"][:, 0] - 1)))
+    td_mean = models.duration.predict(fresh)["timeout_discount"].mean()
+    assert td_mean == pytest.approx(p_fresh.mean() * gamma**cap, abs=0.01)
+    np.testing.assert_allclose(pred["handoff_discount"], pred["stop_discount"] + pred["timeout_discount"])
 
 
 def test_refused_and_not_reached_episodes_are_left_out() -> None:
@@ -226,5 +235,7 @@ def test_no_end_state_model_without_enough_stopped_episodes() -> None:
     seg = segment("t@1", {"x": rng.normal(size=(n, 1))}, {"y": rng.normal(size=(n, 1))}, reason, np.full(n, 30), 1.0, 0.99)
     models = fit_option_models(rollout([seg], 0.99), fitted_at=STAMP)
     assert models.end_state is None
-    assert "no end-state model" in models.summary()["notes"][0]
-    assert OptionModels.from_files(models.to_files()).end_state is None
+    assert models.end_state_timed_out is not None  # 35 timeouts: enough for their own model
+    assert "no stopped end-state model: " in models.summary()["notes"][0]
+    again = OptionModels.from_files(models.to_files())
+    assert again.end_state is None and again.end_state_timed_out.outcome == "timed_out"

@@ -30,7 +30,7 @@ def test_lstd_geometric_option_matches_closed_forms() -> None:
     start = {"x": np.zeros((3, 2))}
     pred = td.predict(start)
     np.testing.assert_allclose(pred["discount"], b * gamma / (1 - (1 - b) * gamma), rtol=0.01)
-    np.testing.assert_allclose(pred["handoff_discount"], pred["discount"], rtol=1e-9)
+    np.testing.assert_allclose(pred["stop_discount"], pred["discount"], rtol=1e-9)
     np.testing.assert_allclose(pred["steps"], 1 / b, rtol=0.015)
     np.testing.assert_allclose(pred["discounted_return"], r / (1 - gamma * (1 - b)), rtol=0.01)
     np.testing.assert_allclose(pred["p_stopped"], 1.0, rtol=1e-6)
@@ -55,7 +55,7 @@ def _exact_option_models(gamma: float) -> dict[str, np.ndarray]:
     return {
         "steps": np.linalg.solve(eye - q, np.ones(4)),
         "discount": np.linalg.solve(eye - gamma * q, gamma * (p[:, 0] + p[:, 5])),
-        "handoff_discount": np.linalg.solve(eye - gamma * q, gamma * p[:, 5]),
+        "stop_discount": np.linalg.solve(eye - gamma * q, gamma * p[:, 5]),
         "p_stopped": np.linalg.solve(eye - q, p[:, 5]),
         "discounted_return": np.linalg.solve(eye - gamma * q, r),
     }

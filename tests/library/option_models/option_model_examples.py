@@ -42,16 +42,20 @@ def linear_models(
     residuals: np.ndarray | None = None,
     dim: int = 2,
     name: str = "x",
+    timeout_m: np.ndarray | None = None,
 ) -> OptionModels:
     """Models of a skill with constant duration, linear reward and a linear end state end = M x + c.
 
     Constant stop probability ``p_stop`` (timed out otherwise); the handoff
     discount is then p_stop * gamma^steps, the return a linear function of x.
+    ``timeout_m`` adds a timed-out end-state model end = timeout_m x (no noise).
     """
     fmap = identity_map(name, dim=dim)
     disc = gamma**steps
     inf = np.inf
-    dur_head = LinearHead(DURATION_OUTPUTS, np.zeros((dim, 3)), np.array([steps, disc, p_stop * disc]), np.full(3, -inf), np.full(3, inf))
+    dur_head = LinearHead(
+        DURATION_OUTPUTS, np.zeros((dim, 4)), np.array([steps, disc, p_stop * disc, (1 - p_stop) * disc]), np.full(4, -inf), np.full(4, inf)
+    )
     if p_stop >= 1.0:
         outcome = SoftmaxHead((0,), np.zeros((dim, 1)), np.zeros(1))
     else:
@@ -66,6 +70,11 @@ def linear_models(
         res = np.zeros((1, dim)) if residuals is None else residuals
         head = LinearHead(names, np.asarray(end_m, float).T, c, np.full(dim, -inf), np.full(dim, inf))
         end_state = EndStateModel(fmap, (name,), ((dim,),), head, res, np.full(dim, -inf), np.full(dim, inf))
+    end_timed_out = None
+    if timeout_m is not None:
+        names = component_names((name,), ((dim,),))
+        head = LinearHead(names, np.asarray(timeout_m, float).T, np.zeros(dim), np.full(dim, -inf), np.full(dim, inf))
+        end_timed_out = EndStateModel(fmap, (name,), ((dim,),), head, np.zeros((1, dim)), np.full(dim, -inf), np.full(dim, inf), outcome="timed_out")
     meta = ModelsMeta(
         skill_ref=ref,
         env_id="kinetome/Test-v0",
@@ -74,12 +83,12 @@ def linear_models(
         outcomes={"stopped": 100, "timed_out": 0, "terminated": 0, "refused": 0},
         fitted_at="2024-01-01T00:00:00Z",
         features=(name,),
-        end_quantities=(name,) if end_m is not None else (),
+        end_quantities=(name,) if end_m is not None or timeout_m is not None else (),
     )
-    return OptionModels(duration, reward, end_state, meta)
+    return OptionModels(duration, reward, end_state, meta, end_timed_out)
 
 
-def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool = True) -> OptionModels:
+def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool = True, with_timed_out: bool = False) -> OptionModels:
     """Models with random weights and residuals, for file round trips."""
     rng = np.random.default_rng(seed)
     dim = 3
@@ -89,7 +98,7 @@ def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool 
     errors = {"steps": {"r2": 0.5, "rmse": 1.25, "n": 10}, "discount": {"r2": None, "rmse": 0.0, "n": 10, "note": "constant"}}
     duration = DurationModel(
         fmap,
-        LinearHead(DURATION_OUTPUTS, rng.normal(size=(p, 3)), rng.normal(size=3), np.array([1.0, 0, 0]), np.array([50.0, 1, 1])),
+        LinearHead(DURATION_OUTPUTS, rng.normal(size=(p, 4)), rng.normal(size=4), np.array([1.0, 0, 0, 0]), np.array([50.0, 1, 1, 1])),
         SoftmaxHead((0, 1, 2), rng.normal(size=(p, 3)), rng.normal(size=3)),
         0.97,
         errors,
@@ -106,10 +115,18 @@ def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool 
             np.array([1.0, np.inf, 2.0]),
             {"coverage_90": {"mean": 0.9}},
         )
+    end_timed_out = None
+    if with_timed_out:
+        names = component_names(("y", "h"), ((2,), ()))
+        end_timed_out = EndStateModel(
+            fmap, ("y", "h"), ((2,), ()),
+            LinearHead(names, rng.normal(size=(p, 3)), rng.normal(size=3), np.full(3, -np.inf), np.full(3, np.inf)),
+            rng.normal(size=(25, 3)), np.full(3, -np.inf), np.full(3, np.inf), {"n_train": 25}, "timed_out",
+        )
     meta = ModelsMeta(
         skill_ref="reach@3", env_id="kinetome/Test-v0", gamma=0.97, episodes=120,
         outcomes={"stopped": 80, "timed_out": 20, "terminated": 10, "refused": 10},
-        fitted_at="2024-05-06T07:08:09Z", features=("x",), end_quantities=("y", "h") if with_end_state else (),
+        fitted_at="2024-05-06T07:08:09Z", features=("x",), end_quantities=("y", "h") if with_end_state or with_timed_out else (),
         variant="heavy", variant_digest="ab" * 32, seed=seed,
     )
-    return OptionModels(duration, reward, end_state, meta)
+    return OptionModels(duration, reward, end_state, meta, end_timed_out)

@@ -43,22 +43,50 @@ def test_deterministic_linear_chain_matches_closed_form() -> None:
 
 
 def test_stop_probability_weights_later_skills() -> None:
-    # Skill a stops with probability 1, b with 0.6: P(chain stops) = 0.6 and the end
-    # discount is 0.6 gamma^19; a three-skill chain a, b, a reaches its third skill
+    # Skill a stops with probability 1; b stops with 0.6 and times out otherwise, and
+    # has no end-state model for timeouts, so a chain a, b, a reaches its third skill
     # with probability 0.6 and runs 12 + 7 + 0.6 * 12 steps on average.
     a, b = _two_skills(p_stop_b=0.6)
     x = np.zeros((4, 2))
     pred = predict_chain([a, b], {"x": x}, rng=np.random.default_rng(0))
     assert pred.success.mean == pytest.approx(0.6, rel=1e-12)
-    assert pred.discount.mean == pytest.approx(0.6 * GAMMA**19, rel=1e-12)
-    b_with_end = linear_models(ref="b@1", gamma=GAMMA, steps=7, reward_w=A2, reward_b=B2, end_m=M2, p_stop=0.6)
-    pred3 = predict_chain([a, b_with_end, a], {"x": x}, rng=np.random.default_rng(0))
+    # the last skill hands over after a stop or a timeout: the discount out of the chain is gamma^19
+    assert pred.discount.mean == pytest.approx(GAMMA**19, rel=1e-12)
+    pred3 = predict_chain([a, b, a], {"x": x}, rng=np.random.default_rng(0))
     assert pred3.reach == pytest.approx((1.0, 1.0, 0.6))
+    assert pred3.handoffs[1].unmodelled == pytest.approx(0.4)
     assert pred3.steps.mean == pytest.approx(12 + 7 + 0.6 * 12, rel=1e-12)
     x2 = x @ M1.T + C1
     x3 = x2 @ M2.T
     expect = B1 + GAMMA**12 * (x2 @ A2 + B2) + GAMMA**12 * 0.6 * GAMMA**7 * (x3 @ A1 + B1)
     assert pred3.discounted_return.mean == pytest.approx(expect.mean(), rel=1e-12)
+    # only stops hand over: the timeout mass ends the chain either way
+    no_to = predict_chain([a, b], {"x": x}, rng=np.random.default_rng(0), handoff_after_timeout=False)
+    assert no_to.discount.mean == pytest.approx(0.6 * GAMMA**19, rel=1e-12)
+
+
+def test_timed_out_turns_hand_over_from_their_own_end_states() -> None:
+    # a stops w.p. 0.6 ending at M1 x + c1, else times out ending at MT x; both after 12
+    # steps. The runtime starts b after either, so
+    # return = R1(x) + gamma^12 (0.6 R2(M1 x + c1) + 0.4 R2(MT x)), success = 0.6 * 1.
+    # Outcomes are sampled per particle: with 20,000 particles the Monte Carlo se of
+    # the mean is reported, and the check allows 4 se.
+    mt = np.array([[0.0, 1.0], [1.0, 0.0]])
+    a = linear_models(ref="a@1", gamma=GAMMA, steps=12, reward_w=A1, reward_b=B1, end_m=M1, end_c=C1, p_stop=0.6, timeout_m=mt)
+    b = linear_models(ref="b@1", gamma=GAMMA, steps=7, reward_w=A2, reward_b=B2, end_m=None)
+    x = np.array([[0.5, -1.0]])
+    pred = predict_chain([a, b], {"x": x}, rng=np.random.default_rng(1), samples=20_000, accepts=[lambda v: v["x"][:, 0] > 0])
+    r2 = lambda s: s @ A2 + B2  # noqa: E731
+    stop_end, to_end = x @ M1.T + C1, x @ mt.T
+    ok_stop, ok_to = stop_end[0, 0] > 0, to_end[0, 0] > 0
+    expect = x @ A1 + B1 + GAMMA**12 * (0.6 * r2(stop_end) * ok_stop + 0.4 * r2(to_end) * ok_to)
+    assert pred.discounted_return.mean == pytest.approx(expect[0], abs=4 * pred.discounted_return.se + 1e-12)
+    (h,) = pred.handoffs
+    assert h.reach == pytest.approx(1.0) and h.after_stop == pytest.approx(0.6, abs=0.015)  # binomial sd 0.0035
+    assert h.accepted == pytest.approx(0.6 * ok_stop + 0.4 * ok_to, abs=0.015)
+    assert h.accepted_after_stop == pytest.approx(float(ok_stop))
+    assert pred.success.mean == pytest.approx(0.6 * ok_stop, abs=0.015)
+    assert pred.reach[1] == pytest.approx(h.accepted, rel=1e-12)
 
 
 def test_handoff_acceptance_matches_gaussian_probability() -> None:
@@ -118,4 +146,4 @@ def test_next_skill_reading_unpredicted_quantities_is_rejected() -> None:
     b = linear_models(ref="b@1", gamma=GAMMA, steps=7, reward_w=A2, reward_b=B2, end_m=None, name="y")
     with pytest.raises(ValueError) as info:
         predict_chain([a, b], {"x": np.zeros((2, 2))}, rng=np.random.default_rng(0))
-    assert "skill 2 (b@1) reads start quantities ['y'] that skill 1 (a@1)'s end-state model does not predict" in str(info.value)
+    assert "skill 2 (b@1) reads start quantities ['y'] that skill 1 (a@1)'s stopped end-state model does not predict" in str(info.value)

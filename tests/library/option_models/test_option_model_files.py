@@ -15,9 +15,9 @@ from option_model_examples import random_models
 
 
 @pytest.mark.parametrize("expansion", ["linear", "poly2", "rff"])
-@pytest.mark.parametrize("with_end_state", [True, False])
-def test_bundle_round_trip_is_bit_for_bit(expansion: str, with_end_state: bool) -> None:
-    models = random_models(3, expansion=expansion, with_end_state=with_end_state)
+@pytest.mark.parametrize("with_end_state, with_timed_out", [(True, True), (True, False), (False, True), (False, False)])
+def test_bundle_round_trip_is_bit_for_bit(expansion: str, with_end_state: bool, with_timed_out: bool) -> None:
+    models = random_models(3, expansion=expansion, with_end_state=with_end_state, with_timed_out=with_timed_out)
     files = models.to_files()
     again = OptionModels.from_files(files)
     assert again.to_files() == files
@@ -33,13 +33,15 @@ def test_bundle_round_trip_is_bit_for_bit(expansion: str, with_end_state: bool) 
             np.testing.assert_array_equal(a[key], b[key])
     else:
         assert again.end_state is None and "end_state.json" not in files
+    assert (again.end_state_timed_out is not None) == with_timed_out == ("end_state_timed_out.json" in files)
     assert again.summary() == models.summary()
 
 
 def test_files_are_json_and_safetensors_never_pickle() -> None:
-    files = random_models(0).to_files()
+    files = random_models(0, with_timed_out=True).to_files()
     assert sorted(files) == [
         "duration.json", "duration.safetensors", "end_state.json", "end_state.safetensors",
+        "end_state_timed_out.json", "end_state_timed_out.safetensors",
         "models.json", "reward.json", "reward.safetensors",
     ]
     for name, data in files.items():
@@ -75,6 +77,12 @@ BAD_FILES = [
     ("missing arrays", lambda f: f.pop("reward.safetensors"), "reward.safetensors: file is missing"),
     ("missing bundle", lambda f: f.pop("models.json"), "models.json: file is missing"),
     ("missing end state", lambda f: f.pop("end_state.safetensors"), "end_state.safetensors: file is missing"),
+    ("missing timed-out end state", lambda f: f.pop("end_state_timed_out.json"), "end_state_timed_out.json: file is missing"),
+    (
+        "unknown end-state outcome",
+        lambda f: f.__setitem__("models.json", _edit_json(f["models.json"], lambda o: o.__setitem__("end_states", ["fell"]))),
+        "models.json: end_states: must list outcomes among ['stopped', 'timed_out'], got ['fell']",
+    ),
     ("bad json", lambda f: f.__setitem__("duration.json", b"{not json"), "duration.json: is not valid JSON"),
     ("bad safetensors", lambda f: f.__setitem__("reward.safetensors", b"\x00\x01junk"), "reward.safetensors: is not a readable safetensors file"),
     ("wrong format", lambda f: f.__setitem__("duration.json", _edit_json(f["duration.json"], lambda o: o.__setitem__("format", "other/9"))), "duration.json: format: must be 'kinetome.option_models/1'"),
@@ -82,8 +90,8 @@ BAD_FILES = [
     (
         "weights wrong shape, json and arrays agree",
         lambda f: (
-            f.__setitem__("duration.safetensors", _replace_array(f["duration.safetensors"], "head.weights", np.zeros((2, 3)))),
-            f.__setitem__("duration.json", _edit_json(f["duration.json"], lambda o: o["arrays"].__setitem__("head.weights", [2, 3]))),
+            f.__setitem__("duration.safetensors", _replace_array(f["duration.safetensors"], "head.weights", np.zeros((2, 4)))),
+            f.__setitem__("duration.json", _edit_json(f["duration.json"], lambda o: o["arrays"].__setitem__("head.weights", [2, 4]))),
         ),
         "duration.safetensors: does not form a valid duration model: duration head reads 2 features but the feature map makes 3",
     ),
@@ -117,7 +125,7 @@ BAD_FILES = [
 
 @pytest.mark.parametrize("label, edit, expected", BAD_FILES, ids=[b[0] for b in BAD_FILES])
 def test_from_files_rejects_bad_files(label: str, edit, expected: str) -> None:
-    files = dict(random_models(4).to_files())
+    files = dict(random_models(4, with_timed_out=True).to_files())
     edit(files)
     with pytest.raises(InvalidInputError) as info:
         OptionModels.from_files(files)
