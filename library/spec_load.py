@@ -116,12 +116,18 @@ def _skill_from_data(doc: YamlDocument) -> tuple[Skill | None, list[Problem]]:
     return skill, []
 
 
-def _path_from_message(message: str) -> tuple[str, ...]:
-    """Controller errors start with a dotted field path, e.g. ``controller.parameters.kp must ...``."""
-    head = message.split(" ", 1)[0]
-    if head.startswith("controller."):
-        return tuple(head.rstrip(":").split("."))
-    return ("controller",)
+def _path_from_message(message: str) -> tuple[str | int, ...]:
+    """A dotted field such as ``controller.parameters.kp`` (maybe ``[1]``) as a path."""
+    head = message.split(" ", 1)[0].rstrip(":")
+    if not head.startswith("controller"):
+        return ("controller",)
+    path: list[str | int] = []
+    for part in head.split("."):
+        name, _, rest = part.partition("[")
+        path.append(name)
+        if rest.rstrip("]").isdigit():
+            path.append(int(rest.rstrip("]")))
+    return tuple(path)
 
 
 def check_semantics(skill: Skill, doc: YamlDocument | None = None) -> list[Problem]:
@@ -148,13 +154,12 @@ def check_semantics(skill: Skill, doc: YamlDocument | None = None) -> list[Probl
         )
         parameter_shapes = {k: tuple(v.shape) for k, v in controller.parameter_values().items()}
     except (ValueError, KeyError, TypeError) as exc:
-        message = str(exc.args[0]) if exc.args else str(exc)
-        path = _path_from_message(message)
-        text = message[len(".".join(path)) :].strip() if message.startswith(".".join(path)) else message
-        fix = ""
-        if "; " in text:
-            text, fix = text.split("; ", 1)
-        problems.append(doc.problem(path, text, fix))
+        for p in getattr(exc, "problems", None) or [Problem("", None, "controller", str(exc))]:
+            if isinstance(p, Problem):
+                path = tuple(_path_from_message(p.field + " "))
+                problems.append(doc.problem(path, p.message, p.fix))
+            else:
+                problems.append(doc.problem(("controller",), str(p)))
         controller = None
     if controller is not None:
         for name in controller.inputs:

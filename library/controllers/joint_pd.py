@@ -42,7 +42,7 @@ def bias_decl(context: ControllerContext) -> ParamDecl:
 class JointPD(Controller):
     """Drive each actuated joint to a target angle with a spring and damper.
 
-    u = kp (target - q) - kd qdot + bias, with q, qdot the actuated joints'
+    u = kp (setpoint - q) - kd qdot + bias, with q, qdot the actuated joints'
     positions and velocities. Use it to reach or hold a posture (a reach to a
     known joint configuration, a stance, a tuck); ``bias`` carries a constant
     feed-forward such as gravity compensation. It reads ``qpos`` and ``qvel``.
@@ -52,7 +52,7 @@ class JointPD(Controller):
     def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
         low, high = context.joint_range()
         return (
-            ParamDecl("target", (context.n_act,), low, high, None, "joint angle each actuator drives to", "rad",
+            ParamDecl("setpoint", (context.n_act,), low, high, None, "joint angle each actuator drives to", "rad",
                       shape_help=PER_ACTUATOR),
             *gain_decls(context),
             bias_decl(context),
@@ -64,4 +64,4 @@ class JointPD(Controller):
 
     def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
         q, qd = self.actuated_qpos(x), self.actuated_qvel(x)
-        return self.p["kp"] * (self.p["target"] - q) - self.p["kd"] * qd + self.p["bias"]
+        return self.p["kp"] * (self.p["setpoint"] - q) - self.p["kd"] * qd + self.p["bias"]

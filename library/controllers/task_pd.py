@@ -28,7 +28,7 @@ PER_AXIS = "give three values, one per world axis (x, y, z)"
 class TaskPD(Controller):
     """Pull a site (the fingertip by default) toward a Cartesian target.
 
-    A virtual spring-damper in world coordinates, f = kp (target - x) - kd xdot,
+    A virtual spring-damper in world coordinates, f = kp (setpoint - x) - kd xdot,
     is mapped to joint efforts through the site's Jacobian transpose,
     u = J_act^T f - joint_damping qdot + bias, where J_act keeps the Jacobian's
     columns of the actuated dofs. Use it for reaching, pointing and pushing when
@@ -72,7 +72,7 @@ class TaskPD(Controller):
         n = context.n_act
         low, high = context.envelope((options["site"],), WORKSPACE_FALLBACK)
         return (
-            ParamDecl("target", (3,), low, high, None, f"world position the {options['site']} is pulled to", "m",
+            ParamDecl("setpoint", (3,), low, high, None, f"world position the {options['site']} is pulled to", "m",
                       shape_help=PER_AXIS),
             ParamDecl("kp", (3,), 0.0, TASK_KP_MAX, None, "task-space stiffness per world axis", "ctrl/m",
                       limit_low=0.0, shape_help=PER_AXIS),
@@ -94,6 +94,6 @@ class TaskPD(Controller):
 
     def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
         site = self.options["site"]
-        force = self.p["kp"] * (self.p["target"] - x[site]) - self.p["kd"] * x[f"{site}_vel"]
+        force = self.p["kp"] * (self.p["setpoint"] - x[site]) - self.p["kd"] * x[f"{site}_vel"]
         jac = x[f"{site}_jac"].index_select(2, self._qvel_index)
         return jacobian_transpose(jac, force) - self.p["joint_damping"] * self.actuated_qvel(x) + self.p["bias"]

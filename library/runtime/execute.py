@@ -33,13 +33,6 @@ def _needs(skill: LoadedSkill) -> tuple[str, ...]:
     return tuple(getattr(skill.controller, "needs", ()) or ())
 
 
-def _exploration_std(skill: LoadedSkill) -> np.ndarray:
-    import torch
-
-    with torch.no_grad():
-        return np.exp(skill.controller.log_std.detach().cpu().numpy().astype(np.float64))
-
-
 # limit name -> (quantity, how one state's magnitude is measured)
 _PEAK_MEASURES = {
     "joint_speed": ("qvel", lambda v: np.max(np.abs(v.reshape(len(v), -1)), axis=1)),
@@ -107,13 +100,11 @@ def _run_segment(
     seg.reason[offered[~accepted]] = int(EndReason.REFUSED)
     running = offered[accepted]
     state = take_states(start, accepted)
-    std = _exploration_std(skill) if noise is not None else None
     for t in range(skill.max_steps):
         if running.size == 0:
             break
-        action = skill.controller.act(state, np.full(running.size, t * rig.dt))
-        if noise is not None:
-            action = action + std * noise.draw(running)
+        draws = noise.draw(running) if noise is not None else None
+        action = skill.controller.act(state, np.full(running.size, t * rig.dt), noise=draws)
         applied = sim.step(action, running)
         after = sim.state(running, extra=needs)
         reward, _ = rig.reward(state, applied, after)
@@ -252,11 +243,9 @@ def reference_run_chain(
                 if not skill.starts_when.evaluate({**skill.parameters, **state})[0]:
                     seg.reason[i] = int(EndReason.REFUSED)
                 else:
-                    std = _exploration_std(skill) if noise is not None else None
                     for t in range(skill.max_steps):
-                        action = skill.controller.act(state, np.full(1, t * rig.dt))
-                        if noise is not None:
-                            action = action + std * noise.draw(np.array([i]))
+                        draws = noise.draw(np.array([i])) if noise is not None else None
+                        action = skill.controller.act(state, np.full(1, t * rig.dt), noise=draws)
                         _, reward, _, _, _ = env.step(action[0])
                         after = _env_state(env, skill)
                         seg.reward[i] += reward

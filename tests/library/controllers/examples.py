@@ -59,11 +59,11 @@ class ControllerExample:
 _rng = np.random.default_rng(20240601)
 
 EXAMPLES: tuple[ControllerExample, ...] = (
-    ControllerExample("joint_pd", "joint_pd", {"target": [0.3, -0.2], "kp": [5.0, 3.0], "kd": [0.5, 0.2], "bias": [0.1, -0.1]}),
+    ControllerExample("joint_pd", "joint_pd", {"setpoint": [0.3, -0.2], "kp": [5.0, 3.0], "kd": [0.5, 0.2], "bias": [0.1, -0.1]}),
     ControllerExample(
         "task_pd",
         "task_pd",
-        {"target": [0.1, 0.2, 0.05], "kp": [10.0, 10.0, 5.0], "kd": [1.0, 1.0, 0.5], "joint_damping": [0.1, 0.2]},
+        {"setpoint": [0.1, 0.2, 0.05], "kp": [10.0, 10.0, 5.0], "kd": [1.0, 1.0, 0.5], "joint_damping": [0.1, 0.2]},
         options={"site": "fingertip"},
         bounds={"kp": (0.0, 50.0)},
     ),

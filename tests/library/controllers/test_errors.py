@@ -18,8 +18,8 @@ from kinetome.library.errors import InvalidInputError
 
 from .examples import EXAMPLES, TINY, TINY_LAYOUT, tiny_states
 
-PD = {"target": [0.0, 0.0], "kp": [1.0, 1.0]}
-TASK = {"target": [0.0, 0.0, 0.1], "kp": [1.0, 1.0, 1.0]}
+PD = {"setpoint": [0.0, 0.0], "kp": [1.0, 1.0]}
+TASK = {"setpoint": [0.0, 0.0, 0.1], "kp": [1.0, 1.0, 1.0]}
 
 # (kind, parameters, bounds, options, exploration_std, exact message)
 BUILD_ERRORS = [
@@ -31,15 +31,15 @@ BUILD_ERRORS = [
     ("joint_pd", {**PD, "kp": [1.0, 50.0]}, {"kp": (0.0, 10.0)}, None, None,
      "controller.parameters.kp must lie within its bounds [0, 10], got 50 at element 1; "
      "give a value inside the bounds or widen controller.bounds.kp"),
-    ("joint_pd", {**PD, "target": [float("nan"), 0.0]}, None, None, None,
-     "controller.parameters.target must be finite, got nan at element 0; give finite numbers"),
-    ("joint_pd", {**PD, "target": ["left", 0.0]}, None, None, None,
-     "controller.parameters.target value must be numbers, got ['left', 0.0]; give a number or a (nested) list of numbers"),
-    ("joint_pd", {"target": [0.0, 0.0]}, None, None, None,
+    ("joint_pd", {**PD, "setpoint": [float("nan"), 0.0]}, None, None, None,
+     "controller.parameters.setpoint must be finite, got nan at element 0; give finite numbers"),
+    ("joint_pd", {**PD, "setpoint": ["left", 0.0]}, None, None, None,
+     "controller.parameters.setpoint value must be numbers, got ['left', 0.0]; give a number or a (nested) list of numbers"),
+    ("joint_pd", {"setpoint": [0.0, 0.0]}, None, None, None,
      "controller.parameters.kp is required for kind 'joint_pd'; give one value per actuator"),
     ("joint_pd", {**PD, "kpp": [1.0, 1.0]}, None, None, None,
      "controller.parameters.kpp is not a parameter of kind 'joint_pd'; did you mean 'kp'? "
-     "known parameters: bias, kd, kp, log_std, target"),
+     "known parameters: bias, kd, kp, log_std, setpoint"),
     ("joint_pd", PD, {"kp": (-1.0, 10.0)}, None, None,
      "controller.bounds.kp must lie within the kind's limits [0, inf], got low -1 at element 0; keep low >= 0"),
     ("joint_pd", PD, {"kp": (5.0, 1.0)}, None, None,
@@ -55,7 +55,7 @@ BUILD_ERRORS = [
      "controller.parameters.kd has default 0 at element 0 outside its bounds [1, 5]; give a value inside the bounds"),
     ("joint_pd", PD, {"kdd": (0.0, 1.0)}, None, None,
      "controller.bounds.kdd is not a bounded parameter of kind 'joint_pd'; did you mean 'kd'? "
-     "known parameters: bias, kd, kp, log_std, target"),
+     "known parameters: bias, kd, kp, log_std, setpoint"),
     ("joint_dp", PD, None, None, None,
      "controller.kind must name a known controller kind, got 'joint_dp'; did you mean 'joint_pd'? "
      "known kinds: cpg, joint_pd, linear, mlp, task_pd"),
@@ -72,9 +72,9 @@ BUILD_ERRORS = [
      "controller.options.site needs the Jacobian 'qpos_jac', which the env cannot supply; Jacobians available: fingertip"),
     ("task_pd", {**TASK, "kp": [1.0, 1.0]}, None, None, None,
      "controller.parameters.kp must have shape (3,), got (2,); give three values, one per world axis (x, y, z)"),
-    ("task_pd", {**TASK, "target": [0.0, 0.0, 1.0]}, None, None, None,
-     "controller.parameters.target must lie within its bounds [-0.1, 0.4], got 1 at element 2; "
-     "give a value inside the bounds or widen controller.bounds.target"),
+    ("task_pd", {**TASK, "setpoint": [0.0, 0.0, 1.0]}, None, None, None,
+     "controller.parameters.setpoint must lie within its bounds [-0.1, 0.4], got 1 at element 2; "
+     "give a value inside the bounds or widen controller.bounds.setpoint"),
     ("linear", {}, None, {"inputs": ["qposs"]}, None,
      "controller.options.inputs must name quantities of the state, got 'qposs'; did you mean 'qpos'? "
      "known: qpos, qvel, fingertip, fingertip_vel, torso_height"),
@@ -126,7 +126,7 @@ def test_build_errors_are_pinned(kind, parameters, bounds, options, std, message
 
 def test_controller_error_is_an_invalid_input_and_a_value_error():
     with pytest.raises(ControllerError) as info:
-        build_controller("joint_pd", TINY, parameters={"target": [0.0, 0.0]})
+        build_controller("joint_pd", TINY, parameters={"setpoint": [0.0, 0.0]})
     assert isinstance(info.value, InvalidInputError)
     assert isinstance(info.value, ValueError)
     assert info.value.exit_code == 2
@@ -138,7 +138,7 @@ def test_every_problem_is_reported_at_once():
     fields = [p.field for p in info.value.problems]
     assert fields == [
         "controller.parameters.kpp",
-        "controller.parameters.target",
+        "controller.parameters.setpoint",
         "controller.parameters.kp",
         "controller.bounds.kd",
     ]
@@ -147,7 +147,7 @@ def test_every_problem_is_reported_at_once():
 
 def test_where_prefixes_every_field():
     with pytest.raises(ControllerError) as info:
-        build_controller("joint_pd", TINY, parameters={"target": [0.0, 0.0], "kp": [1.0]}, where="chain.steps.0.controller")
+        build_controller("joint_pd", TINY, parameters={"setpoint": [0.0, 0.0], "kp": [1.0]}, where="chain.steps.0.controller")
     assert str(info.value).startswith("chain.steps.0.controller.parameters.kp must have shape (2,), got (1,)")
 
 
@@ -183,8 +183,8 @@ def test_load_values_rejects_unknown_missing_and_wrong_shapes_at_once():
     with pytest.raises(ControllerError) as info:
         c.load_values(values)
     assert info.value.lines() == [
-        "controller.parameters.gain is not a parameter of kind 'joint_pd'; known parameters: bias, kd, kp, log_std, target",
-        "controller.parameters.bias is missing from the loaded values; give every parameter of kind 'joint_pd': target, kp, kd, bias, log_std",
+        "controller.parameters.gain is not a parameter of kind 'joint_pd'; known parameters: bias, kd, kp, log_std, setpoint",
+        "controller.parameters.bias is missing from the loaded values; give every parameter of kind 'joint_pd': setpoint, kp, kd, bias, log_std",
         "controller.parameters.kp must have shape (2,), got (3,); give one value per actuator",
     ]
     after = c.parameter_values()

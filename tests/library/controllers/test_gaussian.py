@@ -40,7 +40,7 @@ def test_log_prob_gradient_reaches_log_std():
 
 
 def test_exploration_noise_has_the_declared_std():
-    c = build_controller("joint_pd", TINY, parameters={"target": [0.0, 0.5], "kp": [1.0, 1.0]}, exploration_std=[0.05, 0.1])
+    c = build_controller("joint_pd", TINY, parameters={"setpoint": [0.0, 0.5], "kp": [1.0, 1.0]}, exploration_std=[0.05, 0.1])
     n = 20000
     states = {"qpos": np.zeros((n, 3)), "qvel": np.zeros((n, 3))}
     mean = c.act(states, np.zeros(n))

@@ -23,7 +23,7 @@ def _state(qpos, qvel, **extra):
 def test_joint_pd_matches_hand_values():
     c = build_controller(
         "joint_pd", TINY,
-        parameters={"target": [1.0, -0.5], "kp": [2.0, 4.0], "kd": [0.5, 1.0], "bias": [0.25, 0.0]},
+        parameters={"setpoint": [1.0, -0.5], "kp": [2.0, 4.0], "kd": [0.5, 1.0], "bias": [0.25, 0.0]},
     )
     # joint 1 is unactuated: its values must not matter.
     s = _state([0.5, 9.0, -0.25], [2.0, -9.0, 0.5])
@@ -34,20 +34,20 @@ def test_joint_pd_matches_hand_values():
 
 
 def test_joint_pd_equals_formula_on_a_batch():
-    p = {"target": [0.3, -0.2], "kp": [5.0, 3.0], "kd": [0.5, 0.2], "bias": [0.1, -0.1]}
+    p = {"setpoint": [0.3, -0.2], "kp": [5.0, 3.0], "kd": [0.5, 0.2], "bias": [0.1, -0.1]}
     c = build_controller("joint_pd", TINY, parameters=p)
     s = tiny_states(50, seed=11)
     q, qd = s["qpos"][:, [0, 2]], s["qvel"][:, [0, 2]]
-    expected = np.asarray(p["kp"]) * (np.asarray(p["target"]) - q) - np.asarray(p["kd"]) * qd + np.asarray(p["bias"])
+    expected = np.asarray(p["kp"]) * (np.asarray(p["setpoint"]) - q) - np.asarray(p["kd"]) * qd + np.asarray(p["bias"])
     assert np.array_equal(c.mean(s, np.zeros(50)).detach().numpy(), expected)
 
 
 def test_task_pd_matches_jacobian_transpose_formula():
-    p = {"target": [0.1, 0.2, 0.05], "kp": [10.0, 20.0, 5.0], "kd": [1.0, 2.0, 0.5],
+    p = {"setpoint": [0.1, 0.2, 0.05], "kp": [10.0, 20.0, 5.0], "kd": [1.0, 2.0, 0.5],
          "joint_damping": [0.1, 0.3], "bias": [0.05, -0.05]}
     c = build_controller("task_pd", TINY, parameters=p)
     s = tiny_states(20, seed=12)
-    f = np.asarray(p["kp"]) * (np.asarray(p["target"]) - s["fingertip"]) - np.asarray(p["kd"]) * s["fingertip_vel"]
+    f = np.asarray(p["kp"]) * (np.asarray(p["setpoint"]) - s["fingertip"]) - np.asarray(p["kd"]) * s["fingertip_vel"]
     jac = s["fingertip_jac"][:, :, [0, 2]]  # actuated columns only
     expected = np.einsum("bri,br->bi", jac, f) - np.asarray(p["joint_damping"]) * s["qvel"][:, [0, 2]] + np.asarray(p["bias"])
     np.testing.assert_allclose(c.mean(s, np.zeros(20)).detach().numpy(), expected, rtol=0, atol=1e-13)
@@ -173,9 +173,9 @@ def test_log_std_bounds_and_default():
     np.testing.assert_allclose(decl.low, [-5.0, -5.0])
     np.testing.assert_allclose(decl.high, [1.0, 1.0 + math.log(2.5)])
     np.testing.assert_allclose(np.exp(decl.default), [0.1, 0.25])
-    c = build_controller("joint_pd", TINY, parameters={"target": [0, 0], "kp": [1, 1]})
+    c = build_controller("joint_pd", TINY, parameters={"setpoint": [0, 0], "kp": [1, 1]})
     np.testing.assert_allclose(torch.exp(c.log_std).detach().numpy(), [0.1, 0.25])
-    c2 = build_controller("joint_pd", TINY, parameters={"target": [0, 0], "kp": [1, 1]}, exploration_std=[0.2, 0.4])
+    c2 = build_controller("joint_pd", TINY, parameters={"setpoint": [0, 0], "kp": [1, 1]}, exploration_std=[0.2, 0.4])
     np.testing.assert_allclose(torch.exp(c2.log_std).detach().numpy(), [0.2, 0.4], rtol=1e-15)
 
 
@@ -195,21 +195,21 @@ def test_options_are_resolved_and_read_only():
 
 
 def test_describe_lists_every_parameter():
-    c = build_controller("joint_pd", TINY, parameters={"target": [0, 0], "kp": [1, 2]})
+    c = build_controller("joint_pd", TINY, parameters={"setpoint": [0, 0], "kp": [1, 2]})
     rows = {r["name"]: r for r in c.describe()}
-    assert list(rows) == ["target", "kp", "kd", "bias", "log_std"]
+    assert list(rows) == ["setpoint", "kp", "kd", "bias", "log_std"]
     assert rows["kp"]["value"] == [1.0, 2.0] and rows["kp"]["unit"] == "ctrl/rad" and rows["kp"]["low"] == [0.0, 0.0]
-    assert rows["target"]["low"] == [-1.0, -3.0]  # the actuated joints' ranges (qpos 0 and 2)
+    assert rows["setpoint"]["low"] == [-1.0, -3.0]  # the actuated joints' ranges (qpos 0 and 2)
 
 
 def test_bias_bounds_follow_the_actuator_range():
-    c = build_controller("joint_pd", TINY, parameters={"target": [0, 0], "kp": [1, 1]})
+    c = build_controller("joint_pd", TINY, parameters={"setpoint": [0, 0], "kp": [1, 1]})
     low, high = c.parameter_bounds()["bias"]
     assert low.tolist() == [-1.0, -2.0] and high.tolist() == [1.0, 3.0]
 
 
 def test_explicit_noise_is_scaled_by_std_then_clipped():
-    c = build_controller("joint_pd", TINY, parameters={"target": [0, 0], "kp": [1, 1]}, exploration_std=[0.5, 0.5])
+    c = build_controller("joint_pd", TINY, parameters={"setpoint": [0, 0], "kp": [1, 1]}, exploration_std=[0.5, 0.5])
     s = _state(np.zeros((2, 3)), np.zeros((2, 3)))
     a = c.act(s, np.zeros(2), noise=np.array([[1.0, -1.0], [10.0, -10.0]]))
     np.testing.assert_allclose(a, [[0.5, -0.5], [1.0, -2.0]], rtol=0, atol=1e-15)

@@ -153,7 +153,7 @@ TARGET = np.array([0.15, 0.12, 0.0])
 
 
 def _controller(rig, **override):
-    p = {"target": TARGET, "kp": [50.0, 50.0, 50.0], "kd": [10.0, 10.0, 10.0], "joint_damping": [0.02] * 3}
+    p = {"setpoint": TARGET, "kp": [50.0, 50.0, 50.0], "kd": [10.0, 10.0, 10.0], "joint_damping": [0.02] * 3}
     p.update(override)
     return build_controller("task_pd", context_from_rig(rig), parameters=p, exploration_std=0.05)
 
