@@ -15,7 +15,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from .errors import InvalidSpecError, Problem
+from .errors import InvalidInputError, InvalidSpecError, Problem
 from .spec import ControllerSpec, Limits, Skill
 from .yaml_source import YamlDocument, load_yaml_file, load_yaml_text
 
@@ -195,11 +195,18 @@ def validate_document(doc: YamlDocument) -> Skill:
     return skill
 
 
+def _as_spec_error(read, *args) -> YamlDocument:
+    try:
+        return read(*args)
+    except InvalidInputError as exc:
+        raise InvalidSpecError(exc.problems) from None
+
+
 def parse_spec_text(text: str, source: str = "<string>") -> Skill:
     """Validate a spec given as YAML text."""
-    return validate_document(load_yaml_text(text, source))
+    return validate_document(_as_spec_error(load_yaml_text, text, source))
 
 
 def load_spec(path: str | Path) -> Skill:
     """Read and validate one spec file."""
-    return validate_document(load_yaml_file(path))
+    return validate_document(_as_spec_error(load_yaml_file, path))

@@ -23,7 +23,28 @@ def save_parameters(controller: Any) -> bytes:
     The metadata records the format and the controller kind.
     """
     arrays = {k: np.array(v, dtype=np.float64, order="C") for k, v in controller.parameter_values().items()}
-    return safetensors.numpy.save(arrays, metadata={"format": PARAMETERS_FORMAT, "kind": controller.kind})
+    data = safetensors.numpy.save(arrays, metadata={"format": PARAMETERS_FORMAT, "kind": controller.kind})
+    return _canonical_header(data)
+
+
+def _canonical_header(data: bytes) -> bytes:
+    """Same tensors -> same bytes: safetensors writes ``__metadata__`` keys in hash order.
+
+    The store deduplicates by content digest, so the header is rewritten with
+    sorted keys, padded with spaces to its original length (same keys, same length).
+    """
+    import json
+    import struct
+
+    (length,) = struct.unpack("<Q", data[:8])
+    header = json.loads(data[8 : 8 + length])
+    meta = header.get("__metadata__")
+    if isinstance(meta, dict):
+        header["__metadata__"] = dict(sorted(meta.items()))
+    text = json.dumps(header, separators=(",", ":")).encode("utf-8")
+    if len(text) > length:
+        return data
+    return data[:8] + text + b" " * (length - len(text)) + data[8 + length :]
 
 
 def parameters_metadata(data: bytes) -> dict[str, str]:
