@@ -174,14 +174,19 @@ def _fit_end_state(fmap, starts, ends, quantities, train_s, test_s, envelope, rn
     cover = interval_coverage(lo, hi, y[test_s])
     per = _regression_report(names, y[test_s], pred)
     r2s = [e["r2"] for e in per.values() if e["r2"] is not None]
+    # Constant components (a fixed target, say) are covered trivially: leave them out of
+    # the summary numbers, keep them in per_component.
+    varying = np.array([e["r2"] is not None for e in per.values()])
+    cov_v = cover[varying] if varying.any() else cover
     errors = {
         "components": per,
         "r2_mean": float(np.mean(r2s)) if r2s else None,
         "rmse_mean": float(np.mean([e["rmse"] for e in per.values()])),
         "coverage_90": {
-            "mean": float(np.mean(cover)),
-            "min": float(np.min(cover)),
-            "max": float(np.max(cover)),
+            "mean": float(np.mean(cov_v)),
+            "min": float(np.min(cov_v)),
+            "max": float(np.max(cov_v)),
+            "components_in_mean": int(cov_v.size),
             "joint": float(np.mean(np.all((y[test_s] >= lo) & (y[test_s] <= hi), axis=1))),
             "per_component": {n: float(c) for n, c in zip(names, cover)},
         },

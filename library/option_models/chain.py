@@ -51,7 +51,7 @@ class Estimate:
     def of(cls, values: np.ndarray) -> "Estimate":
         n = int(values.size)
         std = float(np.std(values, ddof=1)) if n > 1 else 0.0
-        return cls(float(np.mean(values)), std, std / np.sqrt(n) if n > 0 else 0.0, n)
+        return cls(float(np.mean(values)), std, float(std / np.sqrt(n)) if n > 0 else 0.0, n)
 
 
 @dataclass(frozen=True)

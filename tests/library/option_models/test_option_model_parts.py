@@ -172,3 +172,16 @@ def test_envelope_from_mapping_or_layout() -> None:
     np.testing.assert_array_equal(lo, [-np.inf, -np.inf, 0.0])
     with pytest.raises(ValueError, match="envelope of 'h' must have low <= high"):
         envelope_arrays({"h": (1.0, 0.0)}, ("h",), ((),))
+
+
+def test_option_models_import_no_heavy_libraries() -> None:
+    # `kinetome show` reads option models; it must not pull in torch, mujoco or z3.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, kinetome.library.option_models as m; "
+        "print(sorted({k.split('.')[0] for k in sys.modules} & {'torch', 'mujoco', 'z3', 'scipy', 'gymnasium'}))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
