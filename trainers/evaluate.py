@@ -56,6 +56,8 @@ def evaluate_skill(skill: Any, rig: Any, *, start: Any = None, episodes: int, se
 def _starts(rig: Any, start: Any, n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
     if isinstance(start, tuple):
         qpos, qvel = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in start)
+        if qpos.shape[0] == 0 or qpos.shape[0] != qvel.shape[0]:
+            raise ValueError(f"start states must be matching non-empty (M, nq) and (M, nv) arrays, got {qpos.shape} and {qvel.shape}")
         pick = np.random.default_rng(seed).integers(0, qpos.shape[0], size=n)
         return qpos[pick], qvel[pick]
     from kinetome.library.runtime.starts import sample_starts

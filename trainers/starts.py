@@ -22,7 +22,7 @@ class StartSampler:
         self.start = start
         if isinstance(start, tuple):
             qpos, qvel = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in start)
-            if qpos.shape[0] != qvel.shape[0] or qpos.shape[1] != rig.model.nq or qvel.shape[1] != rig.model.nv:
+            if qpos.shape[0] == 0 or qpos.shape[0] != qvel.shape[0] or qpos.shape[1] != rig.model.nq or qvel.shape[1] != rig.model.nv:
                 raise ValueError(
                     f"start states must be (M, nq={rig.model.nq}) and (M, nv={rig.model.nv}) arrays, "
                     f"got {qpos.shape} and {qvel.shape}"

@@ -22,7 +22,7 @@ def test_shipped_training_files_load(name):
 
 def test_demo_budget_is_small():
     cfg = load_train_config(CONFIGS / "demo_quick.yaml")
-    assert cfg.steps <= 20_000 and cfg.updates <= 10
+    assert cfg.steps <= 65_536 and cfg.updates <= 32
 
 
 def test_derived_counts():

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -167,6 +169,7 @@ def test_fitting_is_deterministic_and_round_trips() -> None:
     assert (a.meta.variant, a.meta.variant_digest, a.reward.variant) == ("heavy", "d1", "heavy")
     summary = a.summary()
     assert set(summary) >= {"duration", "reward", "end_state", "outcomes", "gamma", "episodes"}
+    assert json.loads(json.dumps(summary, allow_nan=False)) == summary  # the store keeps it as JSON
 
 
 def test_rff_expansion_fits_a_nonlinear_duration() -> None:
