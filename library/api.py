@@ -134,4 +134,167 @@ def load_models(ref: str, *, store: Any) -> Any:
     if not records:
         return None
     latest = max(records, key=lambda m: m.revision)
-    return OptionModels.from_files(store.read_model(latest))
+    return OptionModels.from_files({role: store.read_model(latest, role) for role in latest.roles})
+
+
+# Trainer settings for `kinetome retrain` without --config: sized for the
+# structured controllers (PD, CPG, linear) the demo skills use.
+RETRAIN_DEFAULTS: dict[str, Any] = {
+    "steps": 49152,
+    "n_envs": 32,
+    "rollout_len": 64,
+    "epochs": 8,
+    "minibatch": 512,
+    "lr": 0.01,
+    "lr_schedule": "linear",
+    "gamma": 0.98,
+    "lam": 0.95,
+    "success_bonus": 5.0,
+    "eval_episodes": 64,
+    "checkpoint_every": 4,
+}
+
+
+def _train_config(config: str | Path | None, overrides: dict[str, Any]) -> Any:
+    from kinetome.trainers.config import config_from_mapping, load_train_config
+
+    if config is None:
+        base = config_from_mapping(dict(RETRAIN_DEFAULTS), source="<retrain defaults>")
+    else:
+        base = load_train_config(config)
+    import dataclasses
+
+    return dataclasses.replace(base, **{k: v for k, v in overrides.items() if v is not None})
+
+
+def retrain(
+    ref: str,
+    *,
+    store: Any,
+    variant: str | Path,
+    steps: int | None = None,
+    deliberation_cost: float | None = None,
+    seed: int = 0,
+    from_scratch: bool = False,
+    workers: int = 1,
+    config: str | Path | None = None,
+    start: str | Path | None = None,
+    out_dir: str | Path | None = None,
+    resume: bool = False,
+    refit_episodes: int = 200,
+    progress: Any = None,
+) -> dict[str, Any]:
+    """Retrain a stored skill on a task variant and store the child version with its evidence.
+
+    Measures the parent on the variant, trains, measures again, registers
+    ``name@N+1`` (reason ``retrained``, lineage: parent, variant, config, seed,
+    steps, before/after metrics, learning curve) and refits its option models
+    on the variant.
+    """
+    from kinetome.trainers.curves import save_curves
+    from kinetome.trainers.retrain import retrain_skill
+
+    from .runtime.skill import PARAMS_FILE, SPEC_FILE
+    from .spec import canonical_json, skill_to_document
+    from .tasks import load_start_file, load_variant_file, task_rig
+
+    parent = load(ref, store=store)
+    task_variant = load_variant_file(variant)
+    rig = task_rig(parent.skill.env, task_variant)
+    cfg = _train_config(config, {"steps": steps, "deliberation_cost": deliberation_cost})
+    out = Path(out_dir) if out_dir is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
+    out.mkdir(parents=True, exist_ok=True)
+    result = retrain_skill(
+        parent,
+        rig,
+        cfg,
+        start=load_start_file(start),
+        seed=seed,
+        workers=workers,
+        progress=progress,
+        checkpoint_dir=out / "checkpoints",
+        resume=resume,
+        from_scratch=from_scratch,
+    )
+    csv_path, png_path = save_curves(result.curve, out, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
+    files = {
+        SPEC_FILE: canonical_json(skill_to_document(parent.skill)),
+        PARAMS_FILE: result.parameters_bytes,
+        "normaliser.safetensors": result.normaliser,
+        "curve.csv": result.curve_csv().encode("utf-8"),
+    }
+    meta = {
+        **result.metadata(),
+        "description": parent.skill.description,
+        "env": parent.skill.env,
+        "kind": parent.skill.controller.kind,
+        "variant": {"file": str(variant), "name": getattr(task_variant, "name", None), "digest": getattr(task_variant, "digest", None)},
+        "metrics_before": result.before.as_dict(),
+        "metrics_after": result.after.as_dict(),
+    }
+    added = store.add(parent.skill.name, files, parent=parent.ref, reason="retrained", meta=meta)
+    child = added.version.ref
+    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, start=start, seed=seed, workers=workers) if refit_episodes else None
+    return {
+        "parent": parent.ref,
+        "child": child,
+        "created": added.created,
+        "variant": str(variant),
+        "before": result.before.as_dict(),
+        "after": result.after.as_dict(),
+        "steps": result.steps,
+        "wall_time_s": result.wall_time,
+        "curve_csv": str(csv_path),
+        "curve_png": str(png_path),
+        "models": fitted,
+        "lineage": [v.ref for v in store.lineage(child)],
+    }
+
+
+def train(config_path: str | Path, *, store: Any, seed: int | None = None, workers: int = 1, out_dir: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
+    """Train stored skills together with a policy over them; store the refined skills as children."""
+    from kinetome.trainers.config import load_train_config, load_train_task
+    from kinetome.trainers.curves import save_curves
+    from kinetome.trainers.train_set import train_skills
+
+    from .errors import InvalidInputError
+    from .runtime.skill import PARAMS_FILE, SPEC_FILE
+    from .spec import canonical_json, skill_to_document
+    from .tasks import load_start_file, load_variant_file, task_rig
+
+    cfg = load_train_config(config_path)
+    task = load_train_task(config_path)
+    if task is None or not task.skills:
+        raise InvalidInputError(f"{config_path}: task.skills: a training file for `kinetome train` must list skills; add task: {{skills: [name, ...], env: ...}}")
+    skills = [load(ref, store=store) for ref in task.skills]
+    env = task.env or skills[0].skill.env
+    variant = load_variant_file(task.variant)
+    rig = task_rig(env, variant)
+    skills = [load(s.ref, store=store, rig=rig) for s in skills]
+    out = Path(out_dir) if out_dir is not None else Path("kinetome-train") / Path(config_path).stem
+    out.mkdir(parents=True, exist_ok=True)
+    result = train_skills(skills, rig, cfg, start=load_start_file(task.start), seed=seed, workers=workers, progress=progress, checkpoint_dir=out / "checkpoints")
+    csv_path, png_path = save_curves(result.curve, out, stem="curve", title=f"train {Path(config_path).stem}")
+    children = []
+    for s in skills:
+        files = {
+            SPEC_FILE: canonical_json(skill_to_document(s.skill)),
+            PARAMS_FILE: result.parameters_bytes[s.ref],
+            "normaliser.safetensors": result.normaliser,
+            "critic.safetensors": result.critic,
+        }
+        if result.terminations is not None:
+            files["terminations.safetensors"] = result.terminations
+        meta = {**result.metadata(), "description": s.skill.description, "env": s.skill.env, "kind": s.skill.controller.kind, "variant": task.variant, "trained_with": list(task.skills)}
+        children.append(store.add(s.skill.name, files, parent=s.ref, reason="retrained", meta=meta).version.ref)
+    return {
+        "skills": list(result.skill_refs),
+        "children": children,
+        "termination_rate": result.termination_rate,
+        "mean_skill_duration": result.mean_skill_duration,
+        "mean_return": result.mean_return,
+        "skill_share": result.skill_share,
+        "steps": result.steps,
+        "curve_csv": str(csv_path),
+        "curve_png": str(png_path),
+    }

@@ -1,0 +1,122 @@
+"""Training commands: retrain (one skill on a changed task) and train (a set of skills as options)."""
+
+from __future__ import annotations
+
+import argparse
+from typing import Any
+
+from .output import print_json, print_table
+from .progress import ProgressBar
+
+__all__ = ["add_parsers"]
+
+
+def _caution() -> str:
+    from ..safety import CAUTION
+
+    return CAUTION
+
+
+def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
+    p = sub.add_parser(
+        "retrain",
+        parents=[common],
+        help="retrain a stored skill on a task variant; stores a child version",
+        description="Measure the skill on the variant, train, measure again and store the result as a child version with its lineage. " + _caution(),
+    )
+    p.add_argument("ref", metavar="NAME[@N]")
+    p.add_argument("--variant", required=True, metavar="FILE", help="task variant YAML (e.g. configs/variants/heavy_payload.yaml)")
+    p.add_argument("--steps", type=int, help="env steps of training")
+    p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
+    p.add_argument("--workers", type=int, default=1)
+    p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
+    p.add_argument("--start", metavar="FILE", help="start-state distribution YAML")
+    p.add_argument("--out", metavar="DIR", help="where curves and checkpoints go (default ./kinetome-retrain/NAME-N)")
+    p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out after an interruption")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(handler=_retrain)
+
+    p = sub.add_parser(
+        "train",
+        parents=[common],
+        help="train stored skills together with a policy over them (deliberation cost)",
+        description="Train the skills a training YAML lists as options on one task; stores refined child versions. " + _caution(),
+    )
+    p.add_argument("config", metavar="CONFIG.yaml")
+    p.add_argument("--seed", type=int)
+    p.add_argument("--workers", type=int, default=1)
+    p.add_argument("--out", metavar="DIR")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(handler=_train)
+
+
+def _bar(label: str, quiet: bool) -> tuple[ProgressBar, Any]:
+    bar = ProgressBar(1, label, enabled=not quiet, delay=0.0)
+
+    def on_update(row: dict[str, Any]) -> None:
+        bar.total = int(row.get("total_steps") or 1)
+        sr = row.get("success_rate")
+        note = f"{row['steps']} steps  return {row.get('return_mean', float('nan')):.3g}" + (f"  success {sr:.2f}" if isinstance(sr, float) and sr == sr else "") + f"  {row.get('steps_per_s', 0):,.0f} steps/s"
+        bar.update(int(row["steps"]), note)
+
+    return bar, on_update
+
+
+def _metrics_row(label: str, m: dict[str, Any]) -> dict[str, Any]:
+    return {"when": label, "success": m["success_rate"], "return": m["mean_return"], "steps": m["mean_steps"], "episodes": m["episodes"]}
+
+
+def _retrain(args: argparse.Namespace) -> int:
+    from ..api import open_store, retrain
+    from ..safety import CAUTION
+
+    bar, on_update = _bar(f"retrain {args.ref}", args.json)
+    result = retrain(
+        args.ref,
+        store=open_store(getattr(args, "store", None)),
+        variant=args.variant,
+        steps=args.steps,
+        deliberation_cost=args.deliberation_cost,
+        seed=args.seed,
+        from_scratch=args.from_scratch,
+        workers=args.workers,
+        config=args.config,
+        start=args.start,
+        out_dir=args.out,
+        resume=args.resume,
+        progress=on_update,
+    )
+    bar.close()
+    if args.json:
+        print_json(result)
+        return 0
+    print(f"{result['parent']} -> {result['child']} on {result['variant']} ({result['steps']} env steps, {result['wall_time_s']:.1f} s)")
+    print_table([_metrics_row("before", result["before"]), _metrics_row("after", result["after"])], [("when", ""), ("success", "SUCCESS"), ("return", "MEAN RETURN"), ("steps", "MEAN STEPS"), ("episodes", "EPISODES")])
+    print(f"lineage   {' <- '.join(result['lineage'])}")
+    print(f"curve     {result['curve_csv']}  {result['curve_png']}")
+    if result["models"]:
+        print(f"models    {result['models']['model_ref']}")
+    print(CAUTION)
+    return 0
+
+
+def _train(args: argparse.Namespace) -> int:
+    from ..api import open_store, train
+    from ..safety import CAUTION
+
+    bar, on_update = _bar(f"train {args.config}", args.json)
+    result = train(args.config, store=open_store(getattr(args, "store", None)), seed=args.seed, workers=args.workers, out_dir=args.out, progress=on_update)
+    bar.close()
+    if args.json:
+        print_json(result)
+        return 0
+    print(f"trained {', '.join(result['skills'])} as options ({result['steps']} env steps)")
+    print(f"  termination rate     {result['termination_rate']:.4f} per step")
+    print(f"  mean skill duration  {result['mean_skill_duration']:.1f} steps")
+    print(f"  mean return          {result['mean_return']:.3f}")
+    print(f"  children             {', '.join(result['children'])}")
+    print(f"  curve                {result['curve_csv']}  {result['curve_png']}")
+    print(CAUTION)
+    return 0
