@@ -84,5 +84,7 @@ def _fit(args: argparse.Namespace) -> int:
         print_json(result)
         return 0
     print(f"fitted option models for {result['skill']} from {result['episodes']} episodes -> {result['model_ref']}")
-    print_table([{"model": k, "error": v} for k, v in result["errors"].items()], [("model", "HELD-OUT CHECK"), ("error", "VALUE")])
+    from ..model_headlines import headlines
+
+    print_table(headlines(result["errors"]), [("check", "HELD-OUT CHECK"), ("value", "VALUE")])
     return 0

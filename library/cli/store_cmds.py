@@ -195,8 +195,11 @@ def _show(args: argparse.Namespace) -> int:
     print_table([{**f, "digest": f["digest"][:16]} for f in view["files"]], [("role", "ROLE"), ("digest", "SHA256 (prefix)"), ("size", "BYTES")])
     print("\noption models")
     if view["models"]:
-        rows = [{"ref": m["ref"], "episodes": m["episodes"], "errors": ", ".join(f"{k}={v:.3g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in m["errors"].items())} for m in view["models"]]
-        print_table(rows, [("ref", "MODEL"), ("episodes", "EPISODES"), ("errors", "HELD-OUT ERROR")])
+        from ..model_headlines import headlines
+
+        for m in view["models"]:
+            print(f"  {m['ref']}  fitted from {m['episodes']} episodes")
+            print_table(headlines(m["errors"]), [("check", "HELD-OUT CHECK"), ("value", "VALUE")])
     else:
         print(f"  none; fit them with: kinetome fit {view['ref']}")
     if view["notes"]:
