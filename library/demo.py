@@ -1,0 +1,211 @@
+"""`kinetome demo`: the whole job on the invented workshop scenario, with a report.
+
+Phases, each a small function: register the demo skills, fit their option
+models from chain rollouts, check the demo chains, retrain the arm's reach
+skill for a heavier payload, render filmstrips, and write ``report.html``.
+Everything shown is computed in this run; nothing is canned.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, TextIO
+
+from .safety import CAUTION
+
+__all__ = ["DemoSettings", "run_demo", "configs_dir"]
+
+
+@dataclass(frozen=True)
+class DemoSettings:
+    """Budgets of one demo run; ``quick`` is what CI runs."""
+
+    quick: bool = False
+    fit_episodes: int = 300
+    check_episodes: int = 300
+    retrain_config: str = "arm_heavy_payload.yaml"
+    seed: int = 0
+    workers: int = 2
+
+    @classmethod
+    def for_mode(cls, quick: bool) -> "DemoSettings":
+        if quick:
+            return cls(quick=True, fit_episodes=120, check_episodes=120, retrain_config="demo_quick.yaml")
+        return cls()
+
+
+@dataclass
+class _Log:
+    stream: TextIO
+    started: float = field(default_factory=time.monotonic)
+
+    def step(self, text: str) -> None:
+        self.stream.write(f"[{time.monotonic() - self.started:6.1f} s] {text}\n")
+        self.stream.flush()
+
+
+def configs_dir() -> Path:
+    """The project's configs/ folder (the demo runs from a source checkout)."""
+    here = Path(__file__).resolve().parent.parent / "configs"
+    if not (here / "skills").is_dir():
+        from .errors import NotFoundError
+
+        raise NotFoundError(f"demo configs not found at {here}; run the demo from a kinetome source checkout (pip install -e .)")
+    return here
+
+
+def _register(store: Any, configs: Path, log: _Log) -> list[dict[str, Any]]:
+    from .api import register_skill
+
+    rows = []
+    for path in sorted((configs / "skills").glob("*.yaml")):
+        result = register_skill(path, store=store)
+        rows.append({"ref": result.version.ref, "file": f"configs/skills/{path.name}", "new": result.created})
+    log.step(f"registered {len(rows)} skills: {', '.join(r['ref'] for r in rows)}")
+    return rows
+
+
+def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Log) -> dict[str, dict[str, Any]]:
+    """Fit each skill's option models from the end states it reaches inside the demo chains."""
+    import numpy as np
+
+    from kinetome.trainers.fitting import fit_option_models
+
+    from .api import MODEL_KIND, load
+    from .model_headlines import headlines
+    from .runtime.execute import run_chain
+    from .runtime.starts import sample_starts
+    from .tasks import load_start_file, task_rig
+    from .yaml_source import load_yaml_file
+
+    fitted: dict[str, dict[str, Any]] = {}
+    for path in sorted((configs / "chains").glob("*.yaml")):
+        doc = load_yaml_file(path).data
+        rig = task_rig(doc["env"])
+        start = load_start_file((path.parent / doc["start"]).resolve()) if isinstance(doc.get("start"), str) else None
+        skills = [load(ref, store=store, rig=rig) for ref in doc["steps"]]
+        starts = sample_starts(rig, start, settings.fit_episodes, seed=settings.seed)
+        rollout = run_chain(skills, rig, starts=starts, seed=settings.seed, workers=settings.workers)
+        for k, skill in enumerate(skills):
+            if skill.ref in fitted:
+                continue
+            seg = rollout.segments[k]
+            ran = int(np.sum(seg.steps > 0))
+            try:
+                models = fit_option_models(rollout, k, seed=settings.seed, envelope=rig.layout, skill_ref=skill.ref)
+            except Exception as exc:  # too few episodes reached this skill: say so, do not stop the demo
+                fitted[skill.ref] = {"skipped": f"{ran} episodes reached it in {path.name}: {str(exc).splitlines()[0]}"}
+                continue
+            summary = models.summary()
+            record = store.attach_model(skill.ref, MODEL_KIND, models.to_files(), meta={"errors": summary, "episodes": ran, "chain": path.name, "seed": settings.seed, "env": rig.env_id})
+            fitted[skill.ref] = {"model": record.ref, "episodes": ran, "chain": path.name, "headlines": headlines(summary)}
+    log.step(f"fitted option models for {sum('model' in v for v in fitted.values())} skills from chain rollouts")
+    return fitted
+
+
+def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> list[dict[str, Any]]:
+    from .checker import check_chain_file
+
+    results = []
+    for path in sorted((configs / "chains").glob("*.yaml")):
+        report_dir = out / "chains" / path.stem
+        result = check_chain_file(path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed, workers=settings.workers, report_dir=report_dir)
+        data = result.to_json()
+        results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
+        verdicts = ", ".join(f"{h.get('from', '?')} -> {h.get('to', '?')}: {h.get('verdict')}" for h in data.get("handoffs", []))
+        log.step(f"checked {path.name}: {verdicts or data.get('summary', '')}")
+    return results
+
+
+def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
+    from .api import retrain
+
+    variant = configs / "variants" / "heavy_payload.yaml"
+    result = retrain(
+        "arm-reach-tray",
+        store=store,
+        variant=variant,
+        config=configs / "training" / settings.retrain_config,
+        seed=settings.seed,
+        workers=settings.workers,
+        out_dir=out / "retrain",
+        refit_episodes=settings.fit_episodes,
+    )
+    b, a = result["before"], result["after"]
+    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {b['success_rate']:.2f} -> {a['success_rate']:.2f}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}")
+    return result
+
+
+def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Path]:
+    """One rendered episode per chain, frames side by side."""
+    import numpy as np
+
+    from .api import load
+    from .runtime.execute import run_chain
+    from .runtime.starts import sample_starts
+    from .tasks import load_start_file, task_rig
+    from .yaml_source import load_yaml_file
+
+    try:
+        from kinetome.envs.render import filmstrip_png, render_frames
+    except Exception as exc:  # no OpenGL back-end at all
+        log.step(f"filmstrips skipped: rendering is unavailable ({exc})")
+        return {}
+    strips: dict[str, Path] = {}
+    for path in sorted((configs / "chains").glob("*.yaml")):
+        doc = load_yaml_file(path).data
+        rig = task_rig(doc["env"])
+        start = load_start_file((path.parent / doc["start"]).resolve()) if isinstance(doc.get("start"), str) else None
+        skills = [load(ref, store=store, rig=rig) for ref in doc["steps"]]
+        rollout = run_chain(skills, rig, starts=sample_starts(rig, start, 1, seed=settings.seed), seed=settings.seed, trace=1)
+        qpos = rollout.qpos_trace[0]
+        qpos = qpos[~np.isnan(qpos).all(axis=1)]
+        picks = sorted({int(round(i)) for i in np.linspace(0, len(qpos) - 1, 6)})
+        try:
+            frames = render_frames(rig, qpos[picks], width=240, height=180)
+        except Exception as exc:
+            log.step(f"filmstrips skipped: rendering failed ({str(exc).splitlines()[0]}); install libosmesa6")
+            return {}
+        target = out / f"filmstrip-{path.stem}.png"
+        filmstrip_png(frames, target)
+        strips[path.stem] = target
+    log.step(f"rendered {len(strips)} filmstrips")
+    return strips
+
+
+def run_demo(out_dir: str | Path, *, store_dir: str | Path | None = None, quick: bool = False, stream: TextIO | None = None) -> dict[str, Any]:
+    """Run every phase and write ``out_dir/report.html`` plus PNGs and ``demo.json``."""
+    from .api import open_store
+    from .report.demo_report import write_demo_report
+
+    settings = DemoSettings.for_mode(quick)
+    log = _Log(stream or sys.stdout)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    store = open_store(store_dir if store_dir is not None else out / "store")
+    configs = configs_dir()
+    log.step(f"kinetome demo ({'quick' if quick else 'full'}): store {store.root}, output {out}")
+    registered = _register(store, configs, log)
+    fitted = _fit_from_chains(store, configs, settings, log)
+    checks = _check_chains(store, configs, out, settings, log)
+    retrained = _retrain(store, configs, out, settings, log)
+    strips = _filmstrips(store, configs, out, settings, log)
+    summary = {
+        "quick": quick,
+        "seconds": round(time.monotonic() - log.started, 1),
+        "store": str(store.root),
+        "registered": registered,
+        "models": fitted,
+        "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],
+        "retrain": retrained,
+        "filmstrips": {k: str(v) for k, v in strips.items()},
+    }
+    (out / "demo.json").write_text(json.dumps(summary, indent=2, sort_keys=True, default=str), encoding="utf-8")
+    report = write_demo_report(out, store=store, summary=summary, checks=checks, strips=strips)
+    log.step(f"report written: {report}")
+    log.step(CAUTION)
+    return summary

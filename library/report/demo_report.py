@@ -1,0 +1,102 @@
+"""Assemble the demo's report.html from what the demo computed."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from ..safety import CAUTION
+from .html import Report, image_html, table_html
+
+__all__ = ["write_demo_report"]
+
+
+def _skills_section(report: Report, store: Any) -> None:
+    s = report.section("skills", "Skills, versions and lineage")
+    s.text("Every version is immutable and content-addressed; a retrained version records its parent, the task variant, the training configuration, the seed and its before/after measurements.")
+    rows = []
+    for summary in store.list_skills():
+        for v in store.history(summary.name):
+            meta = v.meta
+            variant = meta.get("variant")
+            rows.append(
+                {
+                    "version": v.ref,
+                    "reason": v.reason,
+                    "parent": v.parent,
+                    "env": meta.get("env"),
+                    "variant": variant.get("name") if isinstance(variant, dict) else variant,
+                    "lineage": " <- ".join(x.ref for x in store.lineage(v.ref)),
+                    "description": meta.get("description"),
+                }
+            )
+    s.add(table_html(rows, [("version", "Version"), ("reason", "Reason"), ("parent", "Parent"), ("env", "Env"), ("variant", "Variant"), ("lineage", "Lineage"), ("description", "Description")]))
+
+
+def _checks_section(report: Report, checks: list[dict[str, Any]]) -> None:
+    s = report.section("chains", "Chain verdicts")
+    s.text("Each handoff is checked cheapest first: static proof with an SMT solver, then the option models, then simulation with exact (Clopper-Pearson) intervals.")
+    for check in checks:
+        data = check["result"]
+        s.add(f"<h3>{check['name']} <small>({check['file']})</small></h3>")
+        rows = [
+            {
+                "handoff": f"{h.get('from')} -> {h.get('to')}",
+                "verdict": h.get("verdict"),
+                "method": h.get("method"),
+                "evidence": h.get("evidence") or h.get("reason"),
+            }
+            for h in data.get("handoffs", [])
+        ]
+        if rows:
+            s.add(table_html(rows, [("handoff", "Handoff"), ("verdict", "Verdict"), ("method", "Decided by"), ("evidence", "Evidence")], classes={"verdict": "verdict"}))
+        s.pre(check["text"])
+        for png in sorted(Path(check["report_dir"]).glob("*.png")):
+            s.add(image_html(png, f"{check['name']}: {png.stem.replace('_', ' ')}"))
+
+
+def _models_section(report: Report, models: dict[str, dict[str, Any]]) -> None:
+    s = report.section("models", "Option-model accuracy")
+    s.text("Duration, reward and end-state models fitted from the chain rollouts, with their held-out errors: R^2 for regressions and the empirical coverage of the 90% end-state intervals.")
+    for ref, info in models.items():
+        s.add(f"<h3>{ref}</h3>")
+        if "headlines" in info:
+            s.text(f"{info['model']}, fitted from {info['episodes']} episodes of {info['chain']}.")
+            s.add(table_html(info["headlines"], [("check", "Held-out check"), ("value", "Value")]))
+        else:
+            s.text(f"not fitted: {info.get('skipped')}")
+
+
+def _retrain_section(report: Report, retrain: dict[str, Any]) -> None:
+    s = report.section("retrain", "Retraining for a heavier payload")
+    s.text(f"{retrain['parent']} was measured on the heavy-payload variant, retrained for {retrain['steps']} env steps ({retrain['wall_time_s']:.1f} s) and stored as {retrain['child']}.")
+    rows = [{"when": w, **{k: retrain[w][k] for k in ("success_rate", "mean_return", "mean_steps", "episodes")}} for w in ("before", "after")]
+    s.add(table_html(rows, [("when", ""), ("success_rate", "Success rate"), ("mean_return", "Mean return"), ("mean_steps", "Mean steps"), ("episodes", "Episodes")]))
+    s.text("Lineage: " + " <- ".join(retrain["lineage"]))
+    png = Path(retrain["curve_png"])
+    if png.exists():
+        s.add(image_html(png, "learning curve on the heavy-payload variant"))
+
+
+def _filmstrip_section(report: Report, strips: dict[str, Path]) -> None:
+    s = report.section("filmstrips", "Filmstrips")
+    if not strips:
+        s.text("Rendering was unavailable on this machine (MuJoCo needs OSMesa: apt-get install libosmesa6).")
+    for name, png in strips.items():
+        s.add(image_html(png, f"{name}: one episode rendered from MuJoCo, left to right"))
+
+
+def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks: list[dict[str, Any]], strips: dict[str, Path]) -> Path:
+    """Write ``out/report.html``: self-contained, every section from this run."""
+    report = Report(
+        title="kinetome demo: a workshop's bench arm and test walker",
+        subtitle=f"{'Quick' if summary['quick'] else 'Full'} run, {summary['seconds']} s. Invented demo scenario; every number below was computed in this run.",
+        caution=CAUTION,
+    )
+    _skills_section(report, store)
+    _checks_section(report, checks)
+    _models_section(report, summary["models"])
+    _retrain_section(report, summary["retrain"])
+    _filmstrip_section(report, strips)
+    report.section("safety", "Safety").text(CAUTION)
+    return report.write(out / "report.html")
