@@ -127,6 +127,10 @@ def _accepted(fn: Accepts, values: dict[str, np.ndarray], index: int, batch: int
             f"accepts for handoff {index + 1} read {exc.args[0]!r}, which the end-state model does not predict "
             f"(it has {sorted(values)}); refit with end_quantities including it"
         ) from None
+    except ValueError as exc:  # e.g. a predicate naming a quantity that is not there
+        raise ValueError(
+            f"accepts for handoff {index + 1} failed on sampled end states with {sorted(values)}: {exc}"
+        ) from None
     if ok.shape != (batch,) or ok.dtype != np.bool_:
         raise ValueError(f"accepts for handoff {index + 1} must return a ({batch},) bool array, got {ok.dtype} {ok.shape}")
     return ok

@@ -116,6 +116,10 @@ def test_chain_without_end_state_model_stops_at_that_skill() -> None:
     assert pred.steps.mean == pytest.approx(5.0)
 
 
+def _raises_value_error(v):
+    raise ValueError("values must include 'fingertip' (shape (3,)) used by the predicate")
+
+
 def _bad_accepts(v):
     return v["x"][:, 0]  # float, not bool
 
@@ -133,6 +137,11 @@ def _bad_accepts(v):
         (lambda: list(_two_skills()), {"accepts": [_bad_accepts]}, "accepts for handoff 1 must return a (2,) bool array, got float64"),
         (lambda: list(_two_skills()), {"accepts": [lambda v: v["qvel"][:, 0] > 0]}, "accepts for handoff 1 read 'qvel'"),
         (lambda: list(_two_skills()), {"samples": 0}, "samples (particles per start state) must be >= 1"),
+        (
+            lambda: list(_two_skills()),
+            {"accepts": [_raises_value_error]},
+            "accepts for handoff 1 failed on sampled end states with ['x']: values must include 'fingertip'",
+        ),
     ],
 )
 def test_predict_chain_rejects_bad_input(build, kwargs, expected: str) -> None:
