@@ -22,8 +22,10 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from kinetome.library.errors import InvalidInputError
+from kinetome.library.runtime.records import EndReason
 from kinetome.library.option_models import (
     DURATION_OUTPUTS,
+    EXPANSIONS,
     OUTCOME_CODES,
     REWARD_OUTPUTS,
     DurationModel,
@@ -48,8 +50,7 @@ MIN_EPISODES = 10  # episodes that ran, fewer cannot give a training and a held-
 MIN_STOPPED = 10  # training episodes of one outcome needed for its end-state model
 RESIDUAL_POOL = 4096  # out-of-fold residual rows kept for sampling and intervals
 CV_FOLDS = 5
-_RAN = (OUTCOME_CODES["stopped"], OUTCOME_CODES["timed_out"], OUTCOME_CODES["terminated"])
-_REFUSED = 3  # EndReason.REFUSED
+_RAN = (int(EndReason.STOPPED), int(EndReason.TIMED_OUT), int(EndReason.TERMINATED))
 
 
 def _bad(message: str) -> InvalidInputError:
@@ -237,9 +238,11 @@ def fit_option_models(
         )
     if not 0.0 < holdout < 1.0:
         raise _bad(f"holdout must be a fraction in (0, 1), got {holdout}; e.g. 0.25")
+    if expansion not in ("auto", *EXPANSIONS):
+        raise _bad(f"expansion must be one of {('auto', *EXPANSIONS)}, got {expansion!r}")
     reasons = np.asarray(seg.reason).astype(np.int64)
     counts = {label: int(np.sum(reasons == code)) for label, code in OUTCOME_CODES.items()}
-    counts["refused"] = int(np.sum(reasons == _REFUSED))
+    counts["refused"] = int(np.sum(reasons == int(EndReason.REFUSED)))
     ran = np.flatnonzero(np.isin(reasons, _RAN))
     if ran.size < MIN_EPISODES:
         raise _bad(
@@ -260,6 +263,9 @@ def fit_option_models(
     rng = np.random.default_rng([seed, 0xF17])
     tr_local, te_local = _split(ran.size, holdout, seed)
     train, test = ran[tr_local], ran[te_local]
+    bad = [q for q in features if not np.all(np.isfinite(np.asarray(starts_all[q], dtype=np.float64)[ran]))]
+    if bad:
+        raise _bad(f"start states must be finite, got NaN/Inf in {bad}; check the rig's sensors or leave them out of features")
     starts_tr = _take(starts_all, train)
     fmap = fit_feature_map(starts_tr, features, expansion=expansion, rng=rng)
     x_tr, x_te = fmap(starts_tr), fmap(_take(starts_all, test))
@@ -291,7 +297,7 @@ def fit_option_models(
         skill_ref=str(seg.skill_ref if skill_ref is None else skill_ref),
         env_id=env_id,
         gamma=r_gamma,
-        episodes=int(np.sum(reasons != 4)),  # offered the skill (NOT_REACHED = 4 left out)
+        episodes=int(np.sum(reasons != int(EndReason.NOT_REACHED))),  # offered the skill
         outcomes=counts,
         fitted_at=fitted_at or datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         features=features,

@@ -210,6 +210,7 @@ BAD_CALLS = [
     ({"features": ("nope",)}, "features must be recorded quantities, got unknown ['nope']; known: ['x']"),
     ({"features": ()}, "features must name at least one quantity, got none"),
     ({"end_quantities": ("x",)}, "end_quantities must be recorded quantities, got unknown ['x']; known: ['y']"),
+    ({"expansion": "cubic"}, "expansion must be one of ('auto', 'linear', 'poly2', 'rff'), got 'cubic'"),
 ]
 
 
@@ -228,6 +229,17 @@ def test_fit_rejects_too_few_episodes_and_inconsistent_discounts() -> None:
     seg = geometric_segment(50, 0.2, 1.0, 0.95, seed=0)  # discounts use 0.95
     with pytest.raises(InvalidInputError, match=r"segment discount must equal gamma\*\*steps with gamma=0.99"):
         fit_option_models(rollout([seg], 0.99))
+
+
+def test_fit_rejects_non_finite_starts_and_matrix_end_quantities() -> None:
+    seg = geometric_segment(50, 0.2, 1.0, 0.99, seed=0)
+    seg.start_state["x"][3, 1] = np.nan
+    with pytest.raises(InvalidInputError, match=r"start states must be finite, got NaN/Inf in \['x'\]"):
+        fit_option_models(rollout([seg], 0.99))
+    seg = geometric_segment(50, 0.2, 1.0, 0.99, seed=0)
+    seg.end_state["tip_jac"] = np.zeros((50, 3, 2))
+    with pytest.raises(InvalidInputError, match=r"end_quantities must be scalars or vectors, got matrix-valued \['tip_jac'\]"):
+        fit_option_models(rollout([seg], 0.99), end_quantities=("y", "tip_jac"))
 
 
 def test_no_end_state_model_without_enough_stopped_episodes() -> None:
