@@ -113,10 +113,10 @@ def fit(
 
     from .tasks import load_start_file, load_variant_file, task_rig
 
-    if episodes < 8:
+    if episodes < 20:
         from .errors import InvalidInputError
 
-        raise InvalidInputError(f"--episodes must be >= 8 to leave a held-out split, got {episodes}")
+        raise InvalidInputError(f"--episodes must be >= 20 so that enough episodes run for a held-out split, got {episodes}")
     loaded = load(ref, store=store)
     rig = task_rig(loaded.skill.env, load_variant_file(variant))
     models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(start))

@@ -34,5 +34,5 @@ def headlines(summary: dict[str, Any]) -> list[dict[str, str]]:
         es = summary.get(key)
         if es:
             cov = es.get("coverage_90") or {}
-            rows.append({"check": f"{label}: 90% interval coverage", "value": f"mean {cov.get('mean', float('nan')):.3f}, min {cov.get('min', float('nan')):.2f} over {len(cov.get('per_component', {}))} components (n {es.get('n_held_out')})"})
+            rows.append({"check": f"{label}: 90% interval coverage", "value": f"mean {cov.get('mean', float('nan')):.3f}, min {cov.get('min', float('nan')):.2f} over {cov.get('components_in_mean', len(cov.get('per_component', {})))} non-constant components (n {es.get('n_held_out')})"})
     return rows

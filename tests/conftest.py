@@ -2,5 +2,10 @@
 
 import os
 
+# Small matrices under threaded BLAS run many times slower when the 2 cores are
+# busy with MuJoCo threads; one BLAS thread keeps tests fast and repeatable.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 os.environ.setdefault("MUJOCO_GL", "osmesa")
 os.environ.setdefault("PYOPENGL_PLATFORM", "osmesa")
