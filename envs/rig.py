@@ -10,6 +10,7 @@ paths call the same functions on the same arrays, they agree bit for bit.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping
 
@@ -115,17 +116,89 @@ def read_state(
     sensordata: np.ndarray,
     ctrl: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
-    """Named state from raw batched arrays (B, nq), (B, nv), (B, nsensordata)."""
-    raw = {"qpos": np.atleast_2d(qpos), "qvel": np.atleast_2d(qvel), "sensordata": np.atleast_2d(sensordata)}
-    batch = raw["qpos"].shape[0]
-    raw["ctrl"] = np.zeros((batch, rig.model.nu)) if ctrl is None else np.atleast_2d(ctrl)
+    """Named state from raw batched arrays (B, nq), (B, nv), (B, nsensordata), (B, nu).
+
+    1-D arrays count as a batch of one. Every value is a fresh array (never a
+    view of the inputs), ordered as ``rig.sources`` then ``rig.derived``. The
+    index arrays and shapes are worked out once per rig (``_read_plan``), so a
+    call costs one ``take`` per quantity: this runs once per env step.
+    """
+    plan = _read_plan(rig)
+    raw = [_as_2d(qpos), _as_2d(qvel), _as_2d(sensordata), None]
+    batch = raw[0].shape[0]
+    if plan.reads_ctrl:
+        raw[3] = np.zeros((batch, rig.model.nu)) if ctrl is None else _as_2d(ctrl)
+    for slot in plan.fields:
+        if raw[slot].shape[0] != batch:
+            raise ValueError(
+                f"read_state: {_FIELDS[slot]} must have the batch size of qpos ({batch}), "
+                f"got shape {raw[slot].shape}; pass one row per simulation in every array"
+            )
     values: dict[str, np.ndarray] = {}
-    for name, src in rig.sources.items():
-        shape = rig.layout[name].shape
-        values[name] = raw[src.field][:, list(src.index)].reshape((batch, *shape))
-    for name, fn in rig.derived.items():
-        values[name] = np.asarray(fn(values), dtype=np.float64).reshape((batch, *rig.layout[name].shape))
+    for name, slot, index, shape in plan.sources:
+        value = raw[slot].take(index, axis=1)
+        values[name] = value if shape is None else value.reshape((batch, *shape))
+    for name, fn, shape in plan.derived:
+        values[name] = np.asarray(fn(values), dtype=np.float64).reshape((batch, *shape))
     return values
+
+
+_FIELDS = ("qpos", "qvel", "sensordata", "ctrl")
+
+
+@dataclass(frozen=True)
+class _ReadPlan:
+    """How to read one rig's named state: per source (name, field slot, index, shape or None).
+
+    ``index`` is an int for scalar quantities (``take`` then yields (B,)) and an
+    intp array otherwise; ``shape`` is None when ``take`` already gives
+    (B, *shape), i.e. for scalars and vectors.
+    """
+
+    sources: tuple[tuple[str, int, Any, tuple[int, ...] | None], ...]
+    derived: tuple[tuple[str, Callable[[dict[str, np.ndarray]], np.ndarray], tuple[int, ...]], ...]
+    fields: tuple[int, ...]  # slots read by at least one source
+    reads_ctrl: bool
+
+
+# rig -> plan; weak keys so a dropped rig frees its plan. Rigs are immutable
+# (frozen, and their sources/derived mappings are not changed after build).
+_PLANS: "weakref.WeakKeyDictionary[Rig, _ReadPlan]" = weakref.WeakKeyDictionary()
+
+
+def _read_plan(rig: Rig) -> _ReadPlan:
+    try:
+        return _PLANS[rig]
+    except KeyError:
+        plan = _PLANS[rig] = _make_plan(rig)
+        return plan
+
+
+def _make_plan(rig: Rig) -> _ReadPlan:
+    sources = []
+    for name, src in rig.sources.items():
+        shape = tuple(rig.layout[name].shape)
+        size = int(np.prod(shape, dtype=np.int64))
+        if len(src.index) != size:
+            raise ValueError(
+                f"rig {rig.env_id}: source of {name!r} must list {size} indices for shape {shape}, "
+                f"got {len(src.index)}; fix the rig's sources"
+            )
+        slot = _FIELDS.index(src.field)
+        if shape == ():
+            sources.append((name, slot, int(src.index[0]), None))
+        else:
+            index = np.asarray(src.index, dtype=np.intp).reshape(-1)
+            sources.append((name, slot, index, None if len(shape) == 1 else shape))
+    derived = tuple((name, fn, tuple(rig.layout[name].shape)) for name, fn in rig.derived.items())
+    fields = tuple(sorted({slot for _, slot, _, _ in sources}))
+    return _ReadPlan(sources=tuple(sources), derived=derived, fields=fields, reads_ctrl=3 in fields)
+
+
+def _as_2d(a: Any) -> np.ndarray:
+    if type(a) is np.ndarray and a.ndim == 2:
+        return a
+    return np.atleast_2d(a)
 
 
 _RIG_BUILDERS: dict[str, Callable[..., Rig]] = {}

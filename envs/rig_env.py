@@ -21,7 +21,14 @@ __all__ = ["RigEnv"]
 
 
 class RigEnv(gym.Env):
-    """One simulation of a rig, with named state exposed via ``named_state()``."""
+    """One simulation of a rig, with named state exposed via ``named_state()``.
+
+    The named state after a step is kept as the next step's "before" state (it
+    is the state the robot is still in), so a step reads named state once.
+    Change the simulation only through ``set_state``/``reset``: writing
+    ``data.qpos``/``data.qvel`` directly between steps is not seen by the
+    next step's reward, and neither is editing the arrays of a returned state.
+    """
 
     metadata = {"render_modes": ["rgb_array"], "render_fps": 50}
 
@@ -35,7 +42,13 @@ class RigEnv(gym.Env):
         self._width, self._height = width, height
         self._renderer = None
         self.metadata = {**self.metadata, "render_fps": int(round(1.0 / rig.dt))}
-        low, high = rig.action_low.astype(np.float32), rig.action_high.astype(np.float32)
+        self._low, self._high = rig.action_low, rig.action_high
+        self._frame_skip = rig.frame_skip
+        # (1, n) views of MjData's own buffers, fixed for its lifetime; read_state copies out of them.
+        d = self.data
+        self._raw = {"qpos": d.qpos[None], "qvel": d.qvel[None], "sensordata": d.sensordata[None], "ctrl": d.ctrl[None]}
+        self._current: dict[str, np.ndarray] | None = None  # named state of data now, if already read
+        low, high = self._low.astype(np.float32), self._high.astype(np.float32)
         self.action_space = gym.spaces.Box(low=low, high=high, dtype=np.float32)
         mujoco.mj_forward(self.model, self.data)
         n_obs = rig.observe(self.named_state()).shape[-1]
@@ -44,17 +57,11 @@ class RigEnv(gym.Env):
     # -- state -------------------------------------------------------------
     def named_state(self) -> dict[str, np.ndarray]:
         """Current named state, batch of one: name -> (1, *shape)."""
-        d = self.data
-        return read_state(
-            self.rig,
-            qpos=d.qpos[None].copy(),
-            qvel=d.qvel[None].copy(),
-            sensordata=d.sensordata[None].copy(),
-            ctrl=d.ctrl[None].copy(),
-        )
+        return read_state(self.rig, **self._raw)
 
     def set_state(self, qpos: np.ndarray, qvel: np.ndarray) -> None:
         """Put the robot at (qpos, qvel), as reset does after sampling."""
+        self._current = None
         mujoco.mj_resetData(self.model, self.data)
         self.data.qpos[:] = qpos
         self.data.qvel[:] = qvel
@@ -65,16 +72,17 @@ class RigEnv(gym.Env):
         super().reset(seed=seed)
         qpos, qvel = self.rig.start(self.model, self.np_random, 1)
         self.set_state(qpos[0], qvel[0])
-        state = self.named_state()
+        state = self._current = self.named_state()
         return self._obs(state), {"named_state": state}
 
     def step(self, action):
-        action = np.clip(np.asarray(action, dtype=np.float64).reshape(1, -1), self.rig.action_low, self.rig.action_high)
-        before = self.named_state()
+        # ndarray.clip is np.clip without the dispatch layer (same ufunc, same bits)
+        action = np.asarray(action, dtype=np.float64).reshape(1, -1).clip(self._low, self._high)
+        before = self._current if self._current is not None else self.named_state()
         self.data.ctrl[:] = action[0]
-        mujoco.mj_step(self.model, self.data, nstep=self.rig.frame_skip)
+        mujoco.mj_step(self.model, self.data, nstep=self._frame_skip)
         mujoco.mj_forward(self.model, self.data)
-        after = self.named_state()
+        after = self._current = self.named_state()
         reward, terms = self.rig.reward(before, action, after)
         terminated = bool(self.rig.terminated(after)[0])
         info = {"named_state": after, "reward_terms": {k: float(v[0]) for k, v in terms.items()}}
