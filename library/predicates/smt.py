@@ -216,10 +216,11 @@ def _fill(low: float, high: float) -> float:
 
 
 def _to_float(value: z3.ExprRef) -> float:
+    """float64 of a z3 numeral; read as a double, not through its decimal string
+    (which aborted the process in a long test session)."""
     if z3.is_algebraic_value(value):
-        value = value.approx(30)
-    frac = value.as_fraction()
-    return float(Fraction(frac.numerator, frac.denominator))
+        value = value.approx(20)
+    return float(z3.Z3_get_numeral_double(value.ctx_ref(), value.as_ast()))
 
 
 def _bound_arrays(name: str, pair: tuple[object, object], shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
