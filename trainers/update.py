@@ -120,8 +120,11 @@ def update_from_rollout(
                 sums[key] = sums.get(key, 0.0) + val
             count += 1
             epoch_kl.append(info_acc["approx_kl"])
-        if cfg.target_kl is not None and epoch_kl and float(np.mean(epoch_kl)) > 1.5 * cfg.target_kl:
-            stop_early = True
+            # stop the update once the policy has moved too far from the one that collected the data
+            if cfg.target_kl is not None and info_acc["approx_kl"] > 1.5 * cfg.target_kl:
+                stop_early = True
+                break
+        if stop_early:
             break
     out = {key: val / max(count, 1) for key, val in sums.items()}
     var_ret = float(np.var(ret))
