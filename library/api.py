@@ -298,3 +298,28 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),
     }
+
+
+def check_chain(
+    chain_path: str | Path,
+    *,
+    store: Any,
+    method: str = "auto",
+    episodes: int | None = None,
+    seed: int | None = None,
+    workers: int = 1,
+    report_dir: str | Path | None = None,
+) -> Any:
+    """Check a chain file handoff by handoff; optionally write the report folder.
+
+    Returns a ``CheckResult``: ``exit_code`` 0 all compose, 1 some handoff
+    breaks, 3 some unsure (bad input raises ``InvalidInputError``, exit 2).
+    """
+    from .checker import check_chain as _check
+
+    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers)
+    if report_dir is not None:
+        from .report.checker_plots import write_report
+
+        write_report(result, report_dir)
+    return result

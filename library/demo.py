@@ -108,15 +108,15 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
 
 
 def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> list[dict[str, Any]]:
-    from .checker import check_chain_file
+    from .api import check_chain
 
     results = []
     for path in sorted((configs / "chains").glob("*.yaml")):
         report_dir = out / "chains" / path.stem
-        result = check_chain_file(path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed, workers=settings.workers, report_dir=report_dir)
-        data = result.to_json()
+        result = check_chain(path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed, workers=settings.workers, report_dir=report_dir)
+        data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
-        verdicts = ", ".join(f"{h.get('from', '?')} -> {h.get('to', '?')}: {h.get('verdict')}" for h in data.get("handoffs", []))
+        verdicts = ", ".join(f"{h['from']} -> {h['to']}: {h['verdict']} ({h['decided_by']})" for h in data["junctions"] if h["kind"] == "handoff")
         log.step(f"checked {path.name}: {verdicts or data.get('summary', '')}")
     return results
 

@@ -41,12 +41,12 @@ def _checks_section(report: Report, checks: list[dict[str, Any]]) -> None:
         s.add(f"<h3>{check['name']} <small>({check['file']})</small></h3>")
         rows = [
             {
-                "handoff": f"{h.get('from')} -> {h.get('to')}",
-                "verdict": h.get("verdict"),
-                "method": h.get("method"),
-                "evidence": h.get("evidence") or h.get("reason"),
+                "handoff": f"{h['from'] or 'start'} -> {h['to']}",
+                "verdict": h["verdict"],
+                "method": h["decided_by"],
+                "evidence": h["reason"],
             }
-            for h in data.get("handoffs", [])
+            for h in data["junctions"]
         ]
         if rows:
             s.add(table_html(rows, [("handoff", "Handoff"), ("verdict", "Verdict"), ("method", "Decided by"), ("evidence", "Evidence")], classes={"verdict": "verdict"}))
