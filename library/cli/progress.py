@@ -12,8 +12,8 @@ __all__ = ["ProgressBar"]
 class ProgressBar:
     """``bar.update(done, note)``; draws after ``delay`` seconds, at most 5 times a second.
 
-    On a terminal it redraws one line; elsewhere (CI logs) it prints a line at
-    most every 10% so logs stay short.
+    It draws only on a terminal (one redrawn line); piped or logged output
+    stays clean.
     """
 
     def __init__(self, total: int, label: str, *, stream: TextIO | None = None, delay: float = 2.0, enabled: bool = True):
@@ -24,7 +24,6 @@ class ProgressBar:
         self.enabled = enabled
         self._start = time.monotonic()
         self._last_draw = 0.0
-        self._last_decile = -1
         self._drawn = False
         self._tty = hasattr(self.stream, "isatty") and self.stream.isatty()
 
@@ -45,11 +44,7 @@ class ProgressBar:
             self.stream.write(f"\r{self.label} [{bar}] {fraction:5.1%} {note}\x1b[K")
             self.stream.flush()
         else:
-            decile = int(fraction * 10)
-            if decile == self._last_decile:
-                return
-            self._last_decile = decile
-            self.stream.write(f"{self.label}: {fraction:.0%} {note}\n")
+            return
         self._last_draw = now
         self._drawn = True
 
