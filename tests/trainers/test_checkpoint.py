@@ -81,7 +81,7 @@ from tests.trainers.pointmass import make_pointmass
 
 def slow(row):
     print("update", row["update"], flush=True)
-    time.sleep(0.3)
+    time.sleep(0.2)
 
 _, trainer = _trainer(make_pointmass(), {ckpt!r}, progress=slow)
 trainer.run()
