@@ -1,0 +1,194 @@
+"""Everything one check works on: options, the chain's rig, loaded skills, start distribution, caches."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..errors import InvalidInputError, KinetomeError, Problem
+from .chain import Chain, step_is_spec_file
+from .evidence import Junction
+
+__all__ = ["CheckOptions", "CheckContext", "prepare_context"]
+
+
+@dataclass(frozen=True)
+class CheckOptions:
+    """How to check. ``episodes``/``seed`` default to the chain file's values.
+
+    ``start_samples``: start states drawn to test the entry; ``model_samples``:
+    particles for the model method; ``timeout_ms``: per z3 query.
+    """
+
+    method: str = "auto"
+    episodes: int | None = None
+    seed: int | None = None
+    workers: int = 1
+    gamma: float = 0.99
+    timeout_ms: int = 10_000
+    start_samples: int = 1000
+    model_samples: int = 2000
+    max_counterexamples: int = 5
+
+    def __post_init__(self) -> None:
+        problems = []
+
+        def count(name: str, low: int, allow_none: bool = False) -> None:
+            value = getattr(self, name)
+            if allow_none and value is None:
+                return
+            if isinstance(value, bool) or not isinstance(value, int) or value < low:
+                problems.append(Problem("<options>", None, name, f"must be a whole number >= {low}, got {value!r}"))
+
+        count("episodes", 1, allow_none=True)
+        count("seed", 0, allow_none=True)
+        count("workers", 1)
+        count("timeout_ms", 1)
+        count("start_samples", 1)
+        count("model_samples", 1)
+        count("max_counterexamples", 0)
+        if not (isinstance(self.gamma, (int, float)) and 0.0 < self.gamma <= 1.0):
+            problems.append(Problem("<options>", None, "gamma", f"must be in (0, 1], got {self.gamma!r}"))
+        from .registry import AUTO, method_names
+
+        known = [AUTO, *method_names()]
+        if self.method not in known:
+            import difflib
+
+            close = difflib.get_close_matches(str(self.method), known, n=1)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            problems.append(Problem("<options>", None, "method", f"must be one of {', '.join(known)}, got {self.method!r}", hint.strip()))
+        if problems:
+            raise InvalidInputError(problems)
+
+
+@dataclass(eq=False)
+class CheckContext:
+    """Resolved inputs of one check plus per-run caches (models, rollout, start states)."""
+
+    chain: Chain
+    options: CheckOptions
+    rig: Any
+    skills: tuple[Any, ...]  # LoadedSkill, built for the chain's rig
+    skill_envs: tuple[str, ...]  # each skill's own env id (its spec's env)
+    start: Any  # StartDistribution or None (the rig's default start)
+    store: Any = None
+    cache: dict[str, Any] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+    chain_stats: Any = None  # filled by the simulation method
+    model_prediction: Any = None  # filled by the model method
+
+    @property
+    def episodes(self) -> int:
+        return self.options.episodes if self.options.episodes is not None else self.chain.episodes
+
+    @property
+    def seed(self) -> int:
+        return self.options.seed if self.options.seed is not None else self.chain.seed
+
+    @property
+    def layout(self) -> Any:
+        return self.rig.layout
+
+    def junctions(self) -> list[Junction]:
+        refs = [s.ref for s in self.skills]
+        out = [Junction(0, "start", refs[0])]
+        out += [Junction(j, refs[j - 1], refs[j]) for j in range(1, len(refs))]
+        return out
+
+    def source_skill(self, j: Junction) -> Any:
+        return None if j.is_entry else self.skills[j.index - 1]
+
+    def target_skill(self, j: Junction) -> Any:
+        return self.skills[j.index]
+
+    def named_state(self, qpos: np.ndarray, qvel: np.ndarray, *, chunk: int = 256) -> dict[str, np.ndarray]:
+        """Named state of raw states, computed by MuJoCo in chunks (reset, write, forward)."""
+        from ..runtime.starts import named_state_of_states
+
+        qpos, qvel = np.atleast_2d(qpos), np.atleast_2d(qvel)
+        parts = [named_state_of_states(self.rig, qpos[i : i + chunk], qvel[i : i + chunk]) for i in range(0, qpos.shape[0], chunk)]
+        return {k: np.concatenate([p[k] for p in parts], axis=0) for k in parts[0] if not k.endswith("_jac")}
+
+    def start_states(self, n: int, *, seed: int) -> tuple[np.ndarray, np.ndarray]:
+        key = f"starts:{n}:{seed}"
+        if key not in self.cache:
+            from ..runtime.starts import sample_starts
+
+            try:
+                self.cache[key] = sample_starts(self.rig, self.start, n, seed=seed)
+            except KinetomeError:
+                raise
+            except Exception as exc:  # envs raises EnvConfigError (a ValueError) for bad constraints
+                raise InvalidInputError(
+                    [self.chain.problem("start", f"cannot sample start states: {exc}", "fix the start distribution")]
+                ) from None
+        return self.cache[key]
+
+
+def _load_step(step: str, store: Any, rig: Any) -> Any:
+    from ..runtime.skill import load_skill, skill_from_spec
+    from ..spec_load import load_spec
+
+    if step_is_spec_file(step):
+        return skill_from_spec(load_spec(step), ref=str(step), rig=rig)
+    return load_skill(store, step, rig=rig)
+
+
+def _spec_env(step: str, store: Any) -> str:
+    """The env a step's spec names, without building its controller."""
+    import json
+
+    if step_is_spec_file(step):
+        from ..spec_load import load_spec
+
+        return load_spec(step).env
+    from ..runtime.skill import SPEC_FILE
+
+    doc = json.loads(store.read_file(store.get(step), SPEC_FILE).decode("utf-8"))
+    return str(doc.get("env", ""))
+
+
+def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> CheckContext:
+    """Build the chain's rig (variant applied), its start distribution and every skill.
+
+    Skills are built for the chain's rig. A skill whose own env is another robot
+    or whose controller cannot be built for this rig is loaded for its own env
+    instead; the structural check then reports the mismatch as ``breaks``.
+    """
+    from ..tasks import load_start_file, load_variant_file, task_rig
+    from .chain import resolve_steps
+
+    if any(not step_is_spec_file(s) for s in chain.steps):
+        if store is None:
+            raise InvalidInputError([chain.problem("steps", "names stored skills but no store was given", "pass --store or set KINETOME_STORE")])
+        resolve_steps(chain, store)
+    variant = load_variant_file(chain.variant) if chain.variant is not None else None
+    rig = task_rig(chain.env, variant)
+    if isinstance(chain.start, Path):
+        start = load_start_file(chain.start)
+    elif isinstance(chain.start, Mapping):
+        from kinetome.envs import EnvConfigError
+        from kinetome.envs.starts import start_from_mapping
+
+        try:
+            start = start_from_mapping(chain.start, source=f"{chain.source}:start")
+        except EnvConfigError as exc:
+            raise InvalidInputError([chain.problem("start", line) for line in exc.problems]) from None
+    else:
+        start = None
+    skills, envs = [], []
+    for step in chain.steps:
+        env = _spec_env(step, store)
+        envs.append(env)
+        try:
+            skills.append(_load_step(step, store, rig))
+        except InvalidInputError:
+            raise
+        except Exception:
+            # Built for the chain's rig it fails (other robot, other action size): load it for its own env.
+            skills.append(_load_step(step, store, None))
+    return CheckContext(chain, options, rig, tuple(skills), tuple(envs), start, store)

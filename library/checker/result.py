@@ -1,0 +1,238 @@
+"""The outcome of a chain check: per-junction verdicts with evidence, whole-chain stats, text and JSON."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..safety import CAUTION
+from .chain import Chain
+from .chain_stats import ChainStats
+from .evidence import Counterexample, Evidence, Junction
+from .verdict import Estimate, Verdict, exit_code_for
+
+__all__ = ["HandoffResult", "CheckResult"]
+
+_EXIT_TEXT = {0: "every junction composes", 1: "some handoff breaks", 3: "some junction is unsure"}
+_PREFERRED = ("sim", "model", "sample")  # which estimate to show for an undecided junction
+
+
+@dataclass(frozen=True, eq=False)
+class HandoffResult:
+    """Verdict on one junction (the entry, or a handoff A -> B) and the evidence behind it.
+
+    ``decided_by`` names the method whose evidence gave the verdict (None when
+    unsure). ``starts_when``/``parameters`` are B's, kept for plots.
+    """
+
+    junction: Junction
+    verdict: Verdict
+    decided_by: str | None
+    reason: str
+    evidence: tuple[Evidence, ...]
+    starts_when: Any = None
+    parameters: Mapping[str, np.ndarray] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+
+    @property
+    def index(self) -> int:
+        return self.junction.index
+
+    @property
+    def label(self) -> str:
+        return self.junction.label
+
+    def evidence_of(self, method: str) -> Evidence | None:
+        for ev in self.evidence:
+            if ev.method == method:
+                return ev
+        return None
+
+    @property
+    def methods(self) -> tuple[str, ...]:
+        return tuple(ev.method for ev in self.evidence)
+
+    @property
+    def estimate(self) -> Estimate | None:
+        """Counts and interval behind the verdict (or the best available for an unsure one)."""
+        if self.decided_by is not None:
+            ev = self.evidence_of(self.decided_by)
+            if ev is not None and ev.estimate is not None:
+                return ev.estimate
+        for m in _PREFERRED:
+            ev = self.evidence_of(m)
+            if ev is not None and ev.estimate is not None:
+                return ev.estimate
+        return None
+
+    @property
+    def counterexamples(self) -> tuple[Counterexample, ...]:
+        """Up to 5 states B refused: confirmed ones first (deciding method first), then candidates."""
+        order = [self.decided_by] + [ev.method for ev in self.evidence if ev.method != self.decided_by]
+        confirmed: list[Counterexample] = []
+        candidates: list[Counterexample] = []
+        for m in order:
+            ev = self.evidence_of(m) if m else None
+            if ev is None:
+                continue
+            confirmed += [c for c in ev.counterexamples if c.confirmed]
+            candidates += [c for c in ev.counterexamples if not c.confirmed] + list(ev.candidates)
+        return tuple((confirmed + candidates)[:5])
+
+    @property
+    def timeouts(self) -> str:
+        """Timeouts of A: measured counts when simulated, else what the static method could say."""
+        sim = self.evidence_of("sim")
+        if sim is not None and "timed_out" in sim.details:
+            d = sim.details
+            return f"{d['timed_out']}/{d['source_ran']}"
+        static = self.evidence_of("static")
+        if static is not None and "timeouts" in static.details:
+            return "possible"
+        return "-"
+
+    @property
+    def points(self) -> tuple[Mapping[str, np.ndarray] | None, np.ndarray | None, str]:
+        """End states of A for plots (and acceptance flags), from the richest method that has them."""
+        for m in _PREFERRED:
+            ev = self.evidence_of(m)
+            if ev is not None and ev.points is not None:
+                return ev.points, ev.accepted, m
+        cex = self.counterexamples
+        if cex:
+            names = sorted(set.intersection(*[set(c.state) for c in cex]))
+            pts = {n: np.asarray([c.state[n] for c in cex], dtype=np.float64) for n in names}
+            return pts, np.zeros(len(cex), dtype=bool), "z3"
+        return None, None, ""
+
+    def to_dict(self) -> dict[str, Any]:
+        est = self.estimate
+        return {
+            "index": self.index,
+            "kind": "entry" if self.junction.is_entry else "handoff",
+            "from": self.junction.source,
+            "to": self.junction.target,
+            "verdict": self.verdict.value,
+            "decided_by": self.decided_by,
+            "reason": self.reason,
+            "estimate": None if est is None else est.to_dict(),
+            "timeouts": self.timeouts,
+            "counterexamples": [c.to_dict() for c in self.counterexamples],
+            "evidence": [ev.to_dict() for ev in self.evidence],
+            "starts_when": None if self.starts_when is None else str(self.starts_when),
+            "notes": list(self.notes),
+        }
+
+
+def _json_default(x: Any) -> Any:
+    if isinstance(x, np.generic):
+        return x.item()
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    if isinstance(x, (set, frozenset, tuple)):
+        return list(x)
+    return str(x)
+
+
+def _finite_or_none(x: Any) -> Any:
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    if isinstance(x, dict):
+        return {k: _finite_or_none(v) for k, v in x.items()}
+    if isinstance(x, list):
+        return [_finite_or_none(v) for v in x]
+    return x
+
+
+@dataclass(frozen=True, eq=False)
+class CheckResult:
+    """Everything a chain check found. ``junctions[0]`` is the entry; the rest are the handoffs."""
+
+    chain: Chain
+    method: str
+    junctions: tuple[HandoffResult, ...]
+    chain_stats: ChainStats | None = None
+    notes: tuple[str, ...] = ()
+    timings: Mapping[str, float] = field(default_factory=dict)
+    env_id: str = ""
+    variant: str = ""
+    start: str = ""
+    episodes: int = 0
+    seed: int = 0
+    layout: Any = None  # the rig's StateLayout, for plots
+
+    def __post_init__(self) -> None:
+        if not self.junctions or not self.junctions[0].junction.is_entry:
+            raise ValueError("a check result needs the entry junction first")
+
+    @property
+    def entry(self) -> HandoffResult:
+        return self.junctions[0]
+
+    @property
+    def handoffs(self) -> tuple[HandoffResult, ...]:
+        return self.junctions[1:]
+
+    @property
+    def verdicts(self) -> tuple[Verdict, ...]:
+        return tuple(j.verdict for j in self.junctions)
+
+    @property
+    def exit_code(self) -> int:
+        """0 all compose, 1 some handoff breaks, 3 some unsure (2, bad input, is raised before a result exists)."""
+        return exit_code_for(list(self.verdicts))
+
+    @property
+    def methods_used(self) -> tuple[str, ...]:
+        seen: list[str] = []
+        for j in self.junctions:
+            for m in j.methods:
+                if m not in seen:
+                    seen.append(m)
+        return tuple(seen)
+
+    # -- JSON ---------------------------------------------------------------------
+    def to_dict(self) -> dict[str, Any]:
+        return _finite_or_none(
+            json.loads(
+                json.dumps(
+                    {
+                        "chain": self.chain.to_dict(),
+                        "env": self.env_id,
+                        "variant": self.variant or None,
+                        "start": self.start or None,
+                        "method": self.method,
+                        "methods_used": list(self.methods_used),
+                        "episodes": self.episodes,
+                        "seed": self.seed,
+                        "require": self.chain.require,
+                        "confidence": self.chain.confidence,
+                        "exit_code": self.exit_code,
+                        "summary": _EXIT_TEXT[self.exit_code],
+                        "handoff_count": len(self.handoffs),
+                        "junctions": [j.to_dict() for j in self.junctions],
+                        "chain_stats": None if self.chain_stats is None else self.chain_stats.to_dict(),
+                        "notes": list(self.notes),
+                        "timings_s": dict(self.timings),
+                        "caution": CAUTION,
+                    },
+                    default=_json_default,
+                )
+            )
+        )
+
+    def to_json(self, *, indent: int | None = 2) -> str:
+        return json.dumps(self.to_dict(), indent=indent, allow_nan=False)
+
+    # -- text ---------------------------------------------------------------------
+    def format_text(self, *, width: int = 100) -> str:
+        from .text import format_result
+
+        return format_result(self, width=width)
+
+    def __str__(self) -> str:
+        return self.format_text()

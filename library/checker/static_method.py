@@ -1,0 +1,430 @@
+"""Static method (z3): can a state satisfy A's stop region and the envelope but not B's initiation set?
+
+UNSAT proves the handoff: whenever A stops (by ``stops_when``, not by timeout)
+B accepts. Derived quantities are free variables within their envelope
+(``envelope.py``), so a proof is sound; a solver model is then only a
+candidate counterexample.
+
+Rule for a *confirmed* static counterexample (see docs/checker in README):
+a physical state is built from the solver model, either the model's own
+qpos/qvel or the nominal start pose with only the raw components the
+predicates read set to the model's values; MuJoCo computes its named state
+(reset, write, forward), which must lie inside the physical envelope, not be
+an env-terminal state (a terminal state ends an episode before any stop is
+recorded), satisfy A's ``stops_when`` and violate B's ``starts_when`` under
+the numpy back-end. Predicates that read actuator commands (``ctrl`` sources)
+are never confirmed this way. Such a state is one A's contract allows it to
+stop in and B refuses: the contracts do not compose, and the verdict is
+``breaks``. Every other model stays a candidate; sampling decides (and a
+candidate becomes confirmed when the simulation refuses states on the same
+clause of B).
+
+Timeouts are outside the proof: a skill that reaches ``max_steps`` hands
+over outside its stop region; the simulation counts how often.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any, Mapping
+
+import numpy as np
+
+from .envelope import Envelope, physical_envelope, raw_names, relaxed_names
+from .evidence import Counterexample, Evidence, Junction, counterexample_from
+from .registry import checker_method
+from .verdict import Verdict
+
+__all__ = ["static_method", "bind_parameters", "prove_handoff", "start_box", "StaticOutcome"]
+
+
+def _rename(node: Any, mapping: Mapping[str, str]) -> Any:
+    from ..predicates import Name, Node
+
+    if isinstance(node, Name):
+        return Name(mapping.get(node.id, node.id))
+    changes = {}
+    for f in dataclasses.fields(node):
+        value = getattr(node, f.name)
+        if isinstance(value, Node):
+            changes[f.name] = _rename(value, mapping)
+        elif isinstance(value, tuple) and value and all(isinstance(x, Node) for x in value):
+            changes[f.name] = tuple(_rename(x, mapping) for x in value)
+    return dataclasses.replace(node, **changes) if changes else node
+
+
+def bind_parameters(pred: Any, parameters: Mapping[str, np.ndarray], state_names: set[str], prefix: str) -> tuple[Any, dict[str, np.ndarray]]:
+    """``pred`` with the skill's parameters renamed ``prefix + name``, and their values as constants.
+
+    Two skills may both have a parameter ``target`` with different values; the
+    prefixes keep them apart in one solver context.
+    """
+    from ..predicates import Predicate
+
+    params = sorted(n for n in pred.names if n not in state_names)
+    missing = [n for n in params if n not in parameters]
+    if missing:
+        raise ValueError(f"predicate {pred} names {missing}, which are neither state quantities nor parameters")
+    mapping = {n: prefix + n for n in params}
+    shapes = {mapping.get(n, n): s for n, s in pred.shapes}
+    renamed = Predicate(_rename(pred.root, mapping), shapes)
+    constants = {prefix + n: np.asarray(parameters[n], dtype=np.float64).reshape(pred.shape_of(n)) for n in params}
+    return renamed, constants
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class StaticOutcome:
+    """Result of one implication query set: status, solver models (state dicts), solver calls."""
+
+    status: str  # proved | counterexample | unknown
+    models: tuple[dict[str, np.ndarray], ...] = ()
+    reason: str = ""
+    calls: int = 0
+
+
+def _query(premises: list, conclusion: Any, *, declare: dict, constants: dict, bounds: Mapping, timeout_ms: int) -> Any:
+    from ..predicates.smt import SmtContext, check_implication
+
+    ctx = SmtContext(declare, constants=constants)
+    return check_implication(premises, conclusion, ctx, bounds=bounds, timeout_ms=timeout_ms)
+
+
+def _blocking(model: Mapping[str, np.ndarray], names: list[str], layout: Any, bounds: Mapping) -> Any:
+    """A predicate false at (and near) ``model``: some component of ``names`` moves by 5% of its range."""
+    from ..predicates import parse_predicate
+    from .envelope import component_text
+
+    parts = []
+    for name in names:
+        if name not in model:
+            continue
+        q = layout[name]
+        value = np.asarray(model[name], dtype=np.float64).reshape(-1)
+        low, high = bounds.get(name, (np.full(q.size, -np.inf), np.full(q.size, np.inf)))
+        for k, v in enumerate(value):
+            width = high[k] - low[k]
+            step = 0.05 * width if np.isfinite(width) and width > 0 else 0.05 * max(1.0, abs(v))
+            if not np.isfinite(width) or width > 0:
+                c = component_text(name, q.shape, k)
+                parts.append(f"{c} >= {float(v + step)!r} or {c} <= {float(v - step)!r}")
+    if not parts:
+        return None
+    return parse_predicate(" or ".join(parts), layout.shapes(), what="blocking clause")
+
+
+def prove_handoff(
+    premises: list,
+    conclusion: Any,
+    *,
+    layout: Any,
+    constants: dict,
+    bounds: Mapping,
+    timeout_ms: int,
+    max_models: int,
+) -> StaticOutcome:
+    """Ask z3 whether ``premises`` imply ``conclusion`` within ``bounds``; on failure collect up to
+    ``max_models`` distinct models: one per violable top-level clause, then more by blocking.
+    """
+    declare = {n: s for n, s in layout.shapes().items() if n in ("qpos", "qvel")}
+    kw = dict(declare=declare, constants=constants, bounds=bounds, timeout_ms=timeout_ms)
+    first = _query(premises, conclusion, **kw)
+    calls = 1
+    if first.status == "proved":
+        return StaticOutcome("proved", calls=calls)
+    if first.status == "unknown":
+        return StaticOutcome("unknown", reason=first.reason, calls=calls)
+    models = [first.model]
+    clauses = conclusion.clauses()
+    if len(clauses) > 1:
+        for clause in clauses:
+            if len(models) >= max_models:
+                break
+            res = _query(premises, clause, **kw)
+            calls += 1
+            if res.status == "counterexample" and not any(_same(res.model, m) for m in models):
+                models.append(res.model)
+    state_names = sorted(n for n in conclusion.names if n in layout)
+    blocks = []
+    while len(models) < max_models and state_names:
+        block = _blocking(models[-1], state_names, layout, bounds)
+        if block is None:
+            break
+        blocks.append(block)
+        res = _query([*premises, *blocks], conclusion, **kw)
+        calls += 1
+        if res.status != "counterexample":
+            break
+        models.append(res.model)
+    return StaticOutcome("counterexample", tuple(models[:max(1, max_models)]), calls=calls)
+
+
+def _same(a: Mapping[str, np.ndarray], b: Mapping[str, np.ndarray]) -> bool:
+    return all(np.array_equal(np.asarray(a[k]), np.asarray(b.get(k))) for k in a)
+
+
+def _reads_ctrl(rig: Any, names: set[str]) -> bool:
+    return any(rig.sources.get(n) is not None and rig.sources[n].field == "ctrl" for n in names)
+
+
+def _nominal(ctx: Any) -> tuple[np.ndarray, np.ndarray]:
+    start = ctx.start
+    if start is not None and hasattr(start, "nominal"):
+        return start.nominal(ctx.rig.model)
+    return ctx.rig.model.qpos0.copy(), np.zeros(ctx.rig.model.nv)
+
+
+def _nominal_state(ctx: Any) -> dict[str, np.ndarray]:
+    if "nominal_state" not in ctx.cache:
+        qpos, qvel = _nominal(ctx)
+        ctx.cache["nominal_state"] = ctx.named_state(np.asarray(qpos)[None], np.asarray(qvel)[None])
+    return ctx.cache["nominal_state"]
+
+
+def _realisations(ctx: Any, model: Mapping[str, np.ndarray], used: set[str]) -> list[tuple[str, dict[str, np.ndarray]]]:
+    """Physical states for a solver model, as MuJoCo computes their named state (batch of one each).
+
+    Two tries: the model's own qpos/qvel; and the nominal pose with only the raw
+    components the predicates read set to the model's values (the solver leaves
+    the others arbitrary, e.g. a walker sunk into the floor).
+    """
+    nq, nv = ctx.rig.model.nq, ctx.rig.model.nv
+    tries: list[tuple[str, np.ndarray, np.ndarray]] = []
+    if "qpos" in model and "qvel" in model:
+        qpos = np.asarray(model["qpos"], dtype=np.float64).reshape(-1)
+        qvel = np.asarray(model["qvel"], dtype=np.float64).reshape(-1)
+        if qpos.size == nq and qvel.size == nv:
+            tries.append(("solver state", qpos, qvel))
+    qpos, qvel = (np.array(x, dtype=np.float64) for x in _nominal(ctx))
+    changed = False
+    for name in sorted(used & raw_names(ctx.rig)):
+        if name not in model:
+            continue
+        src = ctx.rig.sources[name]
+        target = qpos if src.field == "qpos" else qvel
+        target[list(src.index)] = np.asarray(model[name], dtype=np.float64).reshape(-1)
+        changed = True
+    if changed:
+        tries.append(("nominal pose with the solver's values", qpos, qvel))
+    return [(label, ctx.named_state(q[None], v[None])) for label, q, v in tries]
+
+
+def _as_batch(model: Mapping[str, np.ndarray], layout: Any) -> dict[str, np.ndarray]:
+    return {n: np.asarray(v, dtype=np.float64)[None] for n, v in model.items() if n in layout}
+
+
+def _classify(ctx: Any, models: tuple, *, a: Any, b: Any, envelope: Envelope, accept_start: Any = None) -> tuple[list[Counterexample], list[Counterexample]]:
+    """Split solver models into confirmed counterexamples (realised, see module doc) and candidates."""
+    layout = ctx.layout
+    names = tuple(layout.names)
+    used = set(b.starts_when.names) | (set(a.stops_when.names) if a is not None else set())
+    confirmed, candidates = [], []
+    for i, model in enumerate(models):
+        found = None
+        if not _reads_ctrl(ctx.rig, used):
+            for label, realised in _realisations(ctx, model, used):
+                inside = bool(envelope.contains(realised)[0])
+                alive = not bool(np.asarray(ctx.rig.terminated(realised))[0])
+                in_a = True if a is None else bool(a.stops_when.evaluate({**realised, **a.parameters})[0])
+                in_start = True if accept_start is None else bool(accept_start(realised))
+                refused = not bool(b.starts_when.evaluate({**realised, **b.parameters})[0])
+                if inside and alive and in_a and in_start and refused:
+                    found = (label, realised)
+                    break
+        if found is not None:
+            confirmed.append(
+                counterexample_from(
+                    b.starts_when, found[1], 0, parameters=b.parameters, names=names, source="z3", confirmed=True,
+                    note=f"solver model {i + 1}, realised in MuJoCo ({found[0]})",
+                )
+            )
+        else:
+            # The solver's (relaxed) values; names a clause query left out come from the nominal pose.
+            state = {**_nominal_state(ctx), **_as_batch(model, layout)}
+            candidates.append(
+                counterexample_from(
+                    b.starts_when, state, 0, parameters=b.parameters, names=tuple(n for n in names if n in state),
+                    source="z3", confirmed=False, note=f"solver model {i + 1} (relaxed; not realised)",
+                )
+            )
+    return confirmed, candidates
+
+
+def _timeout_note(a: Any) -> str:
+    return (
+        f"{a.ref} can time out (max_steps={a.max_steps}); it then hands over outside its stop region, "
+        f"which the proof does not cover"
+    )
+
+
+def _static_handoff(ctx: Any, j: Junction) -> Evidence:
+    a, b = ctx.source_skill(j), ctx.target_skill(j)
+    layout = ctx.layout
+    state = set(layout.names)
+    envelope = physical_envelope(ctx.rig, a.skill.limits)
+    stop_a, const_a = bind_parameters(a.stops_when, a.parameters, state, "_a_")
+    start_b, const_b = bind_parameters(b.starts_when, b.parameters, state, "_b_")
+    outcome = prove_handoff(
+        [stop_a, *envelope.premises],
+        start_b,
+        layout=layout,
+        constants={**const_a, **const_b},
+        bounds=envelope.bounds,
+        timeout_ms=ctx.options.timeout_ms,
+        max_models=max(1, ctx.options.max_counterexamples),
+    )
+    used = set(a.stops_when.names) | set(b.starts_when.names)
+    for p in envelope.premises:
+        used |= set(p.names)
+    relaxed = relaxed_names(ctx.rig, used & state)
+    details = {
+        "relaxed": relaxed,
+        "assumptions": list(envelope.assumptions),
+        "timeouts": _timeout_note(a),
+        "solver_calls": outcome.calls,
+        "timeout_ms": ctx.options.timeout_ms,
+    }
+    relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
+    if outcome.status == "proved":
+        return Evidence("static", Verdict.COMPOSES, f"proved: {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}", details=details)
+    if outcome.status == "unknown":
+        return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms", details=details)
+    confirmed, candidates = _classify(ctx, outcome.models, a=a, b=b, envelope=envelope)
+    if confirmed:
+        return Evidence(
+            "static",
+            Verdict.BREAKS,
+            f"counterexample: a state {a.ref} may stop in (realised in MuJoCo, inside the envelope) that {b.ref} refuses",
+            counterexamples=tuple(confirmed),
+            candidates=tuple(candidates),
+            details=details,
+        )
+    return Evidence(
+        "static",
+        Verdict.UNSURE,
+        f"candidate counterexample{relax_text}: not realised as a physical state; needs sampling",
+        candidates=tuple(candidates),
+        details=details,
+    )
+
+
+# -- entry: the start distribution as a box over raw state ------------------------------------
+
+
+def _noise_box(noise: Any, model: Any, kind: str, size: int) -> np.ndarray | None:
+    """Half-widths of a noise spec, or None when it is unbounded (gaussian with scale > 0)."""
+    if noise is None:
+        return np.zeros(size)
+    scale = np.asarray(noise.per_coordinate(model, kind), dtype=np.float64)
+    if noise.distribution == "uniform":
+        return scale
+    return None if np.any(scale > 0) else np.zeros(size)
+
+
+def start_box(start: Any, rig: Any) -> dict[str, tuple[np.ndarray, np.ndarray]] | None:
+    """A box (name -> flat (low, high)) holding every state the start distribution can give, or None.
+
+    Uniform noise around the nominal pose, clipped into limited joint ranges;
+    quaternions that get noise may be anything in [-1, 1]; box constraints over
+    qpos/qvel or other quantities narrow it (they only reject states). Gaussian
+    noise or the rig's default start (unknown form) give None.
+    """
+    if start is None or not hasattr(start, "nominal"):
+        return None
+    import mujoco
+
+    model = rig.model
+    q0, v0 = start.nominal(model)
+    sq = _noise_box(getattr(start, "qpos_noise", None), model, "qpos", model.nq)
+    sv = _noise_box(getattr(start, "qvel_noise", None), model, "qvel", model.nv)
+    if sq is None or sv is None:
+        return None
+    qlow, qhigh = q0 - sq, q0 + sq
+    for jnt in range(model.njnt):
+        adr = int(model.jnt_qposadr[jnt])
+        jtype = int(model.jnt_type[jnt])
+        if jtype in (mujoco.mjtJoint.mjJNT_HINGE, mujoco.mjtJoint.mjJNT_SLIDE):
+            if model.jnt_limited[jnt]:
+                lo, hi = model.jnt_range[jnt]
+                qlow[adr], qhigh[adr] = np.clip(qlow[adr], lo, hi), np.clip(qhigh[adr], lo, hi)
+        else:
+            s = adr + (3 if jtype == mujoco.mjtJoint.mjJNT_FREE else 0)
+            if np.any(sq[s : s + 4] > 0):
+                qlow[s : s + 4], qhigh[s : s + 4] = -1.0, 1.0
+    raw: dict[str, tuple[np.ndarray, np.ndarray]] = {"__qpos": (qlow, qhigh), "__qvel": (v0 - sv, v0 + sv)}
+    out: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    # Map the raw boxes onto layout quantities read from qpos/qvel.
+    for name, src in rig.sources.items():
+        if src.field in ("qpos", "qvel") and not rig.layout[name].derived:
+            low, high = raw[f"__{src.field}"]
+            idx = list(src.index)
+            out[name] = (low[idx].copy(), high[idx].copy())
+    for c in getattr(start, "constraints", ()):
+        if hasattr(c, "low") and c.quantity in rig.layout:
+            low, high = out.get(c.quantity, (np.full(len(c.low), -np.inf), np.full(len(c.low), np.inf)))
+            out[c.quantity] = (np.maximum(low, c.low), np.minimum(high, c.high))
+    return out
+
+
+def _merge_bounds(a: Mapping, b: Mapping) -> dict:
+    out = {k: (np.asarray(lo, dtype=np.float64).copy(), np.asarray(hi, dtype=np.float64).copy()) for k, (lo, hi) in a.items()}
+    for k, (lo, hi) in b.items():
+        if k in out:
+            out[k] = (np.maximum(out[k][0], lo), np.minimum(out[k][1], hi))
+        else:
+            out[k] = (np.asarray(lo, dtype=np.float64), np.asarray(hi, dtype=np.float64))
+    return out
+
+
+def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
+    box = start_box(ctx.start, ctx.rig)
+    if box is None:
+        return None
+    b = ctx.target_skill(j)
+    layout = ctx.layout
+    envelope = physical_envelope(ctx.rig, None)
+    bounds = _merge_bounds(envelope.bounds, box)
+    if any(np.any(lo > hi) for lo, hi in bounds.values()):
+        return Evidence("static", Verdict.UNSURE, "the start box lies outside the physical envelope; sampling decides")
+    start_b, const_b = bind_parameters(b.starts_when, b.parameters, set(layout.names), "_b_")
+    outcome = prove_handoff(
+        list(envelope.premises), start_b, layout=layout, constants=const_b, bounds=bounds,
+        timeout_ms=ctx.options.timeout_ms, max_models=max(1, ctx.options.max_counterexamples),
+    )
+    relaxed = relaxed_names(ctx.rig, set(b.starts_when.names) & set(layout.names))
+    details = {"relaxed": relaxed, "start_box": {k: [lo.tolist(), hi.tolist()] for k, (lo, hi) in box.items()}, "solver_calls": outcome.calls}
+    relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
+    if outcome.status == "proved":
+        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the start box satisfies {b.ref} starts_when{relax_text}", details=details)
+    if outcome.status == "unknown":
+        return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'})", details=details)
+    in_box = Envelope(box, (), ())
+
+    def accept_start(values: Mapping[str, np.ndarray]) -> bool:
+        ok = bool(in_box.contains(values)[0])
+        for c in getattr(ctx.start, "constraints", ()):
+            if c.quantity in values:
+                ok &= bool(c.accept(np.asarray(values[c.quantity], dtype=np.float64), ctx.rig.model)[0])
+        return ok
+
+    confirmed, candidates = _classify(ctx, outcome.models, a=None, b=b, envelope=envelope, accept_start=accept_start)
+    # A start distribution is a probability: a refused start state is listed, sampling gives the verdict.
+    what = "start states inside the start box" if confirmed else "candidate start states"
+    return Evidence(
+        "static",
+        Verdict.UNSURE,
+        f"{b.ref} refuses some {what}; sampling measures how often",
+        counterexamples=tuple(confirmed),
+        candidates=tuple(candidates),
+        details=details,
+    )
+
+
+@checker_method("static", cost=10, summary="z3: A's stop region and the physical envelope imply B's starts_when")
+def static_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
+    """z3: A's stop region and the physical envelope imply B's starts_when."""
+    out: dict[int, Evidence] = {}
+    for j in junctions:
+        ev = _static_entry(ctx, j) if j.is_entry else _static_handoff(ctx, j)
+        if ev is not None:
+            out[j.index] = ev
+    return out
