@@ -1,0 +1,58 @@
+"""`kinetome demo --quick`: the whole job end to end, and a report a browser renders."""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from kinetome.library.cli.main import main
+from tests.browser import chromium_path, render_page
+
+SECTIONS = ("skills", "chains", "models", "retrain", "filmstrips", "safety")
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("demo")
+    assert main(["demo", "--quick", "--out", str(out)]) == 0
+    return out
+
+
+def test_demo_registers_fits_checks_and_retrains(demo: Path) -> None:
+    summary = json.loads((demo / "demo.json").read_text())
+    refs = {r["ref"] for r in summary["registered"]}
+    assert {"arm-lift@1", "arm-reach-tray@1", "walker-walk@1"} <= refs
+    assert sum("model" in m for m in summary["models"].values()) >= 4
+    verdicts = {c["name"]: {j["verdict"] for j in c["result"]["junctions"] if j["kind"] == "handoff"} for c in summary["checks"]}
+    assert verdicts["arm-lift-reach-place"] == {"composes"}
+    assert "breaks" in verdicts["arm-place-release"]
+    decided = {j["decided_by"] for c in summary["checks"] for j in c["result"]["junctions"]}
+    assert "static" in decided and "sim" in decided
+    retrain = summary["retrain"]
+    assert retrain["child"] == "arm-reach-tray@2" and retrain["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]
+    assert retrain["after"]["mean_return"] > retrain["before"]["mean_return"]
+
+
+def test_report_is_self_contained_with_every_section(demo: Path) -> None:
+    html = (demo / "report.html").read_text()
+    for anchor in SECTIONS:
+        assert f'id="{anchor}"' in html
+    assert "<script" not in html and not re.search(r'src="https?:', html)
+    assert html.count("data:image/png;base64,") >= 5  # handoff plots, timelines, curve, filmstrips
+    assert "ISO 12100" in html
+    assert "verdict-breaks" in html and "verdict-composes" in html
+
+
+@pytest.mark.skipif(chromium_path() is None, reason="Chromium is not installed (apt-get install chromium chromium-driver); CI installs it")
+def test_report_renders_in_headless_chromium(demo: Path) -> None:
+    dom, shot = render_page(demo / "report.html", width=1280, height=4000)
+    for anchor in SECTIONS:
+        assert f'id="{anchor}"' in dom
+    assert dom.count("<img") >= 5
+    pixels = np.asarray(Image.open(shot).convert("L"), dtype=np.float64)
+    assert pixels.std() > 10  # text, tables and images were painted, not a blank page
