@@ -49,6 +49,7 @@ class RetrainResult:
     completed: bool
     wall_time: float
     variant: str | None = None
+    TITLE = "retraining {self.skill_ref}"
 
     @property
     def improved(self) -> bool:
@@ -56,6 +57,12 @@ class RetrainResult:
 
     def curve_csv(self) -> str:
         return curve_csv(self.curve)
+
+    def save_curves(self, directory: str | Path, *, stem: str = "curves") -> tuple[Path, Path]:
+        """Write the learning curve as ``<stem>.csv`` and ``<stem>.png`` (matplotlib, Agg)."""
+        from .curves import save_curves
+
+        return save_curves(self.curve, directory, stem=stem, title=self.TITLE.format(self=self))
 
     def metadata(self) -> dict[str, Any]:
         """JSON-able record for the child version's lineage."""

@@ -54,9 +54,16 @@ class TrainSetResult:
     config: TrainConfig
     completed: bool
     wall_time: float
+    TITLE = "options {self.skill_refs}"
 
     def curve_csv(self) -> str:
         return curve_csv(self.curve)
+
+    def save_curves(self, directory: str | Path, *, stem: str = "curves") -> tuple[Path, Path]:
+        """Write the learning curve as ``<stem>.csv`` and ``<stem>.png`` (matplotlib, Agg)."""
+        from .curves import save_curves
+
+        return save_curves(self.curve, directory, stem=stem, title=self.TITLE.format(self=self))
 
     def metadata(self) -> dict[str, Any]:
         return {

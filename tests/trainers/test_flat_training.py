@@ -153,3 +153,24 @@ def test_starts_outside_starts_when_are_reported(rig):
     trainer = OptionCriticTrainer([skill], rig, quick_config(steps=512), episode_per_skill=True)
     with pytest.raises(TrainingError, match="start states must satisfy starts_when of never"):
         trainer.run()
+
+
+def test_from_scratch_reinitialises_but_keeps_goal_parameters(rig):
+    from kinetome.trainers.retrain import reinitialise_controller
+
+    ctrl = linear_controller(rig, gain=3.0)
+    reinitialise_controller(ctrl, keep=("reference",))
+    values = ctrl.parameter_values()
+    np.testing.assert_array_equal(values["gain"], np.zeros((2, 4)))  # the linear kind's default gain
+    np.testing.assert_allclose(values["reference"][:2], [0.3, 0.0])  # kept
+    skill = loaded_reach(rig, gain=3.0)
+    result = retrain_skill(skill, rig, quick_config(steps=16 * 32 * 2), seed=0, from_scratch=True)
+    assert result.from_scratch and result.before.success_rate > 0.5  # the stored version reaches
+    assert result.metadata()["from_scratch"] is True
+
+
+def test_result_curves_are_written(rig, tmp_path):
+    result = retrain_skill(loaded_reach(rig), rig, quick_config(steps=16 * 32 * 2), seed=0)
+    csv_path, png_path = result.save_curves(tmp_path, stem="reach")
+    assert csv_path.name == "reach.csv" and len(csv_path.read_text().splitlines()) == 3
+    assert png_path.read_bytes()[:4] == b"\x89PNG"

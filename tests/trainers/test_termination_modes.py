@@ -1,0 +1,51 @@
+"""How beta(s, w) relates to stops_when in each termination mode (one rollout each)."""
+
+import numpy as np
+import pytest
+
+from kinetome.library.predicates import parse_predicate
+from kinetome.trainers.option_critic import OptionCriticTrainer
+
+from .pointmass import make_pointmass, quick_config, reach_skill
+
+
+def _stats(mode, stop_text, init_logit, max_steps=60):
+    rig = make_pointmass(max_episode_steps=60)
+    skills = []
+    for name in ("a", "b"):
+        s = reach_skill(rig, gain=3.0, max_steps=max_steps)
+        s.name, s.starts_when = name, None
+        s.stops_when = parse_predicate(stop_text, rig.layout.shapes())
+        skills.append(s)
+    cfg = quick_config(steps=16 * 32, termination=mode, termination_init=init_logit)
+    trainer = OptionCriticTrainer(skills, rig, cfg, episode_per_skill=False)
+    trainer.collector.start()
+    trainer.collector.collect()
+    return trainer.collector.stats
+
+
+def test_confined_never_stops_outside_stops_when():
+    # beta ~ 1 (logit 20) but stops_when never holds: only timeouts end a skill
+    st = _stats("confined", "norm(qpos) > 5", 20.0, max_steps=10)
+    assert st.learned_terminations == 0
+    assert st.terminations > 0 and all(1 <= d <= 10 for d in st.skill_durations)
+    assert max(st.skill_durations) == 10
+
+
+def test_learned_stops_by_beta_alone():
+    st = _stats("learned", "norm(qpos) > 5", 20.0)
+    assert st.learned_terminations == st.terminations > 0
+    assert np.mean(st.skill_durations) == pytest.approx(1.0)
+
+
+def test_hard_always_stops_where_stops_when_holds():
+    # stops_when always true, beta ~ 0 (logit -20): every step is a forced stop, none learned
+    st = _stats("hard", "norm(qpos) < 5", -20.0)
+    assert st.learned_terminations == 0
+    assert np.mean(st.skill_durations) == pytest.approx(1.0)
+
+
+def test_hard_with_low_beta_runs_until_timeout_outside_stops_when():
+    st = _stats("hard", "norm(qpos) > 5", -20.0, max_steps=8)
+    assert st.learned_terminations == 0
+    assert max(st.skill_durations) == 8
