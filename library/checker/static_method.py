@@ -112,6 +112,41 @@ def _blocking(model: Mapping[str, np.ndarray], names: list[str], layout: Any, bo
     return parse_predicate(" or ".join(parts), layout.shapes(), what="blocking clause")
 
 
+def _with_margin(pred: Any) -> Any | None:
+    """``pred`` with each plain ``x < c`` / ``x > c`` widened by 10% of |c| (at least 0.001).
+
+    A state violating the widened predicate violates ``pred`` by that margin,
+    so solver models sit clear of the boundary. None when nothing changed.
+    """
+    from ..predicates import BoolOp, Call, Compare, Index, Num, Predicate
+
+    changed = False
+
+    def widen(node: Any) -> Any:
+        nonlocal changed
+        if isinstance(node, Compare) and len(node.ops) == 1:
+            (a, b), op = node.operands, node.ops[0]
+            if op in ("<", "<=", ">", ">=") and isinstance(b, Num) and not isinstance(a, Num):
+                m = 0.1 * max(abs(b.value), 0.01)
+                changed = True
+                return Compare((a, Num(b.value + m if op in ("<", "<=") else b.value - m)), node.ops)
+            if op in ("<", "<=", ">", ">=") and isinstance(a, Num) and not isinstance(b, Num):
+                m = 0.1 * max(abs(a.value), 0.01)
+                changed = True
+                return Compare((Num(a.value - m if op in ("<", "<=") else a.value + m), b), node.ops)
+            return node
+        if isinstance(node, BoolOp):
+            return BoolOp(node.op, tuple(widen(x) for x in node.items))
+        if isinstance(node, Call) and node.func in ("all", "any"):
+            return Call(node.func, tuple(widen(x) for x in node.args))
+        if isinstance(node, Index):
+            return Index(widen(node.target), node.index)
+        return node  # under not(...) widening would narrow: leave it
+
+    root = widen(pred.root)
+    return Predicate(root, dict(pred.shapes)) if changed else None
+
+
 def prove_handoff(
     premises: list,
     conclusion: Any,
@@ -122,8 +157,12 @@ def prove_handoff(
     timeout_ms: int,
     max_models: int,
 ) -> StaticOutcome:
-    """Ask z3 whether ``premises`` imply ``conclusion`` within ``bounds``; on failure collect up to
-    ``max_models`` distinct models: one per violable top-level clause, then more by blocking.
+    """Ask z3 whether ``premises`` imply ``conclusion`` within ``bounds``.
+
+    On failure, collect up to ``max_models`` models spread over the top-level
+    clauses of the conclusion: per clause, states violating it by a margin if
+    there are any (else at the boundary), each later one at least 5% of a
+    range away from the previous ones (blocking clauses).
     """
     declare = {n: s for n, s in layout.shapes().items() if n in ("qpos", "qvel")}
     kw = dict(declare=declare, constants=constants, bounds=bounds, timeout_ms=timeout_ms)
@@ -133,29 +172,30 @@ def prove_handoff(
         return StaticOutcome("proved", calls=calls)
     if first.status == "unknown":
         return StaticOutcome("unknown", reason=first.reason, calls=calls)
-    models = [first.model]
     clauses = conclusion.clauses()
-    if len(clauses) > 1:
-        for clause in clauses:
-            if len(models) >= max_models:
+    quota = -(-max(1, max_models) // len(clauses))
+    models: list[dict] = []
+    for clause in clauses:
+        names = sorted(n for n in clause.names if n in layout)
+        wide = _with_margin(clause)
+        blocks: list = []
+        for _ in range(quota):
+            res = None
+            for target in ([wide] if wide is not None else []) + [clause]:
+                res = _query([*premises, *blocks], target, **kw)
+                calls += 1
+                if res.status == "counterexample":
+                    break
+            if res is None or res.status != "counterexample":
                 break
-            res = _query(premises, clause, **kw)
-            calls += 1
-            if res.status == "counterexample" and not any(_same(res.model, m) for m in models):
-                models.append(res.model)
-    state_names = sorted(n for n in conclusion.names if n in layout)
-    blocks = []
-    while len(models) < max_models and state_names:
-        block = _blocking(models[-1], state_names, layout, bounds)
-        if block is None:
-            break
-        blocks.append(block)
-        res = _query([*premises, *blocks], conclusion, **kw)
-        calls += 1
-        if res.status != "counterexample":
-            break
-        models.append(res.model)
-    return StaticOutcome("counterexample", tuple(models[:max(1, max_models)]), calls=calls)
+            models.append(res.model)
+            block = _blocking(res.model, names, layout, bounds)
+            if block is None:
+                break
+            blocks.append(block)
+    if not models:
+        models = [first.model]
+    return StaticOutcome("counterexample", tuple(models[: max(1, max_models)]), calls=calls)
 
 
 def _same(a: Mapping[str, np.ndarray], b: Mapping[str, np.ndarray]) -> bool:
@@ -180,7 +220,33 @@ def _nominal_state(ctx: Any) -> dict[str, np.ndarray]:
     return ctx.cache["nominal_state"]
 
 
-def _realisations(ctx: Any, model: Mapping[str, np.ndarray], used: set[str]) -> list[tuple[str, dict[str, np.ndarray]]]:
+def components_read(*preds: Any) -> dict[str, set[int] | None]:
+    """name -> flat components the predicates read (None: all of them), from ``x[i]`` indexing."""
+    from ..predicates import Index, Name
+
+    out: dict[str, set[int] | None] = {}
+
+    def mark(name: str, comps: set[int] | None) -> None:
+        if name in out and out[name] is None:
+            return
+        out[name] = None if comps is None else (out.get(name) or set()) | comps
+
+    def visit(node: Any) -> None:
+        if isinstance(node, Index) and isinstance(node.target, Name) and node.index >= 0:
+            mark(node.target.id, {int(node.index)})
+            return
+        if isinstance(node, Name):
+            mark(node.id, None)
+            return
+        for child in node.children():
+            visit(child)
+
+    for p in preds:
+        visit(p.root)
+    return out
+
+
+def _realisations(ctx: Any, model: Mapping[str, np.ndarray], used: dict[str, set[int] | None]) -> list[tuple[str, dict[str, np.ndarray]]]:
     """Physical states for a solver model, as MuJoCo computes their named state (batch of one each).
 
     Two tries: the model's own qpos/qvel; and the nominal pose with only the raw
@@ -196,12 +262,14 @@ def _realisations(ctx: Any, model: Mapping[str, np.ndarray], used: set[str]) -> 
             tries.append(("solver state", qpos, qvel))
     qpos, qvel = (np.array(x, dtype=np.float64) for x in _nominal(ctx))
     changed = False
-    for name in sorted(used & raw_names(ctx.rig)):
-        if name not in model:
+    for name, comps in sorted(used.items()):
+        if name not in model or name not in raw_names(ctx.rig):
             continue
         src = ctx.rig.sources[name]
         target = qpos if src.field == "qpos" else qvel
-        target[list(src.index)] = np.asarray(model[name], dtype=np.float64).reshape(-1)
+        values = np.asarray(model[name], dtype=np.float64).reshape(-1)
+        for k in range(values.size) if comps is None else sorted(comps):
+            target[src.index[k]] = values[k]
         changed = True
     if changed:
         tries.append(("nominal pose with the solver's values", qpos, qvel))
@@ -216,11 +284,11 @@ def _classify(ctx: Any, models: tuple, *, a: Any, b: Any, envelope: Envelope, ac
     """Split solver models into confirmed counterexamples (realised, see module doc) and candidates."""
     layout = ctx.layout
     names = tuple(layout.names)
-    used = set(b.starts_when.names) | (set(a.stops_when.names) if a is not None else set())
+    used = components_read(b.starts_when, *([a.stops_when] if a is not None else []))
     confirmed, candidates = [], []
     for i, model in enumerate(models):
         found = None
-        if not _reads_ctrl(ctx.rig, used):
+        if not _reads_ctrl(ctx.rig, set(used)):
             for label, realised in _realisations(ctx, model, used):
                 inside = bool(envelope.contains(realised)[0])
                 alive = not bool(np.asarray(ctx.rig.terminated(realised))[0])
