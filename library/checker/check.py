@@ -121,7 +121,7 @@ def run_check(ctx: CheckContext) -> CheckResult:
     start = ""
     if ctx.start is not None:
         start = getattr(ctx.start, "name", "") or str(chain.start)
-    variant = getattr(ctx.rig.variant, "name", "") if ctx.rig.variant is not None else ""
+    variant = (getattr(ctx.rig.variant, "name", "") or chain.variant.stem) if chain.variant is not None else ""
     return CheckResult(
         chain=chain,
         method=ctx.options.method,

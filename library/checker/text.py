@@ -79,9 +79,10 @@ def format_result(result: Any, *, width: int = 100) -> str:
     out.append(f"chain {c.name} ({', '.join(where)})")
     if c.description:
         out += _wrap(c.description, "  ", width)
+    sim = f"{result.episodes} simulated episodes, seed {result.seed}" if result.episodes else "no simulation"
     out.append(
         f"require {c.require:g} at {_pct(c.confidence)} confidence; method {result.method} "
-        f"(used: {', '.join(result.methods_used) or '-'}); {result.episodes} episodes, seed {result.seed}"
+        f"(used: {', '.join(result.methods_used) or '-'}); {sim}"
     )
     if not result.handoffs:
         out.append(
