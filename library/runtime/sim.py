@@ -36,6 +36,7 @@ class SimBatch:
         self._sensordata = self._batch.bind("sensordata")
         self._site_xpos = self._batch.bind("site_xpos") if rig.jacobian_sites else None
         self._low, self._high = rig.action_low, rig.action_high
+        self._frame_skip = rig.frame_skip
 
     def reset(self, qpos: np.ndarray, qvel: np.ndarray, ids: np.ndarray | None = None) -> None:
         """Put simulations ``ids`` (default all) at (qpos, qvel), like RigEnv.set_state."""
@@ -50,14 +51,14 @@ class SimBatch:
 
         ``extra`` asks for on-demand quantities such as ``fingertip_jac``.
         """
-        ids = self._ids(ids)
-        values = read_state(
-            self.rig,
-            qpos=self._qpos[ids],
-            qvel=self._qvel[ids],
-            sensordata=self._sensordata[ids],
-            ctrl=self._ctrl[ids],
-        )
+        if ids is None:  # read_state copies, so the live bound arrays can go in as they are
+            raw = (self._qpos, self._qvel, self._sensordata, self._ctrl)
+        else:
+            ids = self._ids(ids)
+            raw = (self._qpos[ids], self._qvel[ids], self._sensordata[ids], self._ctrl[ids])
+        values = read_state(self.rig, qpos=raw[0], qvel=raw[1], sensordata=raw[2], ctrl=raw[3])
+        if extra:
+            ids = self._ids(ids)
         for name in extra:
             site = self.rig.jacobian_sites.get(name.removesuffix("_jac")) if name.endswith("_jac") else None
             if site is None:
@@ -67,14 +68,18 @@ class SimBatch:
 
     def clip(self, action: np.ndarray) -> np.ndarray:
         """Actions clipped to the actuator limits the model declares."""
-        return np.clip(action, self._low, self._high)
+        # ndarray.clip is np.clip without its dispatch layer: the same ufunc, the same bits
+        return np.asarray(action).clip(self._low, self._high)
 
     def step(self, action: np.ndarray, ids: np.ndarray | None = None) -> np.ndarray:
         """Apply clipped ``action`` (len(ids), n_act) for one env step; return it."""
-        ids = self._ids(ids)
         action = self.clip(np.asarray(action, dtype=np.float64))
-        self._ctrl[ids] = action
-        self._batch.step(ids, nstep=self.rig.frame_skip, stage=_ACC)
+        if ids is None:  # all simulations: no id validation in mujoco.batch
+            self._ctrl[:] = action
+        else:
+            ids = self._ids(ids)
+            self._ctrl[ids] = action
+        self._batch.step(ids, nstep=self._frame_skip, stage=_ACC)
         return action
 
     def jacobian(self, site: int, ids: np.ndarray) -> np.ndarray:

@@ -1,0 +1,218 @@
+"""Benchmark: rollout throughput of run_skill (batched, predicates every step) vs gymnasium's env.step loop.
+
+Run by hand (not collected by pytest):
+
+    python tests/bench/bench_runtime.py [--episodes 128] [--workers 1,2] [--envs kinetome/BenchArm-v0,Hopper-v5]
+                                        [--kinds pd,mlp] [--max-steps 250] [--ref-steps 5000] [--profile ENV:KIND:W]
+                                        [--torch-threads N] [--blas-matvec]
+
+For each env, a PD skill and an MLP skill (inputs [qpos, qvel], hidden [64, 64])
+run ``--episodes`` episodes from ``sample_starts`` through ``run_skill`` on 1 and 2
+threads. ``stops_when`` is made unreachable so episodes run ``--max-steps`` steps,
+``starts_when`` and ``stops_when`` are still evaluated every step; Hopper may
+still terminate when it falls, so throughput counts only the steps actually
+simulated (sum of per-episode steps). The reference is
+``gymnasium.make(env).step(constant action)`` in the same process, measured
+before and after the runtime loops (the machine is shared) and averaged.
+
+``--torch-threads N`` runs torch on N intra-op threads (default: torch's own
+choice, what run_skill callers get today). ``--blas-matvec`` is a what-if: it
+swaps the mlp kind's batch-invariant elementwise matvec for
+torch.nn.functional.linear for this run only (results are then no longer
+batch-size invariant), to show what that kernel costs.
+
+Targets: one thread >= 1.0x the gymnasium loop; two threads >= 1.7x the
+one-thread figure. Prints a markdown table: loop, steps/s, ratio.
+"""
+
+from __future__ import annotations
+
+import argparse
+import cProfile
+import io
+import os
+import pstats
+import re
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[2]
+ARM_PD_SPEC = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
+NEVER = "norm(qvel) < -1.0"  # a norm is never negative: episodes run max_steps (or until the env terminates)
+
+HOPPER_PD = """
+name: bench-hopper-pd
+description: Benchmark only; hold the hopper's joints near straight.
+env: Hopper-v5
+controller:
+  kind: joint_pd
+  parameters:
+    setpoint: [-0.05, -0.05, 0.0]
+    kp: [2.0, 2.0, 1.0]
+    kd: [0.1, 0.1, 0.05]
+starts_when: torso_height > 0.5
+stops_when: {never}
+max_steps: {max_steps}
+"""
+
+MLP = """
+name: bench-{slug}-mlp
+description: Benchmark only; an untrained two-layer policy.
+env: {env}
+controller:
+  kind: mlp
+  options: {{inputs: [qpos, qvel], hidden: [64, 64]}}
+starts_when: norm(qvel) < 1000
+stops_when: {never}
+max_steps: {max_steps}
+"""
+
+
+def _arm_pd_text(max_steps: int) -> str:
+    text = ARM_PD_SPEC.read_text(encoding="utf-8")
+    text, n_stop = re.subn(r"(?m)^stops_when:.*$", f"stops_when: {NEVER}", text)
+    text, n_max = re.subn(r"(?m)^max_steps:.*$", f"max_steps: {max_steps}", text)
+    if n_stop != 1 or n_max != 1:
+        raise SystemExit(f"{ARM_PD_SPEC}: expected one stops_when and one max_steps line, got {n_stop} and {n_max}")
+    return text
+
+
+def spec_text(env_id: str, kind: str, max_steps: int) -> str:
+    """The benchmark spec for (env, kind) as YAML text."""
+    if kind == "mlp":
+        slug = re.sub(r"[^a-z0-9]+", "-", env_id.lower()).strip("-")
+        return MLP.format(slug=slug, env=env_id, never=NEVER, max_steps=max_steps)
+    if env_id == "kinetome/BenchArm-v0":
+        return _arm_pd_text(max_steps)
+    if env_id == "Hopper-v5":
+        return HOPPER_PD.format(never=NEVER, max_steps=max_steps)
+    raise SystemExit(f"--envs: no PD spec for {env_id!r}; use kinetome/BenchArm-v0 or Hopper-v5")
+
+
+def gym_loop(env_id: str, steps: int) -> float:
+    """gymnasium.make(env).step(constant mid-range action) steps/s, resets included."""
+    import gymnasium
+
+    import kinetome.envs  # noqa: F401  (registers kinetome/* ids)
+
+    env = gymnasium.make(env_id)
+    env.reset(seed=0)
+    space = env.action_space
+    action = ((space.low + space.high) / 2).astype(space.dtype)
+    for _ in range(100):  # warm-up
+        if any(env.step(action)[2:4]):
+            env.reset()
+    t = time.perf_counter()
+    for _ in range(steps):
+        _, _, terminated, truncated, _ = env.step(action)
+        if terminated or truncated:
+            env.reset()
+    rate = steps / (time.perf_counter() - t)
+    env.close()
+    return rate
+
+
+def build(env_id: str, kind: str, max_steps: int, episodes: int):
+    """(rig, loaded skill, starts) for one benchmark case."""
+    from kinetome.envs import make_rig
+    from kinetome.library.runtime.skill import skill_from_spec
+    from kinetome.library.runtime.starts import sample_starts
+    from kinetome.library.spec_load import parse_spec_text
+
+    rig = make_rig(env_id)
+    skill = skill_from_spec(parse_spec_text(spec_text(env_id, kind, max_steps), source=f"<bench {env_id} {kind}>"), rig=rig)
+    starts = sample_starts(rig, None, episodes, seed=0)
+    return rig, skill, starts
+
+
+def runtime_rate(rig, skill, starts, workers: int) -> tuple[float, int]:
+    """(simulated env steps/s, steps) of one run_skill call."""
+    from kinetome.library.runtime.execute import run_skill
+
+    t = time.perf_counter()
+    out = run_skill(skill, rig, starts=starts, seed=0, workers=workers)
+    wall = time.perf_counter() - t
+    steps = int(out.segments[0].steps.sum())
+    return steps / wall, steps
+
+
+def profile(rig, skill, starts, workers: int, top: int) -> str:
+    from kinetome.library.runtime.execute import run_skill
+
+    prof = cProfile.Profile()
+    prof.enable()
+    run_skill(skill, rig, starts=starts, seed=0, workers=workers)
+    prof.disable()
+    buf = io.StringIO()
+    pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(top)
+    return buf.getvalue()
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--envs", default="kinetome/BenchArm-v0,Hopper-v5")
+    ap.add_argument("--kinds", default="pd,mlp")
+    ap.add_argument("--workers", default="1,2")
+    ap.add_argument("--episodes", type=int, default=128)
+    ap.add_argument("--max-steps", type=int, default=250)
+    ap.add_argument("--ref-steps", type=int, default=5000)
+    ap.add_argument("--repeat", type=int, default=1, help="runs per runtime case; the best is reported")
+    ap.add_argument("--profile", default="", help="ENV:KIND:WORKERS to print a cProfile of, e.g. Hopper-v5:mlp:1")
+    ap.add_argument("--top", type=int, default=25)
+    ap.add_argument("--torch-threads", type=int, default=0, help="torch intra-op threads (0: leave torch's default)")
+    ap.add_argument("--blas-matvec", action="store_true", help="what-if: mlp layers via F.linear (see above)")
+    a = ap.parse_args()
+    import torch
+
+    if a.torch_threads > 0:
+        torch.set_num_threads(a.torch_threads)
+    if a.blas_matvec:
+        import torch.nn.functional as F
+
+        import kinetome.library.controllers.mlp as mlp
+
+        mlp.matvec = lambda x, w: F.linear(x, w)
+    load_before = os.getloadavg()[0]
+    envs = [e for e in a.envs.split(",") if e]
+    kinds = [k for k in a.kinds.split(",") if k]
+    workers = [int(w) for w in a.workers.split(",") if w]
+    bad = [k for k in kinds if k not in ("pd", "mlp")]
+    if bad:
+        raise SystemExit(f"--kinds must be pd and/or mlp, got {bad}")
+
+    rows: list[tuple[str, float, str]] = []
+    for env_id in envs:
+        ref_before = gym_loop(env_id, a.ref_steps)
+        results = []
+        for kind in kinds:
+            rig, skill, starts = build(env_id, kind, a.max_steps, a.episodes)
+            runtime_rate(rig, skill, (starts[0][:8], starts[1][:8]), 1)  # warm-up (torch, thread pool)
+            for w in workers:
+                best = max(runtime_rate(rig, skill, starts, w) for _ in range(a.repeat))
+                results.append((kind, w, *best))
+            if a.profile:
+                p_env, p_kind, p_w = a.profile.rsplit(":", 2)
+                if p_env == env_id and p_kind == kind:
+                    print(profile(rig, skill, starts, int(p_w), a.top))
+        ref = 0.5 * (ref_before + gym_loop(env_id, a.ref_steps))
+        rows.append((f"{env_id}: gymnasium env.step, constant action", ref, "1.00"))
+        one = {kind: rate for kind, w, rate, _ in results if w == 1}
+        for kind, w, rate, steps in results:
+            label = f"{env_id}: run_skill {kind}, {a.episodes} episodes, {w} thread{'s' if w > 1 else ''} ({steps:,} steps)"
+            ratio = f"{rate / ref:.2f}"
+            if w != 1 and kind in one:
+                ratio += f" ({rate / one[kind]:.2f}x 1 thread)"
+            rows.append((label, rate, ratio))
+    print(f"torch intra-op threads {torch.get_num_threads()}{', BLAS matvec (what-if)' if a.blas_matvec else ''}; "
+          f"1-min load average {load_before:.1f} before, {os.getloadavg()[0]:.1f} after, on {os.cpu_count()} CPUs")
+    print()
+    print("| loop | steps/s | ratio vs gymnasium (vs 1 thread) |")
+    print("| --- | ---: | ---: |")
+    for label, rate, ratio in rows:
+        print(f"| {label} | {rate:,.0f} | {ratio} |")
+
+
+if __name__ == "__main__":
+    main()
