@@ -134,7 +134,7 @@ def _load_step(step: str, store: Any, rig: Any) -> Any:
     from ..spec_load import load_spec
 
     if step_is_spec_file(step):
-        return skill_from_spec(load_spec(step), ref=str(step), rig=rig)
+        return skill_from_spec(load_spec(step), ref=Path(step).name, rig=rig)
     return load_skill(store, step, rig=rig)
 
 
