@@ -1,0 +1,201 @@
+"""Static method at handoff level: proofs against brute-force sampling, envelope, limits, relaxation, confirmation.
+
+Outside reference: brute force. For every pair the solver proves, no sampled
+state (uniform over the relaxed space the proof covers, and physical states
+computed by MuJoCo) satisfies A's stop region and the envelope but not B's
+initiation set. The sample sizes make a violation region of 1/1000 of the box
+(or more) show up with probability 1 - (1 - 1e-3)^20000 > 0.999999.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from checker_testkit import ARM, WALKER, CONFIGS, Limits, stub_context, stub_skill
+
+from kinetome.envs import make_rig
+from kinetome.library.checker import Junction, Verdict
+from kinetome.library.checker.envelope import physical_envelope
+from kinetome.library.checker.static_method import start_box, static_method
+
+
+@pytest.fixture(scope="module")
+def arm():
+    return make_rig(ARM)
+
+
+@pytest.fixture(scope="module")
+def walker():
+    return make_rig(WALKER)
+
+
+def _static(rig, a, b, **kw):
+    ctx = stub_context(rig, [a, b], **kw)
+    return static_method(ctx, [Junction(1, a.ref, b.ref)])[1]
+
+
+def _relaxed_samples(rig, envelope, n, rng):
+    """Uniform states over the relaxed space: each quantity independently inside its (finite-ized) envelope."""
+    out = {}
+    for q in rig.layout:
+        low, high = envelope.bounds[q.name]
+        low = np.where(np.isfinite(low), low, -5.0)
+        high = np.where(np.isfinite(high), high, 5.0)
+        out[q.name] = rng.uniform(low, high, size=(n, q.size)).reshape((n, *q.shape))
+    # Keep the alias premises true: quantities reading the same qpos/qvel entry share the value.
+    for name, src in rig.sources.items():
+        if src.field in ("qpos", "qvel") and name not in ("qpos", "qvel") and src.field in out:
+            out[name] = out[src.field][:, list(src.index)].reshape((n, *rig.layout[name].shape))
+    return out
+
+
+def _physical_samples(rig, envelope, n, rng):
+    """Uniform raw states inside the envelope, named state computed by MuJoCo."""
+    from kinetome.library.runtime.starts import named_state_of_states
+
+    lq, hq = (np.where(np.isfinite(x), x, s) for x, s in zip(envelope.bounds["qpos"], (-2.0, 2.0)))
+    lv, hv = (np.where(np.isfinite(x), x, s) for x, s in zip(envelope.bounds["qvel"], (-5.0, 5.0)))
+    qpos = rng.uniform(lq, hq, size=(n, rig.model.nq))
+    qvel = rng.uniform(lv, hv, size=(n, rig.model.nv))
+    return named_state_of_states(rig, qpos, qvel)
+
+
+def _violations(a, b, values, envelope):
+    inside = envelope.contains(values)
+    in_a = a.stops_when.evaluate({**values, **a.parameters})
+    in_b = b.starts_when.evaluate({**values, **b.parameters})
+    return int(np.sum(inside & in_a & ~in_b))
+
+
+PAIRS = [
+    # (label, A stops_when, A params, A limits, B starts_when, B params, expected verdict of the static method)
+    ("joint speeds bound the speed norm", "all(abs(qvel) <= 0.2)", {}, None, "norm(qvel) < 0.5", {}, Verdict.COMPOSES),
+    ("a raw gap is a confirmed break", "qpos[0] > 0.5", {}, None, "qpos[0] > 0.6", {}, Verdict.BREAKS),
+    ("joint limit closes the gap", "qpos[0] > 0.0", {}, None, "qpos[0] < 3.0", {}, Verdict.COMPOSES),
+    ("inside the joint range it does not", "qpos[0] > 0.0", {}, None, "qpos[0] < 2.5", {}, Verdict.BREAKS),
+    ("declared joint_speed proves it", "norm(fingertip - target) < 0.02", {}, Limits(joint_speed=10.0), "abs(qvel[0]) <= 10.0", {}, Verdict.COMPOSES),
+    ("without the limit it is open", "norm(fingertip - target) < 0.02", {}, None, "abs(qvel[0]) <= 10.0", {}, Verdict.UNSURE),
+    ("declared end_effector_speed proves it", "qpos[0] > 0.0", {}, Limits(end_effector_speed=2.0), "norm(fingertip_vel) <= 2.0", {}, Verdict.COMPOSES),
+    ("relaxed fingertip still proves", "norm(fingertip - [0.3, 0.0, 0.55]) < 0.02", {}, None, "fingertip[0] > 0.25 and fingertip[2] < 0.6", {}, Verdict.COMPOSES),
+    ("parameters are constants per skill", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.32]}, Verdict.COMPOSES),
+    ("same parameter name, far apart", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.5]}, Verdict.BREAKS),
+    ("or in the stop region", "qpos[1] > 1.0 or qpos[1] < -1.0", {}, None, "abs(qpos[1]) > 0.9", {}, Verdict.COMPOSES),
+    ("not in the initiation set", "qvel[2] > 0.3", {}, None, "not (qvel[2] < 0.1)", {}, Verdict.COMPOSES),
+]
+
+
+@pytest.mark.parametrize("label, a_stop, a_par, a_lim, b_start, b_par, expected", PAIRS, ids=[p[0] for p in PAIRS])
+def test_static_verdicts_and_brute_force(arm, label, a_stop, a_par, a_lim, b_start, b_par, expected):
+    a = stub_skill(arm, "a@1", stops_when=a_stop, parameters=a_par, limits=a_lim)
+    b = stub_skill(arm, "b@1", starts_when=b_start, parameters=b_par)
+    ev = _static(arm, a, b)
+    assert ev.verdict is expected, ev.reason
+    envelope = physical_envelope(arm, a_lim)
+    rng = np.random.default_rng(7)
+    if expected is Verdict.COMPOSES:
+        assert _violations(a, b, _relaxed_samples(arm, envelope, 20_000, rng), envelope) == 0
+        assert _violations(a, b, _physical_samples(arm, envelope, 2_000, rng), envelope) == 0
+    if expected is Verdict.BREAKS:
+        assert ev.counterexamples and all(c.confirmed for c in ev.counterexamples)
+        for c in ev.counterexamples:
+            state = {k: np.asarray(v, dtype=np.float64)[None] for k, v in c.state.items()}
+            assert bool(a.stops_when.evaluate({**state, **a.parameters})[0])
+            assert not bool(b.starts_when.evaluate({**state, **b.parameters})[0])
+            assert bool(envelope.contains(state)[0])
+            assert c.violations  # each names the clause and the margin
+
+
+def test_random_pairs_never_prove_a_sampled_violation(arm):
+    """Seeded random thresholds: every proof survives 20,000 relaxed and 1,000 physical samples;
+    every pair with a sampled violation is not proved (the contrapositive, checked the same way)."""
+    rng = np.random.default_rng(2024)
+    envelope = physical_envelope(arm, None)
+    proved = refuted = 0
+    for trial in range(14):
+        i, j = rng.integers(0, 3, size=2)
+        a_stop = f"abs(qvel[{i}]) <= {rng.uniform(0.05, 1.0):.3f} and qpos[{j}] > {rng.uniform(-0.8, 0.8):.3f}"
+        b_start = f"norm(qvel) < {rng.uniform(0.3, 2.5):.3f} and qpos[{j}] > {rng.uniform(-0.9, 0.7):.3f}"
+        if trial % 2:
+            b_start = f"abs(qvel[{i}]) < {rng.uniform(0.05, 1.2):.3f} and qpos[{j}] >= {rng.uniform(-1.0, 0.9):.3f}"
+        a = stub_skill(arm, "a@1", stops_when=a_stop)
+        b = stub_skill(arm, "b@1", starts_when=b_start)
+        ev = _static(arm, a, b, max_counterexamples=1)
+        sampled = _violations(a, b, _relaxed_samples(arm, envelope, 20_000, rng), envelope)
+        if ev.verdict is Verdict.COMPOSES:
+            proved += 1
+            assert sampled == 0, (a_stop, b_start)
+            assert _violations(a, b, _physical_samples(arm, envelope, 1_000, rng), envelope) == 0
+        if sampled > 0:
+            refuted += 1
+            assert ev.verdict is not Verdict.COMPOSES
+    assert proved >= 3 and refuted >= 3, (proved, refuted)  # the table exercises both sides
+
+
+def test_relaxed_candidate_is_not_a_confirmed_break(arm):
+    """At qpos = 0 the fingertip is at z = 0.40 m (MuJoCo), so B holds physically; the relaxed solver
+    cannot see that: it must report an unconfirmed candidate, never 'breaks'."""
+    a = stub_skill(arm, "a@1", stops_when="abs(qpos[0]) < 0.001 and abs(qpos[1]) < 0.001 and abs(qpos[2]) < 0.001")
+    b = stub_skill(arm, "b@1", starts_when="fingertip[2] > 0.35")
+    ev = _static(arm, a, b)
+    assert ev.verdict is Verdict.UNSURE
+    assert ev.candidates and not ev.counterexamples
+    assert all(not c.confirmed for c in ev.candidates)
+    assert "fingertip" in ev.details["relaxed"]
+
+
+def test_alias_of_raw_entries_is_used(walker):
+    """torso_pitch reads qpos[2]: the proof needs the equality the envelope adds."""
+    a = stub_skill(walker, "a@1", stops_when="qpos[2] > 0.1 and qpos[2] < 0.2")
+    b = stub_skill(walker, "b@1", starts_when="torso_pitch > 0.05 and abs(torso_vel[0] - qvel[0]) < 1e-9")
+    assert _static(walker, a, b).verdict is Verdict.COMPOSES
+
+
+def test_terminal_states_do_not_confirm(walker):
+    """A walker state with the torso pitched past 0.8 rad ends the episode: it is no stop state."""
+    a = stub_skill(walker, "a@1", stops_when="qpos[0] > 1.0")
+    b = stub_skill(walker, "b@1", starts_when="abs(torso_pitch) < 0.9")
+    ev = _static(walker, a, b)
+    assert ev.verdict is Verdict.UNSURE  # every violating pitch (>= 0.9) is terminal: candidates only
+    assert ev.candidates and not ev.counterexamples
+
+
+def test_timeouts_are_reported_outside_the_proof(arm):
+    a = stub_skill(arm, "a@1", stops_when="all(abs(qvel) <= 0.2)")
+    b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5")
+    ev = _static(arm, a, b)
+    assert "can time out" in ev.details["timeouts"]
+
+
+def test_start_box_contains_every_sampled_start(arm):
+    from kinetome.envs.starts import load_start
+    from kinetome.library.runtime.starts import sample_starts
+
+    start = load_start(CONFIGS / "starts" / "arm_home.yaml")
+    box = start_box(start, arm)
+    qpos, qvel = sample_starts(arm, start, 2000, seed=3)
+    low, high = box["qpos"]
+    assert np.all(qpos >= low) and np.all(qpos <= high)
+    assert np.allclose(box["qvel"][0], 0) and np.allclose(box["qvel"][1], 0)
+    # Half-width 0.02 rad around the home keyframe (the file says so).
+    assert np.allclose(high - low, 0.04)
+
+
+def test_gaussian_start_is_not_a_box(arm):
+    from kinetome.envs.starts import load_start
+
+    assert start_box(load_start(CONFIGS / "starts" / "arm_home_wide.yaml"), arm) is None
+    assert start_box(None, arm) is None
+
+
+def test_entry_is_proved_over_the_start_box(arm):
+    from kinetome.envs.starts import load_start
+
+    start = load_start(CONFIGS / "starts" / "arm_home.yaml")
+    b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5 and qpos[0] > 0.04")
+    ctx = stub_context(arm, [b], start=start)
+    ev = static_method(ctx, [Junction(0, "start", b.ref)])[0]
+    assert ev.verdict is Verdict.COMPOSES
+    # A box partly outside B: listed start states, verdict left to sampling.
+    b2 = stub_skill(arm, "b@1", starts_when="qpos[0] > 0.07")
+    ev2 = static_method(stub_context(arm, [b2], start=start), [Junction(0, "start", b2.ref)])[0]
+    assert ev2.verdict is Verdict.UNSURE and ev2.counterexamples and ev2.counterexamples[0].confirmed
