@@ -130,6 +130,7 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
         store=store,
         variant=variant,
         config=configs / "training" / settings.retrain_config,
+        start=configs / "starts" / "arm_clearance.yaml",  # where arm-lift hands over
         seed=settings.seed,
         workers=settings.workers,
         out_dir=out / "retrain",
