@@ -25,8 +25,8 @@ class DemoSettings:
     """Budgets of one demo run; ``quick`` is what CI runs."""
 
     quick: bool = False
-    fit_episodes: int = 300
-    check_episodes: int = 300
+    fit_episodes: int = 1000
+    check_episodes: int = 2000
     retrain_config: str = "arm_heavy_payload.yaml"
     seed: int = 0
     workers: int = 2
@@ -34,7 +34,7 @@ class DemoSettings:
     @classmethod
     def for_mode(cls, quick: bool) -> "DemoSettings":
         if quick:
-            return cls(quick=True, fit_episodes=120, check_episodes=120, retrain_config="demo_quick.yaml")
+            return cls(quick=True, fit_episodes=400, check_episodes=600, retrain_config="demo_quick.yaml")
         return cls()
 
 
@@ -123,8 +123,15 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
 
 def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
     from .api import retrain
+    from .cli.progress import ProgressBar
 
     variant = configs / "variants" / "heavy_payload.yaml"
+    bar = ProgressBar(1, "retraining arm-reach-tray", stream=log.stream, delay=0.5)
+
+    def on_update(row: dict[str, Any]) -> None:
+        bar.total = int(row.get("total_steps") or 1)
+        bar.update(int(row["steps"]), f"{row['steps']} steps, {row.get('steps_per_s', 0):,.0f} steps/s")
+
     result = retrain(
         "arm-reach-tray",
         store=store,
@@ -135,9 +142,11 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
         workers=settings.workers,
         out_dir=out / "retrain",
         refit_episodes=settings.fit_episodes,
+        progress=on_update,
     )
+    bar.close()
     b, a = result["before"], result["after"]
-    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {b['success_rate']:.2f} -> {a['success_rate']:.2f}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}")
+    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {b['success_rate']:.2f} -> {a['success_rate']:.2f}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}; lineage {' <- '.join(result['lineage'])}")
     return result
 
 

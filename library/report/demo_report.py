@@ -50,7 +50,9 @@ def _checks_section(report: Report, checks: list[dict[str, Any]]) -> None:
         ]
         if rows:
             s.add(table_html(rows, [("handoff", "Handoff"), ("verdict", "Verdict"), ("method", "Decided by"), ("evidence", "Evidence")], classes={"verdict": "verdict"}))
+        s.add(f"<details><summary>Full checker output (exit code {check['exit_code']})</summary>")
         s.pre(check["text"])
+        s.add("</details>")
         for png in sorted(Path(check["report_dir"]).glob("*.png")):
             s.add(image_html(png, f"{check['name']}: {png.stem.replace('_', ' ')}"))
 
