@@ -156,8 +156,8 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
     """Build the chain's rig (variant applied), its start distribution and every skill.
 
     Skills are built for the chain's rig. A skill whose own env is another robot
-    or whose controller cannot be built for this rig is loaded for its own env
-    instead; the structural check then reports the mismatch as ``breaks``.
+    (or has another number of actuators) is built for its own env instead; the
+    structural check then reports the mismatch as ``breaks``.
     """
     from ..tasks import load_start_file, load_variant_file, task_rig
     from .chain import resolve_steps
@@ -181,14 +181,14 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
     else:
         start = None
     skills, envs = [], []
+    own_rigs: dict[str, Any] = {rig.env_id: rig}
     for step in chain.steps:
         env = _spec_env(step, store)
         envs.append(env)
-        try:
-            skills.append(_load_step(step, store, rig))
-        except InvalidInputError:
-            raise
-        except Exception:
-            # Built for the chain's rig it fails (other robot, other action size): load it for its own env.
-            skills.append(_load_step(step, store, None))
+        if env not in own_rigs:
+            own_rigs[env] = task_rig(env)
+        own = own_rigs[env]
+        fits = own.metadata.get("robot") == rig.metadata.get("robot") and own.n_act == rig.n_act
+        # A skill of another robot is built for its own env; the structural check reports the mismatch.
+        skills.append(_load_step(step, store, rig if fits else own))
     return CheckContext(chain, options, rig, tuple(skills), tuple(envs), start, store)
