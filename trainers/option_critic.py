@@ -235,7 +235,9 @@ class OptionCriticTrainer:
 
     def run(self, *, resume: bool = False) -> TrainOutcome:
         """Train to the budget (or continue a checkpointed run with ``resume=True``)."""
-        with torch_threads(1):
+        from kinetome.library.controllers.kernels import blas_products
+
+        with torch_threads(1), blas_products():
             return self._run(resume)
 
     def _run(self, resume: bool) -> TrainOutcome:

@@ -7,16 +7,37 @@ bit), so controllers use these elementwise-then-reduce forms instead.
 
 from __future__ import annotations
 
+import contextlib
+from typing import Iterator
+
 import torch
 
-__all__ = ["matvec", "jacobian_transpose", "flatten_inputs"]
+__all__ = ["matvec", "blas_products", "jacobian_transpose", "flatten_inputs"]
 
 # Rows per chunk keep the (rows, m, k) product under ~4M elements (32 MB).
 _CHUNK_ELEMENTS = 1 << 22
 
 
+_blas = False  # set inside blas_products(): training needs speed, not batch invariance
+
+
+@contextlib.contextmanager
+def blas_products() -> Iterator[None]:
+    """Inside: ``matvec`` uses BLAS (about 20x faster for MLPs, deterministic for a
+    given batch shape, but its last bits depend on the batch size). The trainer
+    uses it; the runtime does not, so batched runs equal the one-env loop."""
+    global _blas
+    previous, _blas = _blas, True
+    try:
+        yield
+    finally:
+        _blas = previous
+
+
 def matvec(x: torch.Tensor, weight: torch.Tensor) -> torch.Tensor:
-    """``x @ weight.T`` for x (B, k), weight (m, k) -> (B, m), row by row."""
+    """``x @ weight.T`` for x (B, k), weight (m, k) -> (B, m), row by row (see blas_products)."""
+    if _blas:
+        return torch.nn.functional.linear(x, weight)
     m, k = weight.shape
     rows = max(1, _CHUNK_ELEMENTS // max(1, m * k))
     if x.shape[0] <= rows:
