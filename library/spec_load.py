@@ -130,53 +130,80 @@ def _path_from_message(message: str) -> tuple[str | int, ...]:
     return tuple(path)
 
 
-def check_semantics(skill: Skill, doc: YamlDocument | None = None) -> list[Problem]:
-    """Problems that need the env and the controller kinds: names, bounds, sizes."""
-    doc = doc or YamlDocument("<spec>", {}, {})
-    problems: list[Problem] = []
+def _controller_problems(doc: YamlDocument, problems: list[Problem], exc: Exception) -> None:
+    for p in getattr(exc, "problems", None) or [Problem("", None, "controller", str(exc))]:
+        if isinstance(p, Problem):
+            problems.append(doc.problem(tuple(_path_from_message(p.field + " ")), p.message, p.fix))
+        else:
+            problems.append(doc.problem(("controller",), str(p)))
+
+
+def _parameter_shapes(controller_data: Any, rig: Any, doc: YamlDocument, problems: list[Problem]) -> dict[str, tuple[int, ...]] | None:
+    """Shapes of the controller's parameters, or None when the controller block is unusable."""
+    from .controllers import build_controller, context_from_rig, kind_class
+
+    context = context_from_rig(rig)
+    try:
+        spec = ControllerSpec(
+            kind=controller_data["kind"],
+            parameters=controller_data.get("parameters", {}),
+            bounds={k: (v["low"], v["high"]) for k, v in controller_data.get("bounds", {}).items()},
+            options=controller_data.get("options", {}),
+            exploration_std=controller_data.get("exploration_std", 0.1),
+        )
+        controller = build_controller(
+            spec.kind,
+            context,
+            parameters=spec.parameter_arrays(),
+            bounds=spec.bound_arrays(),
+            options=dict(spec.options),
+            exploration_std=spec.exploration_std,
+        )
+    except (ValueError, KeyError, TypeError) as exc:
+        _controller_problems(doc, problems, exc)
+        try:  # still name the kind's parameters so the predicates can be checked too
+            cls = kind_class(controller_data["kind"])
+            return {d.name: tuple(d.shape) for d in cls.declare(context, controller_data.get("options") or None)}
+        except Exception:
+            return None
+    for name in controller.inputs:
+        if name not in rig.layout:
+            problems.append(doc.problem(("controller", "options"), f"controller reads '{name}', which env {rig.env_id} does not have", f"known names: {', '.join(rig.layout.names)}"))
+    return {k: tuple(v.shape) for k, v in controller.parameter_values().items()}
+
+
+def check_semantics(data: dict[str, Any], doc: YamlDocument, *, skip: set[str] = frozenset()) -> list[Problem]:
+    """Problems that need the env and the controller kinds: names, bounds, sizes.
+
+    Works on the raw fields so that it can run beside schema problems: fields
+    named in ``skip`` (they already failed the schema) are not checked again.
+    """
+    if "env" not in data or "env" in skip:
+        return []
     from kinetome.envs import make_rig
 
     try:
-        rig = make_rig(skill.env)
+        rig = make_rig(data["env"])
     except KeyError as exc:
         return [doc.problem(("env",), str(exc.args[0]), "use one of the envs listed")]
-    from .controllers import build_controller, context_from_rig
-
-    parameter_shapes: dict[str, tuple[int, ...]] = {}
-    try:
-        controller = build_controller(
-            skill.controller.kind,
-            context_from_rig(rig),
-            parameters=skill.controller.parameter_arrays(),
-            bounds=skill.controller.bound_arrays(),
-            options=dict(skill.controller.options),
-            exploration_std=skill.controller.exploration_std,
-        )
-        parameter_shapes = {k: tuple(v.shape) for k, v in controller.parameter_values().items()}
-    except (ValueError, KeyError, TypeError) as exc:
-        for p in getattr(exc, "problems", None) or [Problem("", None, "controller", str(exc))]:
-            if isinstance(p, Problem):
-                path = tuple(_path_from_message(p.field + " "))
-                problems.append(doc.problem(path, p.message, p.fix))
-            else:
-                problems.append(doc.problem(("controller",), str(p)))
-        controller = None
-    if controller is not None:
-        for name in controller.inputs:
-            if name not in rig.layout:
-                problems.append(doc.problem(("controller", "options"), f"controller reads '{name}', which env {skill.env} does not have", f"known names: {', '.join(rig.layout.names)}"))
+    problems: list[Problem] = []
+    parameter_shapes: dict[str, tuple[int, ...]] | None = None
+    if "controller" in data and "controller" not in skip:
+        parameter_shapes = _parameter_shapes(data["controller"], rig, doc, problems)
     state_shapes = rig.layout.shapes()
-    clashes = sorted(set(state_shapes) & set(parameter_shapes))
-    for name in clashes:
-        problems.append(doc.problem(("controller", "parameters", name), f"parameter '{name}' has the name of a state quantity", "predicates would be ambiguous; the state quantity wins"))
+    for name in sorted(set(state_shapes) & set(parameter_shapes or {})):
+        problems.append(doc.problem(("controller", "parameters", name), f"parameter '{name}' has the name of a state quantity", "predicates would be ambiguous; rename the parameter"))
+    if parameter_shapes is None:
+        return problems  # without the parameters a predicate's names cannot be judged
     names = {**parameter_shapes, **state_shapes}
     from .predicates import PredicateError, parse_predicate
 
     for label in ("starts_when", "stops_when"):
-        try:
-            parse_predicate(getattr(skill, label), names, what=label)
-        except PredicateError as exc:
-            problems.append(doc.problem((label,), str(exc), "predicates may use named state and the controller's parameters"))
+        if label in data and label not in skip:
+            try:
+                parse_predicate(data[label], names, what=label)
+            except PredicateError as exc:
+                problems.append(doc.problem((label,), str(exc), "predicates may use named state and the controller's parameters"))
     return problems
 
 
@@ -184,12 +211,12 @@ def validate_document(doc: YamlDocument) -> Skill:
     """Schema, value-object and semantic checks; raises InvalidSpecError with every problem."""
     if not isinstance(doc.data, dict):
         raise InvalidSpecError([doc.problem((), "a skill spec must be a YAML mapping of fields", "start with 'name: ...'")])
-    problems = _schema_problems(doc)
+    schema = _schema_problems(doc)
+    skip = {p.field.split(".")[0].split("[")[0] for p in schema if p.field}
+    problems = schema + check_semantics(doc.data, doc, skip=skip)
     if problems:
-        raise InvalidSpecError(problems)
+        raise InvalidSpecError(sorted(problems, key=lambda p: (p.line or 0)))
     skill, problems = _skill_from_data(doc)
-    if skill is not None:
-        problems += check_semantics(skill, doc)
     if problems:
         raise InvalidSpecError(problems)
     return skill

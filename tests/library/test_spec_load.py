@@ -77,3 +77,11 @@ def test_every_problem_is_reported_at_once() -> None:
 @pytest.mark.parametrize("text, expected", [("[1, 2]\n", "a skill spec must be a YAML mapping"), ("name: [\n", "not valid YAML")])
 def test_not_a_mapping_or_not_yaml(text: str, expected: str) -> None:
     assert expected in _problems(text)[0]
+
+
+def test_schema_and_semantic_problems_come_together() -> None:
+    text = GOOD.replace("stops_when:", "stop_when:").replace("kp: [30, 20, 6]", "kp: [30, 20]").replace("norm(qvel) < 0.5", "norm(qvl) < 0.5")
+    lines = _problems(text)
+    assert any("controller.parameters.kp: must have shape (3,)" in l for l in lines)
+    assert any("unknown field 'stop_when'" in l for l in lines)
+    assert any("starts_when" in l and "unknown name 'qvl'" in l for l in lines)
