@@ -26,7 +26,7 @@ over outside its stop region; the simulation counts how often.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import numpy as np
 
@@ -156,13 +156,17 @@ def prove_handoff(
     bounds: Mapping,
     timeout_ms: int,
     max_models: int,
+    judge: Callable[[dict[str, np.ndarray]], bool] | None = None,
 ) -> StaticOutcome:
     """Ask z3 whether ``premises`` imply ``conclusion`` within ``bounds``.
 
-    On failure, collect up to ``max_models`` models spread over the top-level
-    clauses of the conclusion: per clause, states violating it by a margin if
-    there are any (else at the boundary), each later one at least 5% of a
-    range away from the previous ones (blocking clauses).
+    On failure, look for up to ``max_models`` models spread over the top-level
+    clauses of the conclusion: per clause, a state violating it by a margin if
+    there is one (else at the boundary), then more states at least 5% of a range
+    away from the earlier ones (blocking clauses). ``judge(model)`` says whether
+    a model is worth more of its kind (a confirmed counterexample); when it says
+    no, the search moves on to the next clause, which keeps the number of solver
+    calls small for relaxed (unconfirmable) handoffs.
     """
     declare = {n: s for n, s in layout.shapes().items() if n in ("qpos", "qvel")}
     kw = dict(declare=declare, constants=constants, bounds=bounds, timeout_ms=timeout_ms)
@@ -172,14 +176,14 @@ def prove_handoff(
         return StaticOutcome("proved", calls=calls)
     if first.status == "unknown":
         return StaticOutcome("unknown", reason=first.reason, calls=calls)
-    clauses = conclusion.clauses()
-    quota = -(-max(1, max_models) // len(clauses))
     models: list[dict] = []
-    for clause in clauses:
+    for clause in conclusion.clauses():
+        if len(models) >= max_models:
+            break
         names = sorted(n for n in clause.names if n in layout)
         wide = _with_margin(clause)
         blocks: list = []
-        for _ in range(quota):
+        while len(models) < max_models:
             res = None
             for target in ([wide] if wide is not None else []) + [clause]:
                 res = _query([*premises, *blocks], target, **kw)
@@ -189,17 +193,17 @@ def prove_handoff(
             if res is None or res.status != "counterexample":
                 break
             models.append(res.model)
+            if judge is not None and not judge(res.model):
+                break
             block = _blocking(res.model, names, layout, bounds)
             if block is None:
                 break
             blocks.append(block)
     if not models:
         models = [first.model]
+        if judge is not None:
+            judge(first.model)
     return StaticOutcome("counterexample", tuple(models[: max(1, max_models)]), calls=calls)
-
-
-def _same(a: Mapping[str, np.ndarray], b: Mapping[str, np.ndarray]) -> bool:
-    return all(np.array_equal(np.asarray(a[k]), np.asarray(b.get(k))) for k in a)
 
 
 def _reads_ctrl(rig: Any, names: set[str]) -> bool:
@@ -280,41 +284,47 @@ def _as_batch(model: Mapping[str, np.ndarray], layout: Any) -> dict[str, np.ndar
     return {n: np.asarray(v, dtype=np.float64)[None] for n, v in model.items() if n in layout}
 
 
-def _classify(ctx: Any, models: tuple, *, a: Any, b: Any, envelope: Envelope, accept_start: Any = None) -> tuple[list[Counterexample], list[Counterexample]]:
-    """Split solver models into confirmed counterexamples (realised, see module doc) and candidates."""
-    layout = ctx.layout
-    names = tuple(layout.names)
-    used = components_read(b.starts_when, *([a.stops_when] if a is not None else []))
-    confirmed, candidates = [], []
-    for i, model in enumerate(models):
-        found = None
-        if not _reads_ctrl(ctx.rig, set(used)):
-            for label, realised in _realisations(ctx, model, used):
-                inside = bool(envelope.contains(realised)[0])
-                alive = not bool(np.asarray(ctx.rig.terminated(realised))[0])
-                in_a = True if a is None else bool(a.stops_when.evaluate({**realised, **a.parameters})[0])
-                in_start = True if accept_start is None else bool(accept_start(realised))
-                refused = not bool(b.starts_when.evaluate({**realised, **b.parameters})[0])
-                if inside and alive and in_a and in_start and refused:
-                    found = (label, realised)
-                    break
-        if found is not None:
-            confirmed.append(
-                counterexample_from(
-                    b.starts_when, found[1], 0, parameters=b.parameters, names=names, source="z3", confirmed=True,
-                    note=f"solver model {i + 1}, realised in MuJoCo ({found[0]})",
-                )
+class _Judge:
+    """Turns solver models into counterexamples: confirmed (realised, see module doc) or candidates."""
+
+    def __init__(self, ctx: Any, *, a: Any, b: Any, envelope: Envelope, accept_start: Any = None):
+        self.ctx, self.a, self.b, self.envelope, self.accept_start = ctx, a, b, envelope, accept_start
+        self.used = components_read(b.starts_when, *([a.stops_when] if a is not None else []))
+        self.names = tuple(ctx.layout.names)
+        self.confirmed: list[Counterexample] = []
+        self.candidates: list[Counterexample] = []
+
+    def _holds(self, realised: dict[str, np.ndarray]) -> bool:
+        a, b, ctx = self.a, self.b, self.ctx
+        inside = bool(self.envelope.contains(realised)[0])
+        alive = not bool(np.asarray(ctx.rig.terminated(realised))[0])
+        in_a = True if a is None else bool(a.stops_when.evaluate({**realised, **a.parameters})[0])
+        in_start = True if self.accept_start is None else bool(self.accept_start(realised))
+        refused = not bool(b.starts_when.evaluate({**realised, **b.parameters})[0])
+        return inside and alive and in_a and in_start and refused
+
+    def __call__(self, model: dict[str, np.ndarray]) -> bool:
+        i = len(self.confirmed) + len(self.candidates) + 1
+        ctx, b = self.ctx, self.b
+        if not _reads_ctrl(ctx.rig, set(self.used)):
+            for label, realised in _realisations(ctx, model, self.used):
+                if self._holds(realised):
+                    self.confirmed.append(
+                        counterexample_from(
+                            b.starts_when, realised, 0, parameters=b.parameters, names=self.names, source="z3",
+                            confirmed=True, note=f"solver model {i}, realised in MuJoCo ({label})",
+                        )
+                    )
+                    return True
+        # The solver's (relaxed) values; names a clause query left out come from the nominal pose.
+        state = {**_nominal_state(ctx), **_as_batch(model, ctx.layout)}
+        self.candidates.append(
+            counterexample_from(
+                b.starts_when, state, 0, parameters=b.parameters, names=tuple(n for n in self.names if n in state),
+                source="z3", confirmed=False, note=f"solver model {i} (relaxed; not realised)",
             )
-        else:
-            # The solver's (relaxed) values; names a clause query left out come from the nominal pose.
-            state = {**_nominal_state(ctx), **_as_batch(model, layout)}
-            candidates.append(
-                counterexample_from(
-                    b.starts_when, state, 0, parameters=b.parameters, names=tuple(n for n in names if n in state),
-                    source="z3", confirmed=False, note=f"solver model {i + 1} (relaxed; not realised)",
-                )
-            )
-    return confirmed, candidates
+        )
+        return False
 
 
 def _timeout_note(a: Any) -> str:
@@ -331,6 +341,7 @@ def _static_handoff(ctx: Any, j: Junction) -> Evidence:
     envelope = physical_envelope(ctx.rig, a.skill.limits)
     stop_a, const_a = bind_parameters(a.stops_when, a.parameters, state, "_a_")
     start_b, const_b = bind_parameters(b.starts_when, b.parameters, state, "_b_")
+    judge = _Judge(ctx, a=a, b=b, envelope=envelope)
     outcome = prove_handoff(
         [stop_a, *envelope.premises],
         start_b,
@@ -339,6 +350,7 @@ def _static_handoff(ctx: Any, j: Junction) -> Evidence:
         bounds=envelope.bounds,
         timeout_ms=ctx.options.timeout_ms,
         max_models=max(1, ctx.options.max_counterexamples),
+        judge=judge,
     )
     used = set(a.stops_when.names) | set(b.starts_when.names)
     for p in envelope.premises:
@@ -356,7 +368,7 @@ def _static_handoff(ctx: Any, j: Junction) -> Evidence:
         return Evidence("static", Verdict.COMPOSES, f"proved: {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}", details=details)
     if outcome.status == "unknown":
         return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms", details=details)
-    confirmed, candidates = _classify(ctx, outcome.models, a=a, b=b, envelope=envelope)
+    confirmed, candidates = judge.confirmed, judge.candidates
     if confirmed:
         return Evidence(
             "static",
@@ -454,17 +466,6 @@ def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
     if any(np.any(lo > hi) for lo, hi in bounds.values()):
         return Evidence("static", Verdict.UNSURE, "the start box lies outside the physical envelope; sampling decides")
     start_b, const_b = bind_parameters(b.starts_when, b.parameters, set(layout.names), "_b_")
-    outcome = prove_handoff(
-        list(envelope.premises), start_b, layout=layout, constants=const_b, bounds=bounds,
-        timeout_ms=ctx.options.timeout_ms, max_models=max(1, ctx.options.max_counterexamples),
-    )
-    relaxed = relaxed_names(ctx.rig, set(b.starts_when.names) & set(layout.names))
-    details = {"relaxed": relaxed, "start_box": {k: [lo.tolist(), hi.tolist()] for k, (lo, hi) in box.items()}, "solver_calls": outcome.calls}
-    relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
-    if outcome.status == "proved":
-        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the start box satisfies {b.ref} starts_when{relax_text}", details=details)
-    if outcome.status == "unknown":
-        return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'})", details=details)
     in_box = Envelope(box, (), ())
 
     def accept_start(values: Mapping[str, np.ndarray]) -> bool:
@@ -474,7 +475,19 @@ def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
                 ok &= bool(c.accept(np.asarray(values[c.quantity], dtype=np.float64), ctx.rig.model)[0])
         return ok
 
-    confirmed, candidates = _classify(ctx, outcome.models, a=None, b=b, envelope=envelope, accept_start=accept_start)
+    judge = _Judge(ctx, a=None, b=b, envelope=envelope, accept_start=accept_start)
+    outcome = prove_handoff(
+        list(envelope.premises), start_b, layout=layout, constants=const_b, bounds=bounds,
+        timeout_ms=ctx.options.timeout_ms, max_models=max(1, ctx.options.max_counterexamples), judge=judge,
+    )
+    relaxed = relaxed_names(ctx.rig, set(b.starts_when.names) & set(layout.names))
+    details = {"relaxed": relaxed, "start_box": {k: [lo.tolist(), hi.tolist()] for k, (lo, hi) in box.items()}, "solver_calls": outcome.calls}
+    relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
+    if outcome.status == "proved":
+        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the start box satisfies {b.ref} starts_when{relax_text}", details=details)
+    if outcome.status == "unknown":
+        return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'})", details=details)
+    confirmed, candidates = judge.confirmed, judge.candidates
     # A start distribution is a probability: a refused start state is listed, sampling gives the verdict.
     what = "start states inside the start box" if confirmed else "candidate start states"
     return Evidence(
@@ -487,12 +500,27 @@ def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
     )
 
 
+def _question(a: Any, b: Any) -> tuple:
+    """What a handoff's static check depends on: a chain that repeats a pair asks it once."""
+    def params(s: Any) -> tuple:
+        return tuple((k, np.asarray(v).tobytes()) for k, v in sorted(s.parameters.items()))
+
+    limits = getattr(a.skill, "limits", None)
+    return (a.ref, str(a.stops_when), params(a), repr(limits), b.ref, str(b.starts_when), params(b))
+
+
 @checker_method("static", cost=10, summary="z3: A's stop region and the physical envelope imply B's starts_when")
 def static_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
     """z3: A's stop region and the physical envelope imply B's starts_when."""
     out: dict[int, Evidence] = {}
     for j in junctions:
-        ev = _static_entry(ctx, j) if j.is_entry else _static_handoff(ctx, j)
+        if j.is_entry:
+            ev = _static_entry(ctx, j)
+        else:
+            key = ("static",) + _question(ctx.source_skill(j), ctx.target_skill(j))
+            if key not in ctx.cache:
+                ctx.cache[key] = _static_handoff(ctx, j)
+            ev = ctx.cache[key]
         if ev is not None:
             out[j.index] = ev
     return out
