@@ -1,0 +1,89 @@
+"""run, fit, check and retrain as a user calls them: outputs, JSON and exit codes."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from scipy.stats import binomtest
+
+from kinetome.library.cli.main import main
+
+ROOT = Path(__file__).resolve().parents[3]
+CONFIGS = ROOT / "configs"
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory) -> str:
+    root = str(tmp_path_factory.mktemp("jobs") / "store")
+    assert main(["--store", root, "add", *map(str, sorted((CONFIGS / "skills").glob("*.yaml")))]) == 0
+    return root
+
+
+def _json(capsys, *args: str) -> tuple[int, dict]:
+    code = main(list(args))
+    return code, json.loads(capsys.readouterr().out)
+
+
+def test_run_reports_exact_interval(store, capsys) -> None:
+    code, s = _json(capsys, "--store", store, "run", "arm-lift", "--episodes", "40", "--json")
+    assert code == 0 and s["episodes"] == 40
+    k = s["success"]["count"]
+    ref = binomtest(k, 40).proportion_ci(confidence_level=0.95, method="exact")  # scipy reference
+    assert s["success"]["interval"] == pytest.approx([ref.low, ref.high], abs=1e-9)
+    assert s["end_reasons"]["arm-lift@1"].get("stopped") == k
+
+
+def test_run_flags_declared_limits(store, capsys) -> None:
+    code, s = _json(capsys, "--store", store, "run", "walker-walk", "--episodes", "8", "--json")
+    assert code == 0
+    torque = next(r for r in s["limits"] if r["limit"] == "torque")
+    assert torque["declared"] == 12.0 and torque["worst"] <= 12.0 + 1e-9  # actions are clipped to ctrlrange
+
+
+def test_fit_attaches_models_shown_by_show(store, capsys) -> None:
+    code, r = _json(capsys, "--store", store, "fit", "arm-lift", "--episodes", "60", "--json")
+    assert code == 0 and r["model_ref"] == "arm-lift@1/option-models#1"
+    code, view = _json(capsys, "--store", store, "show", "arm-lift", "--json")
+    assert [m["ref"] for m in view["models"]] == ["arm-lift@1/option-models#1"]
+
+
+@pytest.mark.parametrize("chain, expected", [("arm-lift-reach-place", 0), ("arm-place-release", 1)])
+def test_check_exit_codes(store, capsys, chain, expected) -> None:
+    code = main(["--store", store, "check", str(CONFIGS / "chains" / f"{chain}.yaml"), "--episodes", "60"])
+    out = capsys.readouterr().out
+    assert code == expected
+    assert "ISO 12100" in " ".join(out.split())  # the caution, wrapped
+
+
+def test_check_bad_input_exit_2(store, tmp_path, capsys) -> None:
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("chain: x\nenv: kinetome/BenchArm-v0\nsteps: [arm-lift, arm-teleport]\n")
+    assert main(["--store", store, "check", str(bad)]) == 2
+    assert "arm-teleport" in capsys.readouterr().err
+
+
+def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
+    code, r = _json(
+        capsys, "--store", store, "retrain", "arm-reach-tray",
+        "--variant", str(CONFIGS / "variants" / "heavy_payload.yaml"),
+        "--start", str(CONFIGS / "starts" / "arm_clearance.yaml"),
+        "--config", str(CONFIGS / "training" / "demo_quick.yaml"),
+        "--steps", "8192", "--out", str(tmp_path / "rt"), "--json",
+    )
+    assert code == 0 and r["child"] == "arm-reach-tray@2" and r["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]
+    assert Path(r["curve_csv"]).read_text().splitlines()[0].startswith("update")
+    assert Path(r["curve_png"]).read_bytes()[:4] == b"\x89PNG"
+    code, view = _json(capsys, "--store", store, "show", "arm-reach-tray@2", "--json")
+    meta = view["meta"]
+    assert view["reason"] == "retrained" and view["parent"] == "arm-reach-tray@1"
+    assert meta["variant"]["name"] == "heavy_payload" and meta["seed"] == 0 and meta["steps"] == 8192
+    assert {"metrics_before", "metrics_after", "config"} <= set(meta)
+    assert view["models"], "the child's option models are refitted on the variant"
+
+
+def test_retrain_requires_variant(store, capsys) -> None:
+    with pytest.raises(SystemExit) as info:
+        main(["--store", store, "retrain", "arm-reach-tray"])
+    assert info.value.code == 2
