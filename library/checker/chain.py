@@ -49,7 +49,7 @@ _REF_RE = re.compile(r"(?P<name>[a-z0-9][a-z0-9_-]{0,63})(@(?P<number>[1-9][0-9]
 _FIXES = {
     "chain": "name the chain with lowercase letters, digits, '-' or '_', e.g. arm-pick-to-tray",
     "env": "name a registered env, e.g. kinetome/BenchArm-v0",
-    "steps": "list skills in order, e.g. [arm-lift@1, arm-reach-tray, arm-settle]",
+    "steps": "list skills in order, e.g. [arm-lift@1, arm-reach-tray, arm-place]",
     "require": "give the required handoff probability, e.g. 0.95",
     "confidence": "give the confidence level of the intervals, e.g. 0.95",
     "episodes": "give a whole number of simulated episodes, e.g. 200",
@@ -199,9 +199,8 @@ def _check_files(doc: YamlDocument, base: Path, data: Mapping[str, Any]) -> tupl
         else:
             variant = _relative(base, raw)
             if not variant.is_file():
-                problems.append(
-                    doc.problem(("variant",), f"variant file {raw!r} not found (looked at {variant})", _close_files(variant, "variants"))
-                )
+                where = "" if Path(raw).is_absolute() else f" (looked at {variant})"
+                problems.append(doc.problem(("variant",), f"variant file {raw!r} not found{where}", _close_files(variant, "variants")))
             else:
                 from kinetome.envs.variants import load_variant
 
@@ -226,9 +225,8 @@ def _check_files(doc: YamlDocument, base: Path, data: Mapping[str, Any]) -> tupl
             path = _relative(base, raw)
             start = path
             if not path.is_file():
-                problems.append(
-                    doc.problem(("start",), f"start distribution {raw!r} cannot be read: file not found (looked at {path})", _close_files(path, "starts"))
-                )
+                where = "" if Path(raw).is_absolute() else f" (looked at {path})"
+                problems.append(doc.problem(("start",), f"start distribution {raw!r} cannot be read: file not found{where}", _close_files(path, "starts")))
             else:
                 try:
                     load_start(path)

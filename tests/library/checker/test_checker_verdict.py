@@ -64,3 +64,18 @@ def test_exit_codes(verdicts, code):
 def test_estimate_rejects_bad_require():
     with pytest.raises(ValueError, match=r"require must be in \(0, 1\), got 1.5"):
         estimate(1, 2, require=1.5, confidence=0.95)
+
+
+def test_method_table_order_and_errors():
+    from kinetome.library.checker import CheckOptions, checker_method, get_method, method_names
+    from kinetome.library.errors import InvalidInputError
+
+    assert method_names() == ["static", "model", "sim"]  # cheapest first
+    with pytest.raises(ValueError, match="checker method 'static' is already registered"):
+        checker_method("static", cost=1)(lambda ctx, js: {})
+    with pytest.raises(InvalidInputError, match="method must be one of auto, static, model, sim, got 'simm'; did you mean 'sim'"):
+        get_method("simm")
+    with pytest.raises(InvalidInputError, match="method: must be one of auto, static, model, sim, got 'z3'"):
+        CheckOptions(method="z3")
+    with pytest.raises(InvalidInputError, match="workers: must be a whole number >= 1, got 0"):
+        CheckOptions(workers=0)
