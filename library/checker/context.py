@@ -79,7 +79,6 @@ class CheckContext:
     cache: dict[str, Any] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     chain_stats: Any = None  # filled by the simulation method
-    model_prediction: Any = None  # filled by the model method
 
     @property
     def episodes(self) -> int:
