@@ -23,6 +23,7 @@ __all__ = [
     "Skill",
     "skill_to_document",
     "skill_from_document",
+    "controller_from_document",
     "canonical_json",
 ]
 
@@ -149,16 +150,20 @@ def skill_to_document(skill: Skill) -> dict[str, Any]:
     return doc
 
 
-def skill_from_document(doc: Mapping[str, Any]) -> Skill:
-    """Inverse of skill_to_document (for documents already validated)."""
-    c = doc["controller"]
-    controller = ControllerSpec(
+def controller_from_document(c: Mapping[str, Any]) -> ControllerSpec:
+    """A ControllerSpec from the ``controller`` mapping of a spec document."""
+    return ControllerSpec(
         kind=c["kind"],
         parameters=c.get("parameters", {}),
         bounds={k: (v["low"], v["high"]) for k, v in c.get("bounds", {}).items()},
         options=c.get("options", {}),
         exploration_std=c.get("exploration_std", 0.1),
     )
+
+
+def skill_from_document(doc: Mapping[str, Any]) -> Skill:
+    """Inverse of skill_to_document; raises TypeError/ValueError on bad values."""
+    controller = controller_from_document(doc["controller"])
     limits = Limits(**doc["limits"]) if doc.get("limits") else None
     return Skill(
         name=doc["name"],

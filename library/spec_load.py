@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InvalidInputError, InvalidSpecError, Problem
-from .spec import ControllerSpec, Limits, Skill
+from .spec import Skill, controller_from_document, skill_from_document
 from .yaml_source import YamlDocument, load_yaml_file, load_yaml_text
 
 __all__ = ["load_spec", "parse_spec_text", "spec_schema", "validate_document", "check_semantics"]
@@ -89,31 +89,10 @@ def _schema_problems(doc: YamlDocument) -> list[Problem]:
 
 
 def _skill_from_data(doc: YamlDocument) -> tuple[Skill | None, list[Problem]]:
-    data = doc.data
-    c = data["controller"]
     try:
-        controller = ControllerSpec(
-            kind=c["kind"],
-            parameters=c.get("parameters", {}),
-            bounds={k: (v["low"], v["high"]) for k, v in c.get("bounds", {}).items()},
-            options=c.get("options", {}),
-            exploration_std=c.get("exploration_std", 0.1),
-        )
-        limits = Limits(**data["limits"]) if data.get("limits") else None
-        skill = Skill(
-            name=data["name"],
-            env=data["env"],
-            controller=controller,
-            starts_when=data["starts_when"],
-            stops_when=data["stops_when"],
-            max_steps=int(data["max_steps"]),
-            description=data.get("description", ""),
-            limits=limits,
-            tags=tuple(data.get("tags", ())),
-        )
+        return skill_from_document(doc.data), []
     except (TypeError, ValueError) as exc:
         return None, [doc.problem(("controller",), str(exc))]
-    return skill, []
 
 
 def _path_from_message(message: str) -> tuple[str | int, ...]:
@@ -144,13 +123,7 @@ def _parameter_shapes(controller_data: Any, rig: Any, doc: YamlDocument, problem
 
     context = context_from_rig(rig)
     try:
-        spec = ControllerSpec(
-            kind=controller_data["kind"],
-            parameters=controller_data.get("parameters", {}),
-            bounds={k: (v["low"], v["high"]) for k, v in controller_data.get("bounds", {}).items()},
-            options=controller_data.get("options", {}),
-            exploration_std=controller_data.get("exploration_std", 0.1),
-        )
+        spec = controller_from_document(controller_data)
         controller = build_controller(
             spec.kind,
             context,

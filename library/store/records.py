@@ -54,8 +54,34 @@ def _lookup(owner: str, files: tuple[FileEntry, ...], role: str) -> FileEntry:
     raise NotFoundError(f"{owner} has no file with role {role!r}; its files are: {roles}")
 
 
+class _StoredFiles:
+    """What versions and model revisions share: files by role and JSON meta."""
+
+    files: tuple[FileEntry, ...]
+    meta_json: str
+    ref: str
+
+    @property
+    def meta(self) -> dict[str, Any]:
+        """A fresh dict each call, so a record can never be changed through it."""
+        return json.loads(self.meta_json)
+
+    @property
+    def roles(self) -> tuple[str, ...]:
+        return tuple(e.role for e in self.files)
+
+    @property
+    def digests(self) -> dict[str, str]:
+        """role -> sha256 digest."""
+        return {e.role: e.digest for e in self.files}
+
+    def file(self, role: str) -> FileEntry:
+        """The entry of ``role``; NotFoundError lists the roles the record has."""
+        return _lookup(self.ref, self.files, role)
+
+
 @dataclass(frozen=True)
-class VersionRecord:
+class VersionRecord(_StoredFiles):
     """One immutable version ``name@N``: files, lineage and metadata.
 
     ``meta_json`` is the canonical JSON text; ``meta`` returns a fresh dict each
@@ -81,26 +107,10 @@ class VersionRecord:
     def ref(self) -> str:
         return format_ref(self.name, self.number)
 
-    @property
-    def meta(self) -> dict[str, Any]:
-        return json.loads(self.meta_json)
-
-    @property
-    def roles(self) -> tuple[str, ...]:
-        return tuple(e.role for e in self.files)
-
-    @property
-    def digests(self) -> dict[str, str]:
-        """role -> sha256 digest."""
-        return {e.role: e.digest for e in self.files}
-
-    def file(self, role: str) -> FileEntry:
-        """The entry of ``role``; NotFoundError lists the roles this version has."""
-        return _lookup(self.ref, self.files, role)
 
 
 @dataclass(frozen=True)
-class ModelRecord:
+class ModelRecord(_StoredFiles):
     """One revision of an option model attached to a version, written ``name@N/kind#R``."""
 
     version: str
@@ -119,20 +129,6 @@ class ModelRecord:
     def ref(self) -> str:
         return f"{self.version}/{self.kind}#{self.revision}"
 
-    @property
-    def meta(self) -> dict[str, Any]:
-        return json.loads(self.meta_json)
-
-    @property
-    def roles(self) -> tuple[str, ...]:
-        return tuple(e.role for e in self.files)
-
-    @property
-    def digests(self) -> dict[str, str]:
-        return {e.role: e.digest for e in self.files}
-
-    def file(self, role: str) -> FileEntry:
-        return _lookup(self.ref, self.files, role)
 
 
 @dataclass(frozen=True)
