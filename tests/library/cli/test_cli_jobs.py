@@ -87,3 +87,19 @@ def test_retrain_requires_variant(store, capsys) -> None:
     with pytest.raises(SystemExit) as info:
         main(["--store", store, "retrain", "arm-reach-tray"])
     assert info.value.code == 2
+
+
+@pytest.mark.parametrize(
+    "text, expected",
+    [
+        ("name: x\npayload_mas: 1.0\n", ":2: payload_mas: unknown field; did you mean 'payload_mass'? valid fields: name,"),
+        ("name: x\npayload_mass: -1\n", ":2: payload_mass: must be > 0 kg, got -1"),
+        ("name: x\ntimestep: 0\n", ":2: timestep:"),
+    ],
+)
+def test_bad_variant_exit_2_with_reason(store, tmp_path, capsys, text, expected) -> None:
+    bad = tmp_path / "variant.yaml"
+    bad.write_text(text)
+    assert main(["--store", store, "run", "arm-lift", "--variant", str(bad), "--episodes", "4"]) == 2
+    err = capsys.readouterr().err
+    assert expected in err and "Traceback" not in err
