@@ -102,7 +102,7 @@ class HandoffResult:
             ev = self.evidence_of(m)
             if ev is not None and ev.points is not None:
                 return ev.points, ev.accepted, m
-        cex = self.counterexamples
+        cex = tuple(c for c in self.counterexamples if c.confirmed) or self.counterexamples
         if cex:
             names = sorted(set.intersection(*[set(c.state) for c in cex]))
             pts = {n: np.asarray([c.state[n] for c in cex], dtype=np.float64) for n in names}

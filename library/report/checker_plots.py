@@ -185,14 +185,16 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
     px = _flat(points, x[0])[:, x[1]]
     py = _flat(points, y[0])[:, y[1]] if y != x else np.zeros_like(px)
     ok = np.ones(px.shape[0], dtype=bool) if accepted is None else np.asarray(accepted, dtype=bool)
-    ax.scatter(px[ok], py[ok], s=12, c="#2f6f9e", alpha=0.7, label=f"accepted ({int(ok.sum())})")
+    if np.any(ok):
+        ax.scatter(px[ok], py[ok], s=12, c="#2f6f9e", alpha=0.7, label=f"accepted ({int(ok.sum())})")
     if np.any(~ok):
-        ax.scatter(px[~ok], py[~ok], s=22, c="#a42323", marker="x", label=f"refused ({int((~ok).sum())})")
-    for c in handoff.counterexamples:
-        if c.source == "z3" and x[0] in c.state and y[0] in c.state:
+        what = "solver states B refuses" if source == "z3" else "refused"
+        ax.scatter(px[~ok], py[~ok], s=22, c="#a42323", marker="x", label=f"{what} ({int((~ok).sum())})")
+    for c in handoff.counterexamples if source != "z3" else ():
+        if c.source == "z3" and c.confirmed and x[0] in c.state and y[0] in c.state:
             cx = np.asarray(c.state[x[0]], dtype=np.float64).reshape(-1)[x[1]]
             cy = np.asarray(c.state[y[0]], dtype=np.float64).reshape(-1)[y[1]]
-            ax.scatter([cx], [cy], s=40, c="black", marker="D", label=None)
+            ax.scatter([cx], [cy], s=40, c="black", marker="D", label=None)  # solver state, realised in MuJoCo
     ax.set_xlabel(xl)
     ax.set_ylabel(yl if y != x else "(one component)")
     what = "start states" if handoff.junction.is_entry else f"end states of {handoff.junction.source}"
