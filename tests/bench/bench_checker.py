@@ -116,7 +116,7 @@ def main(argv: list[str] | None = None) -> int:
 
     print(f"chain: {args.handoffs} handoffs ({proved} proved statically), {args.episodes} episodes, "
           f"{env_steps:,.0f} env steps, {stats.success.k} completed; preparing the chain (skills, rig) took "
-          f"{prepare_s:.2f} s", file=sys.stderr)
+          f"{prepare_s:.2f} s", file=sys.stderr, flush=True)
     print("| measurement | kinetome | reference | ratio | target |")
     print("| --- | --- | --- | --- | --- |")
     print(f"| static check vs simulation check, {args.handoffs} handoffs | {static_s:.3f} s | {sim_s:.2f} s "
