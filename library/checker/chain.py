@@ -337,7 +337,7 @@ def _step_problems(c: Chain, store: Any) -> list[Problem]:
         try:
             store.get(step)
         except KinetomeError as exc:
-            fix = "register it with `kinetome register <spec.yaml>`" if "@" not in step else "use an existing version"
+            fix = "register it with `kinetome add <spec.yaml>`" if "@" not in step else "use an existing version"
             out.append(c.problem(where, str(exc), fix))
     return out
 
