@@ -103,3 +103,15 @@ def test_bad_variant_exit_2_with_reason(store, tmp_path, capsys, text, expected)
     assert main(["--store", store, "run", "arm-lift", "--variant", str(bad), "--episodes", "4"]) == 2
     err = capsys.readouterr().err
     assert expected in err and "Traceback" not in err
+
+
+def test_train_options_stores_children_and_reports_durations(store, tmp_path, capsys) -> None:
+    text = (CONFIGS / "training" / "options_small.yaml").read_text().replace("steps: 32768", "steps: 4096")
+    config = tmp_path / "options_tiny.yaml"
+    config.write_text(text)
+    code, r = _json(capsys, "--store", store, "train", str(config), "--out", str(tmp_path / "train"), "--json")
+    assert code == 0 and r["steps"] == 4096
+    assert r["mean_skill_duration"] >= 1.0 and 0.0 <= r["termination_rate"] <= 1.0
+    for child in r["children"]:
+        code, view = _json(capsys, "--store", store, "show", child, "--json")
+        assert view["reason"] == "retrained" and view["parent"].split("@")[0] == child.split("@")[0]
