@@ -32,6 +32,8 @@ figure { margin: .6rem 0; } figcaption { font-size: .85rem; color: #4a5866; }
 
 
 def _escape(value: Any) -> str:
+    if isinstance(value, float):
+        return html.escape(f"{value:.4g}")
     return html.escape("-" if value is None else str(value))
 
 
