@@ -37,6 +37,13 @@ def spec_schema() -> dict[str, Any]:
     return json.loads(text)
 
 
+@lru_cache(maxsize=1)
+def _validator() -> Any:
+    import jsonschema
+
+    return jsonschema.Draft202012Validator(spec_schema())
+
+
 def _schema_at(schema: dict[str, Any], path: list[Any]) -> dict[str, Any]:
     """Follow ``properties`` along a data path (enough for our flat schema)."""
     node = schema
@@ -52,10 +59,8 @@ def _schema_at(schema: dict[str, Any], path: list[Any]) -> dict[str, Any]:
 
 
 def _schema_problems(doc: YamlDocument) -> list[Problem]:
-    import jsonschema
-
     schema = spec_schema()
-    validator = jsonschema.Draft202012Validator(schema)
+    validator = _validator()
     problems: list[Problem] = []
     for error in sorted(validator.iter_errors(doc.data), key=lambda e: (doc.line(tuple(e.absolute_path)) or 0, str(e.message))):
         path = tuple(error.absolute_path)
@@ -153,10 +158,10 @@ def check_semantics(data: dict[str, Any], doc: YamlDocument, *, skip: set[str] =
     """
     if "env" not in data or "env" in skip:
         return []
-    from kinetome.envs import make_rig
+    from .tasks import default_rig
 
     try:
-        rig = make_rig(data["env"])
+        rig = default_rig(data["env"])
     except KeyError as exc:
         return [doc.problem(("env",), str(exc.args[0]), "use one of the envs listed")]
     problems: list[Problem] = []

@@ -6,12 +6,13 @@ becomes an ``InvalidInputError`` so the CLI exits 2 with one line per problem.
 
 from __future__ import annotations
 
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
 from .errors import InvalidInputError, Problem
 
-__all__ = ["load_variant_file", "load_start_file", "task_rig"]
+__all__ = ["load_variant_file", "load_start_file", "task_rig", "default_rig"]
 
 
 def _env_errors(fn, *args, **kwargs):
@@ -50,3 +51,16 @@ def task_rig(env_id: str, variant: Any = None) -> Any:
         return _env_errors(make_rig, env_id, variant=variant)
     except KeyError as exc:
         raise InvalidInputError([Problem("<env>", None, "env", str(exc.args[0]))]) from None
+
+
+@lru_cache(maxsize=32)
+def default_rig(env_id: str) -> Any:
+    """The nominal rig of ``env_id``, built once per process.
+
+    Validation and skill loading only read a rig's layout, limits and model
+    (simulations copy the model), so one shared instance per env is safe and
+    saves compiling the MJCF again for every spec.
+    """
+    from kinetome.envs import make_rig
+
+    return make_rig(env_id)

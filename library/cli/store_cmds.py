@@ -122,7 +122,7 @@ def _list(args: argparse.Namespace) -> int:
 def _version_view(store: Any, ref: str) -> dict[str, Any]:
     import json
 
-    from ..runtime.skill import PARAMS_FILE, SPEC_FILE
+    from ..runtime.files import PARAMS_FILE, SPEC_FILE
 
     v = store.get(ref)
     spec = json.loads(store.read_file(v, SPEC_FILE).decode("utf-8"))

@@ -10,7 +10,8 @@ through ``RigEnv`` and must give identical records.
 
 from __future__ import annotations
 
-from typing import Any, Callable, Sequence
+import contextlib
+from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 
@@ -27,6 +28,20 @@ __all__ = ["run_chain", "run_skill", "reference_run_chain", "Progress"]
 # progress(done, total): done/total in env steps of the longest possible run
 Progress = Callable[[int, int], None]
 
+
+
+@contextlib.contextmanager
+def _torch_threads(n: int) -> Iterator[None]:
+    """Controllers on ``n`` torch threads during a rollout: MuJoCo's pool owns the cores,
+    and torch's own workers stall behind it (measured in tests/bench/bench_runtime.py)."""
+    import torch
+
+    old = torch.get_num_threads()
+    torch.set_num_threads(n)
+    try:
+        yield
+    finally:
+        torch.set_num_threads(old)
 
 
 def _needs(skill: LoadedSkill) -> tuple[str, ...]:
@@ -119,8 +134,10 @@ def _run_segment(
         seg.reason[running[stopped]] = int(EndReason.STOPPED)
         seg.reason[running[timed_out]] = int(EndReason.TIMED_OUT)
         keep = ~(terminated | stopped | timed_out)
-        running = running[keep]
-        state = take_states(after, keep)
+        if not keep.all():
+            running = running[keep]
+            after = take_states(after, keep)
+        state = after
         if progress is not None:
             progress(t + 1, skill.max_steps)
 
@@ -174,12 +191,13 @@ def run_chain(
     tracer = _Tracer(sim, trace) if trace > 0 else None
     offered = np.arange(n)
     records: list[SegmentRecord] = []
-    for index, skill in enumerate(skills):
-        seg = _Segment(n)
-        start = sim.state()
-        _run_segment(skill, sim, offered, seg, gamma=gamma, noise=noise, tracer=tracer, index=index, progress=progress)
-        records.append(seg.record(skill.ref, start, sim.state(), gamma))
-        offered = np.flatnonzero((seg.reason == int(EndReason.STOPPED)) | (seg.reason == int(EndReason.TIMED_OUT)))
+    with _torch_threads(1):
+        for index, skill in enumerate(skills):
+            seg = _Segment(n)
+            start = sim.state()
+            _run_segment(skill, sim, offered, seg, gamma=gamma, noise=noise, tracer=tracer, index=index, progress=progress)
+            records.append(seg.record(skill.ref, start, sim.state(), gamma))
+            offered = np.flatnonzero((seg.reason == int(EndReason.STOPPED)) | (seg.reason == int(EndReason.TIMED_OUT)))
     qpos_trace, seg_trace = tracer.arrays(rig.model.nq) if tracer is not None else (None, None)
     return ChainRollout(
         env_id=rig.env_id,

@@ -9,11 +9,10 @@ from typing import Any
 import numpy as np
 
 from ..spec import Skill, skill_from_document
+from .files import PARAMS_FILE, SPEC_FILE
 
 __all__ = ["LoadedSkill", "skill_from_spec", "load_skill", "SPEC_FILE", "PARAMS_FILE"]
 
-SPEC_FILE = "spec.json"
-PARAMS_FILE = "params.safetensors"
 
 
 @dataclass(frozen=True, eq=False)
@@ -43,12 +42,11 @@ def skill_from_spec(skill: Skill, *, ref: str | None = None, rig: Any = None, pa
     ``parameter_values`` (e.g. read from a stored version's safetensors) replace
     the spec's initial values; ``rig`` defaults to the spec's own env.
     """
-    from kinetome.envs import make_rig
-
     from ..controllers import build_controller, context_from_rig
     from ..predicates import parse_predicate
+    from ..tasks import default_rig
 
-    rig = rig if rig is not None else make_rig(skill.env)
+    rig = rig if rig is not None else default_rig(skill.env)
     c = skill.controller
     controller = build_controller(
         c.kind,

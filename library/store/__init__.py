@@ -3,13 +3,6 @@
 Standard library and platformdirs only, so ``kinetome list/show/history`` stay light.
 """
 
-from kinetome.library.store.bundle import (
-    MAX_MEMBER_BYTES,
-    MAX_MEMBERS,
-    MAX_TOTAL_BYTES,
-    export_bundle,
-    import_bundle,
-)
 from kinetome.library.store.location import STORE_ENV_VAR, resolve_store_root
 from kinetome.library.store.names import format_ref, parse_ref, validate_name
 from kinetome.library.store.records import (
@@ -49,3 +42,15 @@ __all__ = [
     "MAX_MEMBERS",
     "SCHEMA_VERSION",
 ]
+
+
+# Bundles need tarfile (slow to import); list/show/history never touch them.
+_BUNDLE_NAMES = {"export_bundle", "import_bundle", "MAX_MEMBER_BYTES", "MAX_TOTAL_BYTES", "MAX_MEMBERS"}
+
+
+def __getattr__(name: str):
+    if name in _BUNDLE_NAMES:
+        from kinetome.library.store import bundle
+
+        return getattr(bundle, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -159,28 +159,25 @@ class Store:
         (a newer version whose meta omits them keeps showing an older version's).
         """
         rows = self._conn.execute(
-            "SELECT v.name, v.number, c.n, v.created_at FROM versions v"
+            "SELECT v.name, v.number, c.n, v.created_at,"
+            " (SELECT json_extract(d.meta, '$.description') FROM versions d WHERE d.name = v.name"
+            "   AND json_type(d.meta, '$.description') = 'text' ORDER BY d.number DESC LIMIT 1),"
+            " (SELECT json_extract(e.meta, '$.env') FROM versions e WHERE e.name = v.name"
+            "   AND json_type(e.meta, '$.env') = 'text' ORDER BY e.number DESC LIMIT 1)"
+            " FROM versions v"
             " JOIN (SELECT name, MAX(number) AS top, COUNT(*) AS n FROM versions GROUP BY name) c"
             " ON c.name = v.name AND c.top = v.number ORDER BY v.name"
         ).fetchall()
-        found: dict[str, dict[str, str]] = {row[0]: {} for row in rows}
-        for name, meta_json in self._conn.execute("SELECT name, meta FROM versions ORDER BY name, number DESC"):
-            have = found[name]
-            if len(have) < 2:
-                meta = json.loads(meta_json)
-                for key in ("description", "env"):
-                    if key not in have and isinstance(meta.get(key), str):
-                        have[key] = meta[key]
         return [
             SkillSummary(
                 name=name,
                 latest=int(number),
                 count=int(count),
                 latest_created_at=created_at,
-                description=found[name].get("description"),
-                env=found[name].get("env"),
+                description=description,
+                env=env,
             )
-            for name, number, count, created_at in rows
+            for name, number, count, created_at, description, env in rows
         ]
 
     def history(self, name: str) -> list[VersionRecord]:
