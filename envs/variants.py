@@ -93,7 +93,7 @@ def read_yaml_with_lines(path: str | Path) -> tuple[Any, list[str]]:
     except OSError as exc:
         return None, [f"{path}:1: file: cannot be read ({exc.strerror or exc}); check the path"]
     try:
-        data = yaml.load(text, Loader=_LineLoader)  # SafeLoader subclass: no arbitrary objects
+        data = yaml.load(text, Loader=_LineLoader)  # safe: a SafeLoader subclass, no arbitrary objects
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
         line = mark.line + 1 if mark is not None else 1
