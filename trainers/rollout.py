@@ -417,7 +417,7 @@ class Collector:
     def carry_tensors(self) -> dict[str, np.ndarray]:
         """Everything needed to continue the current episodes bit for bit."""
         return {
-            "carry.sim_state": np.array(self.sim._batch.state, copy=True),
+            "carry.sim_state": self.sim.integration_state(),
             "carry.skill": self.skill.copy(),
             "carry.skill_steps": self.skill_steps.copy(),
             "carry.episode_steps": self.episode_steps.copy(),
@@ -426,14 +426,10 @@ class Collector:
         }
 
     def load_carry(self, tensors: dict[str, np.ndarray]) -> None:
-        state = tensors["carry.sim_state"]
-        if state.shape != self.sim._batch.state.shape:
-            raise TrainingError(
-                f"checkpoint simulation state must be {self.sim._batch.state.shape}, got {state.shape}; "
-                "resume with the n_envs and rig the run started with"
-            )
-        self.sim._batch.state[...] = state
-        self.sim._batch.forward()
+        try:
+            self.sim.restore_integration_state(tensors["carry.sim_state"])
+        except ValueError as exc:
+            raise TrainingError(f"checkpoint {exc}; resume with the n_envs and rig the run started with") from None
         self.skill = tensors["carry.skill"].astype(np.int64).copy()
         self.skill_steps = tensors["carry.skill_steps"].astype(np.int64).copy()
         self.episode_steps = tensors["carry.episode_steps"].astype(np.int64).copy()

@@ -82,6 +82,18 @@ class SimBatch:
         self._batch.step(ids, nstep=self._frame_skip, stage=_ACC)
         return action
 
+    def integration_state(self) -> np.ndarray:
+        """A copy of every simulation's full integration state (nsim, nstate), for checkpoints."""
+        return np.array(self._batch.state, copy=True)
+
+    def restore_integration_state(self, state: np.ndarray) -> None:
+        """Put back states saved by ``integration_state`` and recompute derived fields."""
+        state = np.asarray(state, dtype=np.float64)
+        if state.shape != self._batch.state.shape:
+            raise ValueError(f"simulation state must have shape {self._batch.state.shape}, got {state.shape}")
+        self._batch.state[...] = state
+        self._batch.forward()
+
     def jacobian(self, site: int, ids: np.ndarray) -> np.ndarray:
         """Translational Jacobian (len(ids), 3, nv) of a site at its current position."""
         body = int(self.rig.model.site_bodyid[site])
