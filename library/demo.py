@@ -58,6 +58,14 @@ def configs_dir() -> Path:
     return here
 
 
+def _chain_inputs(path: Path, store: Any) -> tuple[Any, Any, list[Any]]:
+    """(rig, start distribution, loaded skills) of a chain file, resolved as the checker does."""
+    from .checker import CheckOptions, load_chain, prepare_context
+
+    ctx = prepare_context(load_chain(path, store=store), store=store, options=CheckOptions())
+    return ctx.rig, ctx.start, list(ctx.skills)
+
+
 def _register(store: Any, configs: Path, log: _Log) -> list[dict[str, Any]]:
     from .api import register_skill
 
@@ -75,19 +83,14 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
 
     from kinetome.trainers.fitting import fit_option_models
 
-    from .api import MODEL_KIND, load
+    from .api import MODEL_KIND
     from .model_headlines import headlines
     from .runtime.execute import run_chain
     from .runtime.starts import sample_starts
-    from .tasks import load_start_file, task_rig
-    from .yaml_source import load_yaml_file
 
     fitted: dict[str, dict[str, Any]] = {}
     for path in sorted((configs / "chains").glob("*.yaml")):
-        doc = load_yaml_file(path).data
-        rig = task_rig(doc["env"])
-        start = load_start_file((path.parent / doc["start"]).resolve()) if isinstance(doc.get("start"), str) else None
-        skills = [load(ref, store=store, rig=rig) for ref in doc["steps"]]
+        rig, start, skills = _chain_inputs(path, store)
         starts = sample_starts(rig, start, settings.fit_episodes, seed=settings.seed)
         rollout = run_chain(skills, rig, starts=starts, seed=settings.seed, workers=settings.workers)
         for k, skill in enumerate(skills):
@@ -154,11 +157,8 @@ def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, lo
     """One rendered episode per chain, frames side by side."""
     import numpy as np
 
-    from .api import load
     from .runtime.execute import run_chain
     from .runtime.starts import sample_starts
-    from .tasks import load_start_file, task_rig
-    from .yaml_source import load_yaml_file
 
     try:
         from kinetome.envs.render import filmstrip_png, render_frames
@@ -167,10 +167,7 @@ def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, lo
         return {}
     strips: dict[str, Path] = {}
     for path in sorted((configs / "chains").glob("*.yaml")):
-        doc = load_yaml_file(path).data
-        rig = task_rig(doc["env"])
-        start = load_start_file((path.parent / doc["start"]).resolve()) if isinstance(doc.get("start"), str) else None
-        skills = [load(ref, store=store, rig=rig) for ref in doc["steps"]]
+        rig, start, skills = _chain_inputs(path, store)
         rollout = run_chain(skills, rig, starts=sample_starts(rig, start, 1, seed=settings.seed), seed=settings.seed, trace=1)
         qpos = rollout.qpos_trace[0]
         qpos = qpos[~np.isnan(qpos).all(axis=1)]
