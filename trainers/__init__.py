@@ -1,5 +1,13 @@
 """kinetome.trainers: option-model fitting and the option actor-critic trainer."""
 
+import os as _os
+
+# MKL (torch's BLAS here) may pick code paths by memory alignment, so the same
+# product can differ in the last bit between runs; strict conditional numerical
+# reproducibility keeps training and resumed training bit for bit. It must be set
+# before torch loads MKL.
+_os.environ.setdefault("MKL_CBWR", "AUTO,STRICT")
+
 __all__: list[str] = []
 
 # --- option actor-critic trainer ---------------------------------------------

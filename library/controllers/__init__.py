@@ -1,5 +1,13 @@
 """Controller kinds: torch modules with named, bounded parameters and a Gaussian exploration head."""
 
+import os as _os
+
+# MKL (torch's BLAS here) may pick code paths by memory alignment, so the same
+# product can differ in the last bit between runs; strict conditional numerical
+# reproducibility keeps training and resumed training bit for bit. It must be set
+# before torch loads MKL.
+_os.environ.setdefault("MKL_CBWR", "AUTO,STRICT")
+
 from .base import LOG_STD_HIGH, LOG_STD_LOW, Controller, log_std_decl
 from .build import build_controller
 from .check import check_controller
