@@ -10,15 +10,16 @@ actor-critic used for retraining and for gymnasium sanity checks.
 
 from __future__ import annotations
 
-import contextlib
 import json
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterator, Sequence, TextIO
+from typing import Any, Callable, Sequence, TextIO
 
 import numpy as np
 import torch
+
+from kinetome.library.controllers.kernels import torch_threads
 
 from kinetome.library.errors import TrainingError
 
@@ -66,17 +67,6 @@ class TrainOutcome:
     ret_norm: ReturnNormaliser
     last_stats: dict[str, float] = field(default_factory=dict)
     resumed_from: int | None = None
-
-
-@contextlib.contextmanager
-def torch_threads(n: int) -> Iterator[None]:
-    """Run torch on ``n`` intra-op threads, restoring the previous count after."""
-    old = torch.get_num_threads()
-    torch.set_num_threads(n)
-    try:
-        yield
-    finally:
-        torch.set_num_threads(old)
 
 
 class OptionCriticTrainer:

@@ -12,10 +12,25 @@ from typing import Iterator
 
 import torch
 
-__all__ = ["matvec", "blas_products", "jacobian_transpose", "flatten_inputs"]
+__all__ = ["matvec", "blas_products", "torch_threads", "jacobian_transpose", "flatten_inputs"]
 
 # Rows per chunk keep the (rows, m, k) product under ~4M elements (32 MB).
 _CHUNK_ELEMENTS = 1 << 22
+
+
+@contextlib.contextmanager
+def torch_threads(n: int) -> Iterator[None]:
+    """Run torch on ``n`` intra-op threads, restoring the previous count after.
+
+    Rollouts and training use one: MuJoCo's pool owns the cores, and torch's own
+    workers stall behind it (measured in tests/bench/bench_runtime.py).
+    """
+    old = torch.get_num_threads()
+    torch.set_num_threads(n)
+    try:
+        yield
+    finally:
+        torch.set_num_threads(old)
 
 
 _blas = False  # set inside blas_products(): training needs speed, not batch invariance

@@ -10,8 +10,7 @@ through ``RigEnv`` and must give identical records.
 
 from __future__ import annotations
 
-import contextlib
-from typing import Any, Callable, Iterator, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
@@ -28,20 +27,6 @@ __all__ = ["run_chain", "run_skill", "reference_run_chain", "Progress"]
 # progress(done, total): done/total in env steps of the longest possible run
 Progress = Callable[[int, int], None]
 
-
-
-@contextlib.contextmanager
-def _torch_threads(n: int) -> Iterator[None]:
-    """Controllers on ``n`` torch threads during a rollout: MuJoCo's pool owns the cores,
-    and torch's own workers stall behind it (measured in tests/bench/bench_runtime.py)."""
-    import torch
-
-    old = torch.get_num_threads()
-    torch.set_num_threads(n)
-    try:
-        yield
-    finally:
-        torch.set_num_threads(old)
 
 
 def _needs(skill: LoadedSkill) -> tuple[str, ...]:
@@ -191,7 +176,9 @@ def run_chain(
     tracer = _Tracer(sim, trace) if trace > 0 else None
     offered = np.arange(n)
     records: list[SegmentRecord] = []
-    with _torch_threads(1):
+    from ..controllers.kernels import torch_threads
+
+    with torch_threads(1):
         for index, skill in enumerate(skills):
             seg = _Segment(n)
             start = sim.state()
