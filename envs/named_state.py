@@ -12,7 +12,7 @@ from typing import Iterator, Mapping
 
 import numpy as np
 
-__all__ = ["Quantity", "StateLayout", "StateValues", "stack_states", "take_states"]
+__all__ = ["Quantity", "StateLayout", "StateValues", "take_states"]
 
 # Batched values: name -> array of shape (batch, *quantity.shape).
 StateValues = Mapping[str, np.ndarray]
@@ -92,13 +92,6 @@ class StateLayout:
             {"name": q.name, "shape": list(q.shape), "unit": q.unit, "meaning": q.meaning}
             for q in self.quantities
         ]
-
-
-def stack_states(parts: list[StateValues]) -> dict[str, np.ndarray]:
-    """Concatenate several batched state dicts along the batch axis."""
-    if not parts:
-        return {}
-    return {name: np.concatenate([p[name] for p in parts], axis=0) for name in parts[0]}
 
 
 def take_states(values: StateValues, index: np.ndarray) -> dict[str, np.ndarray]:

@@ -84,6 +84,7 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
     from kinetome.trainers.fitting import fit_option_models
 
     from .api import MODEL_KIND
+    from .errors import InvalidInputError
     from .model_headlines import headlines
     from .runtime.execute import run_chain
     from .runtime.starts import sample_starts
@@ -100,7 +101,7 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
             ran = int(np.sum(seg.steps > 0))
             try:
                 models = fit_option_models(rollout, k, seed=settings.seed, envelope=rig.layout, skill_ref=skill.ref)
-            except Exception as exc:  # too few episodes reached this skill: say so, do not stop the demo
+            except InvalidInputError as exc:  # too few episodes reached this skill: say so, do not stop the demo
                 fitted[skill.ref] = {"skipped": f"{ran} episodes reached it in {path.name}: {str(exc).splitlines()[0]}"}
                 continue
             summary = models.summary()

@@ -1,6 +1,6 @@
 """The safety caution printed wherever a result could reach a real machine."""
 
-__all__ = ["CAUTION", "CAUTION_SHORT"]
+__all__ = ["CAUTION"]
 
 CAUTION = (
     "Caution: simulation results do not make a controller safe for hardware. Before any use "
@@ -8,5 +8,3 @@ CAUTION = (
     "that apply (e.g. ISO 12100, ISO 10218-1/-2, ISO/TS 15066, ISO 13849-1, IEC 62061), "
     "local codes and licensed practice."
 )
-
-CAUTION_SHORT = "Simulation is not a safety case: see the caution in README (risk assessment, ISO 12100, ISO 10218, ISO 13849-1, IEC 62061)."

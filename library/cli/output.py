@@ -6,7 +6,7 @@ import json
 import sys
 from typing import Any, Iterable, Sequence, TextIO
 
-__all__ = ["format_table", "print_table", "print_json", "print_error", "human_number"]
+__all__ = ["format_table", "print_table", "print_json", "print_error"]
 
 
 def _cell(value: Any) -> str:
@@ -48,10 +48,3 @@ def _json_default(value: Any) -> Any:
 def print_error(line: str) -> None:
     print(f"kinetome: {line}", file=sys.stderr)
 
-
-def human_number(value: float) -> str:
-    """1234567 -> '1.23M', 12345 -> '12.3k'."""
-    for unit, size in (("M", 1e6), ("k", 1e3)):
-        if abs(value) >= size:
-            return f"{value / size:.3g}{unit}"
-    return f"{value:.3g}"
