@@ -8,17 +8,15 @@ the resolved variant (name and digest) in ``rig.variant``.
 
 from __future__ import annotations
 
-from . import render as _render  # noqa: F401  (sets MUJOCO_GL before mujoco is imported)
+from pathlib import Path
+from typing import Any, Callable, Mapping
 
-from pathlib import Path  # noqa: E402
-from typing import Any, Callable, Mapping  # noqa: E402
+import gymnasium
 
-import gymnasium  # noqa: E402
-
-from . import bench_arm, test_walker  # noqa: E402
-from .rig import Rig  # noqa: E402
-from .rig_env import RigEnv  # noqa: E402
-from .variants import TaskVariant  # noqa: E402
+from . import bench_arm, test_walker
+from .rig import Rig
+from .rig_env import RigEnv
+from .variants import TaskVariant
 
 __all__ = ["OWN_ENVS", "make_env", "register_envs"]
 

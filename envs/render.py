@@ -1,49 +1,90 @@
-"""Offscreen rendering of rig poses: frames for a qpos sequence and PNG filmstrips.
+"""Frames of rig poses and PNG filmstrips, with or without OpenGL.
 
-Works without a display: if ``MUJOCO_GL`` is unset this module sets it to
-``osmesa`` (software OpenGL) before mujoco is imported. MuJoCo picks its GL
-backend when it is first imported; if that happened earlier with MUJOCO_GL
-unset (so it chose GLFW, which needs a display) and there is no display, this
-module switches mujoco's Renderer to the OSMesa context on import.
+``open_renderer`` draws with MuJoCo's OpenGL renderer when a backend works on
+this machine (EGL, then OSMesa; see ``render_backend``) and otherwise with the
+matplotlib sketch of MuJoCo's own geoms (``render_sketch``). Nothing here loads
+a GL library or changes the environment at import; only opening a renderer does.
 """
 
 from __future__ import annotations
 
 import io
-import os
-import platform
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterator, Protocol, Sequence
 
-if platform.system() == "Linux":
-    os.environ.setdefault("MUJOCO_GL", "osmesa")
+import mujoco
+import numpy as np
 
-from pathlib import Path  # noqa: E402
-from typing import Any, Sequence  # noqa: E402
+from .render_backend import RENDERER_LABELS, SKETCH, choose_backend, gl_context_for
+from .render_sketch import SketchRenderer
 
-import mujoco  # noqa: E402
-import numpy as np  # noqa: E402
-
-__all__ = ["render_frames", "filmstrip_png"]
-
-
-def _offscreen_fallback() -> None:
-    """Use OSMesa when mujoco already chose GLFW (MUJOCO_GL unset at its import) but no display exists."""
-    if platform.system() != "Linux" or os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"):
-        return
-    try:
-        from mujoco.rendering.classic import gl_context
-    except ImportError:
-        return
-    chosen = getattr(gl_context, "_MUJOCO_GL", "osmesa")
-    if chosen not in ("", "glfw", "enable", "enabled", "on", "true", "1"):
-        return  # the user picked a backend on purpose (osmesa, egl, ...): keep it
-    try:
-        from mujoco.osmesa import GLContext as OSMesaContext
-    except ImportError:
-        return  # PyOpenGL already bound to another platform: leave mujoco's choice alone
-    gl_context.GLContext = OSMesaContext
+__all__ = ["FrameRenderer", "RenderedFrames", "open_renderer", "render_frames", "filmstrip_png", "RENDERER_LABELS"]
 
 
-_offscreen_fallback()
+class FrameRenderer(Protocol):
+    """Draws RGB frames of one model from one camera; ``name`` says how (a key of RENDERER_LABELS)."""
+
+    name: str
+
+    def draw(self, data: mujoco.MjData) -> np.ndarray: ...
+
+    def close(self) -> None: ...
+
+
+class _GLRenderer:
+    """MuJoCo's OpenGL renderer through one backend."""
+
+    def __init__(self, model: mujoco.MjModel, *, width: int, height: int, camera: str | int, backend: str):
+        with gl_context_for(backend):
+            self._renderer = mujoco.Renderer(model, height=height, width=width)
+        self.name = backend
+        self._camera = camera
+
+    def draw(self, data: mujoco.MjData) -> np.ndarray:
+        self._renderer.update_scene(data, camera=self._camera)
+        return self._renderer.render().copy()
+
+    def close(self) -> None:
+        self._renderer.close()
+
+
+def open_renderer(
+    model: mujoco.MjModel, *, width: int, height: int, camera: str | int = -1, backend: str | None = None
+) -> FrameRenderer:
+    """A renderer for ``model``: ``backend`` ('egl', 'osmesa', 'glfw' or 'matplotlib'), else the best one here.
+
+    When the chosen OpenGL backend cannot be opened in this process, warns and
+    falls back to the matplotlib sketch.
+    """
+    backend = backend or choose_backend()
+    if backend not in RENDERER_LABELS:
+        raise ValueError(f"renderer must be one of {', '.join(RENDERER_LABELS)}, got {backend!r}")
+    if backend != SKETCH:
+        try:
+            return _GLRenderer(model, width=width, height=height, camera=camera, backend=backend)
+        except Exception as exc:  # GL libraries fail in many ways (ImportError, RuntimeError, OSError, ...)
+            first_line = (str(exc).splitlines() or [type(exc).__name__])[0]
+            warnings.warn(f"OpenGL backend {backend} failed ({first_line}); drawing matplotlib sketches instead", stacklevel=2)
+    return SketchRenderer(model, width=width, height=height, camera=camera)
+
+
+@dataclass(frozen=True)
+class RenderedFrames:
+    """Frames (each (height, width, 3) uint8) and the renderer that drew them (a key of RENDERER_LABELS)."""
+
+    images: tuple[np.ndarray, ...]
+    renderer: str
+
+    def __len__(self) -> int:
+        return len(self.images)
+
+    def __iter__(self) -> Iterator[np.ndarray]:
+        return iter(self.images)
+
+    def __getitem__(self, i: int) -> np.ndarray:
+        return self.images[i]
 
 
 def render_frames(
@@ -53,11 +94,13 @@ def render_frames(
     width: int = 320,
     height: int = 240,
     camera: str | int | None = None,
-) -> list[np.ndarray]:
+    renderer: str | None = None,
+) -> RenderedFrames:
     """RGB frames (height, width, 3) uint8, one per qpos row, from ``camera``
-    (default: the rig's ``metadata['camera']``, else the free camera).
+    (default: the rig's ``metadata['camera']``, else the free camera), drawn by
+    ``renderer`` (default: the best one here, see ``open_renderer``).
 
-    Each frame: set qpos (qvel zero), ``mj_forward``, render. Rows that are all
+    Each frame: set qpos (qvel zero), ``mj_forward``, draw. Rows that are all
     NaN (padding in traced rollouts) are skipped.
     """
     model = rig.model
@@ -78,7 +121,7 @@ def render_frames(
         raise ValueError(f"qpos rows must have nq={model.nq} entries, got {qpos_seq.shape[1]}")
     data = mujoco.MjData(model)
     frames = []
-    renderer = mujoco.Renderer(model, height=height, width=width)
+    drawer = open_renderer(model, width=width, height=height, camera=cam, backend=renderer)
     try:
         for qpos in qpos_seq:
             if np.all(np.isnan(qpos)):
@@ -86,11 +129,10 @@ def render_frames(
             data.qpos[:] = qpos
             data.qvel[:] = 0.0
             mujoco.mj_forward(model, data)
-            renderer.update_scene(data, camera=cam)
-            frames.append(renderer.render().copy())
+            frames.append(drawer.draw(data))
     finally:
-        renderer.close()
-    return frames
+        drawer.close()
+    return RenderedFrames(tuple(frames), drawer.name)
 
 
 def filmstrip_png(frames: Sequence[np.ndarray], path: str | Path | None = None, *, gap: int = 4) -> bytes:

@@ -95,9 +95,11 @@ class RigEnv(gym.Env):
         if self.render_mode != "rgb_array":
             return None
         if self._renderer is None:
-            self._renderer = mujoco.Renderer(self.model, height=self._height, width=self._width)
-        self._renderer.update_scene(self.data, camera=self.rig.metadata.get("camera", -1))
-        return self._renderer.render().copy()
+            from .render import open_renderer
+
+            camera = self.rig.metadata.get("camera", -1)
+            self._renderer = open_renderer(self.model, width=self._width, height=self._height, camera=camera)
+        return self._renderer.draw(self.data)
 
     def close(self):
         if self._renderer is not None:

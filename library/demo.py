@@ -154,34 +154,28 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
     return result
 
 
-def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Path]:
-    """One rendered episode per chain, frames side by side."""
+def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, dict[str, Any]]:
+    """One rendered episode per chain, frames side by side: {chain: {"path", "renderer"}}."""
     import numpy as np
+
+    from kinetome.envs.render import filmstrip_png, render_frames
 
     from .runtime.execute import run_chain
     from .runtime.starts import sample_starts
 
-    try:
-        from kinetome.envs.render import filmstrip_png, render_frames
-    except Exception as exc:  # no OpenGL back-end at all
-        log.step(f"filmstrips skipped: rendering is unavailable ({exc})")
-        return {}
-    strips: dict[str, Path] = {}
+    strips: dict[str, dict[str, Any]] = {}
     for path in sorted((configs / "chains").glob("*.yaml")):
         rig, start, skills = _chain_inputs(path, store)
         rollout = run_chain(skills, rig, starts=sample_starts(rig, start, 1, seed=settings.seed), seed=settings.seed, trace=1)
         qpos = rollout.qpos_trace[0]
         qpos = qpos[~np.isnan(qpos).all(axis=1)]
         picks = sorted({int(round(i)) for i in np.linspace(0, len(qpos) - 1, 6)})
-        try:
-            frames = render_frames(rig, qpos[picks], width=240, height=180)
-        except Exception as exc:
-            log.step(f"filmstrips skipped: rendering failed ({str(exc).splitlines()[0]}); install libosmesa6")
-            return {}
+        frames = render_frames(rig, qpos[picks], width=240, height=180)
         target = out / f"filmstrip-{path.stem}.png"
         filmstrip_png(frames, target)
-        strips[path.stem] = target
-    log.step(f"rendered {len(strips)} filmstrips")
+        strips[path.stem] = {"path": target, "renderer": frames.renderer}
+    drawn_by = sorted({s["renderer"] for s in strips.values()})
+    log.step(f"rendered {len(strips)} filmstrips ({', '.join(drawn_by) or 'none'})")
     return strips
 
 
@@ -210,7 +204,7 @@ def run_demo(out_dir: str | Path, *, store_dir: str | Path | None = None, quick:
         "models": fitted,
         "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],
         "retrain": retrained,
-        "filmstrips": {k: str(v) for k, v in strips.items()},
+        "filmstrips": {k: {"path": str(v["path"]), "renderer": v["renderer"]} for k, v in strips.items()},
     }
     (out / "demo.json").write_text(json.dumps(summary, indent=2, sort_keys=True, default=str), encoding="utf-8")
     report = write_demo_report(out, store=store, summary=summary, checks=checks, strips=strips)

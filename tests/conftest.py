@@ -1,4 +1,5 @@
-"""Test-wide settings: headless MuJoCo rendering through OSMesa."""
+"""Test-wide settings. No rendering backend is forced: the code picks one (EGL, OSMesa,
+else the matplotlib sketch) the way it does for users."""
 
 import os
 
@@ -9,6 +10,3 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 # Bit-for-bit reproducible MKL products whatever the memory alignment (as the
 # package sets before torch loads; tests may import torch first).
 os.environ.setdefault("MKL_CBWR", "AUTO,STRICT")
-
-os.environ.setdefault("MUJOCO_GL", "osmesa")
-os.environ.setdefault("PYOPENGL_PLATFORM", "osmesa")

@@ -48,7 +48,7 @@ def test_report_is_self_contained_with_every_section(demo: Path) -> None:
     assert "verdict-breaks" in html and "verdict-composes" in html
 
 
-@pytest.mark.skipif(chromium_path() is None, reason="Chromium is not installed (apt-get install chromium chromium-driver); CI installs it")
+@pytest.mark.skipif(chromium_path() is None, reason="Chromium is not installed (optional: apt-get install chromium chromium-driver)")
 def test_report_renders_in_headless_chromium(demo: Path) -> None:
     dom, shot = render_page(demo / "report.html", width=1280, height=4000)
     for anchor in SECTIONS:

@@ -80,15 +80,16 @@ def _retrain_section(report: Report, retrain: dict[str, Any]) -> None:
         s.add(image_html(png, "learning curve on the heavy-payload variant"))
 
 
-def _filmstrip_section(report: Report, strips: dict[str, Path]) -> None:
+def _filmstrip_section(report: Report, strips: dict[str, dict[str, Any]]) -> None:
+    from kinetome.envs.render_backend import RENDERER_LABELS
+
     s = report.section("filmstrips", "Filmstrips")
-    if not strips:
-        s.text("Rendering was unavailable on this machine (MuJoCo needs OSMesa: apt-get install libosmesa6).")
-    for name, png in strips.items():
-        s.add(image_html(png, f"{name}: one episode rendered from MuJoCo, left to right"))
+    for name, strip in strips.items():
+        drawn_by = RENDERER_LABELS.get(strip["renderer"], strip["renderer"])
+        s.add(image_html(Path(strip["path"]), f"{name}: one episode, left to right; drawn by {drawn_by}"))
 
 
-def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks: list[dict[str, Any]], strips: dict[str, Path]) -> Path:
+def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks: list[dict[str, Any]], strips: dict[str, dict[str, Any]]) -> Path:
     """Write ``out/report.html``: self-contained, every section from this run."""
     report = Report(
         title="kinetome demo: a workshop's bench arm and test walker",

@@ -14,16 +14,13 @@ of MuJoCo.
 from __future__ import annotations
 
 import argparse
-import os
 import time
 
-os.environ.setdefault("MUJOCO_GL", "osmesa")
+import gymnasium as gym
+import mujoco
+import numpy as np
 
-import gymnasium as gym  # noqa: E402
-import mujoco  # noqa: E402
-import numpy as np  # noqa: E402
-
-import kinetome.envs  # noqa: E402,F401
+import kinetome.envs  # noqa: F401
 
 ENVS = ("kinetome/BenchArm-v0", "kinetome/TestWalker-v0", "kinetome/TestWalkerStand-v0")
 

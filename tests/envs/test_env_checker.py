@@ -2,21 +2,17 @@
 
 from __future__ import annotations
 
-import os
+import warnings
+from pathlib import Path
 
-os.environ.setdefault("MUJOCO_GL", "osmesa")  # before mujoco is imported: no display here
+import gymnasium as gym
+import numpy as np
+import pytest
+from gymnasium.utils.env_checker import check_env
 
-import warnings  # noqa: E402
-from pathlib import Path  # noqa: E402
-
-import gymnasium as gym  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from gymnasium.utils.env_checker import check_env  # noqa: E402
-
-import kinetome.envs  # noqa: E402,F401  (registers the envs)
-from kinetome.envs.errors import EnvConfigError  # noqa: E402
-from kinetome.envs.variants import load_variant  # noqa: E402
+import kinetome.envs  # noqa: F401  (registers the envs)
+from kinetome.envs.errors import EnvConfigError
+from kinetome.envs.variants import load_variant
 
 ROOT = Path(__file__).resolve().parents[2]
 VARIANTS = ROOT / "configs" / "variants"

@@ -2,20 +2,16 @@
 
 from __future__ import annotations
 
-import os
+import io
 
-os.environ.setdefault("MUJOCO_GL", "osmesa")  # before mujoco is imported: no display here
+import numpy as np
+import pytest
+from PIL import Image
 
-import io  # noqa: E402
-
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from PIL import Image  # noqa: E402
-
-from kinetome.envs.bench_arm import build_bench_arm  # noqa: E402
-from kinetome.envs.render import filmstrip_png, render_frames  # noqa: E402
-from kinetome.envs.rig_env import RigEnv  # noqa: E402
-from kinetome.envs.test_walker import build_test_walker  # noqa: E402
+from kinetome.envs.bench_arm import build_bench_arm
+from kinetome.envs.render import RENDERER_LABELS, filmstrip_png, render_frames
+from kinetome.envs.rig_env import RigEnv
+from kinetome.envs.test_walker import build_test_walker
 
 
 @pytest.fixture(scope="module")
@@ -27,10 +23,12 @@ def _not_blank(frame):
     return frame.std() > 1.0 and len(np.unique(frame.reshape(-1, 3), axis=0)) > 10
 
 
-def test_frames_have_the_requested_size_and_are_not_blank(arm):
+@pytest.mark.parametrize("renderer", [None, "matplotlib"])
+def test_frames_have_the_requested_size_and_are_not_blank(arm, renderer):
     qpos = arm.model.key_qpos[:2]
-    frames = render_frames(arm, qpos, width=160, height=120)
-    assert len(frames) == 2
+    frames = render_frames(arm, qpos, width=160, height=120, renderer=renderer)
+    assert len(frames) == 2 and frames.renderer in RENDERER_LABELS
+    assert renderer is None or frames.renderer == renderer
     for f in frames:
         assert f.shape == (120, 160, 3) and f.dtype == np.uint8
         assert _not_blank(f)
@@ -38,11 +36,12 @@ def test_frames_have_the_requested_size_and_are_not_blank(arm):
     assert np.abs(frames[0].astype(int) - frames[1].astype(int)).sum() > 0
 
 
-def test_walker_tracking_camera_and_nan_padding_is_skipped():
+@pytest.mark.parametrize("renderer", [None, "matplotlib"])
+def test_walker_tracking_camera_and_nan_padding_is_skipped(renderer):
     walker = build_test_walker()
     q = np.tile(walker.model.key_qpos[0], (3, 1))
     q[2] = np.nan
-    frames = render_frames(walker, q, width=96, height=64)
+    frames = render_frames(walker, q, width=96, height=64, renderer=renderer)
     assert len(frames) == 2 and all(_not_blank(f) for f in frames)
 
 
@@ -71,6 +70,7 @@ def test_rig_env_renders_rgb_array(arm):
         ({"width": 4000, "height": 100}, r"exceeds the model's offscreen buffer 1280 x 960"),
         ({"width": 0, "height": 10}, r"width and height must be >= 1"),
         ({"camera": "overhead"}, r"camera 'overhead' is not in the model; cameras: bench_view"),
+        ({"renderer": "vulkan"}, r"renderer must be one of egl, osmesa, glfw, matplotlib, got 'vulkan'"),
     ],
 )
 def test_render_errors(arm, kwargs, pattern):
