@@ -140,15 +140,15 @@ def load_models(ref: str, *, store: Any) -> Any:
 # Trainer settings for `kinetome retrain` without --config: sized for the
 # structured controllers (PD, CPG, linear) the demo skills use.
 RETRAIN_DEFAULTS: dict[str, Any] = {
-    "steps": 49152,
-    "n_envs": 32,
-    "rollout_len": 64,
-    "epochs": 8,
-    "minibatch": 512,
-    "lr": 0.01,
-    "lr_schedule": "linear",
+    "env_step_budget": 49152,
+    "parallel_envs": 32,
+    "segment_steps": 64,
+    "update_passes": 8,
+    "minibatch_size": 512,
+    "learning_rate": 0.01,
+    "learning_rate_schedule": "linear",
     "gamma": 0.98,
-    "lam": 0.95,
+    "lambda": 0.95,
     "success_bonus": 5.0,
     "eval_episodes": 64,
     "checkpoint_every": 4,
@@ -172,7 +172,7 @@ def retrain(
     *,
     store: Any,
     variant: str | Path,
-    steps: int | None = None,
+    env_step_budget: int | None = None,
     deliberation_cost: float | None = None,
     seed: int = 0,
     from_scratch: bool = False,
@@ -201,7 +201,7 @@ def retrain(
     parent = load(ref, store=store)
     task_variant = load_variant_file(variant)
     rig = task_rig(parent.skill.env, task_variant)
-    cfg = _train_config(config, {"steps": steps, "deliberation_cost": deliberation_cost})
+    cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
     out = Path(out_dir) if out_dir is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
     out.mkdir(parents=True, exist_ok=True)
     result = retrain_skill(
@@ -253,7 +253,7 @@ def retrain(
 
 def train(config_path: str | Path, *, store: Any, seed: int | None = None, workers: int = 1, out_dir: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
     """Train stored skills together with a policy over them; store the refined skills as children."""
-    from kinetome.trainers.config import load_train_config, load_train_task
+    from kinetome.trainers.config import TrainTask, load_train_file
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.train_set import train_skills
 
@@ -262,18 +262,18 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     from .spec import canonical_json, skill_to_document
     from .tasks import load_start_file, load_variant_file, task_rig
 
-    cfg = load_train_config(config_path)
-    task = load_train_task(config_path)
-    if task is None or not task.skills:
-        raise InvalidInputError(f"{config_path}: task.skills: a training file for `kinetome train` must list skills; add task: {{skills: [name, ...], env: ...}}")
-    skills = [load(ref, store=store) for ref in task.skills]
+    loaded = load_train_file(config_path)
+    cfg, task = loaded.config, loaded.task or TrainTask()
+    if not loaded.skills:
+        raise InvalidInputError(f"{config_path}: skills: a training file for `kinetome train` must list skills; add skills: [name, ...]")
+    skills = [load(ref, store=store) for ref in loaded.skills]
     env = task.env or skills[0].skill.env
     variant = load_variant_file(task.variant)
     rig = task_rig(env, variant)
     skills = [load(s.ref, store=store, rig=rig) for s in skills]
     out = Path(out_dir) if out_dir is not None else Path("kinetome-train") / Path(config_path).stem
     out.mkdir(parents=True, exist_ok=True)
-    result = train_skills(skills, rig, cfg, start=load_start_file(task.start), seed=seed, workers=workers, progress=progress, checkpoint_dir=out / "checkpoints")
+    result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=out / "checkpoints")
     csv_path, png_path = save_curves(result.curve, out, stem="curve", title=f"train {Path(config_path).stem}")
     children = []
     for s in skills:
@@ -285,7 +285,7 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
         }
         if result.terminations is not None:
             files["terminations.safetensors"] = result.terminations
-        meta = {**result.metadata(), "description": s.skill.description, "env": s.skill.env, "kind": s.skill.controller.kind, "variant": task.variant, "trained_with": list(task.skills)}
+        meta = {**result.metadata(), "description": s.skill.description, "env": s.skill.env, "kind": s.skill.controller.kind, "variant": task.variant, "trained_with": list(loaded.skills)}
         children.append(store.add(s.skill.name, files, parent=s.ref, reason="retrained", meta=meta).version.ref)
     return {
         "skills": list(result.skill_refs),

@@ -11,7 +11,7 @@ _os.environ.setdefault("MKL_CBWR", "AUTO,STRICT")
 __all__: list[str] = []
 
 # --- option actor-critic trainer ---------------------------------------------
-from .config import TrainConfig, TrainTask, load_train_config, load_train_task  # noqa: E402
+from .config import TrainConfig, TrainFile, TrainTask, load_train_config, load_train_file, load_train_task  # noqa: E402
 from .evaluate import SkillMetrics, evaluate_skill  # noqa: E402
 from .option_critic import OptionCriticTrainer, StopTraining, TrainOutcome  # noqa: E402
 from .retrain import RetrainResult, retrain_skill  # noqa: E402
@@ -21,6 +21,8 @@ from .trainable import TrainableSkill, flat_skill, trainable_from_loaded  # noqa
 __all__ += [
     "TrainConfig",
     "TrainTask",
+    "TrainFile",
+    "load_train_file",
     "load_train_config",
     "load_train_task",
     "SkillMetrics",

@@ -1,8 +1,11 @@
 """Training settings: the frozen ``TrainConfig`` and its YAML form (line-numbered errors).
 
-A training file is a YAML mapping of ``TrainConfig`` fields plus an optional
-``task:`` mapping (``TrainTask``) saying what the file is meant to train:
-skill refs or spec paths, the env, a task variant and a start distribution.
+A training file is a YAML mapping of ``TrainConfig`` settings plus, for
+``kinetome train``, top-level ``skills:`` (refs or spec paths), a
+``description:`` and a ``task:`` mapping (``TrainTask``: env, task variant and
+initial states). Files written with the older spellings (``steps``, ``n_envs``,
+``lam``, ``task.notes``, ``task.skills``, ``task.start``, ...) are read with one
+warning per old key (``TRAIN_RENAMES``).
 """
 
 from __future__ import annotations
@@ -14,57 +17,102 @@ from pathlib import Path
 from typing import Any
 
 from kinetome.library.errors import InvalidInputError, Problem
+from kinetome.library.renamed_keys import rename_document, rename_keys
 
-__all__ = ["TrainConfig", "TrainTask", "TERMINATION_MODES", "load_train_config", "load_train_task", "config_from_mapping"]
+__all__ = [
+    "TrainConfig",
+    "TrainTask",
+    "TrainFile",
+    "STOP_MODES",
+    "TRAIN_RENAMES",
+    "load_train_file",
+    "load_train_config",
+    "load_train_task",
+    "config_from_mapping",
+    "config_from_stored",
+]
 
-# How a skill's termination beta(s, w) relates to its stops_when predicate:
+# How a skill's stop probability beta(s, w) relates to its stops_when predicate:
 #   registered: beta = 1 where stops_when holds, 0 elsewhere (nothing learned; the stored behaviour)
 #   hard:       beta = 1 where stops_when holds, a learned sigmoid elsewhere (may stop early)
 #   confined:   a learned sigmoid where stops_when holds, 0 elsewhere (may run past its stop)
 #   learned:    a learned sigmoid everywhere
 # Every mode also stops a skill after max_steps.
-TERMINATION_MODES = ("registered", "hard", "confined", "learned")
+STOP_MODES = ("registered", "hard", "confined", "learned")
+
+# Old spelling -> current spelling, for files (and checkpoints) written before the rename.
+TRAIN_RENAMES = {
+    "steps": "env_step_budget",
+    "n_envs": "parallel_envs",
+    "rollout_len": "segment_steps",
+    "epochs": "update_passes",
+    "minibatch": "minibatch_size",
+    "lr": "learning_rate",
+    "lr_schedule": "learning_rate_schedule",
+    "lam": "lambda",
+    "clip": "clip_ratio",
+    "entropy_coef": "entropy_weight",
+    "value_coef": "critic_loss_weight",
+    "value_clip": "critic_clip",
+    "max_grad_norm": "gradient_norm_cap",
+    "target_kl": "policy_shift_limit",
+    "normalise_advantages": "standardise_advantages",
+    "normalise_observations": "standardise_observations",
+    "normalise_rewards": "scale_rewards",
+    "termination": "stop_mode",
+    "termination_hidden": "stop_hidden",
+    "termination_lr": "stop_lr",
+    "termination_init": "stop_init_logit",
+    "episode_steps": "max_episode_steps",
+    "task.skills": "skills",
+    "task.notes": "description",
+    "task.start": "task.initial_states",
+}
 
 
 @dataclass(frozen=True)
 class TrainConfig:
     """Hyperparameters of the option actor-critic trainer.
 
-    Budgets: ``steps`` env steps in total, collected ``n_envs`` x ``rollout_len``
-    per update; each update runs ``epochs`` passes over the rollout in
-    minibatches of ``minibatch`` samples. ``deliberation_cost`` (eta) is charged
-    at every switch between skills and added to the termination advantage.
-    ``skill_epsilon`` is the exploration rate of the epsilon-greedy policy over
-    skills (on the critic's Q). ``checkpoint_every`` counts updates (0 = never).
+    Budget: ``env_step_budget`` env steps in total, collected ``parallel_envs`` x
+    ``segment_steps`` per update; each update makes ``update_passes`` passes over
+    the collected samples in minibatches of ``minibatch_size``. ``lambda_`` is
+    GAE's lambda (written ``lambda`` in YAML and JSON). ``policy_shift_limit``
+    ends an update's passes early once the policy moved that far (approximate
+    KL); ``gradient_norm_cap`` caps the global gradient norm. ``deliberation_cost``
+    (eta) is charged at every switch between skills and added to the stop
+    advantage. ``skill_epsilon`` is the exploration rate of the epsilon-greedy
+    policy over skills (on the critic's Q). ``checkpoint_every`` counts updates
+    (0 = never).
     """
 
-    steps: int = 100_000
-    n_envs: int = 16
-    rollout_len: int = 128
-    epochs: int = 10
-    minibatch: int = 256
-    lr: float = 3e-4
-    lr_schedule: str = "constant"  # or "linear" (to zero at the end of the budget)
+    env_step_budget: int = 100_000
+    parallel_envs: int = 16
+    segment_steps: int = 128
+    update_passes: int = 10
+    minibatch_size: int = 256
+    learning_rate: float = 3e-4
+    learning_rate_schedule: str = "constant"  # or "linear" (to zero at the end of the budget)
     gamma: float = 0.99
-    lam: float = 0.95
-    clip: float = 0.2
-    entropy_coef: float = 0.0
-    value_coef: float = 0.5
-    value_clip: float | None = None
-    max_grad_norm: float = 0.5
-    target_kl: float | None = None
-    normalise_advantages: bool = True
-    normalise_observations: bool = True
-    normalise_rewards: bool = True
+    lambda_: float = 0.95
+    clip_ratio: float = 0.2
+    entropy_weight: float = 0.0
+    critic_loss_weight: float = 0.5
+    critic_clip: float | None = None
+    gradient_norm_cap: float = 0.5
+    policy_shift_limit: float | None = None
+    standardise_advantages: bool = True
+    standardise_observations: bool = True
+    scale_rewards: bool = True
     critic_hidden: tuple[int, ...] = (64, 64)
-    termination: str = "registered"
-    termination_hidden: tuple[int, ...] = ()
-    termination_lr: float = 1e-3
-    termination_init: float = -2.0  # initial logit: beta about 0.12
+    stop_mode: str = "registered"
+    stop_hidden: tuple[int, ...] = ()
+    stop_lr: float = 1e-3
+    stop_init_logit: float = -2.0  # initial logit: beta about 0.12
     deliberation_cost: float = 0.0
     skill_epsilon: float = 0.05
     success_bonus: float = 0.0
-    episode_steps: int | None = None  # default: the rig's max_episode_steps
+    max_episode_steps: int | None = None  # default: the rig's max_episode_steps
     eval_episodes: int = 32
     eval_every: int = 0  # updates between evaluations (0 = only before and after)
     checkpoint_every: int = 10
@@ -78,20 +126,25 @@ class TrainConfig:
 
     @property
     def batch_size(self) -> int:
-        """Samples per update: n_envs x rollout_len."""
-        return self.n_envs * self.rollout_len
+        """Samples per update: parallel_envs x segment_steps."""
+        return self.parallel_envs * self.segment_steps
 
     @property
     def updates(self) -> int:
         """Updates the budget allows (at least one)."""
-        return max(1, math.ceil(self.steps / self.batch_size))
+        return max(1, math.ceil(self.env_step_budget / self.batch_size))
 
     def as_dict(self) -> dict[str, Any]:
-        out = asdict(self)
+        """The settings under their file spellings (``lambda``, lists for layer widths)."""
+        out = {_FILE_NAMES.get(k, k): v for k, v in asdict(self).items()}
         out["critic_hidden"] = list(self.critic_hidden)
-        out["termination_hidden"] = list(self.termination_hidden)
+        out["stop_hidden"] = list(self.stop_hidden)
         return out
 
+
+# Python field -> key in files where the key is a Python keyword.
+_FILE_NAMES = {"lambda_": "lambda"}
+_FIELD_NAMES = {v: k for k, v in _FILE_NAMES.items()}
 
 def _validate(c: TrainConfig) -> list[str]:
     out: list[str] = []
@@ -116,92 +169,108 @@ def _validate(c: TrainConfig) -> list[str]:
             lo = "(" if open_low else "["
             out.append(f"{name} must lie in {lo}{low:g}, {high:g}], got {v!r}")
 
-    for name in ("steps", "n_envs", "rollout_len", "epochs", "minibatch", "eval_episodes", "log_every"):
+    for name in ("env_step_budget", "parallel_envs", "segment_steps", "update_passes", "minibatch_size", "eval_episodes", "log_every"):
         positive_int(name)
     for name in ("checkpoint_every", "eval_every", "seed"):
         nonneg_int(name)
-    if c.episode_steps is not None:
-        positive_int("episode_steps")
-    number("lr", 0.0, 1.0, open_low=True)
-    number("termination_lr", 0.0, 1.0, open_low=True)
+    if c.max_episode_steps is not None:
+        positive_int("max_episode_steps")
+    number("learning_rate", 0.0, 1.0, open_low=True)
+    number("stop_lr", 0.0, 1.0, open_low=True)
     number("gamma", 0.0, 1.0)
-    number("lam", 0.0, 1.0)
-    number("clip", 0.0, 1.0, open_low=True)
-    number("entropy_coef", 0.0, 1.0)
-    number("value_coef", 0.0, 100.0)
-    number("value_clip", 0.0, math.inf, open_low=True, optional=True)
-    number("max_grad_norm", 0.0, math.inf, open_low=True)
-    number("target_kl", 0.0, math.inf, open_low=True, optional=True)
-    number("termination_init", -20.0, 20.0)
+    number("lambda_", 0.0, 1.0)
+    number("clip_ratio", 0.0, 1.0, open_low=True)
+    number("entropy_weight", 0.0, 1.0)
+    number("critic_loss_weight", 0.0, 100.0)
+    number("critic_clip", 0.0, math.inf, open_low=True, optional=True)
+    number("gradient_norm_cap", 0.0, math.inf, open_low=True)
+    number("policy_shift_limit", 0.0, math.inf, open_low=True, optional=True)
+    number("stop_init_logit", -20.0, 20.0)
     number("deliberation_cost", 0.0, math.inf)
     number("skill_epsilon", 0.0, 1.0)
     number("success_bonus", -1e6, 1e6)
-    for name in ("normalise_advantages", "normalise_observations", "normalise_rewards"):
+    for name in ("standardise_advantages", "standardise_observations", "scale_rewards"):
         if not isinstance(getattr(c, name), bool):
             out.append(f"{name} must be true or false, got {getattr(c, name)!r}")
-    for name in ("critic_hidden", "termination_hidden"):
+    for name in ("critic_hidden", "stop_hidden"):
         v = getattr(c, name)
         if not isinstance(v, tuple) or not all(isinstance(h, int) and not isinstance(h, bool) and h >= 1 for h in v):
             out.append(f"{name} must be a list of positive layer widths, got {v!r}")
-    if c.termination not in TERMINATION_MODES:
-        out.append(f"termination must be one of {', '.join(TERMINATION_MODES)}, got {c.termination!r}")
-    if c.lr_schedule not in ("constant", "linear"):
-        out.append(f"lr_schedule must be constant or linear, got {c.lr_schedule!r}")
-    return out
+    if c.stop_mode not in STOP_MODES:
+        out.append(f"stop_mode must be one of {', '.join(STOP_MODES)}, got {c.stop_mode!r}")
+    if c.learning_rate_schedule not in ("constant", "linear"):
+        out.append(f"learning_rate_schedule must be constant or linear, got {c.learning_rate_schedule!r}")
+    return [_file_spelling(line) for line in out]
+
+
+def _file_spelling(message: str) -> str:
+    return message.replace("lambda_ must", "lambda must")
 
 
 @dataclass(frozen=True)
 class TrainTask:
-    """What a training file is for: skills (refs or spec paths), env, variant and starts.
+    """The task a training file trains on: env, task variant and initial states.
 
-    ``variant``/``start`` are names or YAML paths; relative paths in a file
-    are resolved against that file's folder by ``load_train_task``.
+    ``variant``/``initial_states`` are names or YAML paths; relative paths in a
+    file are resolved against that file's folder by ``load_train_file``.
     """
 
-    skills: tuple[str, ...] = ()
     env: str | None = None
     variant: str | None = None
-    start: str | None = None
-    notes: str = ""
+    initial_states: str | None = None
 
     def __post_init__(self) -> None:
-        if not isinstance(self.skills, tuple) or not all(isinstance(s, str) and s for s in self.skills):
-            raise ValueError(f"task.skills must be a list of skill refs or spec paths, got {self.skills!r}")
-        for name in ("env", "variant", "start"):
+        for name in ("env", "variant", "initial_states"):
             v = getattr(self, name)
             if v is not None and (not isinstance(v, str) or not v):
                 raise ValueError(f"task.{name} must be a non-empty string, got {v!r}")
 
 
-_LIST_FIELDS = {"critic_hidden", "termination_hidden"}
+@dataclass(frozen=True)
+class TrainFile:
+    """A whole training file: settings, the skills to train, the task and a description."""
+
+    config: TrainConfig
+    skills: tuple[str, ...] = ()
+    task: TrainTask | None = None
+    description: str = ""
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.skills, tuple) or not all(isinstance(s, str) and s for s in self.skills):
+            raise ValueError(f"skills must be a list of skill refs or spec paths, got {self.skills!r}")
 
 
-def _field_names(cls: type) -> list[str]:
-    return [f.name for f in fields(cls)]
+_LIST_FIELDS = {"critic_hidden", "stop_hidden"}
+_FILE_KEYS = {"task", "skills", "description"}  # read by load_train_file, not settings
+
+
+def _setting_names() -> list[str]:
+    return [_FILE_NAMES.get(f.name, f.name) for f in fields(TrainConfig)]
 
 
 def config_from_mapping(data: dict[str, Any], *, source: str = "<mapping>", lines: dict | None = None) -> TrainConfig:
-    """Build a ``TrainConfig`` from plain data, reporting every problem with its line."""
+    """Build a ``TrainConfig`` from plain data (current spellings), reporting every problem with its line."""
     lines = lines or {}
     problems: list[Problem] = []
-    names = _field_names(TrainConfig)
+    names = _setting_names()
     values: dict[str, Any] = {}
     for key, value in data.items():
-        if key == "task":
+        if key in _FILE_KEYS:
             continue
         line = lines.get((key,))
         if key not in names:
             close = difflib.get_close_matches(str(key), names, n=1)
-            fix = f"did you mean {close[0]!r}?" if close else f"known fields: {', '.join(names)}"
+            fix = f"did you mean {close[0]!r}?" if close else f"known settings: {', '.join(names)}"
             problems.append(Problem(source, line, str(key), "unknown training setting", fix))
             continue
-        if key in _LIST_FIELDS and isinstance(value, list):
+        name = _FIELD_NAMES.get(key, key)
+        if name in _LIST_FIELDS and isinstance(value, list):
             value = tuple(value)
-        if isinstance(value, int) and not isinstance(value, bool) and _is_float_field(key):
+        if isinstance(value, int) and not isinstance(value, bool) and _is_float_field(name):
             value = float(value)
-        values[key] = value
+        values[name] = value
         try:
-            replace(TrainConfig(), **{key: value})
+            replace(TrainConfig(), **{name: value})
         except (ValueError, TypeError) as exc:
             problems.append(Problem(source, line, key, str(exc), "see configs/training/ for examples"))
     if problems:
@@ -209,10 +278,16 @@ def config_from_mapping(data: dict[str, Any], *, source: str = "<mapping>", line
     return TrainConfig(**values)
 
 
+def config_from_stored(data: dict[str, Any], *, source: str) -> TrainConfig:
+    """A ``TrainConfig`` from a stored ``as_dict()`` (checkpoints, lineage); older spellings read silently."""
+    renamed, _ = rename_keys(data, TRAIN_RENAMES, source=source, warn=False)
+    return config_from_mapping(renamed, source=source)
+
+
 def _is_float_field(name: str) -> bool:
     f = next(f for f in fields(TrainConfig) if f.name == name)
     default = f.default if f.default is not MISSING else None
-    return isinstance(default, float) or name in ("value_clip", "target_kl")
+    return isinstance(default, float) or name in ("critic_clip", "policy_shift_limit")
 
 
 def _read(path: str | Path) -> Any:
@@ -223,25 +298,43 @@ def _read(path: str | Path) -> Any:
         raise InvalidInputError(
             [Problem(str(path), 1, "", f"a training file must be a mapping of settings, got {type(doc.data).__name__}", "write key: value lines")]
         )
-    return doc
+    return rename_document(doc, TRAIN_RENAMES)
+
+
+def load_train_file(path: str | Path) -> TrainFile:
+    """Read a whole training YAML file (``InvalidInputError`` lists every problem; old spellings warn once)."""
+    doc = _read(path)
+    config = config_from_mapping(doc.data, source=str(path), lines=doc.lines)
+    skills = doc.data.get("skills", ())
+    if isinstance(skills, str):
+        skills = (skills,)
+    elif isinstance(skills, list):
+        skills = tuple(skills)
+    description = doc.data.get("description", "")
+    try:
+        return TrainFile(config, skills, _task(doc, path), description if isinstance(description, str) else str(description))
+    except ValueError as exc:
+        raise InvalidInputError([Problem(str(path), doc.line(("skills",)), "skills", str(exc), "write skills: [name, name@N, ...]")]) from None
 
 
 def load_train_config(path: str | Path) -> TrainConfig:
-    """Read a training YAML file into a ``TrainConfig`` (``InvalidInputError`` lists every problem)."""
-    doc = _read(path)
-    return config_from_mapping(doc.data, source=str(path), lines=doc.lines)
+    """Read a training YAML file's settings into a ``TrainConfig``."""
+    return load_train_file(path).config
 
 
 def load_train_task(path: str | Path) -> TrainTask | None:
     """The file's ``task:`` section, or None when it has none."""
-    doc = _read(path)
+    return load_train_file(path).task
+
+
+def _task(doc: Any, path: str | Path) -> TrainTask | None:
     task = doc.data.get("task")
     if task is None:
         return None
     line = doc.lines.get(("task",))
     if not isinstance(task, dict):
-        raise InvalidInputError([Problem(str(path), line, "task", f"must be a mapping, got {type(task).__name__}", "give skills/env/variant/start keys")])
-    known = _field_names(TrainTask)
+        raise InvalidInputError([Problem(str(path), line, "task", f"must be a mapping, got {type(task).__name__}", "give env/variant/initial_states keys")])
+    known = [f.name for f in fields(TrainTask)]
     problems = [
         Problem(str(path), doc.lines.get(("task", k)), f"task.{k}", "unknown task setting", f"known: {', '.join(known)}")
         for k in task
@@ -250,15 +343,11 @@ def load_train_task(path: str | Path) -> TrainTask | None:
     if problems:
         raise InvalidInputError(problems)
     values = dict(task)
-    for key in ("variant", "start"):
+    for key in ("variant", "initial_states"):
         # a relative .yaml path is read relative to the training file's folder
         v = values.get(key)
         if isinstance(v, str) and v.endswith((".yaml", ".yml")) and not Path(v).is_absolute():
             values[key] = str((Path(path).parent / v).resolve())
-    if isinstance(values.get("skills"), list):
-        values["skills"] = tuple(values["skills"])
-    elif isinstance(values.get("skills"), str):
-        values["skills"] = (values["skills"],)
     try:
         return TrainTask(**values)
     except ValueError as exc:

@@ -33,7 +33,7 @@ from .checkpoint import (
     save_checkpoint,
     set_generator_state,
 )
-from .config import TrainConfig
+from .config import TrainConfig, config_from_stored
 from .curves import save_curves
 from .nets import SkillCritic, TerminationHeads
 from .normaliser import ObservationNormaliser, ReturnNormaliser
@@ -46,7 +46,7 @@ from .update import check_finite_parameters, update_from_rollout
 __all__ = ["OptionCriticTrainer", "TrainOutcome", "StopTraining", "torch_threads"]
 
 # Counters that may differ between a run and its resumption.
-_RESUMABLE_CHANGES = {"steps", "checkpoint_every", "log_every", "eval_every", "eval_episodes"}
+_RESUMABLE_CHANGES = {"env_step_budget", "checkpoint_every", "log_every", "eval_every", "eval_episodes"}
 
 
 class StopTraining(Exception):
@@ -70,7 +70,7 @@ class TrainOutcome:
 
 
 class OptionCriticTrainer:
-    """Trains ``skills`` on ``rig`` for ``config.steps`` env steps.
+    """Trains ``skills`` on ``rig`` for ``config.env_step_budget`` env steps.
 
     ``evaluate`` (optional) is called every ``config.eval_every`` updates and
     returns ``{"eval_success_rate": ..., "eval_return": ...}`` for the curve.
@@ -109,17 +109,17 @@ class OptionCriticTrainer:
         with torch.random.fork_rng(devices=[]):
             torch.manual_seed(config.seed)
             self.critic = SkillCritic(n_obs, K, config.critic_hidden)
-            learns_termination = (not episode_per_skill) and config.termination != "registered"
+            learns_termination = (not episode_per_skill) and config.stop_mode != "registered"
             self.heads = (
-                TerminationHeads(n_obs, K, config.termination_hidden, init_logit=config.termination_init)
+                TerminationHeads(n_obs, K, config.stop_hidden, init_logit=config.stop_init_logit)
                 if learns_termination
                 else None
             )
         self.obs_norm = ObservationNormaliser(n_obs)
-        self.ret_norm = ReturnNormaliser(config.n_envs, gamma=config.gamma)
+        self.ret_norm = ReturnNormaliser(config.parallel_envs, gamma=config.gamma)
         params = [p for s in self.skills for p in s.trainable_parameters()] + list(self.critic.parameters())
-        self.optimiser = torch.optim.Adam(params, lr=config.lr, eps=1e-5)
-        self.term_optimiser = torch.optim.Adam(self.heads.parameters(), lr=config.termination_lr) if self.heads else None
+        self.optimiser = torch.optim.Adam(params, lr=config.learning_rate, eps=1e-5)
+        self.term_optimiser = torch.optim.Adam(self.heads.parameters(), lr=config.stop_lr) if self.heads else None
         self.collector = Collector(
             rig=rig,
             skills=self.skills,
@@ -197,7 +197,7 @@ class OptionCriticTrainer:
             return False
         tensors, meta = loaded
         mine = self.config.as_dict()
-        theirs = meta["config"]
+        theirs = config_from_stored(meta["config"], source=str(self.checkpoint_dir)).as_dict()
         changed = sorted(k for k in mine if k not in _RESUMABLE_CHANGES and theirs.get(k) != mine[k])
         if changed or meta["skills"] != [s.name for s in self.skills] or meta["env"] != self.rig.env_id:
             what = ", ".join(f"{k}: {theirs.get(k)!r} -> {mine[k]!r}" for k in changed) or "skills or env"
@@ -250,7 +250,7 @@ class OptionCriticTrainer:
         try:
             while self.update_index < total_updates:
                 u = self.update_index
-                lr = cfg.lr * (1.0 - u / total_updates) if cfg.lr_schedule == "linear" else cfg.lr
+                lr = cfg.learning_rate * (1.0 - u / total_updates) if cfg.learning_rate_schedule == "linear" else cfg.learning_rate
                 for group in self.optimiser.param_groups:
                     group["lr"] = lr
                 rollout = self.collector.collect()

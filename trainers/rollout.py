@@ -8,7 +8,7 @@ checks. Two episode modes:
   when its ``stops_when`` holds (success, terminal), the env terminates
   (terminal) or ``max_steps``/the episode limit pass (truncated: bootstrapped);
 - options mode: several skills inside one task episode; a skill ends by its
-  termination (see ``TERMINATION_MODES``) or timeout, the next is chosen
+  termination (see ``STOP_MODES``) or timeout, the next is chosen
   epsilon-greedy on Q, and each switch costs ``deliberation_cost``.
 """
 
@@ -125,11 +125,11 @@ class Collector:
         # explore=False: mean actions, greedy skill choice, frozen normalisers (evaluation)
         self.explore = explore
         self.epsilon = config.skill_epsilon if explore else 0.0
-        self.n = config.n_envs
+        self.n = config.parallel_envs
         self.sim = SimBatch(rig, self.n, nthread=nthread)
         self.extra = tuple(sorted({x for s in self.skills for x in s.needs}))
         self.input_names = tuple(sorted({x for s in self.skills for x in (*s.reads, *s.needs)}))
-        self.limit = config.episode_steps or int(rig.max_episode_steps)
+        self.limit = config.max_episode_steps or int(rig.max_episode_steps)
         self.skill = np.zeros(self.n, dtype=np.int64)
         self.skill_steps = np.zeros(self.n, dtype=np.int64)
         self.episode_steps = np.zeros(self.n, dtype=np.int64)
@@ -153,7 +153,7 @@ class Collector:
                 f"observation must be finite, got NaN/Inf in simulations {rows[:5].tolist()} of {self.rig.env_id}; "
                 "the physics diverged: lower the learning rate or tighten the controller bounds"
             )
-        if not self.config.normalise_observations:
+        if not self.config.standardise_observations:
             return obs
         if update:
             self.obs_norm.update(obs)
@@ -209,7 +209,7 @@ class Collector:
     # ----- one rollout ----------------------------------------------------------
 
     def collect(self) -> Rollout:
-        cfg, rig, n, T = self.config, self.rig, self.n, self.config.rollout_len
+        cfg, rig, n, T = self.config, self.rig, self.n, self.config.segment_steps
         K = len(self.skills)
         dt = rig.dt
         self.stats = EpisodeStats()
@@ -260,7 +260,7 @@ class Collector:
                 actions[ids] = a.numpy()
             if not np.all(np.isfinite(actions)):
                 raise TrainingError(
-                    "controller actions must be finite, got NaN/Inf; a parameter diverged: lower lr or check the controller bounds"
+                    "controller actions must be finite, got NaN/Inf; a parameter diverged: lower learning_rate or check the controller bounds"
                 )
             applied = self.sim.step(actions)
             after = self.sim.state(extra=self.extra)
@@ -304,13 +304,13 @@ class Collector:
                 feats_after = self.features(after)
                 q_after = self.q_values(feats_after)
                 forced = timeout.copy()
-                if cfg.termination in ("registered", "hard"):
+                if cfg.stop_mode in ("registered", "hard"):
                     forced |= stops
-                if cfg.termination == "learned":
+                if cfg.stop_mode == "learned":
                     learnable = np.ones(n, dtype=bool)
-                elif cfg.termination == "hard":
+                elif cfg.stop_mode == "hard":
                     learnable = ~stops
-                elif cfg.termination == "confined":
+                elif cfg.stop_mode == "confined":
                     learnable = stops
                 else:
                     learnable = np.zeros(n, dtype=bool)
@@ -343,7 +343,7 @@ class Collector:
             self.stats.returns.extend(self.episode_return[done_ids].tolist())
             self.stats.lengths.extend(self.episode_steps[done_ids].tolist())
             # rewards: scale, then bootstrap truncated episodes with Q(s_{t+1}, w_t)
-            if cfg.normalise_rewards:
+            if cfg.scale_rewards:
                 if self.explore:
                     self.ret_norm.update(reward_raw, ep_end)
                 scaled = self.ret_norm(reward_raw)
@@ -398,7 +398,7 @@ class Collector:
             term_features=out["term_features"],
             term_weight=out["term_weight"],
             term_advantage=out["term_advantage"],
-            reward_scale=self.ret_norm.scale if cfg.normalise_rewards else 1.0,
+            reward_scale=self.ret_norm.scale if cfg.scale_rewards else 1.0,
         )
 
     def _apply_input_normalisers(self) -> None:
@@ -429,7 +429,7 @@ class Collector:
         try:
             self.sim.restore_integration_state(tensors["carry.sim_state"])
         except ValueError as exc:
-            raise TrainingError(f"checkpoint {exc}; resume with the n_envs and rig the run started with") from None
+            raise TrainingError(f"checkpoint {exc}; resume with the parallel_envs and rig the run started with") from None
         self.skill = tensors["carry.skill"].astype(np.int64).copy()
         self.skill_steps = tensors["carry.skill_steps"].astype(np.int64).copy()
         self.episode_steps = tensors["carry.episode_steps"].astype(np.int64).copy()

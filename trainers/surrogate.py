@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import torch
 
-__all__ = ["clipped_surrogate", "value_loss", "normalise_advantages"]
+__all__ = ["clipped_surrogate", "value_loss", "standardise_advantages"]
 
 
-def normalise_advantages(advantages: torch.Tensor, *, eps: float = 1e-8) -> torch.Tensor:
+def standardise_advantages(advantages: torch.Tensor, *, eps: float = 1e-8) -> torch.Tensor:
     """Zero-mean, unit-std advantages (common practice for the clipped objective)."""
     if advantages.numel() < 2:
         return advantages - advantages.mean()
@@ -19,9 +19,9 @@ def clipped_surrogate(
     old_log_prob: torch.Tensor,
     advantages: torch.Tensor,
     *,
-    clip: float,
+    clip_ratio: float,
     entropy: torch.Tensor | None = None,
-    entropy_coef: float = 0.0,
+    entropy_weight: float = 0.0,
 ) -> tuple[torch.Tensor, dict[str, float]]:
     """Loss to minimise: -E[min(rho A, clip(rho, 1-e, 1+e) A)] - c_H E[H].
 
@@ -29,22 +29,22 @@ def clipped_surrogate(
     Klimov 2017, eq. 7). Returns the loss and diagnostics: the approximate KL
     E[(rho - 1) - log rho] and the fraction of samples whose ratio was clipped.
     """
-    if clip <= 0:
-        raise ValueError(f"clip must be > 0, got {clip}")
+    if clip_ratio <= 0:
+        raise ValueError(f"clip_ratio must be > 0, got {clip_ratio}")
     log_ratio = log_prob - old_log_prob
     ratio = torch.exp(log_ratio)
     unclipped = ratio * advantages
-    clipped = torch.clamp(ratio, 1.0 - clip, 1.0 + clip) * advantages
+    clipped = torch.clamp(ratio, 1.0 - clip_ratio, 1.0 + clip_ratio) * advantages
     policy_loss = -torch.minimum(unclipped, clipped).mean()
     loss = policy_loss
     mean_entropy = 0.0
     if entropy is not None:
         mean_entropy_t = entropy.mean()
-        loss = loss - entropy_coef * mean_entropy_t
+        loss = loss - entropy_weight * mean_entropy_t
         mean_entropy = float(mean_entropy_t.detach())
     with torch.no_grad():
         approx_kl = float(((ratio - 1.0) - log_ratio).mean())
-        clip_fraction = float(((ratio - 1.0).abs() > clip).double().mean())
+        clip_fraction = float(((ratio - 1.0).abs() > clip_ratio).double().mean())
     return loss, {
         "policy_loss": float(policy_loss.detach()),
         "entropy": mean_entropy,

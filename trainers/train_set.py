@@ -192,7 +192,7 @@ def train_skills(
     """Train ``skills`` (``LoadedSkill``s) as options on ``rig``'s task reward; inputs are not modified.
 
     An episode runs until the env terminates or the episode limit; inside it
-    a skill runs until its termination (``config.termination``) or
+    a skill runs until its termination (``config.stop_mode``) or
     ``max_steps``, then the next is chosen epsilon-greedy on Q among skills
     whose ``starts_when`` holds (all, if none does). Each switch costs
     ``config.deliberation_cost``.

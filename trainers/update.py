@@ -13,7 +13,7 @@ from kinetome.library.errors import TrainingError
 from .config import TrainConfig
 from .gae import gae
 from .rollout import Rollout
-from .surrogate import clipped_surrogate, normalise_advantages, value_loss
+from .surrogate import clipped_surrogate, standardise_advantages, value_loss
 from .termination import termination_loss
 from .trainable import TrainableSkill
 
@@ -27,7 +27,7 @@ def check_finite_parameters(modules: dict[str, torch.nn.Module], *, where: str) 
             if not torch.all(torch.isfinite(p)):
                 raise TrainingError(
                     f"parameter {label}.{name} must be finite, got NaN/Inf {where}; "
-                    "lower lr or max_grad_norm, or tighten the controller bounds"
+                    "lower learning_rate or gradient_norm_cap, or tighten the controller bounds"
                 )
 
 
@@ -43,9 +43,9 @@ def update_from_rollout(
     generator: torch.Generator,
     update_index: int,
 ) -> dict[str, float]:
-    """Run ``epochs`` passes of minibatch steps; return mean losses and diagnostics."""
+    """Run ``update_passes`` passes of minibatch steps; return mean losses and diagnostics."""
     cfg = config
-    adv, ret = gae(rollout.rewards, rollout.values, rollout.dones, rollout.last_values, gamma=cfg.gamma, lam=cfg.lam)
+    adv, ret = gae(rollout.rewards, rollout.values, rollout.dones, rollout.last_values, gamma=cfg.gamma, lambda_=cfg.lambda_)
     T, N = rollout.rewards.shape
     B = T * N
 
@@ -64,14 +64,14 @@ def update_from_rollout(
     sums: dict[str, float] = {}
     count = 0
     stop_early = False
-    for epoch in range(cfg.epochs):
+    for epoch in range(cfg.update_passes):
         perm = torch.randperm(B, generator=generator)
         epoch_kl: list[float] = []
-        for start in range(0, B, cfg.minibatch):
-            idx = perm[start : start + cfg.minibatch]
+        for start in range(0, B, cfg.minibatch_size):
+            idx = perm[start : start + cfg.minibatch_size]
             mb_adv = adv_t[idx]
-            if cfg.normalise_advantages:
-                mb_adv = normalise_advantages(mb_adv)
+            if cfg.standardise_advantages:
+                mb_adv = standardise_advantages(mb_adv)
             mb_skill = skill[idx]
             pol_loss = torch.zeros((), dtype=torch.float64)
             info_acc = {"policy_loss": 0.0, "entropy": 0.0, "approx_kl": 0.0, "clip_fraction": 0.0}
@@ -85,23 +85,23 @@ def update_from_rollout(
                 lp = dist.log_prob(actions[rows]).sum(-1)
                 ent = dist.entropy().sum(-1)
                 loss_k, info = clipped_surrogate(
-                    lp, old_lp[rows], mb_adv[sel], clip=cfg.clip, entropy=ent, entropy_coef=cfg.entropy_coef
+                    lp, old_lp[rows], mb_adv[sel], clip_ratio=cfg.clip_ratio, entropy=ent, entropy_weight=cfg.entropy_weight
                 )
                 share = sel.numel() / idx.numel()
                 pol_loss = pol_loss + share * loss_k
                 for key in info_acc:
                     info_acc[key] += share * info[key]
             q = critic(feats[idx]).gather(1, mb_skill.view(-1, 1)).squeeze(1)
-            v_loss = value_loss(q, ret_t[idx], old_values=old_v[idx], clip=cfg.value_clip)
-            loss = pol_loss + cfg.value_coef * v_loss
+            v_loss = value_loss(q, ret_t[idx], old_values=old_v[idx], clip=cfg.critic_clip)
+            loss = pol_loss + cfg.critic_loss_weight * v_loss
             if not torch.isfinite(loss):
                 raise TrainingError(
                     f"loss must be finite, got {float(loss)} at update {update_index}, epoch {epoch}; "
-                    "lower lr, or check the reward for NaN/Inf"
+                    "lower learning_rate, or check the reward for NaN/Inf"
                 )
             optimiser.zero_grad(set_to_none=True)
             loss.backward()
-            torch.nn.utils.clip_grad_norm_(all_params, cfg.max_grad_norm)
+            torch.nn.utils.clip_grad_norm_(all_params, cfg.gradient_norm_cap)
             optimiser.step()
             for sk in skills:
                 sk.controller.project_()
@@ -121,7 +121,7 @@ def update_from_rollout(
             count += 1
             epoch_kl.append(info_acc["approx_kl"])
             # stop the update once the policy has moved too far from the one that collected the data
-            if cfg.target_kl is not None and info_acc["approx_kl"] > 1.5 * cfg.target_kl:
+            if cfg.policy_shift_limit is not None and info_acc["approx_kl"] > 1.5 * cfg.policy_shift_limit:
                 stop_early = True
                 break
         if stop_early:

@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from importlib import import_module
 
 from ..errors import KinetomeError
+from ..renamed_keys import RenamedKeyWarning
 from .output import print_error
 
 __all__ = ["main", "build_parser", "common_options"]
@@ -50,7 +52,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _show_warning(show: object) -> object:
+    """Old spellings print as ``kinetome: warning: ...``; other warnings as Python prints them."""
+
+    def showwarning(message, category, filename, lineno, file=None, line=None):  # noqa: ANN001
+        if issubclass(category, RenamedKeyWarning):
+            print_error(f"warning: {message}")
+        else:
+            show(message, category, filename, lineno, file, line)
+
+    return showwarning
+
+
 def main(argv: list[str] | None = None) -> int:
+    with warnings.catch_warnings():
+        warnings.simplefilter("default", RenamedKeyWarning)
+        warnings.showwarning = _show_warning(warnings.showwarning)
+        return _main(argv)
+
+
+def _main(argv: list[str] | None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from .old_spellings import add_old_option
 from .output import print_json, print_table
 from .progress import ProgressBar
 
@@ -26,7 +27,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     )
     p.add_argument("ref", metavar="NAME[@N]")
     p.add_argument("--variant", required=True, metavar="FILE", help="task variant YAML (e.g. configs/variants/heavy_payload.yaml)")
-    p.add_argument("--steps", type=int, help="env steps of training")
+    p.add_argument("--budget", type=int, dest="env_step_budget", metavar="STEPS", help="env steps of training in total (default: the config's env_step_budget)")
+    add_old_option(p, "--steps", "--budget", dest="env_step_budget", type=int)
     p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
@@ -77,7 +79,7 @@ def _retrain(args: argparse.Namespace) -> int:
         args.ref,
         store=open_store(getattr(args, "store", None)),
         variant=args.variant,
-        steps=args.steps,
+        env_step_budget=args.env_step_budget,
         deliberation_cost=args.deliberation_cost,
         seed=args.seed,
         from_scratch=args.from_scratch,

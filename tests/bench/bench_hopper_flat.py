@@ -1,13 +1,13 @@
 """Flat mode on Hopper-v5: final return and wall time per seed, beside a published PPO figure.
 
-Trains an mlp controller (inputs qpos, qvel; 64x64 tanh) for ``--steps`` env
+Trains an mlp controller (inputs qpos, qvel; 64x64 tanh) for ``--budget`` env
 steps per seed, then scores it on gymnasium's own Hopper-v5 (mean action, 10
 seeded episodes). Reference: PPO at 1M steps on Hopper, about 2,160 in
 Fujimoto, van Hoof & Meger 2018 (TD3 paper), Table 1 (from memory; older env
 versions, so a rough band only). The default 1M steps x 3 seeds takes hours on
 a shared 2-core machine.
 
-    python tests/bench/bench_hopper_flat.py [--steps 1000000] [--seeds 0 1 2] [--workers 1]
+    python tests/bench/bench_hopper_flat.py [--budget 1000000] [--seeds 0 1 2] [--workers 1]
 """
 
 from __future__ import annotations
@@ -48,9 +48,9 @@ def run(seed: int, steps: int, workers: int) -> tuple[float, float, float]:
                             options={"inputs": ["qpos", "qvel"], "hidden": [64, 64], "init_seed": seed},
                             exploration_std=0.6)
     # Common-practice clipped-surrogate settings for MuJoCo locomotion (2048 samples per update).
-    cfg = TrainConfig(steps=steps, n_envs=16, rollout_len=128, epochs=10, minibatch=256, lr=3e-4,
-                      lr_schedule="linear", gamma=0.99, lam=0.95, clip=0.2, value_coef=0.5,
-                      max_grad_norm=0.5, checkpoint_every=0, seed=seed)
+    cfg = TrainConfig(env_step_budget=steps, parallel_envs=16, segment_steps=128, update_passes=10, minibatch_size=256, learning_rate=3e-4,
+                      learning_rate_schedule="linear", gamma=0.99, lambda_=0.95, clip_ratio=0.2, critic_loss_weight=0.5,
+                      gradient_norm_cap=0.5, checkpoint_every=0, seed=seed)
     trainer = OptionCriticTrainer([flat_skill(ctrl, max_steps=rig.max_episode_steps)], rig, cfg,
                                   episode_per_skill=True, workers=workers)
     t = time.perf_counter()
@@ -62,7 +62,7 @@ def run(seed: int, steps: int, workers: int) -> tuple[float, float, float]:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--steps", type=int, default=1_000_000)
+    ap.add_argument("--budget", type=int, default=1_000_000)
     ap.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2])
     ap.add_argument("--workers", type=int, default=1)
     a = ap.parse_args()
@@ -70,10 +70,10 @@ def main() -> None:
     print("| --- | --- | --- | --- | --- | --- |")
     finals = []
     for seed in a.seeds:
-        final, training, wall = run(seed, a.steps, a.workers)
+        final, training, wall = run(seed, a.budget, a.workers)
         finals.append(final)
-        print(f"| {seed} | {a.steps:,} | {final:,.0f} | {training:,.0f} | {wall:,.0f} | ~{PUBLISHED_PPO_1M:,.0f} |", flush=True)
-    print(f"| mean | {a.steps:,} | {np.mean(finals):,.0f} | | | ~{PUBLISHED_PPO_1M:,.0f} |")
+        print(f"| {seed} | {a.budget:,} | {final:,.0f} | {training:,.0f} | {wall:,.0f} | ~{PUBLISHED_PPO_1M:,.0f} |", flush=True)
+    print(f"| mean | {a.budget:,} | {np.mean(finals):,.0f} | | | ~{PUBLISHED_PPO_1M:,.0f} |")
 
 
 if __name__ == "__main__":

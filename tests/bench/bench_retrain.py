@@ -71,20 +71,20 @@ def main() -> None:
     base = dataclasses.replace(base, eval_every=1, eval_episodes=a.episodes, checkpoint_every=0)
     target = parent_nominal.success_rate
     retrain_steps, retrained, t_re = steps_to_target(parent, heavy, base, start, target, a.seed, False)
-    scratch_cfg = dataclasses.replace(base, steps=5 * base.steps)
+    scratch_cfg = dataclasses.replace(base, env_step_budget=5 * base.env_step_budget)
     scratch_steps, scratch, t_sc = steps_to_target(parent, heavy, scratch_cfg, start, target, a.seed, True)
     fmt = lambda s: "not reached" if s is None else f"{s:,}"
     if retrain_steps is not None and scratch_steps is not None:
         ratio = f"{retrain_steps / scratch_steps:.3f}"
     elif retrain_steps is not None:
-        ratio = f"< {retrain_steps / scratch_cfg.steps:.3f} (scratch failed within 5x)"
+        ratio = f"< {retrain_steps / scratch_cfg.env_step_budget:.3f} (scratch failed within 5x)"
     else:
         ratio = "retraining failed"
     print(f"parent on nominal: success {parent_nominal.success_rate:.2f}; on heavy before retraining: {retrained.before.success_rate:.2f}")
     print("| task | target success | retrain steps | from-scratch steps (budget) | ratio | wall s (retrain / scratch) |")
     print("| --- | --- | --- | --- | --- | --- |")
     print(f"| arm-reach-tray, heavy_payload, seed {a.seed} | {target:.2f} | {fmt(retrain_steps)} | "
-          f"{fmt(scratch_steps)} ({scratch_cfg.steps:,}) | {ratio} | {t_re:.0f} / {t_sc:.0f} |")
+          f"{fmt(scratch_steps)} ({scratch_cfg.env_step_budget:,}) | {ratio} | {t_re:.0f} / {t_sc:.0f} |")
 
 
 if __name__ == "__main__":

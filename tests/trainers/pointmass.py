@@ -124,7 +124,7 @@ def quick_config(**overrides):
     from kinetome.trainers.config import TrainConfig
 
     base = dict(
-        steps=16 * 32 * 12, n_envs=16, rollout_len=32, epochs=4, minibatch=128, lr=0.02,
+        env_step_budget=16 * 32 * 12, parallel_envs=16, segment_steps=32, update_passes=4, minibatch_size=128, learning_rate=0.02,
         success_bonus=1.0, checkpoint_every=0, eval_episodes=16, critic_hidden=(32,), seed=3,
     )
     base.update(overrides)

@@ -24,7 +24,7 @@ _TIMING = ("steps_per_s",)
 
 def _trainer(rig, ckpt=None, progress=None, **over):
     skill = reach_skill(rig)
-    over.setdefault("steps", 16 * 32 * UPDATES)
+    over.setdefault("env_step_budget", 16 * 32 * UPDATES)
     cfg = quick_config(checkpoint_every=1, **over)
     return skill, OptionCriticTrainer([skill], rig, cfg, episode_per_skill=True, checkpoint_dir=ckpt, progress=progress)
 
@@ -109,21 +109,21 @@ def test_resume_after_sigkill_is_bit_for_bit(rig, uninterrupted, tmp_path):
 
 
 def test_a_completed_run_resumes_to_itself(rig, tmp_path):
-    skill_a, a = _trainer(rig, tmp_path, steps=16 * 32 * 2)
+    skill_a, a = _trainer(rig, tmp_path, env_step_budget=16 * 32 * 2)
     a.run()
-    skill_b, b = _trainer(rig, tmp_path, steps=16 * 32 * 2)
+    skill_b, b = _trainer(rig, tmp_path, env_step_budget=16 * 32 * 2)
     assert b.run(resume=True).updates == 2
     _assert_identical(skill_a, a, skill_b, b)
 
 
 def test_existing_checkpoint_needs_resume_and_the_same_settings(rig, tmp_path):
-    _, a = _trainer(rig, tmp_path, steps=16 * 32 * 1)
+    _, a = _trainer(rig, tmp_path, env_step_budget=16 * 32 * 1)
     a.run()
-    _, b = _trainer(rig, tmp_path, steps=16 * 32 * 1)
+    _, b = _trainer(rig, tmp_path, env_step_budget=16 * 32 * 1)
     with pytest.raises(TrainingError, match="already holds a checkpoint; pass resume=True"):
         b.run()
-    _, c = _trainer(rig, tmp_path, steps=16 * 32 * 1, lr=0.5)
-    with pytest.raises(TrainingError, match=r"resume must use the settings .* \(lr: 0.02 -> 0.5\)"):
+    _, c = _trainer(rig, tmp_path, env_step_budget=16 * 32 * 1, learning_rate=0.5)
+    with pytest.raises(TrainingError, match=r"resume must use the settings .* \(learning_rate: 0.02 -> 0.5\)"):
         c.run(resume=True)
 
 

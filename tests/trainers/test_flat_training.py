@@ -24,7 +24,7 @@ def rig():
 def test_retraining_improves_the_reach_and_leaves_the_input_alone(rig):
     skill = loaded_reach(rig)
     stored = skill.controller.parameter_values()
-    result = retrain_skill(skill, rig, quick_config(steps=16 * 32 * 25), seed=3)
+    result = retrain_skill(skill, rig, quick_config(env_step_budget=16 * 32 * 25), seed=3)
     # The untrained skill (zero gain) never reaches the goal in 60 steps; trained runs on seeds 1-5
     # reached mean returns between -15.6 and -9.4 (from -22.3) and success 0.06-0.56.
     assert result.before.success_rate == 0.0
@@ -40,7 +40,7 @@ def test_retraining_improves_the_reach_and_leaves_the_input_alone(rig):
 
 def _train(rig, seed, updates=4, workers=1, **over):
     skill = reach_skill(rig)
-    trainer = OptionCriticTrainer([skill], rig, quick_config(steps=16 * 32 * updates, seed=seed, **over),
+    trainer = OptionCriticTrainer([skill], rig, quick_config(env_step_budget=16 * 32 * updates, seed=seed, **over),
                                   episode_per_skill=True, workers=workers)
     trainer.run()
     return skill.controller.parameter_values(), trainer
@@ -76,7 +76,7 @@ def test_parameter_bounds_hold_after_every_update(rig):
             low, high = bounds[name]
             seen.append(bool(np.all(value >= low) and np.all(value <= high)))
 
-    OptionCriticTrainer([skill], rig, quick_config(steps=16 * 32 * 5, lr=0.2), episode_per_skill=True, progress=check).run()
+    OptionCriticTrainer([skill], rig, quick_config(env_step_budget=16 * 32 * 5, learning_rate=0.2), episode_per_skill=True, progress=check).run()
     assert len(seen) == 5 * 4 and all(seen)
     # with lr 0.2 the gains are pushed onto their bounds: the projection was needed
     assert np.max(np.abs(ctrl.parameter_values()["gain"])) == pytest.approx(0.3)
@@ -92,7 +92,7 @@ def test_parameters_named_by_predicates_stay_fixed(rig):
     )
     assert skill.frozen == ("bias",)
     before = ctrl.parameter_values()
-    OptionCriticTrainer([skill], rig, quick_config(steps=16 * 32 * 3), episode_per_skill=True).run()
+    OptionCriticTrainer([skill], rig, quick_config(env_step_budget=16 * 32 * 3), episode_per_skill=True).run()
     after = ctrl.parameter_values()
     np.testing.assert_array_equal(after["bias"], before["bias"])
     assert not np.array_equal(after["gain"], before["gain"])
@@ -100,7 +100,7 @@ def test_parameters_named_by_predicates_stay_fixed(rig):
 
 def test_progress_stream_and_curves(rig, tmp_path):
     out = io.StringIO()
-    trainer = OptionCriticTrainer([reach_skill(rig)], rig, quick_config(steps=16 * 32 * 3), episode_per_skill=True, progress=out)
+    trainer = OptionCriticTrainer([reach_skill(rig)], rig, quick_config(env_step_budget=16 * 32 * 3), episode_per_skill=True, progress=out)
     trainer.run()
     lines = out.getvalue().splitlines()
     assert len(lines) == 3 and lines[-1].startswith("update 3/3  steps 1536/1536  return ")
@@ -126,7 +126,7 @@ def test_non_finite_reward_stops_with_a_clear_error_and_keeps_the_checkpoint(tmp
         return total, terms
 
     rig = dataclasses.replace(base, reward=reward)
-    trainer = OptionCriticTrainer([reach_skill(rig)], rig, quick_config(steps=16 * 32 * 5, checkpoint_every=1),
+    trainer = OptionCriticTrainer([reach_skill(rig)], rig, quick_config(env_step_budget=16 * 32 * 5, checkpoint_every=1),
                                   episode_per_skill=True, checkpoint_dir=tmp_path / "ckpt")
     with pytest.raises(TrainingError, match=r"reward must be finite, got nan in simulations \[1\].*last good checkpoint \(update 2\)"):
         trainer.run()
@@ -153,7 +153,7 @@ def test_starts_outside_starts_when_are_reported(rig):
         name="never", controller=linear_controller(rig), max_steps=10,
         starts_when=parse_predicate("norm(qpos) > 5", rig.layout.shapes()),
     )
-    trainer = OptionCriticTrainer([skill], rig, quick_config(steps=512), episode_per_skill=True)
+    trainer = OptionCriticTrainer([skill], rig, quick_config(env_step_budget=512), episode_per_skill=True)
     with pytest.raises(TrainingError, match="start states must satisfy starts_when of never"):
         trainer.run()
 
@@ -167,13 +167,13 @@ def test_from_scratch_reinitialises_but_keeps_goal_parameters(rig):
     np.testing.assert_array_equal(values["gain"], np.zeros((2, 4)))  # the linear kind's default gain
     np.testing.assert_allclose(values["reference"][:2], [0.3, 0.0])  # kept
     skill = loaded_reach(rig, gain=3.0)
-    result = retrain_skill(skill, rig, quick_config(steps=16 * 32 * 2), seed=0, from_scratch=True)
+    result = retrain_skill(skill, rig, quick_config(env_step_budget=16 * 32 * 2), seed=0, from_scratch=True)
     assert result.from_scratch and result.before.success_rate > 0.5  # the stored version reaches
     assert result.metadata()["from_scratch"] is True
 
 
 def test_result_curves_are_written(rig, tmp_path):
-    result = retrain_skill(loaded_reach(rig), rig, quick_config(steps=16 * 32 * 2), seed=0)
+    result = retrain_skill(loaded_reach(rig), rig, quick_config(env_step_budget=16 * 32 * 2), seed=0)
     csv_path, png_path = result.save_curves(tmp_path, stem="reach")
     assert csv_path.name == "reach.csv" and len(csv_path.read_text().splitlines()) == 3
     assert png_path.read_bytes()[:4] == b"\x89PNG"

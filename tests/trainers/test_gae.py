@@ -37,7 +37,7 @@ def _monte_carlo(rewards, dones, last, gamma):
 def test_lambda_one_is_monte_carlo_return_minus_baseline(seed):
     # Schulman et al. 2016, eq. 18: GAE(gamma, 1) = sum_l gamma^l r_{t+l} - V(s_t)
     rewards, values, dones, last = _rollout(seed)
-    adv, ret = gae(rewards, values, dones, last, gamma=0.97, lam=1.0)
+    adv, ret = gae(rewards, values, dones, last, gamma=0.97, lambda_=1.0)
     mc = _monte_carlo(rewards, dones, last, 0.97)
     np.testing.assert_allclose(adv, mc - values, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(ret, mc, rtol=1e-12, atol=1e-12)
@@ -47,17 +47,17 @@ def test_lambda_one_is_monte_carlo_return_minus_baseline(seed):
 def test_lambda_zero_is_one_step_td_error(seed):
     # Schulman et al. 2016, eq. 17: GAE(gamma, 0) = r_t + gamma V(s_{t+1}) - V(s_t)
     rewards, values, dones, last = _rollout(seed)
-    adv, _ = gae(rewards, values, dones, last, gamma=0.9, lam=0.0)
+    adv, _ = gae(rewards, values, dones, last, gamma=0.9, lambda_=0.0)
     next_values = np.concatenate([values[1:], last[None]], axis=0)
     td = rewards + 0.9 * (~dones) * next_values - values
     np.testing.assert_allclose(adv, td, rtol=1e-12, atol=1e-12)
 
 
 def test_general_lambda_is_discounted_sum_of_td_errors():
-    # Schulman et al. 2016, eq. 16: A_t = sum_l (gamma lam)^l delta_{t+l}, cut at episode ends
+    # Schulman et al. 2016, eq. 16: A_t = sum_l (gamma lambda)^l delta_{t+l}, cut at episode ends
     rewards, values, dones, last = _rollout(7)
-    gamma, lam = 0.95, 0.8
-    adv, _ = gae(rewards, values, dones, last, gamma=gamma, lam=lam)
+    gamma, lambda_ = 0.95, 0.8
+    adv, _ = gae(rewards, values, dones, last, gamma=gamma, lambda_=lambda_)
     next_values = np.concatenate([values[1:], last[None]], axis=0)
     delta = rewards + gamma * (~dones) * next_values - values
     T, N = rewards.shape
@@ -68,7 +68,7 @@ def test_general_lambda_is_discounted_sum_of_td_errors():
                 total += w * delta[k, n]
                 if dones[k, n]:
                     break
-                w *= gamma * lam
+                w *= gamma * lambda_
                 k += 1
             assert adv[t, n] == pytest.approx(total, abs=1e-12)
 
@@ -77,7 +77,7 @@ def test_episode_boundary_stops_credit_flowing_back():
     rewards = np.array([[0.0], [0.0], [100.0]])
     values = np.zeros((3, 1))
     dones = np.array([[False], [True], [False]])
-    adv, _ = gae(rewards, values, dones, np.zeros(1), gamma=1.0, lam=1.0)
+    adv, _ = gae(rewards, values, dones, np.zeros(1), gamma=1.0, lambda_=1.0)
     assert adv[:2, 0].tolist() == [0.0, 0.0]
     assert adv[2, 0] == 100.0
 
@@ -89,13 +89,13 @@ def test_episode_boundary_stops_credit_flowing_back():
         (dict(values=np.zeros((2, 2))), "values must have the shape of rewards"),
         (dict(dones=np.zeros((3, 1), bool)), "dones must have the shape of rewards"),
         (dict(last_values=np.zeros(3)), "last_values must be (N,)"),
-        (dict(gamma=1.5), "gamma and lam must lie in [0, 1]"),
+        (dict(gamma=1.5), "gamma and lambda must lie in [0, 1]"),
     ],
 )
 def test_bad_inputs_are_reported(kwargs, message):
     args = dict(rewards=np.zeros((3, 2)), values=np.zeros((3, 2)), dones=np.zeros((3, 2), bool), last_values=np.zeros(2))
-    opts = dict(gamma=0.9, lam=0.9)
-    for key in ("gamma", "lam"):
+    opts = dict(gamma=0.9, lambda_=0.9)
+    for key in ("gamma", "lambda_"):
         if key in kwargs:
             opts[key] = kwargs.pop(key)
     args.update(kwargs)

@@ -19,8 +19,8 @@ def test_inverted_pendulum_reaches_reward_threshold(seed):
     rig = make_rig("InvertedPendulum-v5")
     ctrl = build_controller("mlp", context_from_rig(rig), options={"inputs": ["qpos", "qvel"], "hidden": [64, 64]},
                             exploration_std=1.0)
-    cfg = TrainConfig(steps=BUDGET, n_envs=16, rollout_len=128, epochs=10, minibatch=256, lr=3e-4,
-                      gamma=0.99, lam=0.95, checkpoint_every=0, seed=seed)
+    cfg = TrainConfig(env_step_budget=BUDGET, parallel_envs=16, segment_steps=128, update_passes=10, minibatch_size=256, learning_rate=3e-4,
+                      gamma=0.99, lambda_=0.95, checkpoint_every=0, seed=seed)
     OptionCriticTrainer([flat_skill(ctrl, max_steps=rig.max_episode_steps)], rig, cfg, episode_per_skill=True).run()
     # Judged on gymnasium's own env (the outside reference), mean action, 10 seeded episodes.
     env = gymnasium.make("InvertedPendulum-v5")

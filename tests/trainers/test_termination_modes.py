@@ -17,7 +17,7 @@ def _stats(mode, stop_text, init_logit, max_steps=60):
         s.name, s.starts_when = name, None
         s.stops_when = parse_predicate(stop_text, rig.layout.shapes())
         skills.append(s)
-    cfg = quick_config(steps=16 * 32, termination=mode, termination_init=init_logit)
+    cfg = quick_config(env_step_budget=16 * 32, stop_mode=mode, stop_init_logit=init_logit)
     trainer = OptionCriticTrainer(skills, rig, cfg, episode_per_skill=False)
     trainer.collector.start()
     trainer.collector.collect()

@@ -27,8 +27,8 @@ def _twin_skills(rig):
 
 def _duration(rig, eta, seed):
     cfg = quick_config(
-        steps=16 * 32 * 8, termination="learned", termination_init=0.0, termination_lr=0.05,
-        deliberation_cost=eta, normalise_rewards=False, success_bonus=0.0, seed=seed,
+        env_step_budget=16 * 32 * 8, stop_mode="learned", stop_init_logit=0.0, stop_lr=0.05,
+        deliberation_cost=eta, scale_rewards=False, success_bonus=0.0, seed=seed,
     )
     return train_trainables(_twin_skills(rig), rig, cfg)
 
@@ -49,7 +49,7 @@ def test_deliberation_cost_makes_skills_run_longer(rig, seed):
 def test_train_skills_on_loaded_skills_returns_refinements(rig):
     a, b = loaded_reach(rig, gain=2.0, name="near"), loaded_reach(rig, gain=0.5, name="slow")
     stored = a.controller.parameter_values()
-    cfg = quick_config(steps=16 * 32 * 3, termination="hard", deliberation_cost=0.01)
+    cfg = quick_config(env_step_budget=16 * 32 * 3, stop_mode="hard", deliberation_cost=0.01)
     result = train_skills([a, b], rig, cfg, seed=2)
     assert result.skill_refs == ("near", "slow")
     assert set(result.parameters) == {"near", "slow"}
@@ -65,7 +65,7 @@ def test_registered_mode_stops_exactly_at_stops_when(rig):
     # beta = 1 where stops_when holds and 0 elsewhere: every termination inside an episode is a stop or a timeout.
     skills = [reach_skill(rig, gain=3.0), reach_skill(rig, gain=2.0)]
     skills[1].name = "reach2"
-    trainer = OptionCriticTrainer(skills, rig, quick_config(steps=16 * 32, termination="registered"), episode_per_skill=False)
+    trainer = OptionCriticTrainer(skills, rig, quick_config(env_step_budget=16 * 32, stop_mode="registered"), episode_per_skill=False)
     assert trainer.heads is None
     trainer.collector.start()
     trainer.collector.collect()

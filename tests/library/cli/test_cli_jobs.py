@@ -70,7 +70,7 @@ def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
         "--variant", str(CONFIGS / "variants" / "heavy_payload.yaml"),
         "--start", str(CONFIGS / "starts" / "arm_clearance.yaml"),
         "--config", str(CONFIGS / "training" / "demo_quick.yaml"),
-        "--steps", "8192", "--out", str(tmp_path / "rt"), "--json",
+        "--budget", "8192", "--out", str(tmp_path / "rt"), "--json",
     )
     assert code == 0 and r["child"] == "arm-reach-tray@2" and r["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]
     assert Path(r["curve_csv"]).read_text().splitlines()[0].startswith("update")
@@ -106,7 +106,7 @@ def test_bad_variant_exit_2_with_reason(store, tmp_path, capsys, text, expected)
 
 
 def test_train_options_stores_children_and_reports_durations(store, tmp_path, capsys) -> None:
-    text = (CONFIGS / "training" / "options_small.yaml").read_text().replace("steps: 32768", "steps: 4096")
+    text = (CONFIGS / "training" / "options_small.yaml").read_text().replace("env_step_budget: 32768", "env_step_budget: 4096")
     config = tmp_path / "options_tiny.yaml"
     config.write_text(text)
     code, r = _json(capsys, "--store", store, "train", str(config), "--out", str(tmp_path / "train"), "--json")
@@ -115,3 +115,18 @@ def test_train_options_stores_children_and_reports_durations(store, tmp_path, ca
     for child in r["children"]:
         code, view = _json(capsys, "--store", store, "show", child, "--json")
         assert view["reason"] == "retrained" and view["parent"].split("@")[0] == child.split("@")[0]
+
+
+def test_old_option_spelling_still_works_with_one_warning() -> None:
+    import warnings
+
+    from kinetome.library.cli.main import build_parser
+    from kinetome.library.renamed_keys import RenamedKeyWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        new = build_parser().parse_args(["retrain", "x", "--variant", "v.yaml", "--budget", "5"])
+        old = build_parser().parse_args(["retrain", "x", "--variant", "v.yaml", "--steps", "5"])
+    assert new.env_step_budget == old.env_step_budget == 5
+    assert [str(w.message) for w in caught if w.category is RenamedKeyWarning] == ["'--steps' is an old spelling; write '--budget' instead"]
+    assert build_parser().parse_args(["retrain", "x", "--variant", "v.yaml"]).env_step_budget is None
