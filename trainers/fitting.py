@@ -226,39 +226,10 @@ def fit_option_models(
     states of stopped and of timed-out turns get separate models (each needs
     MIN_STOPPED training episodes), those of terminated turns none.
     """
-    segments = tuple(rollout.segments)
-    if not -len(segments) <= int(segment_index) < len(segments):
-        raise _bad(f"segment_index must be in [0, {len(segments) - 1}] for this {len(segments)}-skill rollout, got {segment_index}")
-    seg = segments[segment_index]
-    r_gamma = float(rollout.gamma)
-    if gamma is not None and abs(float(gamma) - r_gamma) > 1e-15:
-        raise _bad(
-            f"gamma must equal the rollout's gamma {r_gamma} because its discounted returns were summed with it, "
-            f"got {gamma}; run the rollout again with gamma={gamma}"
-        )
-    if not 0.0 < holdout < 1.0:
-        raise _bad(f"holdout must be a fraction in (0, 1), got {holdout}; e.g. 0.25")
-    if expansion not in ("auto", *EXPANSIONS):
-        raise _bad(f"expansion must be one of {('auto', *EXPANSIONS)}, got {expansion!r}")
-    reasons = np.asarray(seg.reason).astype(np.int64)
-    counts = {label: int(np.sum(reasons == code)) for label, code in OUTCOME_CODES.items()}
-    counts["refused"] = int(np.sum(reasons == int(EndReason.REFUSED)))
-    ran = np.flatnonzero(np.isin(reasons, _RAN))
-    if ran.size < MIN_EPISODES:
-        raise _bad(
-            f"segment {segment_index} ({seg.skill_ref}) must have at least {MIN_EPISODES} episodes that ran, got "
-            f"{ran.size} (outcomes {counts}); run more episodes or start inside starts_when"
-        )
+    seg, r_gamma = _segment(rollout, segment_index, gamma, holdout=holdout, expansion=expansion)
+    reasons, counts, ran = _episodes_that_ran(seg, segment_index)
     starts_all, ends_all = seg.start_state, seg.end_state
-    if features is None:
-        features = ("qpos", "qvel") if "qpos" in starts_all and "qvel" in starts_all else default_quantities(starts_all)
-    features = _check_quantities(features, starts_all, "features")
-    if end_quantities is None:
-        end_quantities = default_quantities(ends_all)
-    end_quantities = _check_quantities(end_quantities, ends_all, "end_quantities")
-    too_big = [q for q in end_quantities if np.ndim(ends_all[q]) > 2]
-    if too_big:
-        raise _bad(f"end_quantities must be scalars or vectors, got matrix-valued {too_big}; leave Jacobians out")
+    features, end_quantities = _quantities(starts_all, ends_all, features, end_quantities)
 
     rng = np.random.default_rng([seed, 0xF17])
     tr_local, te_local = _split(ran.size, holdout, seed)
@@ -271,17 +242,76 @@ def fit_option_models(
     x_tr, x_te = fmap(starts_tr), fmap(_take(starts_all, test))
     env_id = str(rollout.env_id)
     v_name, v_digest = _variant_of(getattr(rollout, "meta", {}) or {})
-    v_name = v_name if variant is None else variant
-    v_digest = v_digest if variant_digest is None else variant_digest
+    v_name, v_digest = (v_name if variant is None else variant), (v_digest if variant_digest is None else variant_digest)
 
     duration = _fit_duration(fmap, x_tr, x_te, seg, r_gamma, train, test)
     reward = _fit_reward(fmap, x_tr, x_te, seg, r_gamma, train, test, env_id, v_name)
+    end_models, notes = _fit_end_states(
+        fmap, _take(starts_all, ran), _take(ends_all, ran), reasons[ran], end_quantities, tr_local, te_local, envelope, rng
+    )
+    meta = ModelsMeta(
+        skill_ref=str(seg.skill_ref if skill_ref is None else skill_ref), env_id=env_id, gamma=r_gamma,
+        episodes=int(np.sum(reasons != int(EndReason.NOT_REACHED))),  # offered the skill
+        outcomes=counts, fitted_at=fitted_at or datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        features=features, end_quantities=end_quantities, variant=v_name, variant_digest=v_digest,
+        seed=int(seed), holdout=float(holdout), notes=tuple(notes),
+    )
+    return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"])
 
+
+def _segment(rollout: Any, segment_index: int, gamma: float | None, *, holdout: float, expansion: str) -> tuple[Any, float]:
+    """The segment to fit and the rollout's gamma; a different ``gamma`` or a bad option is refused."""
+    segments = tuple(rollout.segments)
+    if not -len(segments) <= int(segment_index) < len(segments):
+        raise _bad(f"segment_index must be in [0, {len(segments) - 1}] for this {len(segments)}-skill rollout, got {segment_index}")
+    r_gamma = float(rollout.gamma)
+    if gamma is not None and abs(float(gamma) - r_gamma) > 1e-15:
+        raise _bad(
+            f"gamma must equal the rollout's gamma {r_gamma} because its discounted returns were summed with it, "
+            f"got {gamma}; run the rollout again with gamma={gamma}"
+        )
+    if not 0.0 < holdout < 1.0:
+        raise _bad(f"holdout must be a fraction in (0, 1), got {holdout}; e.g. 0.25")
+    if expansion not in ("auto", *EXPANSIONS):
+        raise _bad(f"expansion must be one of {('auto', *EXPANSIONS)}, got {expansion!r}")
+    return segments[segment_index], r_gamma
+
+
+def _episodes_that_ran(seg: Any, segment_index: int) -> tuple[np.ndarray, dict[str, int], np.ndarray]:
+    """(end reasons, outcome counts, indices of episodes the skill ran in); too few is refused."""
+    reasons = np.asarray(seg.reason).astype(np.int64)
+    counts = {label: int(np.sum(reasons == code)) for label, code in OUTCOME_CODES.items()}
+    counts["refused"] = int(np.sum(reasons == int(EndReason.REFUSED)))
+    ran = np.flatnonzero(np.isin(reasons, _RAN))
+    if ran.size < MIN_EPISODES:
+        raise _bad(
+            f"segment {segment_index} ({seg.skill_ref}) must have at least {MIN_EPISODES} episodes that ran, got "
+            f"{ran.size} (outcomes {counts}); run more episodes or start inside starts_when"
+        )
+    return reasons, counts, ran
+
+
+def _quantities(starts: Mapping[str, np.ndarray], ends: Mapping[str, np.ndarray], features: Sequence[str] | None,
+                end_quantities: Sequence[str] | None) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The start-state features and end-state quantities to use (defaults documented in ``fit_option_models``)."""
+    if features is None:
+        features = ("qpos", "qvel") if "qpos" in starts and "qvel" in starts else default_quantities(starts)
+    features = _check_quantities(features, starts, "features")
+    if end_quantities is None:
+        end_quantities = default_quantities(ends)
+    end_quantities = _check_quantities(end_quantities, ends, "end_quantities")
+    too_big = [q for q in end_quantities if np.ndim(ends[q]) > 2]
+    if too_big:
+        raise _bad(f"end_quantities must be scalars or vectors, got matrix-valued {too_big}; leave Jacobians out")
+    return features, end_quantities
+
+
+def _fit_end_states(fmap, starts_ran, ends_ran, reasons_ran, end_quantities, tr_local, te_local, envelope, rng):
+    """End-state models of stopped and of timed-out turns (None where too few), and notes on the missing ones."""
     notes: list[str] = []
-    starts_ran, ends_ran = _take(starts_all, ran), _take(ends_all, ran)
     end_models: dict[str, EndStateModel | None] = {}
     for outcome in ("stopped", "timed_out"):
-        rows = np.flatnonzero(reasons[ran] == OUTCOME_CODES[outcome])  # positions within `ran`
+        rows = np.flatnonzero(reasons_ran == OUTCOME_CODES[outcome])  # positions within the episodes that ran
         o_train, o_test = np.intersect1d(rows, tr_local), np.intersect1d(rows, te_local)
         end_models[outcome] = None
         if o_train.size >= MIN_STOPPED and o_test.size >= 1:
@@ -293,22 +323,7 @@ def fit_option_models(
                 f"no {outcome} end-state model: {o_train.size} {outcome} training and {o_test.size} held-out "
                 f"episodes (need {MIN_STOPPED} and 1)"
             )
-    meta = ModelsMeta(
-        skill_ref=str(seg.skill_ref if skill_ref is None else skill_ref),
-        env_id=env_id,
-        gamma=r_gamma,
-        episodes=int(np.sum(reasons != int(EndReason.NOT_REACHED))),  # offered the skill
-        outcomes=counts,
-        fitted_at=fitted_at or datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        features=features,
-        end_quantities=end_quantities,
-        variant=v_name,
-        variant_digest=v_digest,
-        seed=int(seed),
-        holdout=float(holdout),
-        notes=tuple(notes),
-    )
-    return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"])
+    return end_models, notes
 
 
 def collect_and_fit(

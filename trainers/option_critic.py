@@ -105,39 +105,31 @@ class OptionCriticTrainer:
         self.np_rng = np.random.default_rng(config.seed)
         self.torch_gen = torch.Generator().manual_seed(config.seed)
         n_obs = self._n_features()
-        K = len(self.skills)
-        with torch.random.fork_rng(devices=[]):
-            torch.manual_seed(config.seed)
-            self.critic = SkillCritic(n_obs, K, config.critic_hidden)
-            learns_termination = (not episode_per_skill) and config.stop_mode != "registered"
-            self.heads = (
-                TerminationHeads(n_obs, K, config.stop_hidden, init_logit=config.stop_init_logit)
-                if learns_termination
-                else None
-            )
+        self.critic, self.heads = self._networks(n_obs)
         self.obs_norm = ObservationNormaliser(n_obs)
         self.ret_norm = ReturnNormaliser(config.parallel_envs, gamma=config.gamma)
         params = [p for s in self.skills for p in s.trainable_parameters()] + list(self.critic.parameters())
         self.optimiser = torch.optim.Adam(params, lr=config.learning_rate, eps=1e-5)
         self.term_optimiser = torch.optim.Adam(self.heads.parameters(), lr=config.stop_lr) if self.heads else None
         self.collector = Collector(
-            rig=rig,
-            skills=self.skills,
-            config=config,
-            sampler=self.sampler,
-            episode_per_skill=episode_per_skill,
-            nthread=workers,
-            critic=self.critic,
-            heads=self.heads,
-            obs_norm=self.obs_norm,
-            ret_norm=self.ret_norm,
-            np_rng=self.np_rng,
-            torch_gen=self.torch_gen,
+            rig=rig, skills=self.skills, config=config, sampler=self.sampler, episode_per_skill=episode_per_skill,
+            nthread=workers, critic=self.critic, heads=self.heads, obs_norm=self.obs_norm, ret_norm=self.ret_norm,
+            np_rng=self.np_rng, torch_gen=self.torch_gen,
         )
         self.rows: list[dict[str, Any]] = []
         self.update_index = 0
         self.steps = 0
         self.resumed_from: int | None = None
+
+    def _networks(self, n_obs: int) -> tuple[SkillCritic, TerminationHeads | None]:
+        """Critic and (unless stops are registered or the mode is flat) termination heads, seeded by ``config.seed``."""
+        cfg = self.config
+        with torch.random.fork_rng(devices=[]):
+            torch.manual_seed(cfg.seed)
+            critic = SkillCritic(n_obs, len(self.skills), cfg.critic_hidden)
+            if self.episode_per_skill or cfg.stop_mode == "registered":
+                return critic, None
+            return critic, TerminationHeads(n_obs, len(self.skills), cfg.stop_hidden, init_logit=cfg.stop_init_logit)
 
     def _n_features(self) -> int:
         from kinetome.library.runtime.sim import SimBatch
@@ -231,78 +223,80 @@ class OptionCriticTrainer:
             return self._run(resume)
 
     def _run(self, resume: bool) -> TrainOutcome:
+        self._begin(resume)
         cfg = self.config
-        restored = False
+        total_updates = cfg.updates
+        completed = True
+        stats = EpisodeStats().summary()
+        clock = (time.perf_counter(), self.steps)
+        try:
+            while self.update_index < total_updates:
+                row, stats = self._update_once(total_updates, clock)
+                if cfg.checkpoint_every and (self.update_index % cfg.checkpoint_every == 0 or self.update_index == total_updates):
+                    self._save()
+                if not self._report(row, total_updates):
+                    completed = self.update_index >= total_updates
+                    break
+        except TrainingError as exc:
+            raise TrainingError(f"{exc} [{self._checkpoint_note()}]") from exc
+        return TrainOutcome(
+            rows=self.rows, steps=self.steps, updates=self.update_index, completed=completed, critic=self.critic,
+            heads=self.heads, obs_norm=self.obs_norm, ret_norm=self.ret_norm, last_stats=stats,
+            resumed_from=self.resumed_from,
+        )
+
+    def _begin(self, resume: bool) -> None:
+        """Restore the checkpoint (``resume``), refuse to overwrite one otherwise, or start fresh episodes."""
         if self.checkpoint_dir is not None:
-            if resume:
-                restored = self._restore()
-            elif load_checkpoint(self.checkpoint_dir) is not None:
+            if resume and self._restore():
+                return
+            if not resume and load_checkpoint(self.checkpoint_dir) is not None:
                 raise TrainingError(
                     f"checkpoint_dir {self.checkpoint_dir} already holds a checkpoint; "
                     "pass resume=True to continue it, or choose an empty folder"
                 )
-        if not restored:
-            self.collector.start()
-        total_updates = cfg.updates
-        completed = True
-        stats = EpisodeStats().summary()
-        wall_start, steps_start = time.perf_counter(), self.steps
-        try:
-            while self.update_index < total_updates:
-                u = self.update_index
-                lr = cfg.learning_rate * (1.0 - u / total_updates) if cfg.learning_rate_schedule == "linear" else cfg.learning_rate
-                for group in self.optimiser.param_groups:
-                    group["lr"] = lr
-                rollout = self.collector.collect()
-                stats = self.collector.stats.summary()
-                info = update_from_rollout(
-                    rollout,
-                    skills=self.skills,
-                    critic=self.critic,
-                    heads=self.heads,
-                    optimiser=self.optimiser,
-                    term_optimiser=self.term_optimiser,
-                    config=cfg,
-                    generator=self.torch_gen,
-                    update_index=u + 1,
-                )
-                check_finite_parameters(self._modules(), where=f"after update {u + 1}")
-                self.update_index = u + 1
-                self.steps += cfg.batch_size
-                elapsed = time.perf_counter() - wall_start
-                row: dict[str, Any] = {
-                    "update": self.update_index,
-                    "steps": self.steps,
-                    **{k: stats[k] for k in ("episodes", "return_mean", "success_rate", "length_mean", "termination_rate", "mean_skill_duration")},
-                    **{k: info.get(k) for k in ("policy_loss", "value_loss", "termination_loss", "entropy", "approx_kl", "clip_fraction", "explained_variance")},
-                    "lr": lr,
-                    "steps_per_s": (self.steps - steps_start) / elapsed if elapsed > 0 else float("nan"),
-                }
-                if self.evaluate is not None and cfg.eval_every and self.update_index % cfg.eval_every == 0:
-                    row.update(self.evaluate())
-                self.rows.append(row)
-                if cfg.checkpoint_every and (self.update_index % cfg.checkpoint_every == 0 or self.update_index == total_updates):
-                    self._save()
-                if self.progress is not None and (self.update_index % cfg.log_every == 0 or self.update_index == total_updates):
-                    try:
-                        self.progress({**row, "updates": total_updates, "total_steps": total_updates * cfg.batch_size})
-                    except StopTraining:
-                        completed = self.update_index >= total_updates
-                        break
-        except TrainingError as exc:
-            raise TrainingError(f"{exc} [{self._checkpoint_note()}]") from exc
-        return TrainOutcome(
-            rows=self.rows,
-            steps=self.steps,
-            updates=self.update_index,
-            completed=completed,
-            critic=self.critic,
-            heads=self.heads,
-            obs_norm=self.obs_norm,
-            ret_norm=self.ret_norm,
-            last_stats=stats,
-            resumed_from=self.resumed_from,
+        self.collector.start()
+
+    def _update_once(self, total_updates: int, clock: tuple[float, int]) -> tuple[dict[str, Any], dict[str, float]]:
+        """Collect one rollout, update on it; return the curve row and the rollout's episode statistics."""
+        cfg = self.config
+        u = self.update_index
+        lr = cfg.learning_rate * (1.0 - u / total_updates) if cfg.learning_rate_schedule == "linear" else cfg.learning_rate
+        for group in self.optimiser.param_groups:
+            group["lr"] = lr
+        rollout = self.collector.collect()
+        stats = self.collector.stats.summary()
+        info = update_from_rollout(
+            rollout, skills=self.skills, critic=self.critic, heads=self.heads, optimiser=self.optimiser,
+            term_optimiser=self.term_optimiser, config=cfg, generator=self.torch_gen, update_index=u + 1,
         )
+        check_finite_parameters(self._modules(), where=f"after update {u + 1}")
+        self.update_index = u + 1
+        self.steps += cfg.batch_size
+        elapsed = time.perf_counter() - clock[0]
+        row: dict[str, Any] = {
+            "update": self.update_index,
+            "steps": self.steps,
+            **{k: stats[k] for k in ("episodes", "return_mean", "success_rate", "length_mean", "termination_rate", "mean_skill_duration")},
+            **{k: info.get(k) for k in ("policy_loss", "value_loss", "termination_loss", "entropy", "approx_kl", "clip_fraction", "explained_variance")},
+            "lr": lr,
+            "steps_per_s": (self.steps - clock[1]) / elapsed if elapsed > 0 else float("nan"),
+        }
+        if self.evaluate is not None and cfg.eval_every and self.update_index % cfg.eval_every == 0:
+            row.update(self.evaluate())
+        self.rows.append(row)
+        return row, stats
+
+    def _report(self, row: dict[str, Any], total_updates: int) -> bool:
+        """Send the row to the progress callback when due; False when it asked to stop."""
+        cfg = self.config
+        if self.progress is None or not (self.update_index % cfg.log_every == 0 or self.update_index == total_updates):
+            return True
+        try:
+            self.progress({**row, "updates": total_updates, "total_steps": total_updates * cfg.batch_size})
+        except StopTraining:
+            return False
+        return True
 
     def _checkpoint_note(self) -> str:
         if self.checkpoint_dir is None:

@@ -119,40 +119,46 @@ def retrain_skill(
     Parameters named by the predicates stay fixed. ``seed`` overrides
     ``config.seed``; evaluation uses the same seed before and after.
     """
-    from kinetome.library.controllers import save_parameters
-
     t0 = time.perf_counter()
     config = dataclasses.replace(config, seed=int(seed))
+    work, trainable = _working_copy(skill, from_scratch=from_scratch)
+
+    def measure(which: Any) -> SkillMetrics:
+        return evaluate_skill(which, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+
+    def evaluate() -> dict[str, float]:
+        m = measure(work)
+        return {"eval_success_rate": m.success_rate, "eval_return": m.mean_return}
+
+    before = measure(skill)
+    trainer = OptionCriticTrainer(
+        [trainable], rig, config, start=start, episode_per_skill=True, workers=workers,
+        checkpoint_dir=checkpoint_dir, progress=progress, evaluate=evaluate,
+    )
+    outcome = trainer.run(resume=resume)
+    return _result(skill, work, rig, config, outcome, before=before, after=measure(work), from_scratch=from_scratch, t0=t0)
+
+
+def _working_copy(skill: Any, *, from_scratch: bool) -> tuple[Any, Any]:
+    """A copy of the loaded skill with its own controller, and the trainer's view of it."""
     controller = copy.deepcopy(skill.controller)
     work = dataclasses.replace(skill, controller=controller)
     trainable = trainable_from_loaded(work)
     if from_scratch:
         reinitialise_controller(controller, keep=trainable.frozen)
         trainable.adapt_inputs = True
-    before = evaluate_skill(skill, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+    return work, trainable
 
-    def evaluate() -> dict[str, float]:
-        m = evaluate_skill(work, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
-        return {"eval_success_rate": m.success_rate, "eval_return": m.mean_return}
 
-    trainer = OptionCriticTrainer(
-        [trainable],
-        rig,
-        config,
-        start=start,
-        episode_per_skill=True,
-        workers=workers,
-        checkpoint_dir=checkpoint_dir,
-        progress=progress,
-        evaluate=evaluate,
-    )
-    outcome = trainer.run(resume=resume)
-    after = evaluate_skill(work, rig, start=start, episodes=config.eval_episodes, seed=seed, workers=workers, gamma=config.gamma)
+def _result(skill: Any, work: Any, rig: Any, config: TrainConfig, outcome: Any, *, before: SkillMetrics,
+            after: SkillMetrics, from_scratch: bool, t0: float) -> RetrainResult:
+    from kinetome.library.controllers import save_parameters
+
     variant = getattr(rig, "variant", None)
     return RetrainResult(
         skill_ref=skill.ref,
-        parameters=controller.parameter_values(),
-        parameters_bytes=save_parameters(controller),
+        parameters=work.controller.parameter_values(),
+        parameters_bytes=save_parameters(work.controller),
         normaliser=save_normalisers(None, outcome.obs_norm, outcome.ret_norm),
         curve=list(outcome.rows),
         before=before,
@@ -160,7 +166,7 @@ def retrain_skill(
         steps=outcome.steps,
         updates=outcome.updates,
         config=config,
-        seed=int(seed),
+        seed=config.seed,
         from_scratch=from_scratch,
         completed=outcome.completed,
         wall_time=time.perf_counter() - t0,

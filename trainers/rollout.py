@@ -10,11 +10,15 @@ checks. Two episode modes:
 - options mode: several skills inside one task episode; a skill ends by its
   termination (see ``STOP_MODES``) or timeout, the next is chosen
   epsilon-greedy on Q, and each switch costs ``deliberation_cost``.
+
+One step (``Collector._step``) runs as named phases: act, advance the
+physics, test the stops, decide how the step ended (``StepEnd``, per mode),
+record statistics, scale rewards and bootstrap truncations, store the
+samples, then choose next skills and reset ended episodes.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
@@ -24,6 +28,7 @@ from kinetome.library.errors import TrainingError
 
 from .config import TrainConfig
 from .normaliser import ObservationNormaliser, ReturnNormaliser, RunningMoments
+from .samples import EpisodeStats, Rollout, RolloutBuffer, StepEnd
 from .skill_policy import choose_skills, skill_values
 from .starts import StartSampler
 from .trainable import TrainableSkill
@@ -33,58 +38,24 @@ __all__ = ["Rollout", "EpisodeStats", "Collector"]
 _MAX_START_ROUNDS = 100
 
 
-@dataclass
-class Rollout:
-    """One update's samples, time-major (T, N, ...), plus the bootstrap values (N,)."""
-
-    features: np.ndarray  # (T, N, n_obs) critic inputs (normalised)
-    inputs: dict[str, np.ndarray]  # name -> (T, N, *shape) controller inputs
-    skill: np.ndarray  # (T, N) int64
-    skill_time: np.ndarray  # (T, N) seconds since the skill started
-    actions: np.ndarray  # (T, N, n_act) pre-clip samples
-    log_prob: np.ndarray  # (T, N)
-    values: np.ndarray  # (T, N) Q(s_t, w_t)
-    rewards: np.ndarray  # (T, N) scaled, switch cost and truncation bootstrap included
-    dones: np.ndarray  # (T, N) bool
-    last_values: np.ndarray  # (N,)
-    term_features: np.ndarray  # (T, N, n_obs) features of s_{t+1}
-    term_weight: np.ndarray  # (T, N) 1 where beta(s_{t+1}, w_t) was a learned decision
-    term_advantage: np.ndarray  # (T, N) Q(s_{t+1}, w_t) - V(s_{t+1})
-    reward_scale: float = 1.0
-
-
-@dataclass
-class EpisodeStats:
-    """What finished during one rollout."""
-
-    returns: list[float] = field(default_factory=list)
-    lengths: list[int] = field(default_factory=list)
-    successes: list[bool] = field(default_factory=list)
-    skill_durations: list[int] = field(default_factory=list)
-    skill_steps: int = 0
-    terminations: int = 0
-    learned_terminations: int = 0
-    no_skill_available: int = 0
-    skill_counts: np.ndarray | None = None  # (n_skills,) env steps each skill ran
-
-    def summary(self) -> dict[str, float]:
-        nan = float("nan")
-        return {
-            "episodes": len(self.returns),
-            "return_mean": float(np.mean(self.returns)) if self.returns else nan,
-            "length_mean": float(np.mean(self.lengths)) if self.lengths else nan,
-            "success_rate": float(np.mean(self.successes)) if self.successes else nan,
-            "termination_rate": self.terminations / self.skill_steps if self.skill_steps else nan,
-            "mean_skill_duration": float(np.mean(self.skill_durations)) if self.skill_durations else nan,
-            "no_skill_available": self.no_skill_available,
-            "skill_share": (self.skill_counts / self.skill_counts.sum()).tolist()
-            if self.skill_counts is not None and self.skill_counts.sum() > 0
-            else [],
-        }
-
-
 def _flatten(state: dict[str, np.ndarray], names: Sequence[str], ids: np.ndarray) -> np.ndarray:
     return np.concatenate([state[n][ids].reshape(ids.size, -1) for n in names], axis=1)
+
+
+def _stop_rule(mode: str, stops: np.ndarray, timeout: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(forced, learnable): stops that end a skill regardless of beta, and where beta decides (``STOP_MODES``)."""
+    forced = timeout.copy()
+    if mode in ("registered", "hard"):
+        forced |= stops
+    if mode == "learned":
+        learnable = np.ones(len(stops), dtype=bool)
+    elif mode == "hard":
+        learnable = ~stops
+    elif mode == "confined":
+        learnable = stops
+    else:
+        learnable = np.zeros(len(stops), dtype=bool)
+    return forced, learnable & ~forced
 
 
 def _take(state: dict[str, np.ndarray], ids: np.ndarray, names: Sequence[str] | None = None) -> dict[str, np.ndarray]:
@@ -130,6 +101,7 @@ class Collector:
         self.extra = tuple(sorted({x for s in self.skills for x in s.needs}))
         self.input_names = tuple(sorted({x for s in self.skills for x in (*s.reads, *s.needs)}))
         self.limit = config.max_episode_steps or int(rig.max_episode_steps)
+        self.max_steps = np.array([s.max_steps for s in self.skills])
         self.skill = np.zeros(self.n, dtype=np.int64)
         self.skill_steps = np.zeros(self.n, dtype=np.int64)
         self.episode_steps = np.zeros(self.n, dtype=np.int64)
@@ -209,197 +181,189 @@ class Collector:
     # ----- one rollout ----------------------------------------------------------
 
     def collect(self) -> Rollout:
-        cfg, rig, n, T = self.config, self.rig, self.n, self.config.segment_steps
-        K = len(self.skills)
-        dt = rig.dt
+        """Step every simulation ``rollout_len`` times; return the samples of one update."""
         self.stats = EpisodeStats()
         if self.explore:
             self._apply_input_normalisers()
-        n_act = rig.n_act
-        buf_inputs = {name: np.zeros((T, *self.state[name].shape)) for name in self.input_names}
-        n_obs = None
-        rows = np.arange(n)
-        out: dict[str, np.ndarray] = {}
-        for t in range(T):
-            state = self.state
-            feats = self.features(state, update=self.explore)
-            if n_obs is None:
-                n_obs = feats.shape[1]
-                out = {
-                    "features": np.zeros((T, n, n_obs)),
-                    "term_features": np.zeros((T, n, n_obs)),
-                    "skill": np.zeros((T, n), dtype=np.int64),
-                    "skill_time": np.zeros((T, n)),
-                    "actions": np.zeros((T, n, n_act)),
-                    "log_prob": np.zeros((T, n)),
-                    "values": np.zeros((T, n)),
-                    "rewards": np.zeros((T, n)),
-                    "dones": np.zeros((T, n), dtype=bool),
-                    "term_weight": np.zeros((T, n)),
-                    "term_advantage": np.zeros((T, n)),
-                }
-            q = self.q_values(feats)
-            w = self.skill.copy()
-            skill_time = self.skill_steps * dt
-            actions = np.zeros((n, n_act))
-            log_prob = np.zeros(n)
-            for k, sk in enumerate(self.skills):
-                ids = np.flatnonzero(w == k)
-                if ids.size == 0:
-                    continue
-                if self.explore and k in self.input_moments:
-                    self.input_moments[k].update(_flatten(state, sk.reads, ids))
-                with torch.no_grad():
-                    dist = sk.controller.distribution(_take(state, ids, (*sk.reads, *sk.needs)), skill_time[ids])
-                    if self.explore:
-                        eps = torch.randn(dist.loc.shape, generator=self.torch_gen, dtype=torch.float64)
-                        a = dist.loc + dist.scale * eps
-                    else:
-                        a = dist.loc
-                    log_prob[ids] = dist.log_prob(a).sum(-1).numpy()
-                actions[ids] = a.numpy()
-            if not np.all(np.isfinite(actions)):
-                raise TrainingError(
-                    "controller actions must be finite, got NaN/Inf; a parameter diverged: lower learning_rate or check the controller bounds"
-                )
-            applied = self.sim.step(actions)
-            after = self.sim.state(extra=self.extra)
-            reward, _ = rig.reward(state, applied, after)
-            reward = np.asarray(reward, dtype=np.float64)
-            if not np.all(np.isfinite(reward)):
-                bad = np.flatnonzero(~np.isfinite(reward))
-                raise TrainingError(
-                    f"reward must be finite, got {reward[bad[0]]} in simulations {bad[:5].tolist()} of {rig.env_id}; "
-                    "check the task reward and the variant's physics"
-                )
-            terminated = np.asarray(rig.terminated(after), dtype=bool)
-            self.episode_steps += 1
-            self.skill_steps += 1
-            self.episode_return += reward
-            stops = np.zeros(n, dtype=bool)
-            for k, sk in enumerate(self.skills):
-                ids = np.flatnonzero(w == k)
-                if ids.size and sk.stops_when is not None:
-                    stops[ids] = sk.stops(_take(after, ids))
-            max_steps = np.array([s.max_steps for s in self.skills])[w]
-            timeout = self.skill_steps >= max_steps
-            over_limit = self.episode_steps >= self.limit
-            feats_after = None
-            q_after = None
-            term_weight = np.zeros(n)
-            term_adv = np.zeros(n)
-            if self.episode_per_skill:
-                success = stops & ~terminated
-                terminal = terminated | success
-                truncated = (timeout | over_limit) & ~terminal
-                skill_ends = terminal | truncated
-                switched = np.zeros(n, dtype=bool)
-                reward_raw = reward + cfg.success_bonus * success
-                if self.skills[0].stops_when is not None:  # a skill that cannot stop has no success rate
-                    self.stats.successes.extend(success[terminal | truncated].tolist())
-                learned_stop = np.zeros(n, dtype=bool)
-            else:
-                terminal = terminated
-                truncated = over_limit & ~terminal
-                feats_after = self.features(after)
-                q_after = self.q_values(feats_after)
-                forced = timeout.copy()
-                if cfg.stop_mode in ("registered", "hard"):
-                    forced |= stops
-                if cfg.stop_mode == "learned":
-                    learnable = np.ones(n, dtype=bool)
-                elif cfg.stop_mode == "hard":
-                    learnable = ~stops
-                elif cfg.stop_mode == "confined":
-                    learnable = stops
-                else:
-                    learnable = np.zeros(n, dtype=bool)
-                learnable &= ~forced
-                learned_stop = np.zeros(n, dtype=bool)
-                if self.heads is not None and learnable.any():
-                    with torch.no_grad():
-                        beta = self.heads.beta(torch.from_numpy(feats_after), torch.from_numpy(w)).numpy()
-                    u = self.np_rng.random(n)
-                    learned_stop = learnable & (u < beta)
-                ep_end = terminal | truncated
-                skill_ends = forced | learned_stop | ep_end
-                switched = (forced | learned_stop) & ~ep_end
-                reward_raw = reward - cfg.deliberation_cost * switched
-                avail_after = self.available(after)
-                v_after = skill_values(q_after, avail_after, epsilon=self.epsilon)
-                term_adv = q_after[rows, w] - v_after
-                term_weight = (learnable & ~ep_end).astype(np.float64)
-                out["term_features"][t] = feats_after
-            ep_end = terminal | truncated
-            # statistics
-            self.stats.skill_steps += n
-            counts = np.bincount(w, minlength=K)
-            self.stats.skill_counts = counts if self.stats.skill_counts is None else self.stats.skill_counts + counts
-            ended = np.flatnonzero(skill_ends)
-            self.stats.skill_durations.extend(self.skill_steps[ended].tolist())
-            self.stats.terminations += int(np.sum(skill_ends & ~ep_end))
-            self.stats.learned_terminations += int(np.sum(learned_stop & ~ep_end))
-            done_ids = np.flatnonzero(ep_end)
-            self.stats.returns.extend(self.episode_return[done_ids].tolist())
-            self.stats.lengths.extend(self.episode_steps[done_ids].tolist())
-            # rewards: scale, then bootstrap truncated episodes with Q(s_{t+1}, w_t)
-            if cfg.scale_rewards:
+        shapes = {name: tuple(self.state[name].shape) for name in self.input_names}
+        buf = RolloutBuffer(self.config.segment_steps, self.n, self.rig.n_act, shapes)
+        for t in range(self.config.segment_steps):
+            self._step(t, buf)
+        last_values = self.q_values(self.features(self.state))[np.arange(self.n), self.skill]
+        scale = self.ret_norm.scale if self.config.scale_rewards else 1.0
+        return buf.rollout(last_values, reward_scale=scale)
+
+    def _step(self, t: int, buf: RolloutBuffer) -> None:
+        """Act, step the physics, decide how each simulation's step ended, record it, move on."""
+        state = self.state
+        feats = self.features(state, update=self.explore)
+        q = self.q_values(feats)
+        w = self.skill.copy()
+        skill_time = self.skill_steps * self.rig.dt
+        actions, log_prob = self._act(state, w, skill_time)
+        after, reward, terminated = self._advance(state, actions)
+        self.episode_steps += 1
+        self.skill_steps += 1
+        self.episode_return += reward
+        stops = self._stops(after, w)
+        timeout = self.skill_steps >= self.max_steps[w]
+        over_limit = self.episode_steps >= self.limit
+        if self.episode_per_skill:
+            end = self._end_of_episode_per_skill(reward, stops, terminated, timeout, over_limit)
+        else:
+            end = self._end_of_options_step(after, w, reward, stops, terminated, timeout, over_limit)
+        self._record(w, end)
+        rewards = self._training_rewards(end, after, w)
+        buf.store(t, state=state, end=end, features=feats, skill=w, skill_time=skill_time, actions=actions,
+                  log_prob=log_prob, values=q[np.arange(self.n), w], rewards=rewards)
+        self.state = after
+        self._next_skills(after, end)
+
+    def _act(self, state: dict[str, np.ndarray], w: np.ndarray, skill_time: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Pre-clip actions (N, n_act) and their log-probabilities (N,): one controller call per skill."""
+        actions = np.zeros((self.n, self.rig.n_act))
+        log_prob = np.zeros(self.n)
+        for k, sk in enumerate(self.skills):
+            ids = np.flatnonzero(w == k)
+            if ids.size == 0:
+                continue
+            if self.explore and k in self.input_moments:
+                self.input_moments[k].update(_flatten(state, sk.reads, ids))
+            with torch.no_grad():
+                dist = sk.controller.distribution(_take(state, ids, (*sk.reads, *sk.needs)), skill_time[ids])
                 if self.explore:
-                    self.ret_norm.update(reward_raw, ep_end)
-                scaled = self.ret_norm(reward_raw)
-            else:
-                scaled = reward_raw
-            trunc_ids = np.flatnonzero(truncated)
-            if trunc_ids.size:
-                if q_after is None:
-                    q_trunc = self.q_values(self.features(_take(after, trunc_ids)))
-                    boot = q_trunc[np.arange(trunc_ids.size), w[trunc_ids]]
+                    eps = torch.randn(dist.loc.shape, generator=self.torch_gen, dtype=torch.float64)
+                    a = dist.loc + dist.scale * eps
                 else:
-                    boot = q_after[trunc_ids, w[trunc_ids]]
-                scaled = scaled.copy()
-                scaled[trunc_ids] += cfg.gamma * boot
-            # store
-            out["features"][t] = feats
-            for name in self.input_names:
-                buf_inputs[name][t] = state[name]
-            out["skill"][t] = w
-            out["skill_time"][t] = skill_time
-            out["actions"][t] = actions
-            out["log_prob"][t] = log_prob
-            out["values"][t] = q[rows, w]
-            out["rewards"][t] = scaled
-            out["dones"][t] = ep_end
-            out["term_weight"][t] = term_weight
-            out["term_advantage"][t] = term_adv
-            # next skills for switches inside an episode, fresh starts for ended episodes
-            self.state = after
-            sw = np.flatnonzero(switched)
-            if sw.size:
-                sub = _take(after, sw)
-                avail = self.available(sub)
-                self.stats.no_skill_available += int(np.sum(~avail.any(axis=1)))
-                self.skill[sw] = choose_skills(q_after[sw], avail, epsilon=self.epsilon, rng=self.np_rng)
-                self.skill_steps[sw] = 0
-            if done_ids.size:
-                self._reset(done_ids)
-        last_feats = self.features(self.state)
-        last_values = self.q_values(last_feats)[rows, self.skill]
-        return Rollout(
-            features=out["features"],
-            inputs=buf_inputs,
-            skill=out["skill"],
-            skill_time=out["skill_time"],
-            actions=out["actions"],
-            log_prob=out["log_prob"],
-            values=out["values"],
-            rewards=out["rewards"],
-            dones=out["dones"],
-            last_values=last_values,
-            term_features=out["term_features"],
-            term_weight=out["term_weight"],
-            term_advantage=out["term_advantage"],
-            reward_scale=self.ret_norm.scale if cfg.scale_rewards else 1.0,
+                    a = dist.loc
+                log_prob[ids] = dist.log_prob(a).sum(-1).numpy()
+            actions[ids] = a.numpy()
+        if not np.all(np.isfinite(actions)):
+            raise TrainingError(
+                "controller actions must be finite, got NaN/Inf; a parameter diverged: lower learning_rate or check the controller bounds"
+            )
+        return actions, log_prob
+
+    def _advance(self, state: dict[str, np.ndarray], actions: np.ndarray) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray]:
+        """Step the physics: (state after, reward (N,), env ended (N,))."""
+        applied = self.sim.step(actions)
+        after = self.sim.state(extra=self.extra)
+        reward, _ = self.rig.reward(state, applied, after)
+        reward = np.asarray(reward, dtype=np.float64)
+        if not np.all(np.isfinite(reward)):
+            bad = np.flatnonzero(~np.isfinite(reward))
+            raise TrainingError(
+                f"reward must be finite, got {reward[bad[0]]} in simulations {bad[:5].tolist()} of {self.rig.env_id}; "
+                "check the task reward and the variant's physics"
+            )
+        return after, reward, np.asarray(self.rig.terminated(after), dtype=bool)
+
+    def _stops(self, after: dict[str, np.ndarray], w: np.ndarray) -> np.ndarray:
+        """Where the running skill's ``stops_when`` holds after the step, (N,)."""
+        stops = np.zeros(self.n, dtype=bool)
+        for k, sk in enumerate(self.skills):
+            ids = np.flatnonzero(w == k)
+            if ids.size and sk.stops_when is not None:
+                stops[ids] = sk.stops(_take(after, ids))
+        return stops
+
+    def _end_of_episode_per_skill(self, reward, stops, terminated, timeout, over_limit) -> StepEnd:
+        """Flat mode: the skill's stop is a success and ends the episode; time limits truncate it."""
+        success = stops & ~terminated
+        terminal = terminated | success
+        truncated = (timeout | over_limit) & ~terminal
+        zeros = np.zeros(self.n)
+        return StepEnd(
+            terminal=terminal,
+            truncated=truncated,
+            skill_ends=terminal | truncated,
+            switched=np.zeros(self.n, dtype=bool),
+            learned_stop=np.zeros(self.n, dtype=bool),
+            reward=reward + self.config.success_bonus * success,
+            term_weight=zeros,
+            term_advantage=zeros.copy(),
+            success=success if self.skills[0].stops_when is not None else None,
         )
+
+    def _end_of_options_step(self, after, w, reward, stops, terminated, timeout, over_limit) -> StepEnd:
+        """Options mode: forced stops, learned stops (beta), switches and their cost, termination targets."""
+        truncated = over_limit & ~terminated
+        feats_after = self.features(after)
+        q_after = self.q_values(feats_after)
+        forced, learnable = _stop_rule(self.config.stop_mode, stops, timeout)
+        learned_stop = self._learned_stops(feats_after, w, learnable)
+        ep_end = terminated | truncated
+        switched = (forced | learned_stop) & ~ep_end
+        v_after = skill_values(q_after, self.available(after), epsilon=self.epsilon)
+        return StepEnd(
+            terminal=terminated,
+            truncated=truncated,
+            skill_ends=forced | learned_stop | ep_end,
+            switched=switched,
+            learned_stop=learned_stop,
+            reward=reward - self.config.deliberation_cost * switched,
+            term_weight=(learnable & ~ep_end).astype(np.float64),
+            term_advantage=q_after[np.arange(self.n), w] - v_after,
+            feats_after=feats_after,
+            q_after=q_after,
+        )
+
+    def _learned_stops(self, feats_after: np.ndarray, w: np.ndarray, learnable: np.ndarray) -> np.ndarray:
+        """Sample the termination heads where a stop is a learned decision (one uniform draw per simulation)."""
+        if self.heads is None or not learnable.any():
+            return np.zeros(self.n, dtype=bool)
+        with torch.no_grad():
+            beta = self.heads.beta(torch.from_numpy(feats_after), torch.from_numpy(w)).numpy()
+        u = self.np_rng.random(self.n)
+        return learnable & (u < beta)
+
+    def _record(self, w: np.ndarray, end: StepEnd) -> None:
+        """Fold one step into the rollout's episode statistics."""
+        st = self.stats
+        ep_end = end.episode_ends
+        if end.success is not None:  # a skill that cannot stop has no success rate
+            st.successes.extend(end.success[ep_end].tolist())
+        st.skill_steps += self.n
+        counts = np.bincount(w, minlength=len(self.skills))
+        st.skill_counts = counts if st.skill_counts is None else st.skill_counts + counts
+        st.skill_durations.extend(self.skill_steps[np.flatnonzero(end.skill_ends)].tolist())
+        st.terminations += int(np.sum(end.skill_ends & ~ep_end))
+        st.learned_terminations += int(np.sum(end.learned_stop & ~ep_end))
+        done_ids = np.flatnonzero(ep_end)
+        st.returns.extend(self.episode_return[done_ids].tolist())
+        st.lengths.extend(self.episode_steps[done_ids].tolist())
+
+    def _training_rewards(self, end: StepEnd, after: dict[str, np.ndarray], w: np.ndarray) -> np.ndarray:
+        """Scaled rewards; truncated episodes add gamma Q(s_{t+1}, w_t) (the bootstrap)."""
+        cfg = self.config
+        if cfg.scale_rewards:
+            if self.explore:
+                self.ret_norm.update(end.reward, end.episode_ends)
+            scaled = self.ret_norm(end.reward)
+        else:
+            scaled = end.reward
+        trunc_ids = np.flatnonzero(end.truncated)
+        if trunc_ids.size:
+            if end.q_after is None:
+                q_trunc = self.q_values(self.features(_take(after, trunc_ids)))
+                boot = q_trunc[np.arange(trunc_ids.size), w[trunc_ids]]
+            else:
+                boot = end.q_after[trunc_ids, w[trunc_ids]]
+            scaled = scaled.copy()
+            scaled[trunc_ids] += cfg.gamma * boot
+        return scaled
+
+    def _next_skills(self, after: dict[str, np.ndarray], end: StepEnd) -> None:
+        """Choose the next skill where one switched inside an episode; fresh starts where episodes ended."""
+        sw = np.flatnonzero(end.switched)
+        if sw.size:
+            avail = self.available(_take(after, sw))
+            self.stats.no_skill_available += int(np.sum(~avail.any(axis=1)))
+            self.skill[sw] = choose_skills(end.q_after[sw], avail, epsilon=self.epsilon, rng=self.np_rng)
+            self.skill_steps[sw] = 0
+        done_ids = np.flatnonzero(end.episode_ends)
+        if done_ids.size:
+            self._reset(done_ids)
 
     def _apply_input_normalisers(self) -> None:
         """Copy running input statistics into the adapting controllers (fixed during a rollout)."""
