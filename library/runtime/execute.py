@@ -17,6 +17,7 @@ import numpy as np
 from kinetome.envs.named_state import take_states
 from kinetome.envs.rig import Rig
 
+from .learned import StopDraws
 from .records import ChainRollout, EndReason, SegmentRecord
 from .seeding import ExplorationNoise
 from .sim import SimBatch, _qpos_of
@@ -71,12 +72,25 @@ class _Segment:
         )
 
 
-def _classify(skill: LoadedSkill, rig: Rig, after: dict, t_next: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(terminated, stopped, timed_out) masks after a step; terminated wins over stopped."""
+def _classify(
+    skill: LoadedSkill, rig: Rig, after: dict, t_next: int, u: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(terminated, stopped, timed_out) masks after a step; terminated wins over stopped, stopped over timed out.
+
+    A skill with a learned stop stops as its stop mode says, deciding with the uniform draws ``u``.
+    """
     terminated = np.asarray(rig.terminated(after), dtype=bool)
-    stopped = skill.stops_when.evaluate({**skill.parameters, **after}) & ~terminated
+    stopped = skill.stops_when.evaluate({**skill.parameters, **after})
+    if skill.learned_stop is not None:
+        timeout = np.full(len(stopped), t_next >= skill.max_steps)
+        stopped = skill.learned_stop.decide(stopped, timeout, skill.learned_stop.probability(rig, after), u)
+    stopped = stopped & ~terminated
     timed_out = ~terminated & ~stopped & (t_next >= skill.max_steps)
     return terminated, stopped, timed_out
+
+
+def _stop_draws(skills: Sequence[LoadedSkill], seed: int, n: int) -> StopDraws | None:
+    return StopDraws(seed, n) if any(s.learned_stop is not None for s in skills) else None
 
 
 def _run_segment(
@@ -87,6 +101,7 @@ def _run_segment(
     *,
     gamma: float,
     noise: ExplorationNoise | None,
+    stop_draws: StopDraws | None,
     tracer: "_Tracer | None",
     index: int,
     progress: Progress | None,
@@ -114,7 +129,8 @@ def _run_segment(
         seg.observe(running, after)
         if tracer is not None:
             tracer.record(sim, running, index)
-        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1)
+        u = stop_draws.draw(running) if stop_draws is not None and skill.learned_stop is not None else None
+        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
         seg.reason[running[terminated]] = int(EndReason.TERMINATED)
         seg.reason[running[stopped]] = int(EndReason.STOPPED)
         seg.reason[running[timed_out]] = int(EndReason.TIMED_OUT)
@@ -173,6 +189,7 @@ def run_chain(
     sim = SimBatch(rig, n, nthread=workers)
     sim.reset(qpos0, qvel0)
     noise = ExplorationNoise(seed, n, rig.n_act) if explore else None
+    stop_draws = _stop_draws(skills, seed, n)
     tracer = _Tracer(sim, trace) if trace > 0 else None
     offered = np.arange(n)
     records: list[SegmentRecord] = []
@@ -182,7 +199,9 @@ def run_chain(
         for index, skill in enumerate(skills):
             seg = _Segment(n)
             start = sim.state()
-            _run_segment(skill, sim, offered, seg, gamma=gamma, noise=noise, tracer=tracer, index=index, progress=progress)
+            _run_segment(
+                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, tracer=tracer, index=index, progress=progress
+            )
             records.append(seg.record(skill.ref, start, sim.state(), gamma))
             offered = np.flatnonzero((seg.reason == int(EndReason.STOPPED)) | (seg.reason == int(EndReason.TIMED_OUT)))
     qpos_trace, seg_trace = tracer.arrays(rig.model.nq) if tracer is not None else (None, None)
@@ -232,6 +251,7 @@ def reference_run_chain(
     qpos0, qvel0 = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in starts)
     n = qpos0.shape[0]
     noise = ExplorationNoise(seed, n, rig.n_act) if explore else None
+    stop_draws = _stop_draws(skills, seed, n)
     segs = [_Segment(n) for _ in skills]
     starts_rows: list[list[dict]] = [[] for _ in skills]
     ends_rows: list[list[dict]] = [[] for _ in skills]
@@ -257,7 +277,8 @@ def reference_run_chain(
                         seg.discounted[i] += gamma**t * reward
                         seg.steps[i] += 1
                         seg.observe(np.array([i]), after)
-                        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1)
+                        u = stop_draws.draw(np.array([i])) if stop_draws is not None and skill.learned_stop is not None else None
+                        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
                         if terminated[0] or stopped[0] or timed_out[0]:
                             seg.reason[i] = int(EndReason.TERMINATED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
                             break

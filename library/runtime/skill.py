@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
 from ..spec import Skill, skill_from_document
-from .files import PARAMS_FILE, SPEC_FILE
+from .files import LEARNED_STOP_FILE, NORMALISER_FILE, PARAMS_FILE, SPEC_FILE, STOP_HEADS_FILE
 
 __all__ = ["LoadedSkill", "skill_from_spec", "load_skill", "SPEC_FILE", "PARAMS_FILE"]
 
@@ -26,6 +26,7 @@ class LoadedSkill:
     stops_when: Any
     max_steps: int
     parameters: dict[str, np.ndarray]
+    learned_stop: Any = None  # runtime.learned.LearnedStop: a stop head trained in options mode, run as trained
 
     @property
     def name(self) -> str:
@@ -78,4 +79,10 @@ def load_skill(store: Any, ref: str, *, rig: Any = None) -> LoadedSkill:
     version = store.get(ref)
     doc = json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))
     values = load_parameters(store.read_file(version, PARAMS_FILE))
-    return skill_from_spec(skill_from_document(doc), ref=version.ref, rig=rig, parameter_values=values)
+    loaded = skill_from_spec(skill_from_document(doc), ref=version.ref, rig=rig, parameter_values=values)
+    if LEARNED_STOP_FILE not in version.roles:
+        return loaded
+    from .learned import LearnedStop
+
+    stop = LearnedStop.from_files(*(store.read_file(version, role) for role in (LEARNED_STOP_FILE, STOP_HEADS_FILE, NORMALISER_FILE)))
+    return replace(loaded, learned_stop=stop)
