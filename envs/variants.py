@@ -24,6 +24,7 @@ import numpy as np
 import yaml
 
 from .errors import EnvConfigError
+from .yaml_limits import YamlTooLarge, compose_within_limits
 
 __all__ = [
     "TaskVariant",
@@ -93,7 +94,13 @@ def read_yaml_with_lines(path: str | Path) -> tuple[Any, list[str]]:
     except OSError as exc:
         return None, [f"{path}:1: file: cannot be read ({exc.strerror or exc}); check the path"]
     try:
-        data = yaml.load(text, Loader=_LineLoader)  # safe: a SafeLoader subclass, no arbitrary objects
+        loader, node = compose_within_limits(text, _LineLoader)  # safe: a SafeLoader subclass, no arbitrary objects
+        try:
+            data = None if node is None else loader.construct_document(node)
+        finally:
+            loader.dispose()
+    except YamlTooLarge as exc:
+        return None, [f"{path}:{exc.line or 1}: yaml: {exc}"]
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
         line = mark.line + 1 if mark is not None else 1

@@ -13,12 +13,13 @@ from typing import Any
 
 import yaml
 
+from kinetome.envs.yaml_limits import YamlTooLarge, compose_within_limits
+
 from .errors import InvalidInputError, Problem
 
 __all__ = ["YamlDocument", "load_yaml_text", "load_yaml_file", "field_path"]
 
 PathKey = tuple[str | int, ...]
-_MAX_BYTES = 1 << 20  # a spec or chain file larger than 1 MiB is surely not one
 
 
 @dataclass(frozen=True)
@@ -67,25 +68,30 @@ def _to_python(node: yaml.Node, path: PathKey, lines: dict[PathKey, int], constr
 
 
 def load_yaml_text(text: str, source: str = "<string>") -> YamlDocument:
-    """Parse one YAML document; syntax errors become a Problem with the line."""
-    if len(text.encode("utf-8", "replace")) > _MAX_BYTES:
-        raise InvalidInputError([Problem(source, None, "", f"file must be at most {_MAX_BYTES} bytes")])
-    loader = yaml.SafeLoader(text)
+    """Parse one YAML document; syntax errors and oversized files (see
+    ``kinetome.envs.yaml_limits``) become a Problem with the line."""
     try:
-        node = loader.get_single_node()
+        loader, node = compose_within_limits(text)
+    except YamlTooLarge as exc:
+        raise InvalidInputError([Problem(source, exc.line, "", str(exc))]) from None
+    except yaml.YAMLError as exc:
+        raise _syntax_problem(exc, source) from None
+    try:
         lines: dict[PathKey, int] = {}
         data = None if node is None else _to_python(node, (), lines, loader)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 1 if mark is not None else None
-        raise InvalidInputError(
-            [Problem(source, line, "", f"not valid YAML: {exc.problem or exc}", "fix the syntax at that line")]
-        ) from None
     except yaml.YAMLError as exc:
-        raise InvalidInputError([Problem(source, None, "", f"not valid YAML: {exc}")]) from None
+        raise _syntax_problem(exc, source) from None
     finally:
         loader.dispose()
     return YamlDocument(source, data, lines)
+
+
+def _syntax_problem(exc: yaml.YAMLError, source: str) -> InvalidInputError:
+    if isinstance(exc, yaml.MarkedYAMLError):
+        mark = exc.problem_mark or exc.context_mark
+        line = mark.line + 1 if mark is not None else None
+        return InvalidInputError([Problem(source, line, "", f"not valid YAML: {exc.problem or exc}", "fix the syntax at that line")])
+    return InvalidInputError([Problem(source, None, "", f"not valid YAML: {exc}")])
 
 
 def load_yaml_file(path: str | Path) -> YamlDocument:
