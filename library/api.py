@@ -12,7 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-__all__ = ["open_store", "register_skill", "version_files", "load", "sample_starts"]
+__all__ = ["open_store", "register_skill", "spec_version_files", "version_files", "load", "sample_starts"]
 
 
 def open_store(root: str | Path | None = None, *, create: bool = True) -> Any:
@@ -31,13 +31,24 @@ def version_files(loaded: Any) -> dict[str, bytes]:
     return {SPEC_FILE: canonical_json(skill_to_document(loaded.skill)), PARAMS_FILE: save_parameters(loaded.controller)}
 
 
+def spec_version_files(skill: Any) -> dict[str, bytes]:
+    """The files of a spec's first version (as ``version_files`` of the built skill), without torch."""
+    from .controllers import context_from_rig, parameters_bytes, plan_controller
+    from .runtime.files import PARAMS_FILE, SPEC_FILE
+    from .spec import canonical_json, skill_to_document
+    from .tasks import default_rig
+
+    c = skill.controller
+    plan = plan_controller(c.kind, context_from_rig(default_rig(skill.env)), **c.build_arguments())
+    return {SPEC_FILE: canonical_json(skill_to_document(skill)), PARAMS_FILE: parameters_bytes(plan.values, c.kind)}
+
+
 def register_skill(spec_path: str | Path, *, store: Any) -> Any:
-    """Validate ``spec_path`` and store it; identical content returns the existing version."""
-    from .runtime.skill import skill_from_spec
+    """Validate ``spec_path`` and store it; identical content returns the existing version.
+    Structured kinds never import torch here."""
     from .spec_load import load_spec
 
     skill = load_spec(spec_path)
-    loaded = skill_from_spec(skill)
     meta = {
         "description": skill.description,
         "env": skill.env,
@@ -45,7 +56,7 @@ def register_skill(spec_path: str | Path, *, store: Any) -> Any:
         "tags": list(skill.tags),
         "source_file": Path(spec_path).name,
     }
-    return store.add(skill.name, version_files(loaded), parent=None, reason="registered", meta=meta)
+    return store.add(skill.name, spec_version_files(skill), parent=None, reason="registered", meta=meta)
 
 
 def load(ref: str, *, store: Any, rig: Any = None) -> Any:

@@ -92,6 +92,15 @@ class ControllerSpec:
     def parameter_arrays(self) -> dict[str, np.ndarray]:
         return {k: np.asarray(_thaw(v), dtype=np.float64) for k, v in self.parameters.items()}
 
+    def build_arguments(self) -> dict[str, Any]:
+        """Keyword arguments of ``plan_controller`` / ``build_controller`` for this spec."""
+        return {
+            "parameters": self.parameter_arrays(),
+            "bounds": self.bound_arrays(),
+            "options": dict(self.options),
+            "exploration_std": self.exploration_std,
+        }
+
     def bound_arrays(self) -> dict[str, tuple[np.ndarray, np.ndarray]]:
         return {
             k: (np.asarray(_thaw(lo), dtype=np.float64), np.asarray(_thaw(hi), dtype=np.float64))

@@ -15,6 +15,8 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from .errors import InvalidInputError, InvalidSpecError, Problem
 from .spec import Skill, controller_from_document, skill_from_document
 from .yaml_source import YamlDocument, load_yaml_file, load_yaml_text
@@ -124,30 +126,23 @@ def _controller_problems(doc: YamlDocument, problems: list[Problem], exc: Except
 
 def _parameter_shapes(controller_data: Any, rig: Any, doc: YamlDocument, problems: list[Problem]) -> dict[str, tuple[int, ...]] | None:
     """Shapes of the controller's parameters, or None when the controller block is unusable."""
-    from .controllers import build_controller, context_from_rig, kind_class
+    from .controllers import context_from_rig, kind_declaration, plan_controller
 
     context = context_from_rig(rig)
     try:
         spec = controller_from_document(controller_data)
-        controller = build_controller(
-            spec.kind,
-            context,
-            parameters=spec.parameter_arrays(),
-            bounds=spec.bound_arrays(),
-            options=dict(spec.options),
-            exploration_std=spec.exploration_std,
-        )
+        plan = plan_controller(spec.kind, context, **spec.build_arguments())
     except (ValueError, KeyError, TypeError) as exc:
         _controller_problems(doc, problems, exc)
         try:  # still name the kind's parameters so the predicates can be checked too
-            cls = kind_class(controller_data["kind"])
+            cls = kind_declaration(controller_data["kind"])
             return {d.name: tuple(d.shape) for d in cls.declare(context, controller_data.get("options") or None)}
         except Exception:
             return None
-    for name in controller.inputs:
+    for name in plan.inputs:
         if name not in rig.layout:
             problems.append(doc.problem(("controller", "options"), f"controller reads '{name}', which env {rig.env_id} does not have", f"known names: {', '.join(rig.layout.names)}"))
-    return {k: tuple(v.shape) for k, v in controller.parameter_values().items()}
+    return {k: tuple(np.shape(v)) for k, v in plan.values.items()}
 
 
 def check_semantics(data: dict[str, Any], doc: YamlDocument, *, skip: set[str] = frozenset()) -> list[Problem]:

@@ -1,4 +1,10 @@
-"""Controller kinds: torch modules with named, bounded parameters and a Gaussian exploration head."""
+"""Controller kinds: torch modules with named, bounded parameters and a Gaussian exploration head.
+
+Importing this package does not import torch: the declarations, the plan
+(``plan_controller``) and parameter files are torch-free; the torch names
+(``Controller``, ``build_controller``, ``check_controller``, the kind classes)
+load on first access.
+"""
 
 import os as _os
 
@@ -8,30 +14,47 @@ import os as _os
 # before torch loads MKL.
 _os.environ.setdefault("MKL_CBWR", "AUTO,STRICT")
 
-from .base import LOG_STD_HIGH, LOG_STD_LOW, Controller, log_std_decl
-from .build import build_controller
-from .check import check_controller
+import importlib as _importlib
+
 from .context import ControllerContext, context_from_rig
 from .errors import ControllerError
+from .kind import LOG_STD_HIGH, LOG_STD_LOW, ControllerKind, log_std_decl
 from .params import ParamDecl, check_parameters, check_value, resolve_bounds
-from .registry import controller_kinds, kind_class, register_kind
-from .serialize import PARAMETERS_FORMAT, load_parameters, parameters_metadata, save_parameters
+from .plan import ControllerPlan, build_controller, plan_controller
+from .registry import controller_kinds, kind_class, kind_declaration, register_kind
+from .serialize import PARAMETERS_FORMAT, load_parameters, parameters_bytes, parameters_metadata, save_parameters
 
-# Importing the kinds runs their @register_kind decorators.
-from .cpg import OscillatorGait
-from .joint_pd import JointPD
-from .linear import LinearFeedback
-from .mlp import MLPPolicy
-from .task_pd import TaskPD
+# name -> module of the torch-backed names, imported on first access.
+_LAZY = {
+    "Controller": "base",
+    "check_controller": "check",
+    "JointPD": "joint_pd",
+    "TaskPD": "task_pd",
+    "LinearFeedback": "linear",
+    "MLPPolicy": "mlp",
+    "OscillatorGait": "cpg",
+}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        return getattr(_importlib.import_module(f"{__name__}.{_LAZY[name]}"), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
 
 __all__ = [
     "Controller",
     "ControllerContext",
+    "ControllerKind",
+    "ControllerPlan",
     "ControllerError",
     "ParamDecl",
     "LOG_STD_LOW",
     "LOG_STD_HIGH",
     "build_controller",
+    "plan_controller",
+    "kind_declaration",
+    "parameters_bytes",
     "check_controller",
     "check_parameters",
     "check_value",

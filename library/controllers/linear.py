@@ -2,61 +2,19 @@
 
 from __future__ import annotations
 
-from typing import Any, Mapping
-
-import numpy as np
 import torch
 
-from ..errors import Problem
 from .base import Controller
-from .context import ControllerContext
-from .inputs import DEFAULT_INPUTS, input_size, normalise_inputs
-from .joint_pd import bias_decl
 from .kernels import flatten_inputs, matvec
-from .params import ParamDecl
+from .kinds.linear import LinearFeedbackKind, GAIN_MAX, REFERENCE_FALLBACK
 from .registry import register_kind
 
 __all__ = ["LinearFeedback", "GAIN_MAX", "REFERENCE_FALLBACK"]
 
-GAIN_MAX = 1000.0  # |gain| default bound, ctrl per input unit
-REFERENCE_FALLBACK = 1000.0  # reference bounds where the layout gives no envelope
-
 
 @register_kind("linear")
-class LinearFeedback(Controller):
-    """Linear state feedback: u = gain (s - reference) + bias.
-
-    ``s`` is the concatenation of the ``inputs`` quantities, flattened in the
-    order listed (option ``inputs``, default [qpos, qvel]). Use it for
-    balancing and stabilising around an operating point (an LQR gain, a
-    hand-tuned full-state feedback) or as a simple trainable policy that stays
-    interpretable; ``gain`` is (n_act, n_in).
-    """
-
-    OPTIONS = {"inputs": DEFAULT_INPUTS}
-
-    @classmethod
-    def _normalise_options(
-        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
-    ) -> dict[str, Any]:
-        return {**options, "inputs": normalise_inputs(context, options["inputs"], f"{where}.options.inputs", problems)}
-
-    @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
-        n, n_in = context.n_act, input_size(context, options["inputs"])
-        ref_low, ref_high = context.envelope(options["inputs"], REFERENCE_FALLBACK)
-        return (
-            ParamDecl("gain", (n, n_in), -GAIN_MAX, GAIN_MAX, 0.0, "feedback gain, one row per actuator", "ctrl per input unit",
-                      shape_help=f"give one row per actuator ({n}) with one column per input value ({n_in})"),
-            ParamDecl("reference", (n_in,), ref_low, ref_high, np.clip(0.0, ref_low, ref_high),
-                      "operating point of the flattened inputs", "input units",
-                      shape_help=f"give one value per flattened input value ({n_in})"),
-            bias_decl(context),
-        )
-
-    @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
-        return tuple(options["inputs"])
+class LinearFeedback(LinearFeedbackKind, Controller):
+    __doc__ = LinearFeedbackKind.__doc__
 
     def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
         s = flatten_inputs(x, self.inputs)

@@ -2,16 +2,22 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Callable, TypeVar
+import importlib
+from typing import TYPE_CHECKING, Any, Callable, TypeVar
 
 from .errors import ControllerError, close_match_hint, problem
 
 if TYPE_CHECKING:
     from .base import Controller
+    from .kind import ControllerKind
 
-__all__ = ["register_kind", "controller_kinds", "kind_class"]
+__all__ = ["register_kind", "declares_kind", "controller_kinds", "kind_class", "kind_declaration"]
 
-_KINDS: dict[str, type] = {}
+_KINDS: dict[str, type] = {}  # kind -> torch Controller class
+_DECLARED: dict[str, type] = {}  # kind -> torch-free ControllerKind class
+# Built-in kinds load on first use: the declaration from .kinds.<module> (no torch),
+# the implementation from .<module> (torch).
+_BUILTIN = {"joint_pd": "joint_pd", "task_pd": "task_pd", "linear": "linear", "mlp": "mlp", "cpg": "cpg"}
 C = TypeVar("C", bound=type)
 
 
@@ -30,18 +36,48 @@ def register_kind(kind: str) -> Callable[[C], C]:
     return wrap
 
 
+def declares_kind(kind: str) -> Callable[[C], C]:
+    """Class decorator: the torch-free declaration (``ControllerKind``) of ``kind``."""
+
+    def wrap(cls: C) -> C:
+        cls.kind = kind
+        _DECLARED[kind] = cls
+        return cls
+
+    return wrap
+
+
 def controller_kinds() -> list[str]:
     """Every registered kind, sorted."""
-    return sorted(_KINDS)
+    return sorted({*_KINDS, *_DECLARED, *_BUILTIN})
 
 
 def kind_class(kind: str, *, where: str = "controller") -> "type[Controller]":
     """The class registered as ``kind``; an unknown kind names the close match and the known kinds."""
+    if isinstance(kind, str) and kind not in _KINDS and kind in _BUILTIN:
+        importlib.import_module(f"{__package__}.{_BUILTIN[kind]}")
     try:
         return _KINDS[kind]
     except (KeyError, TypeError):
-        raise ControllerError([problem(
-            f"{where}.kind",
-            f"must name a known controller kind, got {kind!r}",
-            f"{close_match_hint(kind, _KINDS)}known kinds: {', '.join(controller_kinds())}",
-        )]) from None
+        raise _unknown(kind, where) from None
+
+
+def kind_declaration(kind: str, *, where: str = "controller") -> "type[ControllerKind]":
+    """What ``kind`` declares (options, parameters, inputs), loaded without torch for built-in kinds."""
+    if isinstance(kind, str) and kind in _KINDS:
+        return _KINDS[kind]
+    if isinstance(kind, str) and kind not in _DECLARED and kind in _BUILTIN:
+        importlib.import_module(f"{__package__}.kinds.{_BUILTIN[kind]}")
+    try:
+        return _DECLARED[kind]
+    except (KeyError, TypeError):
+        raise _unknown(kind, where) from None
+
+
+def _unknown(kind: Any, where: str) -> ControllerError:
+    known = controller_kinds()
+    return ControllerError([problem(
+        f"{where}.kind",
+        f"must name a known controller kind, got {kind!r}",
+        f"{close_match_hint(kind, known)}known kinds: {', '.join(known)}",
+    )])

@@ -11,7 +11,7 @@ import safetensors.numpy
 
 from .errors import ControllerError, problem
 
-__all__ = ["save_parameters", "load_parameters", "parameters_metadata", "PARAMETERS_FORMAT"]
+__all__ = ["save_parameters", "parameters_bytes", "load_parameters", "parameters_metadata", "PARAMETERS_FORMAT"]
 
 PARAMETERS_FORMAT = "kinetome.controller.parameters/1"
 _FIELD = "controller.parameters"
@@ -22,8 +22,14 @@ def save_parameters(controller: Any) -> bytes:
 
     The metadata records the format and the controller kind.
     """
-    arrays = {k: np.array(v, dtype=np.float64, order="C") for k, v in controller.parameter_values().items()}
-    data = safetensors.numpy.save(arrays, metadata={"format": PARAMETERS_FORMAT, "kind": controller.kind})
+    return parameters_bytes(controller.parameter_values(), controller.kind)
+
+
+def parameters_bytes(values: Any, kind: str) -> bytes:
+    """``save_parameters`` of a controller of ``kind`` whose parameter values are ``values``
+    (name -> array, declaration order), without building it (e.g. from a ``ControllerPlan``)."""
+    arrays = {k: np.array(v, dtype=np.float64, order="C") for k, v in values.items()}
+    data = safetensors.numpy.save(arrays, metadata={"format": PARAMETERS_FORMAT, "kind": kind})
     return _canonical_header(data)
 
 

@@ -49,14 +49,7 @@ def skill_from_spec(skill: Skill, *, ref: str | None = None, rig: Any = None, pa
 
     rig = rig if rig is not None else default_rig(skill.env)
     c = skill.controller
-    controller = build_controller(
-        c.kind,
-        context_from_rig(rig),
-        parameters=c.parameter_arrays(),
-        bounds=c.bound_arrays(),
-        options=dict(c.options),
-        exploration_std=c.exploration_std,
-    )
+    controller = build_controller(c.kind, context_from_rig(rig), **c.build_arguments())
     if parameter_values is not None:
         controller.load_values(parameter_values)
     params = {k: np.asarray(v, dtype=np.float64) for k, v in controller.parameter_values().items()}

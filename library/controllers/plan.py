@@ -1,19 +1,42 @@
-"""``build_controller``: kind + context + spec values -> a checked, ready controller."""
+"""``plan_controller``: kind + context + spec values -> every parameter checked, without torch.
+
+``build_controller`` turns a plan into the torch controller; validating and
+registering a spec need only the plan (values in declaration order, bounds,
+inputs), so they never import torch.
+"""
 
 from __future__ import annotations
 
-from typing import Any, Mapping
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Mapping
 
 import numpy as np
 
 from ..errors import Problem
-from .base import Controller, log_std_decl
 from .context import ControllerContext
 from .errors import ControllerError, problem
-from .params import check_parameters, format_number, resolve_bounds
-from .registry import kind_class
+from .kind import log_std_decl
+from .params import ParamDecl, check_parameters, format_number, resolve_bounds
+from .registry import kind_class, kind_declaration
 
-__all__ = ["build_controller"]
+if TYPE_CHECKING:
+    from .base import Controller
+
+__all__ = ["ControllerPlan", "plan_controller", "build_controller"]
+
+
+@dataclass(frozen=True)
+class ControllerPlan:
+    """A controller before torch: every value checked, in declaration order (``log_std`` last)."""
+
+    kind: str
+    context: ControllerContext
+    options: Mapping[str, Any]
+    decls: tuple[ParamDecl, ...]
+    values: Mapping[str, np.ndarray]
+    bounds: Mapping[str, tuple[np.ndarray, np.ndarray]]
+    inputs: tuple[str, ...]
+    needs: tuple[str, ...]
 
 
 def _log_std_from(
@@ -50,7 +73,7 @@ def _log_std_from(
     return np.array(log, dtype=np.float64), []
 
 
-def build_controller(
+def plan_controller(
     kind: str,
     context: ControllerContext,
     *,
@@ -59,8 +82,8 @@ def build_controller(
     options: Mapping[str, Any] | None = None,
     exploration_std: Any = None,
     where: str = "controller",
-) -> Controller:
-    """A controller of ``kind`` for ``context``.
+) -> ControllerPlan:
+    """The checked plan of a controller of ``kind`` for ``context`` (see ``build_controller``).
 
     ``parameters``: name -> array-like; missing names take the declared default
     (a missing required one is an error). ``bounds``: name -> (low, high), each a
@@ -69,7 +92,7 @@ def build_controller(
     or give ``log_std`` in ``parameters`` instead. Every problem is reported at
     once in a ``ControllerError`` whose fields start with ``where``.
     """
-    cls = kind_class(kind, where=where)
+    cls = kind_declaration(kind, where=where)
     resolved = cls.resolve_options(context, options, where=where)
     decls = (*cls._declare(context, resolved), log_std_decl(context))
     params = dict(parameters or {})
@@ -95,4 +118,22 @@ def build_controller(
         values, resolved_bounds = {}, {}
     if problems:
         raise ControllerError(problems)
-    return cls(context, resolved, decls, values, resolved_bounds)
+    ordered = {d.name: values[d.name] for d in decls}
+    return ControllerPlan(
+        kind, context, resolved, decls, ordered, resolved_bounds,
+        tuple(cls.reads(context, resolved)), tuple(cls.requires(context, resolved)),
+    )
+
+
+def build_controller(kind: str, context: ControllerContext, **spec: Any) -> "Controller":
+    """A controller of ``kind`` for ``context``, ready to act (imports torch).
+
+    Keywords as ``plan_controller``: ``parameters`` (name -> array-like; missing
+    names take the declared default), ``bounds`` (name -> (low, high)),
+    ``options``, ``exploration_std`` (a number or one per actuator) and ``where``
+    (the field prefix of problems). Every problem is reported at once in a
+    ``ControllerError``.
+    """
+    plan = plan_controller(kind, context, **spec)
+    cls = kind_class(kind, where=spec.get("where", "controller"))
+    return cls(context, plan.options, plan.decls, plan.values, plan.bounds)

@@ -1,0 +1,1 @@
+"""Torch-free declarations of the built-in controller kinds (options, parameters, inputs)."""
