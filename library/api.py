@@ -118,8 +118,10 @@ def fit(
     start: str | Path | None = None,
     seed: int = 0,
     workers: int = 1,
+    progress: Any = None,
 ) -> dict[str, Any]:
-    """Fit duration, reward and end-state models from rollouts; attach them to the version."""
+    """Fit duration, reward and end-state models from rollouts; attach them to the version.
+    ``progress(done, total)`` follows the rollouts."""
     from kinetome.trainers.fitting import collect_and_fit  # trainers only here, lazily
 
     from .tasks import load_start_file, load_variant_file, task_rig
@@ -130,7 +132,7 @@ def fit(
         raise InvalidInputError(f"--episodes must be >= 20 so that enough episodes run for a held-out split, got {episodes}")
     loaded = load(ref, store=store)
     rig = task_rig(loaded.skill.env, load_variant_file(variant))
-    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(start))
+    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(start), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
     record = store.attach_model(loaded.ref, MODEL_KIND, models.to_files(), meta=meta)
@@ -320,15 +322,17 @@ def check_chain(
     seed: int | None = None,
     workers: int = 1,
     report_dir: str | Path | None = None,
+    progress: Any = None,
 ) -> Any:
     """Check a chain file handoff by handoff; optionally write the report folder.
+    ``progress(done, total)`` follows the simulation, when one runs.
 
     Returns a ``CheckResult``: ``exit_code`` 0 all compose, 1 some handoff
     breaks, 3 some unsure (bad input raises ``InvalidInputError``, exit 2).
     """
     from .checker import check_chain as _check
 
-    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers)
+    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress)
     if report_dir is not None:
         from .report.checker_plots import write_report
 

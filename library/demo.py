@@ -41,7 +41,14 @@ class DemoSettings:
 @dataclass
 class _Log:
     stream: TextIO
+    quiet: bool = False
     started: float = field(default_factory=time.monotonic)
+
+    def progress(self, label: str, unit: str = "steps") -> Any:
+        """A progress display for one long phase, on the log's stream (off when quiet)."""
+        from .cli.progress import Progress
+
+        return Progress(label, unit=unit, stream=self.stream, quiet=self.quiet)
 
     def step(self, text: str) -> None:
         self.stream.write(f"[{time.monotonic() - self.started:6.1f} s] {text}\n")
@@ -93,7 +100,11 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
     for path in sorted((configs / "chains").glob("*.yaml")):
         rig, start, skills = _chain_inputs(path, store)
         starts = sample_starts(rig, start, settings.fit_episodes, seed=settings.seed)
-        rollout = run_chain(skills, rig, starts=starts, seed=settings.seed, workers=settings.workers)
+        with log.progress(f"rollouts of {path.stem} for fitting") as bar:
+            rollout = run_chain(
+                skills, rig, starts=starts, seed=settings.seed, workers=settings.workers,
+                progress=lambda done, total: bar.update(done, total=total),
+            )
         for k, skill in enumerate(skills):
             if skill.ref in fitted:
                 continue
@@ -117,7 +128,11 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
     results = []
     for path in sorted((configs / "chains").glob("*.yaml")):
         report_dir = out / "chains" / path.stem
-        result = check_chain(path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed, workers=settings.workers, report_dir=report_dir)
+        with log.progress(f"checking {path.stem}") as bar:
+            result = check_chain(
+                path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed,
+                workers=settings.workers, report_dir=report_dir, progress=lambda done, total: bar.update(done, total=total),
+            )
         data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
         verdicts = ", ".join(f"{h['from']} -> {h['to']}: {h['verdict']} ({h['decided_by']})" for h in data["junctions"] if h["kind"] == "handoff")
@@ -127,14 +142,12 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
 
 def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
     from .api import retrain
-    from .cli.progress import ProgressBar
 
     variant = configs / "variants" / "heavy_payload.yaml"
-    bar = ProgressBar(1, "retraining arm-reach-tray", stream=log.stream, delay=0.5)
+    bar = log.progress("retraining arm-reach-tray", unit="env steps")
 
     def on_update(row: dict[str, Any]) -> None:
-        bar.total = int(row.get("total_steps") or 1)
-        bar.update(int(row["steps"]), f"{row['steps']} steps, {row.get('steps_per_s', 0):,.0f} steps/s")
+        bar.update(int(row["steps"]), total=int(row.get("total_steps") or 0) or None)
 
     result = retrain(
         "arm-reach-tray",
@@ -179,13 +192,17 @@ def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, lo
     return strips
 
 
-def run_demo(out_dir: str | Path, *, store_dir: str | Path | None = None, quick: bool = False, stream: TextIO | None = None) -> dict[str, Any]:
-    """Run every phase and write ``out_dir/report.html`` plus PNGs and ``demo.json``."""
+def run_demo(
+    out_dir: str | Path, *, store_dir: str | Path | None = None, quick: bool = False, stream: TextIO | None = None,
+    quiet: bool = False,
+) -> dict[str, Any]:
+    """Run every phase and write ``out_dir/report.html`` plus PNGs and ``demo.json``;
+    ``quiet`` hides the progress bars and lines (the phase log stays)."""
     from .api import open_store
     from .report.demo_report import write_demo_report
 
     settings = DemoSettings.for_mode(quick)
-    log = _Log(stream or sys.stdout)
+    log = _Log(stream or sys.stdout, quiet=quiet)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     store = open_store(store_dir if store_dir is not None else out / "store")

@@ -335,6 +335,7 @@ def collect_and_fit(
     workers: int = 1,
     start: Any = None,
     gamma: float = 0.99,
+    progress: Any = None,
     **fit_options: Any,
 ) -> OptionModels:
     """Run ``skill`` for ``episodes`` episodes on ``rig`` and fit its option models.
@@ -342,12 +343,13 @@ def collect_and_fit(
     Starts come from ``start`` (a StartDistribution) or the rig's default; the
     end-state envelope is the rig's layout. ``fit_options`` go to
     ``fit_option_models`` (features, end_quantities, holdout, expansion...).
+    ``progress(done, total)`` is called as the rollouts advance (env steps).
     """
     from kinetome.library.runtime.execute import run_skill  # lazy: mujoco
     from kinetome.library.runtime.starts import sample_starts
 
     qpos, qvel = sample_starts(rig, start, int(episodes), seed=seed)
-    rollout = run_skill(skill, rig, starts=(qpos, qvel), seed=seed, workers=workers, gamma=gamma)
+    rollout = run_skill(skill, rig, starts=(qpos, qvel), seed=seed, workers=workers, gamma=gamma, progress=progress)
     fit_options.setdefault("envelope", rig.layout)
     variant = getattr(rig, "variant", None)
     if variant is not None:

@@ -38,16 +38,18 @@ def check_chain(
     gamma: float = 0.99,
     start_samples: int = 1000,
     model_samples: int = 2000,
+    progress: Any = None,
 ) -> CheckResult:
     """Check that a chain composes. ``chain`` is a Chain or the path of a chain file.
 
     Raises InvalidInputError (exit code 2) for bad input; otherwise the
     result's ``exit_code`` is 0 (all compose), 1 (some handoff breaks) or 3
     (some unsure). ``episodes``/``seed`` override the chain file's values.
+    ``progress(done, total)`` follows the simulation, when one runs.
     """
     options = CheckOptions(
         method=method, episodes=episodes, seed=seed, workers=workers, gamma=gamma,
-        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples,
+        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress,
     )
     if not isinstance(chain, Chain):
         chain = load_chain(chain, store=store)

@@ -32,6 +32,7 @@ class CheckOptions:
     start_samples: int = 1000
     model_samples: int = 2000
     max_counterexamples: int = 5
+    progress: Any = field(default=None, compare=False)  # progress(done, total) while simulating
 
     def __post_init__(self) -> None:
         problems = []

@@ -29,7 +29,8 @@ def simulate_chain(ctx: Any) -> Any:
 
         qpos, qvel = ctx.start_states(ctx.episodes, seed=ctx.seed)
         ctx.cache["rollout"] = run_chain(
-            list(ctx.skills), ctx.rig, starts=(qpos, qvel), seed=ctx.seed, workers=ctx.options.workers, gamma=ctx.options.gamma
+            list(ctx.skills), ctx.rig, starts=(qpos, qvel), seed=ctx.seed, workers=ctx.options.workers, gamma=ctx.options.gamma,
+            progress=ctx.options.progress,
         )
     return ctx.cache["rollout"]
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 import sys
 from typing import Any
 
@@ -27,16 +28,20 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
 
 def _check(args: argparse.Namespace) -> int:
     from ..api import check_chain, open_store
+    from .progress import Progress
 
-    result = check_chain(
-        args.chain,
-        store=open_store(getattr(args, "store", None)),
-        method=args.method,
-        episodes=args.episodes,
-        seed=args.seed,
-        workers=args.workers,
-        report_dir=args.report,
-    )
+    quiet = bool(getattr(args, "quiet", False) or args.json)
+    with Progress(f"simulating {Path(args.chain).name}", unit="steps", quiet=quiet) as bar:
+        result = check_chain(
+            args.chain,
+            store=open_store(getattr(args, "store", None)),
+            method=args.method,
+            episodes=args.episodes,
+            seed=args.seed,
+            workers=args.workers,
+            report_dir=args.report,
+            progress=lambda done, total: bar.update(done, total=total),
+        )
     if args.json:
         sys.stdout.write(result.to_json() + "\n")
     else:

@@ -25,5 +25,5 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
 def _demo(args: argparse.Namespace) -> int:
     from ..demo import run_demo
 
-    run_demo(args.out, store_dir=getattr(args, "store", None), quick=args.quick)
+    run_demo(args.out, store_dir=getattr(args, "store", None), quick=args.quick, quiet=getattr(args, "quiet", False))
     return 0

@@ -20,10 +20,14 @@ __all__ = ["main", "build_parser", "common_options"]
 
 
 def common_options() -> argparse.ArgumentParser:
-    """--store and --debug, accepted after the command name too."""
+    """--store, --debug and --quiet, accepted after the command name too."""
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("--store", metavar="DIR", default=argparse.SUPPRESS, help="skill store folder")
     common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
+    common.add_argument(
+        "--quiet", action="store_true", default=argparse.SUPPRESS,
+        help="no progress bar or progress lines on long commands (retrain, train, run, fit, check, demo)",
+    )
     return common
 
 # command modules, in the order ``--help`` lists them
@@ -39,6 +43,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="kinetome", description=_DESCRIPTION)
     parser.add_argument("--store", metavar="DIR", help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar or progress lines on long commands")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     for module_name in _COMMAND_MODULES:

@@ -6,7 +6,7 @@ import argparse
 from typing import Any
 
 from .output import print_json, print_table
-from .progress import ProgressBar
+from .progress import Progress
 
 __all__ = ["add_parsers"]
 
@@ -33,6 +33,11 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.set_defaults(handler=_fit)
 
 
+def _quiet(args: argparse.Namespace) -> bool:
+    """--quiet, and --json (machine output stays clean), turn progress off."""
+    return bool(getattr(args, "quiet", False) or getattr(args, "json", False))
+
+
 def _store(args: argparse.Namespace) -> Any:
     from ..api import open_store
 
@@ -42,7 +47,7 @@ def _store(args: argparse.Namespace) -> Any:
 def _run(args: argparse.Namespace) -> int:
     from ..api import run
 
-    bar = ProgressBar(1, f"run {args.ref}", enabled=not args.json)
+    bar = Progress(f"run {args.ref} ({args.episodes} episodes)", unit="steps", quiet=_quiet(args))
     summary = run(
         args.ref,
         store=_store(args),
@@ -51,7 +56,7 @@ def _run(args: argparse.Namespace) -> int:
         episodes=args.episodes,
         seed=args.seed,
         workers=args.workers,
-        progress=lambda done, total: (setattr(bar, "total", total), bar.update(done, f"step {done}/{total}")),
+        progress=lambda done, total: bar.update(done, total=total),
     )
     bar.close()
     if args.json:
@@ -79,7 +84,11 @@ def _run(args: argparse.Namespace) -> int:
 def _fit(args: argparse.Namespace) -> int:
     from ..api import fit
 
-    result = fit(args.ref, store=_store(args), episodes=args.episodes, variant=args.variant, start=args.start, seed=args.seed, workers=args.workers)
+    with Progress(f"fit {args.ref} ({args.episodes} episodes)", unit="steps", quiet=_quiet(args)) as bar:
+        result = fit(
+            args.ref, store=_store(args), episodes=args.episodes, variant=args.variant, start=args.start, seed=args.seed,
+            workers=args.workers, progress=lambda done, total: bar.update(done, total=total),
+        )
     if args.json:
         print_json(result)
         return 0

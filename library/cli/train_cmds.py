@@ -7,7 +7,7 @@ from typing import Any
 
 from .old_spellings import add_old_option
 from .output import print_json, print_table
-from .progress import ProgressBar
+from .progress import Progress
 
 __all__ = ["add_parsers"]
 
@@ -54,14 +54,12 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.set_defaults(handler=_train)
 
 
-def _bar(label: str, quiet: bool) -> tuple[ProgressBar, Any]:
-    bar = ProgressBar(1, label, enabled=not quiet, delay=0.0)
+def _bar(label: str, args: argparse.Namespace) -> tuple[Progress, Any]:
+    """A progress display in env steps and the trainer callback that feeds it (rows of the learning curve)."""
+    bar = Progress(label, unit="env steps", quiet=bool(getattr(args, "quiet", False) or args.json))
 
     def on_update(row: dict[str, Any]) -> None:
-        bar.total = int(row.get("total_steps") or 1)
-        sr = row.get("success_rate")
-        note = f"{row['steps']} steps  return {row.get('return_mean', float('nan')):.3g}" + (f"  success {sr:.2f}" if isinstance(sr, float) and sr == sr else "") + f"  {row.get('steps_per_s', 0):,.0f} steps/s"
-        bar.update(int(row["steps"]), note)
+        bar.update(int(row["steps"]), total=int(row.get("total_steps") or 0) or None)
 
     return bar, on_update
 
@@ -74,7 +72,7 @@ def _retrain(args: argparse.Namespace) -> int:
     from ..api import open_store, retrain
     from ..safety import CAUTION
 
-    bar, on_update = _bar(f"retrain {args.ref}", args.json)
+    bar, on_update = _bar(f"retrain {args.ref}", args)
     result = retrain(
         args.ref,
         store=open_store(getattr(args, "store", None)),
@@ -108,7 +106,7 @@ def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
     from ..safety import CAUTION
 
-    bar, on_update = _bar(f"train {args.config}", args.json)
+    bar, on_update = _bar(f"train {args.config}", args)
     result = train(args.config, store=open_store(getattr(args, "store", None)), seed=args.seed, workers=args.workers, out_dir=args.out, progress=on_update)
     bar.close()
     if args.json:

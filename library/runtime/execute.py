@@ -195,13 +195,21 @@ def run_chain(
     records: list[SegmentRecord] = []
     from ..controllers.kernels import torch_threads
 
+    longest = sum(int(s.max_steps) for s in skills)
+    done_before = 0
     with torch_threads(1):
         for index, skill in enumerate(skills):
             seg = _Segment(n)
             start = sim.state()
+            # progress counts steps of the longest possible chain run, across segments
+            segment_progress = None if progress is None else (lambda t, _m, before=done_before: progress(before + t, longest))
             _run_segment(
-                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, tracer=tracer, index=index, progress=progress
+                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, tracer=tracer, index=index,
+                progress=segment_progress,
             )
+            done_before += int(skill.max_steps)
+            if progress is not None:
+                progress(done_before, longest)
             records.append(seg.record(skill.ref, start, sim.state(), gamma))
             offered = np.flatnonzero((seg.reason == int(EndReason.STOPPED)) | (seg.reason == int(EndReason.TIMED_OUT)))
     qpos_trace, seg_trace = tracer.arrays(rig.model.nq) if tracer is not None else (None, None)
