@@ -205,16 +205,17 @@ def retrain(
     on the variant.
     """
     from kinetome.trainers.curves import save_curves
-    from kinetome.trainers.retrain import retrain_skill
+    from kinetome.trainers.retrain import refuse_deliberation_cost, retrain_skill
 
     from .runtime.skill import PARAMS_FILE, SPEC_FILE
     from .spec import canonical_json, skill_to_document
     from .tasks import load_start_file, load_variant_file, task_rig
 
+    cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
+    refuse_deliberation_cost(cfg, "--deliberation-cost" if deliberation_cost else f"{config}: deliberation_cost")
     parent = load(ref, store=store)
     task_variant = load_variant_file(variant)
     rig = task_rig(parent.skill.env, task_variant)
-    cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
     out = Path(out_dir) if out_dir is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
     out.mkdir(parents=True, exist_ok=True)
     result = retrain_skill(

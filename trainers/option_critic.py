@@ -91,6 +91,10 @@ class OptionCriticTrainer:
     ):
         if not skills:
             raise ValueError("training needs at least one skill")
+        if episode_per_skill and config.deliberation_cost:
+            raise ValueError(
+                f"deliberation_cost must be 0 with episode_per_skill (one skill, no switches), got {config.deliberation_cost:g}"
+            )
         if workers < 1:
             raise ValueError(f"workers must be >= 1, got {workers}")
         self.skills = list(skills)

@@ -19,7 +19,7 @@ from .option_critic import OptionCriticTrainer
 from .progress import ProgressFn
 from .trainable import trainable_from_loaded
 
-__all__ = ["RetrainResult", "retrain_skill", "reinitialise_controller"]
+__all__ = ["RetrainResult", "retrain_skill", "reinitialise_controller", "refuse_deliberation_cost"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -98,6 +98,18 @@ def reinitialise_controller(controller: Any, *, keep: tuple[str, ...] = ()) -> N
     controller.load_values(fresh)
 
 
+def refuse_deliberation_cost(config: TrainConfig, where: str = "deliberation_cost") -> None:
+    """Flat retraining has one skill and no switches, so a deliberation cost would change nothing: refuse it."""
+    from kinetome.library.errors import InvalidInputError
+
+    if config.deliberation_cost:
+        raise InvalidInputError(
+            f"{where} must be 0 for retrain, got {config.deliberation_cost:g}: flat retraining runs one skill "
+            "with no switches, so a deliberation cost has nothing to act on; leave it out, or train the skills "
+            "together with `kinetome train` (options mode) where it is charged at every switch"
+        )
+
+
 def retrain_skill(
     skill: Any,
     rig: Any,
@@ -119,6 +131,7 @@ def retrain_skill(
     Parameters named by the predicates stay fixed. ``seed`` overrides
     ``config.seed``; evaluation uses the same seed before and after.
     """
+    refuse_deliberation_cost(config)
     t0 = time.perf_counter()
     config = dataclasses.replace(config, seed=int(seed))
     work, trainable = _working_copy(skill, from_scratch=from_scratch)

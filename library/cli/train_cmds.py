@@ -29,7 +29,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--variant", required=True, metavar="FILE", help="task variant YAML (e.g. configs/variants/heavy_payload.yaml)")
     p.add_argument("--budget", type=int, dest="env_step_budget", metavar="STEPS", help="env steps of training in total (default: the config's env_step_budget)")
     add_old_option(p, "--steps", "--budget", dest="env_step_budget", type=int)
-    p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA")
+    p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA",
+                   help="refused unless 0: retraining runs one skill with no switches (options mode, `kinetome train`, charges it)")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
     p.add_argument("--workers", type=int, default=1)

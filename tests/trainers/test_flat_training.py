@@ -177,3 +177,15 @@ def test_result_curves_are_written(rig, tmp_path):
     csv_path, png_path = result.save_curves(tmp_path, stem="reach")
     assert csv_path.name == "reach.csv" and len(csv_path.read_text().splitlines()) == 3
     assert png_path.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_flat_mode_refuses_a_deliberation_cost_and_options_mode_takes_it(rig):
+    from kinetome.library.errors import InvalidInputError
+
+    with pytest.raises(InvalidInputError, match="deliberation_cost must be 0 for retrain, got 0.1"):
+        retrain_skill(loaded_reach(rig), rig, quick_config(deliberation_cost=0.1), seed=0)
+    with pytest.raises(ValueError, match="deliberation_cost must be 0 with episode_per_skill"):
+        OptionCriticTrainer([reach_skill(rig)], rig, quick_config(deliberation_cost=0.1), episode_per_skill=True)
+    skills = [reach_skill(rig), reach_skill(rig)]
+    skills[1].name = "reach2"
+    assert OptionCriticTrainer(skills, rig, quick_config(deliberation_cost=0.1), episode_per_skill=False).config.deliberation_cost == 0.1

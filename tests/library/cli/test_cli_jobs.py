@@ -8,6 +8,7 @@ from pathlib import Path
 import pytest
 from scipy.stats import binomtest
 
+from kinetome.library.api import open_store
 from kinetome.library.cli.main import main
 
 ROOT = Path(__file__).resolve().parents[3]
@@ -130,3 +131,21 @@ def test_old_option_spelling_still_works_with_one_warning() -> None:
     assert new.env_step_budget == old.env_step_budget == 5
     assert [str(w.message) for w in caught if w.category is RenamedKeyWarning] == ["'--steps' is an old spelling; write '--budget' instead"]
     assert build_parser().parse_args(["retrain", "x", "--variant", "v.yaml"]).env_step_budget is None
+
+
+@pytest.mark.parametrize("how", ["flag", "file"])
+def test_retrain_refuses_a_deliberation_cost(store, tmp_path, capsys, how) -> None:
+    # flat retraining has no switches: eta would change nothing yet be recorded, so it is refused
+    args = ["--deliberation-cost", "0.5"]
+    if how == "file":
+        config = tmp_path / "eta.yaml"
+        config.write_text("deliberation_cost: 0.5\n")
+        args = ["--config", str(config)]
+    before = [v.ref for v in open_store(store).history("arm-lift")]
+    code = main(["--store", store, "retrain", "arm-lift", "--variant", str(CONFIGS / "variants" / "heavy_payload.yaml"),
+                 "--out", str(tmp_path / "rt"), *args])
+    err = capsys.readouterr().err
+    assert code == 2 and "must be 0 for retrain, got 0.5" in err and "kinetome train" in err
+    assert ("--deliberation-cost" in err) == (how == "flag")
+    after = [v.ref for v in open_store(store).history("arm-lift")]
+    assert after == before and not (tmp_path / "rt").exists()
