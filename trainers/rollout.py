@@ -29,7 +29,7 @@ from kinetome.library.errors import TrainingError
 from .config import TrainConfig
 from .normaliser import ObservationNormaliser, ReturnNormaliser, RunningMoments
 from .samples import EpisodeStats, Rollout, RolloutBuffer, StepEnd
-from .skill_policy import choose_skills, skill_values
+from .skill_policy import NO_SKILL, choose_skills, skill_values
 from .starts import StartSampler
 from .trainable import TrainableSkill
 
@@ -139,13 +139,12 @@ class Collector:
         return np.stack([s.starts(state) for s in self.skills], axis=1)
 
     def _choose(self, state: dict[str, np.ndarray]) -> np.ndarray:
+        """The first skill of fresh episodes (their start states lie inside some skill's starts_when)."""
         n = len(next(iter(state.values())))
         if len(self.skills) == 1:
             return np.zeros(n, dtype=np.int64)
-        avail = self.available(state)
-        self.stats.no_skill_available += int(np.sum(~avail.any(axis=1)))
         q = self.q_values(self.features(state))
-        return choose_skills(q, avail, epsilon=self.epsilon, rng=self.np_rng)
+        return choose_skills(q, self.available(state), epsilon=self.epsilon, rng=self.np_rng)
 
     # ----- episodes -------------------------------------------------------------
 
@@ -286,17 +285,28 @@ class Collector:
         )
 
     def _end_of_options_step(self, after, w, reward, stops, terminated, timeout, over_limit) -> StepEnd:
-        """Options mode: forced stops, learned stops (beta), switches and their cost, termination targets."""
-        truncated = over_limit & ~terminated
+        """Options mode: forced and learned stops, the next skill where one stopped, switch cost, termination targets.
+
+        Where a skill stopped and no skill's starts_when holds, the episode ends there with a refusal.
+        """
         feats_after = self.features(after)
         q_after = self.q_values(feats_after)
         forced, learnable = _stop_rule(self.config.stop_mode, stops, timeout)
         learned_stop = self._learned_stops(feats_after, w, learnable)
-        ep_end = terminated | truncated
-        switched = (forced | learned_stop) & ~ep_end
-        v_after = skill_values(q_after, self.available(after), epsilon=self.epsilon)
+        available = self.available(after)
+        stopped = (forced | learned_stop) & ~(terminated | over_limit)
+        next_skill = w.copy()
+        sw = np.flatnonzero(stopped)
+        if sw.size:
+            next_skill[sw] = choose_skills(q_after[sw], available[sw], epsilon=self.epsilon, rng=self.np_rng)
+        refused = next_skill == NO_SKILL
+        terminal = terminated | refused
+        truncated = over_limit & ~terminal
+        ep_end = terminal | truncated
+        switched = stopped & ~refused
+        v_after = skill_values(q_after, available, epsilon=self.epsilon)
         return StepEnd(
-            terminal=terminated,
+            terminal=terminal,
             truncated=truncated,
             skill_ends=forced | learned_stop | ep_end,
             switched=switched,
@@ -306,6 +316,8 @@ class Collector:
             term_advantage=q_after[np.arange(self.n), w] - v_after,
             feats_after=feats_after,
             q_after=q_after,
+            next_skill=next_skill,
+            refused=refused,
         )
 
     def _learned_stops(self, feats_after: np.ndarray, w: np.ndarray, learnable: np.ndarray) -> np.ndarray:
@@ -329,6 +341,8 @@ class Collector:
         st.skill_durations.extend(self.skill_steps[np.flatnonzero(end.skill_ends)].tolist())
         st.terminations += int(np.sum(end.skill_ends & ~ep_end))
         st.learned_terminations += int(np.sum(end.learned_stop & ~ep_end))
+        if end.refused is not None:
+            st.refusals += int(np.sum(end.refused))
         done_ids = np.flatnonzero(ep_end)
         st.returns.extend(self.episode_return[done_ids].tolist())
         st.lengths.extend(self.episode_steps[done_ids].tolist())
@@ -354,12 +368,10 @@ class Collector:
         return scaled
 
     def _next_skills(self, after: dict[str, np.ndarray], end: StepEnd) -> None:
-        """Choose the next skill where one switched inside an episode; fresh starts where episodes ended."""
+        """Run the chosen skill where one switched inside an episode; fresh starts where episodes ended."""
         sw = np.flatnonzero(end.switched)
         if sw.size:
-            avail = self.available(_take(after, sw))
-            self.stats.no_skill_available += int(np.sum(~avail.any(axis=1)))
-            self.skill[sw] = choose_skills(end.q_after[sw], avail, epsilon=self.epsilon, rng=self.np_rng)
+            self.skill[sw] = end.next_skill[sw]
             self.skill_steps[sw] = 0
         done_ids = np.flatnonzero(end.episode_ends)
         if done_ids.size:

@@ -40,7 +40,7 @@ class EpisodeStats:
     skill_steps: int = 0
     terminations: int = 0
     learned_terminations: int = 0
-    no_skill_available: int = 0
+    refusals: int = 0  # options mode: episodes ended because no skill's starts_when held
     skill_counts: np.ndarray | None = None  # (n_skills,) env steps each skill ran
 
     def summary(self) -> dict[str, float]:
@@ -52,7 +52,7 @@ class EpisodeStats:
             "success_rate": float(np.mean(self.successes)) if self.successes else nan,
             "termination_rate": self.terminations / self.skill_steps if self.skill_steps else nan,
             "mean_skill_duration": float(np.mean(self.skill_durations)) if self.skill_durations else nan,
-            "no_skill_available": self.no_skill_available,
+            "refusals": self.refusals,
             "skill_share": (self.skill_counts / self.skill_counts.sum()).tolist()
             if self.skill_counts is not None and self.skill_counts.sum() > 0
             else [],
@@ -64,7 +64,7 @@ class StepEnd:
     """How one step ended in each simulation, (N,) arrays.
 
     ``terminal``: the env ended the episode (or, per skill, the skill
-    succeeded); ``truncated``: a time limit ended it (bootstrapped);
+    succeeded; or, in options mode, no skill was available to go on); ``truncated``: a time limit ended it (bootstrapped);
     ``skill_ends``: the running skill's turn is over; ``switched``: a new
     skill is chosen inside the episode; ``reward``: the raw reward with the
     success bonus or switch cost. ``term_*`` feed the termination update.
@@ -81,6 +81,8 @@ class StepEnd:
     success: np.ndarray | None = None  # flat mode with a stops_when: the stop held
     feats_after: np.ndarray | None = None  # options mode: features of s_{t+1}
     q_after: np.ndarray | None = None  # options mode: Q(s_{t+1}, .)
+    next_skill: np.ndarray | None = None  # options mode: the skill chosen where one stopped (NO_SKILL: refused)
+    refused: np.ndarray | None = None  # options mode: a skill stopped and none was available
 
     @property
     def episode_ends(self) -> np.ndarray:

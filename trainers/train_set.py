@@ -194,8 +194,8 @@ def train_skills(
     An episode runs until the env terminates or the episode limit; inside it
     a skill runs until its termination (``config.stop_mode``) or
     ``max_steps``, then the next is chosen epsilon-greedy on Q among skills
-    whose ``starts_when`` holds (all, if none does). Each switch costs
-    ``config.deliberation_cost``.
+    whose ``starts_when`` holds; when none holds the episode ends there
+    (a refusal). Each switch costs ``config.deliberation_cost``.
     """
     if not skills:
         raise ValueError("train_skills needs at least one skill")

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from kinetome.trainers.skill_policy import choose_skills, skill_probabilities, skill_values
+from kinetome.trainers.skill_policy import NO_SKILL, choose_skills, skill_probabilities, skill_values
 
 
 def test_probabilities_respect_availability():
@@ -11,8 +11,17 @@ def test_probabilities_respect_availability():
     avail = np.array([[True, False, True], [False, False, False]])
     p = skill_probabilities(q, avail, epsilon=0.2)
     np.testing.assert_allclose(p[0], [0.1, 0.0, 0.9])  # best available is skill 2
-    np.testing.assert_allclose(p[1], [0.8 + 0.2 / 3, 0.2 / 3, 0.2 / 3])  # none available: all skills
-    np.testing.assert_allclose(p.sum(axis=1), 1.0)
+    np.testing.assert_allclose(p[1], [0.0, 0.0, 0.0])  # none available: no choice at all
+    assert p[0].sum() == pytest.approx(1.0)
+
+
+def test_no_available_skill_means_no_choice_and_zero_value():
+    q = np.array([[1.0, 3.0], [2.0, -1.0]])
+    avail = np.array([[False, False], [True, True]])
+    rng = np.random.default_rng(0)
+    assert choose_skills(q, avail, epsilon=0.1, rng=rng)[0] == NO_SKILL
+    assert choose_skills(q, avail, epsilon=0.0, rng=rng)[1] == 0
+    np.testing.assert_allclose(skill_values(q, avail, epsilon=0.0), [0.0, 2.0])
 
 
 def test_value_is_expected_q_under_the_choice():

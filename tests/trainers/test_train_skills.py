@@ -62,8 +62,8 @@ def test_train_skills_on_loaded_skills_returns_refinements(rig):
 
 
 def test_registered_mode_stops_exactly_at_stops_when(rig):
-    # beta = 1 where stops_when holds and 0 elsewhere: every termination inside an episode is a stop or a timeout.
-    skills = [reach_skill(rig, gain=3.0), reach_skill(rig, gain=2.0)]
+    # beta = 1 where stops_when holds and 0 elsewhere: every turn ends by a stop, a timeout or the episode's end
+    skills = [reach_skill(rig, gain=3.0, max_steps=10), reach_skill(rig, gain=2.0, max_steps=10)]
     skills[1].name = "reach2"
     trainer = OptionCriticTrainer(skills, rig, quick_config(env_step_budget=16 * 32, stop_mode="registered"), episode_per_skill=False)
     assert trainer.heads is None
@@ -71,7 +71,31 @@ def test_registered_mode_stops_exactly_at_stops_when(rig):
     trainer.collector.collect()
     stats = trainer.collector.stats
     assert stats.learned_terminations == 0
-    assert stats.terminations > 0
+    assert stats.terminations > 0 and max(stats.skill_durations) == 10
+
+
+def test_a_stop_with_no_skill_available_ends_the_episode_with_a_refusal(rig):
+    # Both skills start only outside 0.06 of the goal and stop inside 0.05: after a stop no skill may
+    # start, so the episode ends there (refused) instead of running a skill outside its starts_when.
+    skills = [reach_skill(rig, gain=3.0), reach_skill(rig, gain=2.0)]
+    skills[1].name = "reach2"
+    trainer = OptionCriticTrainer(skills, rig, quick_config(env_step_budget=16 * 32, stop_mode="registered"), episode_per_skill=False)
+    trainer.collector.start()
+    rollout = trainer.collector.collect()
+    stats = trainer.collector.stats
+    assert stats.refusals > 0 and stats.terminations == 0
+    assert len(stats.returns) == stats.refusals  # every episode that ended was refused (no env end, no limit hit)
+    assert rollout.dones.sum() == stats.refusals
+    # no step ran a skill outside its starts_when: the start of each turn is inside it
+    starts = np.linalg.norm(rollout.inputs["qpos"] - np.array([0.3, 0.0]), axis=-1)
+    first = np.concatenate([np.ones((1, 16), bool), rollout.dones[:-1]], axis=0)
+    assert np.all(starts[first] > 0.06)
+    # the same rollout with a skill that may start anywhere: something is always available, nothing refused
+    skills[1].starts_when = None
+    trainer = OptionCriticTrainer(skills, rig, quick_config(env_step_budget=16 * 32, stop_mode="registered"), episode_per_skill=False)
+    trainer.collector.start()
+    trainer.collector.collect()
+    assert trainer.collector.stats.refusals == 0 and trainer.collector.stats.terminations > 0
 
 
 def test_train_skills_rejects_bad_sets(rig):
