@@ -33,7 +33,7 @@ from .skill_policy import NO_SKILL, choose_skills, skill_values
 from .starts import StartSampler
 from .trainable import TrainableSkill
 
-__all__ = ["Rollout", "EpisodeStats", "Collector"]
+__all__ = ["Rollout", "EpisodeStats", "Collector", "arrival_value"]
 
 _MAX_START_ROUNDS = 100
 
@@ -56,6 +56,15 @@ def _stop_rule(mode: str, stops: np.ndarray, timeout: np.ndarray) -> tuple[np.nd
     else:
         learnable = np.zeros(len(stops), dtype=bool)
     return forced, learnable & ~forced
+
+
+def arrival_value(q_w: np.ndarray, v: np.ndarray, stop_probability: np.ndarray) -> np.ndarray:
+    """U(s', w) = (1 - beta(s', w)) Q(s', w) + beta(s', w) V(s'): the value of arriving in s' running w.
+
+    The option-value function on arrival (Sutton, Precup & Singh 1999; Bacon, Harb & Precup 2017);
+    beta is 1 where the stop is forced (stops_when by the stop mode, or a timeout).
+    """
+    return (1.0 - stop_probability) * q_w + stop_probability * v
 
 
 def _take(state: dict[str, np.ndarray], ids: np.ndarray, names: Sequence[str] | None = None) -> dict[str, np.ndarray]:
@@ -292,7 +301,7 @@ class Collector:
         feats_after = self.features(after)
         q_after = self.q_values(feats_after)
         forced, learnable = _stop_rule(self.config.stop_mode, stops, timeout)
-        learned_stop = self._learned_stops(feats_after, w, learnable)
+        beta, learned_stop = self._learned_stops(feats_after, w, learnable)
         available = self.available(after)
         stopped = (forced | learned_stop) & ~(terminated | over_limit)
         next_skill = w.copy()
@@ -305,6 +314,8 @@ class Collector:
         ep_end = terminal | truncated
         switched = stopped & ~refused
         v_after = skill_values(q_after, available, epsilon=self.epsilon)
+        q_w = q_after[np.arange(self.n), w]
+        stop_probability = np.where(forced, 1.0, np.where(learnable, beta, 0.0))
         return StepEnd(
             terminal=terminal,
             truncated=truncated,
@@ -313,21 +324,21 @@ class Collector:
             learned_stop=learned_stop,
             reward=reward - self.config.deliberation_cost * switched,
             term_weight=(learnable & ~ep_end).astype(np.float64),
-            term_advantage=q_after[np.arange(self.n), w] - v_after,
+            term_advantage=q_w - v_after,
             feats_after=feats_after,
-            q_after=q_after,
+            bootstrap=arrival_value(q_w, v_after, stop_probability),
             next_skill=next_skill,
             refused=refused,
         )
 
-    def _learned_stops(self, feats_after: np.ndarray, w: np.ndarray, learnable: np.ndarray) -> np.ndarray:
-        """Sample the termination heads where a stop is a learned decision (one uniform draw per simulation)."""
+    def _learned_stops(self, feats_after: np.ndarray, w: np.ndarray, learnable: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(beta(s', w), stops): sample the stop heads where a stop is a learned decision (one uniform draw per simulation)."""
         if self.heads is None or not learnable.any():
-            return np.zeros(self.n, dtype=bool)
+            return np.zeros(self.n), np.zeros(self.n, dtype=bool)
         with torch.no_grad():
             beta = self.heads.beta(torch.from_numpy(feats_after), torch.from_numpy(w)).numpy()
         u = self.np_rng.random(self.n)
-        return learnable & (u < beta)
+        return beta, learnable & (u < beta)
 
     def _record(self, w: np.ndarray, end: StepEnd) -> None:
         """Fold one step into the rollout's episode statistics."""
@@ -348,7 +359,10 @@ class Collector:
         st.lengths.extend(self.episode_steps[done_ids].tolist())
 
     def _training_rewards(self, end: StepEnd, after: dict[str, np.ndarray], w: np.ndarray) -> np.ndarray:
-        """Scaled rewards; truncated episodes add gamma Q(s_{t+1}, w_t) (the bootstrap)."""
+        """Scaled rewards; truncated episodes add gamma times the value of going on from s_{t+1}.
+
+        That value is U(s_{t+1}, w_t) in options mode (``arrival_value``) and Q(s_{t+1}, w) in flat mode.
+        """
         cfg = self.config
         if cfg.scale_rewards:
             if self.explore:
@@ -358,11 +372,11 @@ class Collector:
             scaled = end.reward
         trunc_ids = np.flatnonzero(end.truncated)
         if trunc_ids.size:
-            if end.q_after is None:
+            if end.bootstrap is None:
                 q_trunc = self.q_values(self.features(_take(after, trunc_ids)))
                 boot = q_trunc[np.arange(trunc_ids.size), w[trunc_ids]]
             else:
-                boot = end.q_after[trunc_ids, w[trunc_ids]]
+                boot = end.bootstrap[trunc_ids]
             scaled = scaled.copy()
             scaled[trunc_ids] += cfg.gamma * boot
         return scaled

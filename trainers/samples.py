@@ -80,9 +80,9 @@ class StepEnd:
     term_advantage: np.ndarray
     success: np.ndarray | None = None  # flat mode with a stops_when: the stop held
     feats_after: np.ndarray | None = None  # options mode: features of s_{t+1}
-    q_after: np.ndarray | None = None  # options mode: Q(s_{t+1}, .)
     next_skill: np.ndarray | None = None  # options mode: the skill chosen where one stopped (NO_SKILL: refused)
     refused: np.ndarray | None = None  # options mode: a skill stopped and none was available
+    bootstrap: np.ndarray | None = None  # options mode: U(s_{t+1}, w_t), the value a truncation adds
 
     @property
     def episode_ends(self) -> np.ndarray:

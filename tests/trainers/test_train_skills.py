@@ -2,6 +2,7 @@
 
 import numpy as np
 import pytest
+import torch
 
 from kinetome.trainers.option_critic import OptionCriticTrainer
 from kinetome.trainers.train_set import train_skills, train_trainables
@@ -104,3 +105,37 @@ def test_train_skills_rejects_bad_sets(rig):
     s = loaded_reach(rig)
     with pytest.raises(ValueError, match="skills must be distinct"):
         train_skills([s, s], rig, quick_config())
+
+
+@pytest.mark.parametrize("stop_text, expected", [("norm(qpos) < 5", "V"), ("norm(qpos) > 5", "Q")])
+def test_truncated_episodes_bootstrap_with_the_value_on_arrival(rig, stop_text, expected):
+    # Critic fixed at Q(s, a) = 10, Q(s, b) = -10 and reward 1 per step. At the episode limit the
+    # running skill either must stop (stops_when holds, registered mode: beta = 1, so
+    # U(s', w) = V(s') = 0.95 * 10 + 0.05 * (10 - 10) / 2 = 9.5) or goes on (beta = 0: U = Q(s', w)).
+    import dataclasses
+
+    from kinetome.library.predicates import parse_predicate
+
+    flat_reward = dataclasses.replace(rig, reward=lambda before, action, after: (np.ones(len(after["qpos"])), {}))
+    skills = []
+    for name in ("a", "b"):
+        s = reach_skill(flat_reward, gain=1.0)
+        s.name, s.starts_when = name, None
+        s.stops_when = parse_predicate(stop_text, rig.layout.shapes())
+        skills.append(s)
+    cfg = quick_config(env_step_budget=16 * 32, stop_mode="registered", scale_rewards=False, max_episode_steps=20,
+                       skill_epsilon=0.05, gamma=0.9)
+    trainer = OptionCriticTrainer(skills, flat_reward, cfg, episode_per_skill=False)
+    with torch.no_grad():
+        trainer.critic.net[-1].weight.zero_()
+        trainer.critic.net[-1].bias.copy_(torch.tensor([10.0, -10.0], dtype=torch.float64))
+    trainer.collector.start()
+    rollout = trainer.collector.collect()
+    truncated = rollout.dones  # nothing ends an episode here but the limit
+    assert truncated.sum() == 16
+    boot = (rollout.rewards[truncated] - 1.0) / 0.9
+    if expected == "V":
+        np.testing.assert_allclose(boot, 9.5, rtol=0, atol=1e-12)
+    else:
+        np.testing.assert_allclose(boot, np.where(rollout.skill[truncated] == 0, 10.0, -10.0), rtol=0, atol=1e-12)
+    np.testing.assert_array_equal(rollout.rewards[~truncated], 1.0)
