@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from kinetome.library.errors import InvalidInputError, Problem
+from kinetome.library.runtime.learned import CLOCK_INPUTS
 from kinetome.library.renamed_keys import rename_document, rename_keys
 
 __all__ = [
@@ -83,7 +84,10 @@ class TrainConfig:
     (eta) is charged at every switch between skills and added to the stop
     advantage. ``skill_epsilon`` is the exploration rate of the epsilon-greedy
     policy over skills (on the critic's Q). ``checkpoint_every`` counts updates
-    (0 = never).
+    (0 = never). ``critic_inputs`` adds inputs to the critic and stop heads:
+    ``time_remaining`` (the time limit becomes part of the task, so reaching
+    it ends an episode without a bootstrap; Pardo, Tavakoli, Levdik & Kormushev
+    2018) and ``phase`` (sin and cos of the running oscillator's phase).
     """
 
     env_step_budget: int = 100_000
@@ -105,6 +109,7 @@ class TrainConfig:
     standardise_observations: bool = True
     scale_rewards: bool = True
     critic_hidden: tuple[int, ...] = (64, 64)
+    critic_inputs: tuple[str, ...] = ()  # extra critic (and stop head) inputs: time_remaining, phase
     stop_mode: str = "registered"
     stop_hidden: tuple[int, ...] = ()
     stop_lr: float = 1e-3
@@ -138,6 +143,7 @@ class TrainConfig:
         """The settings under their file spellings (``lambda``, lists for layer widths)."""
         out = {_FILE_NAMES.get(k, k): v for k, v in asdict(self).items()}
         out["critic_hidden"] = list(self.critic_hidden)
+        out["critic_inputs"] = list(self.critic_inputs)
         out["stop_hidden"] = list(self.stop_hidden)
         return out
 
@@ -196,6 +202,8 @@ def _validate(c: TrainConfig) -> list[str]:
         v = getattr(c, name)
         if not isinstance(v, tuple) or not all(isinstance(h, int) and not isinstance(h, bool) and h >= 1 for h in v):
             out.append(f"{name} must be a list of positive layer widths, got {v!r}")
+    if not isinstance(c.critic_inputs, tuple) or not all(x in CLOCK_INPUTS for x in c.critic_inputs) or len(set(c.critic_inputs)) != len(c.critic_inputs):
+        out.append(f"critic_inputs must be a list of distinct names among {', '.join(CLOCK_INPUTS)}, got {c.critic_inputs!r}")
     if c.stop_mode not in STOP_MODES:
         out.append(f"stop_mode must be one of {', '.join(STOP_MODES)}, got {c.stop_mode!r}")
     if c.learning_rate_schedule not in ("constant", "linear"):
@@ -240,7 +248,7 @@ class TrainFile:
             raise ValueError(f"skills must be a list of skill refs or spec paths, got {self.skills!r}")
 
 
-_LIST_FIELDS = {"critic_hidden", "stop_hidden"}
+_LIST_FIELDS = {"critic_hidden", "critic_inputs", "stop_hidden"}
 _FILE_KEYS = {"task", "skills", "description"}  # read by load_train_file, not settings
 
 

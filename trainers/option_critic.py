@@ -22,6 +22,7 @@ import torch
 from kinetome.library.controllers.kernels import torch_threads
 
 from kinetome.library.errors import TrainingError
+from kinetome.library.runtime.learned import clock_features
 
 from .checkpoint import (
     generator_state,
@@ -108,8 +109,9 @@ class OptionCriticTrainer:
         self.sampler = StartSampler(rig, start)
         self.np_rng = np.random.default_rng(config.seed)
         self.torch_gen = torch.Generator().manual_seed(config.seed)
-        n_obs = self._n_features()
-        self.critic, self.heads = self._networks(n_obs)
+        n_obs = self._n_observations()
+        n_extra = clock_features(config.critic_inputs, episode_step=np.zeros(1), limit=1, phase=np.zeros(1)).shape[1]
+        self.critic, self.heads = self._networks(n_obs + n_extra)
         self.obs_norm = ObservationNormaliser(n_obs)
         self.ret_norm = ReturnNormaliser(config.parallel_envs, gamma=config.gamma)
         params = [p for s in self.skills for p in s.trainable_parameters()] + list(self.critic.parameters())
@@ -135,7 +137,7 @@ class OptionCriticTrainer:
                 return critic, None
             return critic, TerminationHeads(n_obs, len(self.skills), cfg.stop_hidden, init_logit=cfg.stop_init_logit)
 
-    def _n_features(self) -> int:
+    def _n_observations(self) -> int:
         from kinetome.library.runtime.sim import SimBatch
 
         sim = SimBatch(self.rig, 1)

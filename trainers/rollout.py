@@ -29,6 +29,8 @@ from kinetome.library.errors import TrainingError
 from .config import TrainConfig
 from .normaliser import ObservationNormaliser, ReturnNormaliser, RunningMoments
 from .samples import EpisodeStats, Rollout, RolloutBuffer, StepEnd
+from kinetome.library.runtime.learned import clock_features, phase_angles
+
 from .skill_policy import NO_SKILL, choose_skills, skill_values
 from .starts import StartSampler
 from .trainable import TrainableSkill
@@ -36,6 +38,7 @@ from .trainable import TrainableSkill
 __all__ = ["Rollout", "EpisodeStats", "Collector", "arrival_value"]
 
 _MAX_START_ROUNDS = 100
+_Clock = tuple[np.ndarray, np.ndarray, np.ndarray]  # (episode step, running skill, skill step) per row
 
 
 def _flatten(state: dict[str, np.ndarray], names: Sequence[str], ids: np.ndarray) -> np.ndarray:
@@ -126,7 +129,8 @@ class Collector:
 
     # ----- features and values ------------------------------------------------
 
-    def features(self, state: dict[str, np.ndarray], *, update: bool = False) -> np.ndarray:
+    def features(self, state: dict[str, np.ndarray], clock: "_Clock", *, update: bool = False) -> np.ndarray:
+        """Critic inputs (B, n_features): the (standardised) observation, then the ``critic_inputs``."""
         obs = np.asarray(self.rig.observe(state), dtype=np.float64)
         if not np.all(np.isfinite(obs)):
             rows = np.flatnonzero(~np.all(np.isfinite(obs), axis=1))
@@ -134,11 +138,29 @@ class Collector:
                 f"observation must be finite, got NaN/Inf in simulations {rows[:5].tolist()} of {self.rig.env_id}; "
                 "the physics diverged: lower the learning rate or tighten the controller bounds"
             )
-        if not self.config.standardise_observations:
+        if self.config.standardise_observations:
+            if update:
+                self.obs_norm.update(obs)
+            obs = self.obs_norm(obs)
+        if not self.config.critic_inputs:
             return obs
-        if update:
-            self.obs_norm.update(obs)
-        return self.obs_norm(obs)
+        return np.concatenate([obs, self._clock_features(clock)], axis=1)
+
+    def _clock_features(self, clock: "_Clock") -> np.ndarray:
+        episode_step, skill, skill_step = clock
+        phase = phase_angles([s.controller for s in self.skills], skill, skill_step * self.rig.dt)
+        return clock_features(self.config.critic_inputs, episode_step=episode_step, limit=self._time_limit(skill), phase=phase)
+
+    def _time_limit(self, skill: np.ndarray) -> np.ndarray | int:
+        """Steps an episode may last: the episode limit, and in flat mode also the skill's max_steps."""
+        if self.episode_per_skill:
+            return np.minimum(self.max_steps[skill], self.limit)
+        return self.limit
+
+    def _clock(self, ids: np.ndarray | None = None, *, skill: np.ndarray | None = None) -> "_Clock":
+        """(episode step, running skill, skill step) of simulations ``ids`` (default all)."""
+        ids = slice(None) if ids is None else ids
+        return self.episode_steps[ids], (self.skill if skill is None else skill)[ids], self.skill_steps[ids]
 
     def q_values(self, features: np.ndarray) -> np.ndarray:
         with torch.no_grad():
@@ -152,7 +174,8 @@ class Collector:
         n = len(next(iter(state.values())))
         if len(self.skills) == 1:
             return np.zeros(n, dtype=np.int64)
-        q = self.q_values(self.features(state))
+        zeros = np.zeros(n, dtype=np.int64)
+        q = self.q_values(self.features(state, (zeros, zeros, zeros)))
         return choose_skills(q, self.available(state), epsilon=self.epsilon, rng=self.np_rng)
 
     # ----- episodes -------------------------------------------------------------
@@ -197,14 +220,14 @@ class Collector:
         buf = RolloutBuffer(self.config.segment_steps, self.n, self.rig.n_act, shapes)
         for t in range(self.config.segment_steps):
             self._step(t, buf)
-        last_values = self.q_values(self.features(self.state))[np.arange(self.n), self.skill]
+        last_values = self.q_values(self.features(self.state, self._clock()))[np.arange(self.n), self.skill]
         scale = self.ret_norm.scale if self.config.scale_rewards else 1.0
         return buf.rollout(last_values, reward_scale=scale)
 
     def _step(self, t: int, buf: RolloutBuffer) -> None:
         """Act, step the physics, decide how each simulation's step ended, record it, move on."""
         state = self.state
-        feats = self.features(state, update=self.explore)
+        feats = self.features(state, self._clock(), update=self.explore)
         q = self.q_values(feats)
         w = self.skill.copy()
         skill_time = self.skill_steps * self.rig.dt
@@ -280,6 +303,8 @@ class Collector:
         success = stops & ~terminated
         terminal = terminated | success
         truncated = (timeout | over_limit) & ~terminal
+        if "time_remaining" in self.config.critic_inputs:  # the time limit is part of the task
+            terminal, truncated = terminal | truncated, np.zeros(self.n, dtype=bool)
         zeros = np.zeros(self.n)
         return StepEnd(
             terminal=terminal,
@@ -298,7 +323,7 @@ class Collector:
 
         Where a skill stopped and no skill's starts_when holds, the episode ends there with a refusal.
         """
-        feats_after = self.features(after)
+        feats_after = self.features(after, self._clock(skill=w))
         q_after = self.q_values(feats_after)
         forced, learnable = _stop_rule(self.config.stop_mode, stops, timeout)
         beta, learned_stop = self._learned_stops(feats_after, w, learnable)
@@ -311,6 +336,8 @@ class Collector:
         refused = next_skill == NO_SKILL
         terminal = terminated | refused
         truncated = over_limit & ~terminal
+        if "time_remaining" in self.config.critic_inputs:  # the time limit is part of the task
+            terminal, truncated = terminal | truncated, np.zeros(self.n, dtype=bool)
         ep_end = terminal | truncated
         switched = stopped & ~refused
         v_after = skill_values(q_after, available, epsilon=self.epsilon)
@@ -373,7 +400,7 @@ class Collector:
         trunc_ids = np.flatnonzero(end.truncated)
         if trunc_ids.size:
             if end.bootstrap is None:
-                q_trunc = self.q_values(self.features(_take(after, trunc_ids)))
+                q_trunc = self.q_values(self.features(_take(after, trunc_ids), self._clock(trunc_ids, skill=w)))
                 boot = q_trunc[np.arange(trunc_ids.size), w[trunc_ids]]
             else:
                 boot = end.bootstrap[trunc_ids]

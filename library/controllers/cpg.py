@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import torch
 
 from .base import Controller
@@ -21,6 +22,11 @@ class OscillatorGait(OscillatorGaitKind, Controller):
         """(B, n_act) q*(t) for skill times (B,) in seconds."""
         omega = (2.0 * math.pi) * self.p["frequency"]
         return self.p["offset"] + self.p["amplitude"] * torch.sin(omega * skill_time.unsqueeze(1) + self.p["phase"])
+
+    def phase_angle(self, skill_time: np.ndarray) -> np.ndarray:
+        """(B,) the shared oscillator's phase 2 pi frequency t, wrapped to [0, 2 pi), at skill times (B,) in seconds."""
+        frequency = float(self.p["frequency"].detach())
+        return np.mod(2.0 * math.pi * frequency * np.asarray(skill_time, dtype=np.float64), 2.0 * math.pi)
 
     def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
         q, qd = self.actuated_qpos(x), self.actuated_qvel(x)

@@ -26,6 +26,9 @@ from .files import CHOOSER_FILE, CHOOSER_NET_FILE, LEARNED_STOP_FILE, NORMALISER
 
 __all__ = [
     "STOP_MODES",
+    "CLOCK_INPUTS",
+    "clock_features",
+    "phase_angles",
     "stop_rule",
     "FeatureScaler",
     "TanhNet",
@@ -42,6 +45,37 @@ __all__ = [
 # Every mode also ends a turn after max_steps (a timeout, never a learned decision).
 STOP_MODES = ("registered", "hard", "confined", "learned")
 
+
+
+# Optional inputs next to the observation (``critic_inputs`` in training settings):
+#   time_remaining: the fraction of the episode's step limit still left, in [0, 1];
+#   phase:          sin and cos of the running skill's oscillator phase (0 for kinds without one).
+CLOCK_INPUTS = ("time_remaining", "phase")
+
+
+def phase_angles(controllers: Any, skill: np.ndarray, skill_time: np.ndarray) -> np.ndarray:
+    """(B,) phase of each row's running skill at its skill time; 0 where the kind has no oscillator."""
+    out = np.zeros(len(skill))
+    for k, controller in enumerate(controllers):
+        rows = np.flatnonzero(np.asarray(skill) == k)
+        if rows.size and hasattr(controller, "phase_angle"):
+            out[rows] = controller.phase_angle(np.asarray(skill_time)[rows])
+    return out
+
+
+def clock_features(inputs: tuple[str, ...], *, episode_step: np.ndarray, limit: np.ndarray | int, phase: np.ndarray) -> np.ndarray:
+    """(B, n) the ``CLOCK_INPUTS`` named in ``inputs``, in that order: time remaining, then sin and cos of the phase."""
+    unknown = [name for name in inputs if name not in CLOCK_INPUTS]
+    if unknown:
+        raise ValueError(f"critic inputs must be among {', '.join(CLOCK_INPUTS)}, got {unknown}")
+    columns: list[np.ndarray] = []
+    if "time_remaining" in inputs:
+        limit = np.asarray(limit, dtype=np.float64)
+        columns.append(np.clip((limit - np.asarray(episode_step, dtype=np.float64)) / limit, 0.0, 1.0))
+    if "phase" in inputs:
+        columns += [np.sin(phase), np.cos(phase)]
+    n = len(np.asarray(phase))
+    return np.stack(columns, axis=1) if columns else np.zeros((n, 0))
 
 
 def stop_rule(mode: str, stops: np.ndarray, timeout: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -32,7 +32,7 @@ def make_pointmass(*, max_episode_steps: int = 60, damping: float | None = None)
     spec = mujoco.MjSpec.from_string(_XML)
     if damping is not None:
         for j in spec.joints:
-            j.damping = damping
+            j.damping = [damping, 0.0, 0.0]  # MjSpec keeps damping as a 3-vector (first entry: the dof)
     model = spec.compile()
     layout = StateLayout((
         Quantity("qpos", (2,), "m", "position of the mass", low=(-1.0, -1.0), high=(1.0, 1.0)),
