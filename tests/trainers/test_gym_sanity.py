@@ -1,12 +1,11 @@
-"""Flat mode reaches gymnasium's registered success level on InvertedPendulum-v5 (slow, not in CI)."""
+"""Flat mode reaches gymnasium's registered success level on InvertedPendulum-v5 (runs in CI, about 20 s of CPU)."""
 
 import numpy as np
 import pytest
 
-BUDGET = 98_304  # env steps; seeds 0 and 1 reached 1000 (the maximum) with 65,536
+BUDGET = 65_536  # env steps; seeds 0 and 1 reached 1000 (the maximum) with it
 
 
-@pytest.mark.slow
 @pytest.mark.parametrize("seed", [0])
 def test_inverted_pendulum_reaches_reward_threshold(seed):
     import gymnasium
