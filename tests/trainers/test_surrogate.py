@@ -35,6 +35,26 @@ def test_clipping_removes_gradient_beyond_the_trust_region():
     assert float(new2.grad) == pytest.approx(1.5)
 
 
+@pytest.mark.parametrize(
+    "ratio, adv, loss, grad",
+    [
+        # Schulman et al. 2017, eq. 7 and Figure 1: min(r A, clip(r, 1 - e, 1 + e) A), e = 0.2
+        (1.5, 1.0, -1.2, 0.0),  # upper side, A > 0: clipped at 1 + e, no gradient
+        (1.5, -1.0, 1.5, 1.5),  # upper side, A < 0: the unclipped term is smaller, gradient -A r
+        (0.5, -1.0, 0.8, 0.0),  # lower side, A < 0: clipped at 1 - e, no gradient
+        (0.5, 1.0, -0.5, -0.5),  # lower side, A > 0: the unclipped term is smaller, gradient -A r
+        (1.1, 1.0, -1.1, -1.1),  # inside the trust region: unclipped either way
+    ],
+)
+def test_both_clip_sides(ratio, adv, loss, grad):
+    new = torch.tensor([math.log(ratio)], requires_grad=True)
+    value, info = clipped_surrogate(new, torch.tensor([0.0]), torch.tensor([adv]), clip_ratio=0.2)
+    value.backward()
+    assert float(value) == pytest.approx(loss)
+    assert float(new.grad) == pytest.approx(grad)  # d/d log_prob of -r A is -r A
+    assert info["clip_fraction"] == (0.0 if ratio == 1.1 else 1.0)
+
+
 def test_entropy_bonus_lowers_the_loss():
     lp = torch.zeros(4)
     base, _ = clipped_surrogate(lp, lp, torch.ones(4), clip_ratio=0.2)
