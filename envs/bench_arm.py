@@ -191,6 +191,7 @@ def build_bench_arm(variant: TaskVariant | dict | str | Path | None = None) -> R
         max_episode_steps=MAX_EPISODE_STEPS,
         metadata={
             "robot": "bench_arm",
+            "legged": False,
             "camera": "bench_view",
             "success_radius": SUCCESS_RADIUS,
             "variant_digest": variant.digest,

@@ -135,9 +135,14 @@ def render_frames(
     return RenderedFrames(tuple(frames), drawer.name)
 
 
-def filmstrip_png(frames: Sequence[np.ndarray], path: str | Path | None = None, *, gap: int = 4) -> bytes:
-    """Frames side by side (``gap`` white pixels between) as PNG bytes; also written to ``path`` if given."""
-    from PIL import Image
+def filmstrip_png(frames: Sequence[np.ndarray], path: str | Path | None = None, *, gap: int = 4, footer: str | None = None) -> bytes:
+    """Frames side by side (``gap`` white pixels between) as PNG bytes; also written to ``path`` if given.
+
+    ``footer`` is drawn in a white band under the frames and stored as the PNG's
+    ``Caution`` text chunk (kinetome passes its one-line caution).
+    """
+    from PIL import Image, ImageDraw
+    from PIL.PngImagePlugin import PngInfo
 
     if not frames:
         raise ValueError("filmstrip needs at least one frame, got 0")
@@ -149,8 +154,15 @@ def filmstrip_png(frames: Sequence[np.ndarray], path: str | Path | None = None, 
     for i, frame in enumerate(frames):
         x = i * (w + gap)
         strip[:, x : x + w] = frame[..., :3]
+    image, info = Image.fromarray(strip), PngInfo()
+    if footer:
+        band = Image.new("RGB", (image.width, image.height + 16), "white")
+        band.paste(image, (0, 0))
+        ImageDraw.Draw(band).text((4, image.height + 2), footer, fill=(60, 60, 60))
+        image = band
+        info.add_text("Caution", footer)
     buf = io.BytesIO()
-    Image.fromarray(strip).save(buf, format="PNG")
+    image.save(buf, format="PNG", pnginfo=info)
     png = buf.getvalue()
     if path is not None:
         Path(path).write_bytes(png)

@@ -198,6 +198,7 @@ def _build(env_id: str, variant: TaskVariant | dict | str | Path | None, *, comm
         max_episode_steps=MAX_EPISODE_STEPS,
         metadata={
             "robot": "test_walker",
+            "legged": True,
             "camera": "track",
             "speed_command": speed,
             "floor_slope_deg": float(variant.floor_slope or 0.0),

@@ -1,18 +1,39 @@
 """The Python API for the three jobs kinetome does; the CLI is built on it.
 
-- ``register_skill(spec_path, store=...)``: validate a YAML spec, store it as ``name@N``;
+- ``register(spec_path, store=...)``: validate a YAML spec, store it as ``name@N``;
 - ``retrain(ref, variant=..., store=...)``: refine a stored skill on a changed task, store the child;
 - ``check_chain(chain_path, store=...)``: prove or measure that a chain of skills composes.
 
-Plus ``open_store``, ``load``, ``run`` and ``fit``. Heavy libraries load lazily.
+Plus ``open_store``, ``load``, ``run``, ``fit``, ``train`` and
+``sample_initial_states``. The dicts that ``run``, ``fit``, ``retrain`` and
+``train`` return are what ``--json`` prints: each carries ``schema`` (see
+``library/output_schema.py``). Heavy libraries load lazily.
 """
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 from typing import Any
 
-__all__ = ["open_store", "register_skill", "spec_version_files", "version_files", "load", "sample_starts"]
+from .output_schema import tagged
+from .renamed_keys import RenamedKeyWarning, renamed_arguments
+
+__all__ = [
+    "open_store",
+    "register",
+    "load",
+    "load_models",
+    "run",
+    "fit",
+    "retrain",
+    "train",
+    "check_chain",
+    "sample_initial_states",
+    "spec_version_files",
+    "version_files",
+    "RETRAIN_DEFAULTS",
+]
 
 
 def open_store(root: str | Path | None = None, *, create: bool = True) -> Any:
@@ -43,9 +64,13 @@ def spec_version_files(skill: Any) -> dict[str, bytes]:
     return {SPEC_FILE: canonical_json(skill_to_document(skill)), PARAMS_FILE: parameters_bytes(plan.values, c.kind)}
 
 
-def register_skill(spec_path: str | Path, *, store: Any) -> Any:
-    """Validate ``spec_path`` and store it; identical content returns the existing version.
-    Structured kinds never import torch here."""
+def register(spec_path: str | Path, *, store: Any) -> Any:
+    """Validate ``spec_path`` and store it as a version (lineage reason ``registered``).
+
+    Returns the store's ``AddResult``: ``.version`` and ``.is_new`` (False when
+    identical content was stored before; that version is returned). Structured
+    controller kinds never import torch here.
+    """
     from .spec_load import load_spec
 
     skill = load_spec(spec_path)
@@ -59,6 +84,12 @@ def register_skill(spec_path: str | Path, *, store: Any) -> Any:
     return store.add(skill.name, spec_version_files(skill), parent=None, reason="registered", meta=meta)
 
 
+def register_skill(spec_path: str | Path, *, store: Any) -> Any:
+    """Old name of ``register`` (warns)."""
+    warnings.warn(RenamedKeyWarning("'api.register_skill' is an old spelling; write 'api.register' instead"), stacklevel=2)
+    return register(spec_path, store=store)
+
+
 def load(ref: str, *, store: Any, rig: Any = None) -> Any:
     """A stored version ready to run (``LoadedSkill``)."""
     from .runtime.skill import load_skill
@@ -66,28 +97,30 @@ def load(ref: str, *, store: Any, rig: Any = None) -> Any:
     return load_skill(store, ref, rig=rig)
 
 
-def sample_starts(rig: Any, start: Any, n: int, *, seed: int) -> tuple[Any, Any]:
-    """n start states from a start distribution (or the rig's default)."""
+def sample_initial_states(rig: Any, initial_states: Any, n: int, *, seed: int) -> tuple[Any, Any]:
+    """n initial states (qpos, qvel) from an initial-states file's distribution (or the env's default)."""
     from .runtime.starts import sample_starts as _sample
 
-    return _sample(rig, start, n, seed=seed)
+    return _sample(rig, initial_states, n, seed=seed)
 
 
+@renamed_arguments({"start": "initial_states"})
 def run(
     ref: str,
     *,
     store: Any,
     variant: str | Path | None = None,
-    start: str | Path | None = None,
+    initial_states: str | Path | None = None,
     episodes: int = 100,
     seed: int = 0,
     workers: int = 1,
     confidence: float = 0.95,
     progress: Any = None,
 ) -> dict[str, Any]:
-    """Run a stored skill for ``episodes`` and summarise: success interval, steps, return, limits."""
+    """Run a stored skill for ``episodes``: success counts and interval, duration, return, outcomes, limits."""
     from .runtime.execute import run_skill
     from .runtime.summary import limit_exceedances, summarize_rollout
+    from .safety import caution_for
     from .tasks import load_start_file, load_variant_file, task_rig
 
     if episodes < 1:
@@ -96,26 +129,28 @@ def run(
         raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
     loaded = load(ref, store=store)
     rig = task_rig(loaded.skill.env, load_variant_file(variant))
-    qpos, qvel = sample_starts(rig, load_start_file(start), episodes, seed=seed)
+    qpos, qvel = sample_initial_states(rig, load_start_file(initial_states), episodes, seed=seed)
     rollout = run_skill(loaded, rig, starts=(qpos, qvel), seed=seed, workers=workers, progress=progress)
     summary = summarize_rollout(rollout, confidence=confidence)
     limits = loaded.skill.limits.as_dict() if loaded.skill.limits else {}
     summary["skill"] = loaded.ref
     summary["variant"] = None if variant is None else str(variant)
     summary["limits"] = limit_exceedances(rollout, [limits])
-    return summary
+    summary["caution"] = caution_for(rig)
+    return tagged("run", summary)
 
 
 MODEL_KIND = "option-models"
 
 
+@renamed_arguments({"start": "initial_states"})
 def fit(
     ref: str,
     *,
     store: Any,
     episodes: int = 400,
     variant: str | Path | None = None,
-    start: str | Path | None = None,
+    initial_states: str | Path | None = None,
     seed: int = 0,
     workers: int = 1,
     progress: Any = None,
@@ -132,11 +167,11 @@ def fit(
         raise InvalidInputError(f"--episodes must be >= 20 so that enough episodes run for a held-out split, got {episodes}")
     loaded = load(ref, store=store)
     rig = task_rig(loaded.skill.env, load_variant_file(variant))
-    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(start), progress=progress)
+    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(initial_states), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
     record = store.attach_model(loaded.ref, MODEL_KIND, models.to_files(), meta=meta)
-    return {"skill": loaded.ref, "model_ref": record.ref, "episodes": episodes, "errors": errors}
+    return tagged("fit", {"skill": loaded.ref, "model_ref": record.ref, "episodes": episodes, "errors": errors})
 
 
 def load_models(ref: str, *, store: Any) -> Any:
@@ -180,6 +215,7 @@ def _train_config(config: str | Path | None, overrides: dict[str, Any]) -> Any:
     return dataclasses.replace(base, **{k: v for k, v in overrides.items() if v is not None})
 
 
+@renamed_arguments({"start": "initial_states", "out_dir": "out", "steps": "env_step_budget"})
 def retrain(
     ref: str,
     *,
@@ -191,8 +227,8 @@ def retrain(
     from_scratch: bool = False,
     workers: int = 1,
     config: str | Path | None = None,
-    start: str | Path | None = None,
-    out_dir: str | Path | None = None,
+    initial_states: str | Path | None = None,
+    out: str | Path | None = None,
     resume: bool = False,
     refit_episodes: int = 200,
     progress: Any = None,
@@ -200,15 +236,17 @@ def retrain(
     """Retrain a stored skill on a task variant and store the child version with its evidence.
 
     Measures the parent on the variant, trains, measures again, registers
-    ``name@N+1`` (reason ``retrained``, lineage: parent, variant, config, seed,
-    steps, before/after metrics, learning curve) and refits its option models
-    on the variant.
+    ``name@N+1`` (reason ``retrained``, method ``retrain``; lineage: parent,
+    variant {file, name, digest}, config, seed, env steps, before/after
+    metrics, learning curve) and refits its option models on the variant.
     """
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.retrain import refuse_deliberation_cost, retrain_skill
 
     from .runtime.skill import PARAMS_FILE, SPEC_FILE
+    from .safety import caution_for
     from .spec import canonical_json, skill_to_document
+    from .stored_meta import current_meta, variant_record
     from .tasks import load_start_file, load_variant_file, task_rig
 
     cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
@@ -216,104 +254,117 @@ def retrain(
     parent = load(ref, store=store)
     task_variant = load_variant_file(variant)
     rig = task_rig(parent.skill.env, task_variant)
-    out = Path(out_dir) if out_dir is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
-    out.mkdir(parents=True, exist_ok=True)
+    folder = Path(out) if out is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
+    folder.mkdir(parents=True, exist_ok=True)
     result = retrain_skill(
         parent,
         rig,
         cfg,
-        start=load_start_file(start),
+        start=load_start_file(initial_states),
         seed=seed,
         workers=workers,
         progress=progress,
-        checkpoint_dir=out / "checkpoints",
+        checkpoint_dir=folder / "checkpoints",
         resume=resume,
         from_scratch=from_scratch,
     )
-    csv_path, png_path = save_curves(result.curve, out, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
+    csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
     files = {
         SPEC_FILE: canonical_json(skill_to_document(parent.skill)),
         PARAMS_FILE: result.parameters_bytes,
         "normaliser.safetensors": result.normaliser,
         "curve.csv": result.curve_csv().encode("utf-8"),
     }
-    meta = {
+    meta = current_meta({
         **result.metadata(),
+        "method": "retrain",
         "description": parent.skill.description,
         "env": parent.skill.env,
         "kind": parent.skill.controller.kind,
-        "variant": {"file": str(variant), "name": getattr(task_variant, "name", None), "digest": getattr(task_variant, "digest", None)},
+        "variant": variant_record(variant, task_variant),
+        "initial_states": None if initial_states is None else str(initial_states),
         "metrics_before": result.before.as_dict(),
         "metrics_after": result.after.as_dict(),
-    }
+    })
     added = store.add(parent.skill.name, files, parent=parent.ref, reason="retrained", meta=meta)
     child = added.version.ref
-    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, start=start, seed=seed, workers=workers) if refit_episodes else None
-    return {
+    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, workers=workers) if refit_episodes else None
+    return tagged("retrain", {
         "parent": parent.ref,
         "child": child,
-        "created": added.created,
+        "is_new": added.is_new,
         "variant": str(variant),
-        "before": result.before.as_dict(),
-        "after": result.after.as_dict(),
-        "steps": result.steps,
+        "before": meta["metrics_before"],
+        "after": meta["metrics_after"],
+        "env_steps": result.steps,
         "wall_time_s": result.wall_time,
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),
         "models": fitted,
         "lineage": [v.ref for v in store.lineage(child)],
-    }
+        "caution": caution_for(rig),
+    })
 
 
-def train(config_path: str | Path, *, store: Any, seed: int | None = None, workers: int = 1, out_dir: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
-    """Train stored skills together with a policy over them; store the refined skills as children."""
+@renamed_arguments({"out_dir": "out"})
+def train(config_path: str | Path, *, store: Any, seed: int | None = None, workers: int = 1, out: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
+    """Train stored skills together with a policy over them; store the refined skills as children (method ``train``)."""
     from kinetome.trainers.config import TrainTask, load_train_file
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.train_set import train_skills
 
     from .errors import InvalidInputError
-    from .runtime.skill import PARAMS_FILE, SPEC_FILE
-    from .spec import canonical_json, skill_to_document
-    from .tasks import load_start_file, load_variant_file, task_rig
+    from .safety import caution_for
+    from .stored_meta import current_meta, variant_record
 
     loaded = load_train_file(config_path)
     cfg, task = loaded.config, loaded.task or TrainTask()
     if not loaded.skills:
         raise InvalidInputError(f"{config_path}: skills: a training file for `kinetome train` must list skills; add skills: [name, ...]")
     skills = [load(ref, store=store) for ref in loaded.skills]
-    env = task.env or skills[0].skill.env
+    from .tasks import load_start_file, load_variant_file, task_rig
+
     variant = load_variant_file(task.variant)
-    rig = task_rig(env, variant)
+    rig = task_rig(task.env or skills[0].skill.env, variant)
     skills = [load(s.ref, store=store, rig=rig) for s in skills]
-    out = Path(out_dir) if out_dir is not None else Path("kinetome-train") / Path(config_path).stem
-    out.mkdir(parents=True, exist_ok=True)
-    result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=out / "checkpoints")
-    csv_path, png_path = save_curves(result.curve, out, stem="curve", title=f"train {Path(config_path).stem}")
-    children = []
-    for s in skills:
-        files = {
-            SPEC_FILE: canonical_json(skill_to_document(s.skill)),
-            PARAMS_FILE: result.parameters_bytes[s.ref],
-            "normaliser.safetensors": result.normaliser,
-            "critic.safetensors": result.critic,
-        }
-        if result.terminations is not None:
-            files["terminations.safetensors"] = result.terminations
-        meta = {**result.metadata(), "description": s.skill.description, "env": s.skill.env, "kind": s.skill.controller.kind, "variant": task.variant, "trained_with": list(loaded.skills)}
-        children.append(store.add(s.skill.name, files, parent=s.ref, reason="retrained", meta=meta).version.ref)
-    return {
+    folder = Path(out) if out is not None else Path("kinetome-train") / Path(config_path).stem
+    folder.mkdir(parents=True, exist_ok=True)
+    result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=folder / "checkpoints")
+    csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"train {Path(config_path).stem}")
+    shared = current_meta({**result.metadata(), "method": "train", "variant": variant_record(task.variant, variant), "initial_states": task.initial_states, "trained_with": list(loaded.skills)})
+    children = [_store_trained(store, s, result, shared) for s in skills]
+    return tagged("train", {
         "skills": list(result.skill_refs),
         "children": children,
-        "termination_rate": result.termination_rate,
+        "stop_rate": shared["stop_rate"],
         "mean_skill_duration": result.mean_skill_duration,
         "mean_return": result.mean_return,
         "skill_share": result.skill_share,
-        "steps": result.steps,
+        "env_steps": result.steps,
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),
+        "caution": caution_for(rig),
+    })
+
+
+def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any]) -> str:
+    """Store one skill refined by ``train`` as a child version; returns its ref."""
+    from .runtime.skill import PARAMS_FILE, SPEC_FILE
+    from .spec import canonical_json, skill_to_document
+
+    files = {
+        SPEC_FILE: canonical_json(skill_to_document(skill.skill)),
+        PARAMS_FILE: result.parameters_bytes[skill.ref],
+        "normaliser.safetensors": result.normaliser,
+        "critic.safetensors": result.critic,
     }
+    if result.terminations is not None:
+        files["terminations.safetensors"] = result.terminations
+    meta = {**shared, "description": skill.skill.description, "env": skill.skill.env, "kind": skill.skill.controller.kind}
+    return store.add(skill.skill.name, files, parent=skill.ref, reason="retrained", meta=meta).version.ref
 
 
+@renamed_arguments({"report_dir": "out"})
 def check_chain(
     chain_path: str | Path,
     *,
@@ -322,10 +373,10 @@ def check_chain(
     episodes: int | None = None,
     seed: int | None = None,
     workers: int = 1,
-    report_dir: str | Path | None = None,
+    out: str | Path | None = None,
     progress: Any = None,
 ) -> Any:
-    """Check a chain file handoff by handoff; optionally write the report folder.
+    """Check a chain file handoff by handoff; with ``out``, write the report folder there.
     ``progress(done, total)`` follows the simulation, when one runs.
 
     Returns a ``CheckResult``: ``exit_code`` 0 all compose, 1 some handoff
@@ -334,8 +385,8 @@ def check_chain(
     from .checker import check_chain as _check
 
     result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress)
-    if report_dir is not None:
+    if out is not None:
         from .report.checker_plots import write_report
 
-        write_report(result, report_dir)
+        write_report(result, out)
     return result

@@ -15,7 +15,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, TextIO
 
-from .safety import CAUTION
+from .output_schema import schema_name
+from .safety import CAUTION, CAUTION_FOOTER
+from .stored_meta import success_text
 
 __all__ = ["DemoSettings", "run_demo", "configs_dir"]
 
@@ -74,12 +76,12 @@ def _chain_inputs(path: Path, store: Any) -> tuple[Any, Any, list[Any]]:
 
 
 def _register(store: Any, configs: Path, log: _Log) -> list[dict[str, Any]]:
-    from .api import register_skill
+    from .api import register
 
     rows = []
     for path in sorted((configs / "skills").glob("*.yaml")):
-        result = register_skill(path, store=store)
-        rows.append({"ref": result.version.ref, "file": f"configs/skills/{path.name}", "new": result.created})
+        result = register(path, store=store)
+        rows.append({"ref": result.version.ref, "file": f"configs/skills/{path.name}", "is_new": result.is_new})
     log.step(f"registered {len(rows)} skills: {', '.join(r['ref'] for r in rows)}")
     return rows
 
@@ -131,7 +133,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
         with log.progress(f"checking {path.stem}") as bar:
             result = check_chain(
                 path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed,
-                workers=settings.workers, report_dir=report_dir, progress=lambda done, total: bar.update(done, total=total),
+                workers=settings.workers, out=report_dir, progress=lambda done, total: bar.update(done, total=total),
             )
         data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
@@ -154,16 +156,16 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
         store=store,
         variant=variant,
         config=configs / "training" / settings.retrain_config,
-        start=configs / "starts" / "arm_clearance.yaml",  # where arm-lift hands over
+        initial_states=configs / "starts" / "arm_clearance.yaml",  # where arm-lift hands over
         seed=settings.seed,
         workers=settings.workers,
-        out_dir=out / "retrain",
+        out=out / "retrain",
         refit_episodes=settings.fit_episodes,
         progress=on_update,
     )
     bar.close()
     b, a = result["before"], result["after"]
-    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {b['success_rate']:.2f} -> {a['success_rate']:.2f}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}; lineage {' <- '.join(result['lineage'])}")
+    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {success_text(b)} -> {success_text(a)}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}; lineage {' <- '.join(result['lineage'])}")
     return result
 
 
@@ -185,7 +187,7 @@ def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, lo
         picks = sorted({int(round(i)) for i in np.linspace(0, len(qpos) - 1, 6)})
         frames = render_frames(rig, qpos[picks], width=240, height=180)
         target = out / f"filmstrip-{path.stem}.png"
-        filmstrip_png(frames, target)
+        filmstrip_png(frames, target, footer=CAUTION_FOOTER)
         strips[path.stem] = {"path": target, "renderer": frames.renderer}
     drawn_by = sorted({s["renderer"] for s in strips.values()})
     log.step(f"rendered {len(strips)} filmstrips ({', '.join(drawn_by) or 'none'})")
@@ -214,6 +216,8 @@ def run_demo(
     retrained = _retrain(store, configs, out, settings, log)
     strips = _filmstrips(store, configs, out, settings, log)
     summary = {
+        "schema": schema_name("demo"),
+        "caution": CAUTION,
         "quick": quick,
         "seconds": round(time.monotonic() - log.started, 1),
         "store": str(store.root),

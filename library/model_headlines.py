@@ -23,7 +23,7 @@ def headlines(summary: dict[str, Any]) -> list[dict[str, str]]:
     if outcomes:
         rows.append({"check": "outcomes", "value": ", ".join(f"{k} {v:.2f}" if isinstance(v, float) else f"{k} {v}" for k, v in outcomes.items())})
     duration = summary.get("duration") or {}
-    rows.append({"check": "duration: steps", "value": _fit_text(duration.get("steps"))})
+    rows.append({"check": "duration: mean steps", "value": _fit_text(duration.get("duration", duration.get("steps")))})
     rows.append({"check": "duration: E[gamma^k]", "value": _fit_text(duration.get("discount"))})
     timeout = duration.get("timeout") or {}
     if timeout:

@@ -9,8 +9,9 @@ config) and every reader of stored JSON passes its data through
 ``YamlDocument`` moves with the values, so later errors still point at the
 line the user wrote. Giving both the old and the new spelling is an error.
 
-This module is the only place outside the tables themselves where old
-spellings are meant to appear (``tests/test_vocabulary.py`` relies on it).
+The tables of old spellings live here too: this module (with the CLI's
+``library/cli/old_spellings.py``) is where old spellings are meant to appear;
+``tests/test_vocabulary.py`` fails if one shows up anywhere else.
 """
 
 from __future__ import annotations
@@ -22,9 +23,69 @@ from typing import Any, Callable, Iterable, Mapping
 
 from .errors import InvalidInputError, Problem
 
-__all__ = ["Renamed", "RenamedKeyWarning", "rename_keys", "rename_document", "renamed_table"]
+__all__ = [
+    "TRAIN_RENAMES",
+    "SPEC_RENAMES",
+    "META_RENAMES",
+    "OUTCOME_RENAMES",
+    "DURATION_OUTPUT_RENAMES",
+    "Renamed",
+    "RenamedKeyWarning",
+    "rename_keys",
+    "rename_document",
+    "renamed_arguments",
+    "renamed_table",
+]
 
 PathKey = tuple[Any, ...]
+
+
+# ---- the tables: old spelling -> current spelling --------------------------------
+
+# Training files (and checkpoints, lineage records) written before the rename.
+TRAIN_RENAMES = {
+    "steps": "env_step_budget",
+    "n_envs": "parallel_envs",
+    "rollout_len": "segment_steps",
+    "epochs": "update_passes",
+    "minibatch": "minibatch_size",
+    "lr": "learning_rate",
+    "lr_schedule": "learning_rate_schedule",
+    "lam": "lambda",
+    "clip": "clip_ratio",
+    "entropy_coef": "entropy_weight",
+    "value_coef": "critic_loss_weight",
+    "value_clip": "critic_clip",
+    "max_grad_norm": "gradient_norm_cap",
+    "target_kl": "policy_shift_limit",
+    "normalise_advantages": "standardise_advantages",
+    "normalise_observations": "standardise_observations",
+    "normalise_rewards": "scale_rewards",
+    "termination": "stop_mode",
+    "termination_hidden": "stop_hidden",
+    "termination_lr": "stop_lr",
+    "termination_init": "stop_init_logit",
+    "episode_steps": "max_episode_steps",
+    "task.skills": "skills",
+    "task.notes": "description",
+    "task.start": "task.initial_states",
+}
+
+# Skill specs (YAML files, and spec.json inside stored versions).
+SPEC_RENAMES = {"controller.options": "controller.settings"}
+
+# Lineage metadata that retrain and train stored (read silently by show and lineage).
+META_RENAMES = {
+    "steps": "env_steps",
+    "termination_rate": "stop_rate",
+    **{f"{m}.{old}": f"{m}.{new}" for m in ("before", "after", "metrics_before", "metrics_after") for old, new in (("mean_steps", "mean_duration"), ("reasons", "outcomes"))},
+}
+
+# How a skill's turn ended, as stored in metrics and option models.
+OUTCOME_RENAMES = {"env_terminated": "env_ended", "terminated": "env_ended"}
+
+# Outputs of a stored duration model (its head and its held-out errors).
+DURATION_OUTPUT_RENAMES = {"steps": "duration"}
 
 
 class RenamedKeyWarning(UserWarning):
@@ -157,3 +218,23 @@ def rename_document(doc: Any, renames: Mapping[str, str] | Iterable[Renamed], *,
     """A ``YamlDocument`` with its data and line table renamed (see ``rename_keys``)."""
     data, lines = rename_keys(doc.data, renames, source=doc.source, lines=doc.lines, warn=warn, stacklevel=3)
     return replace(doc, data=data, lines=lines)
+
+
+def renamed_arguments(renames: Mapping[str, str]) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
+    """Accept old keyword names of a Python API function, with one warning each naming the new one."""
+    import functools
+
+    def decorate(fn: Callable[..., Any]) -> Callable[..., Any]:
+        @functools.wraps(fn)
+        def wrapper(*args: Any, **kwargs: Any) -> Any:
+            for old, new in renames.items():
+                if old in kwargs:
+                    if new in kwargs:
+                        raise TypeError(f"{fn.__name__}() got both '{old}' (old spelling) and '{new}'; pass only '{new}'")
+                    warnings.warn(RenamedKeyWarning(f"{fn.__name__}(): '{old}' is an old spelling; write '{new}' instead"), stacklevel=2)
+                    kwargs[new] = kwargs.pop(old)
+            return fn(*args, **kwargs)
+
+        return wrapper
+
+    return decorate

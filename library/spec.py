@@ -16,6 +16,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from .renamed_keys import SPEC_RENAMES, rename_keys
+
 __all__ = [
     "NAME_PATTERN",
     "Limits",
@@ -70,12 +72,12 @@ class Limits:
 
 @dataclass(frozen=True)
 class ControllerSpec:
-    """Controller kind plus initial parameters, their bounds and kind options."""
+    """Controller kind plus initial parameters, their bounds and kind settings."""
 
     kind: str
     parameters: Mapping[str, Nested] = field(default_factory=dict)
     bounds: Mapping[str, tuple[Nested, Nested]] = field(default_factory=dict)
-    options: Mapping[str, Any] = field(default_factory=dict)
+    settings: Mapping[str, Any] = field(default_factory=dict)
     exploration_std: Nested = 0.1
 
     def __post_init__(self) -> None:
@@ -85,8 +87,8 @@ class ControllerSpec:
         object.__setattr__(
             self, "bounds", {k: (_freeze(lo), _freeze(hi)) for k, (lo, hi) in dict(self.bounds).items()}
         )
-        # options must be JSON data so they can be stored and compared
-        object.__setattr__(self, "options", json.loads(json.dumps(dict(self.options))))
+        # settings must be JSON data so they can be stored and compared
+        object.__setattr__(self, "settings", json.loads(json.dumps(dict(self.settings))))
         object.__setattr__(self, "exploration_std", _freeze(self.exploration_std))
 
     def parameter_arrays(self) -> dict[str, np.ndarray]:
@@ -97,7 +99,7 @@ class ControllerSpec:
         return {
             "parameters": self.parameter_arrays(),
             "bounds": self.bound_arrays(),
-            "options": dict(self.options),
+            "settings": dict(self.settings),
             "exploration_std": self.exploration_std,
         }
 
@@ -146,7 +148,7 @@ def skill_to_document(skill: Skill) -> dict[str, Any]:
             "kind": c.kind,
             "parameters": {k: _thaw(v) for k, v in sorted(c.parameters.items())},
             "bounds": {k: {"low": _thaw(lo), "high": _thaw(hi)} for k, (lo, hi) in sorted(c.bounds.items())},
-            "options": dict(c.options),
+            "settings": dict(c.settings),
             "exploration_std": _thaw(c.exploration_std),
         },
         "starts_when": skill.starts_when,
@@ -165,13 +167,18 @@ def controller_from_document(c: Mapping[str, Any]) -> ControllerSpec:
         kind=c["kind"],
         parameters=c.get("parameters", {}),
         bounds={k: (v["low"], v["high"]) for k, v in c.get("bounds", {}).items()},
-        options=c.get("options", {}),
+        settings=c.get("settings", {}),
         exploration_std=c.get("exploration_std", 0.1),
     )
 
 
 def skill_from_document(doc: Mapping[str, Any]) -> Skill:
-    """Inverse of skill_to_document; raises TypeError/ValueError on bad values."""
+    """Inverse of skill_to_document; raises TypeError/ValueError on bad values.
+
+    Stored documents written before a rename (``controller.options``) are read
+    under today's names, silently: a stored version cannot be edited.
+    """
+    doc, _ = rename_keys(dict(doc), SPEC_RENAMES, source="stored spec", warn=False)
     controller = controller_from_document(doc["controller"])
     limits = Limits(**doc["limits"]) if doc.get("limits") else None
     return Skill(

@@ -19,6 +19,7 @@ import numpy as np
 
 from .errors import InvalidInputError, InvalidSpecError, Problem
 from .spec import Skill, controller_from_document, skill_from_document
+from .renamed_keys import SPEC_RENAMES, rename_document
 from .yaml_source import YamlDocument, load_yaml_file, load_yaml_text
 
 __all__ = ["load_spec", "parse_spec_text", "spec_schema", "validate_document", "check_semantics"]
@@ -78,9 +79,9 @@ def _schema_problems(doc: YamlDocument) -> list[Problem]:
             missing = error.message.split("'")[1] if "'" in error.message else error.message
             problems.append(doc.problem(path, f"missing required field '{missing}'", _FIX_BY_FIELD.get(missing, f"add '{missing}'")))
         elif error.validator == "enum":
-            options = ", ".join(map(str, error.validator_value))
+            choices = ", ".join(map(str, error.validator_value))
             close = difflib.get_close_matches(str(error.instance), [str(o) for o in error.validator_value], n=1)
-            fix = (f"did you mean '{close[0]}'? " if close else "") + f"use one of: {options}"
+            fix = (f"did you mean '{close[0]}'? " if close else "") + f"use one of: {choices}"
             problems.append(doc.problem(path, f"must be one of the known values, got {error.instance!r}", fix))
         elif error.validator == "oneOf":
             problems.append(doc.problem(path, f"must be a number or a list of numbers, got {error.instance!r}", "write e.g. 0.5 or [0.5, 0.5, 0.5]"))
@@ -136,12 +137,12 @@ def _parameter_shapes(controller_data: Any, rig: Any, doc: YamlDocument, problem
         _controller_problems(doc, problems, exc)
         try:  # still name the kind's parameters so the predicates can be checked too
             cls = kind_declaration(controller_data["kind"])
-            return {d.name: tuple(d.shape) for d in cls.declare(context, controller_data.get("options") or None)}
+            return {d.name: tuple(d.shape) for d in cls.declare(context, controller_data.get("settings") or None)}
         except Exception:
             return None
     for name in plan.inputs:
         if name not in rig.layout:
-            problems.append(doc.problem(("controller", "options"), f"controller reads '{name}', which env {rig.env_id} does not have", f"known names: {', '.join(rig.layout.names)}"))
+            problems.append(doc.problem(("controller", "settings"), f"controller reads '{name}', which env {rig.env_id} does not have", f"known names: {', '.join(rig.layout.names)}"))
     return {k: tuple(np.shape(v)) for k, v in plan.values.items()}
 
 
@@ -202,11 +203,16 @@ def _as_spec_error(read, *args) -> YamlDocument:
         raise InvalidSpecError(exc.problems) from None
 
 
+def _current(doc: YamlDocument) -> YamlDocument:
+    """The document with old key spellings moved to today's (one warning each)."""
+    return _as_spec_error(rename_document, doc, SPEC_RENAMES) if isinstance(doc.data, dict) else doc
+
+
 def parse_spec_text(text: str, source: str = "<string>") -> Skill:
-    """Validate a spec given as YAML text."""
-    return validate_document(_as_spec_error(load_yaml_text, text, source))
+    """Validate a spec given as YAML text (old spellings read with a warning)."""
+    return validate_document(_current(_as_spec_error(load_yaml_text, text, source)))
 
 
 def load_spec(path: str | Path) -> Skill:
-    """Read and validate one spec file."""
-    return validate_document(_as_spec_error(load_yaml_file, path))
+    """Read and validate one spec file (old spellings read with a warning)."""
+    return validate_document(_current(_as_spec_error(load_yaml_file, path)))

@@ -17,8 +17,8 @@ from pathlib import Path
 from typing import Any
 
 from kinetome.library.errors import InvalidInputError, Problem
+from kinetome.library.renamed_keys import TRAIN_RENAMES, rename_document, rename_keys
 from kinetome.library.runtime.learned import CLOCK_INPUTS
-from kinetome.library.renamed_keys import rename_document, rename_keys
 
 __all__ = [
     "TrainConfig",
@@ -40,36 +40,6 @@ __all__ = [
 #   learned:    a learned sigmoid everywhere
 # Every mode also stops a skill after max_steps.
 STOP_MODES = ("registered", "hard", "confined", "learned")
-
-# Old spelling -> current spelling, for files (and checkpoints) written before the rename.
-TRAIN_RENAMES = {
-    "steps": "env_step_budget",
-    "n_envs": "parallel_envs",
-    "rollout_len": "segment_steps",
-    "epochs": "update_passes",
-    "minibatch": "minibatch_size",
-    "lr": "learning_rate",
-    "lr_schedule": "learning_rate_schedule",
-    "lam": "lambda",
-    "clip": "clip_ratio",
-    "entropy_coef": "entropy_weight",
-    "value_coef": "critic_loss_weight",
-    "value_clip": "critic_clip",
-    "max_grad_norm": "gradient_norm_cap",
-    "target_kl": "policy_shift_limit",
-    "normalise_advantages": "standardise_advantages",
-    "normalise_observations": "standardise_observations",
-    "normalise_rewards": "scale_rewards",
-    "termination": "stop_mode",
-    "termination_hidden": "stop_hidden",
-    "termination_lr": "stop_lr",
-    "termination_init": "stop_init_logit",
-    "episode_steps": "max_episode_steps",
-    "task.skills": "skills",
-    "task.notes": "description",
-    "task.start": "task.initial_states",
-}
-
 
 @dataclass(frozen=True)
 class TrainConfig:

@@ -8,6 +8,8 @@ import math
 from pathlib import Path
 from typing import Sequence
 
+from kinetome.library.safety import CAUTION_FOOTER
+
 from .atomic import write_atomic
 
 __all__ = ["CURVE_COLUMNS", "curve_csv", "save_curves", "plot_curves"]
@@ -74,9 +76,10 @@ def plot_curves(rows: Sequence[dict[str, float]], path: str | Path, *, title: st
         if ax.get_legend_handles_labels()[0]:
             ax.legend(fontsize=7)
     fig.suptitle(title)
-    fig.tight_layout()
+    fig.text(0.5, 0.01, CAUTION_FOOTER, ha="center", va="bottom", fontsize=7, color="0.3")
+    fig.tight_layout(rect=(0, 0.05, 1, 1))
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=90)
+    fig.savefig(buf, format="png", dpi=90, metadata={"Caution": CAUTION_FOOTER})
     plt.close(fig)
     write_atomic(Path(path), buf.getvalue())
 

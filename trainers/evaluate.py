@@ -14,24 +14,30 @@ __all__ = ["SkillMetrics", "evaluate_skill"]
 class SkillMetrics:
     """How a skill did over ``episodes`` runs from the same starts.
 
-    ``success_rate``: fraction of episodes that ended by ``stops_when`` (refused
-    starts and timeouts count as failures); ``mean_return``: mean undiscounted
-    task reward per episode; ``reasons``: episodes per end reason label.
+    ``successes``: episodes that ended by ``stops_when`` (refused starts and
+    timeouts count as failures); ``mean_return``: mean undiscounted task reward
+    per episode; ``mean_duration``: mean env steps the skill ran;
+    ``outcomes``: episodes per outcome label (``stopped``, ``timed_out``, ...).
     """
 
     episodes: int
-    success_rate: float
+    successes: int
     mean_return: float
-    mean_steps: float
-    reasons: dict[str, int]
+    mean_duration: float
+    outcomes: dict[str, int]
+
+    @property
+    def success_rate(self) -> float:
+        return self.successes / self.episodes if self.episodes else float("nan")
 
     def as_dict(self) -> dict[str, Any]:
         return {
             "episodes": self.episodes,
+            "successes": self.successes,
             "success_rate": self.success_rate,
             "mean_return": self.mean_return,
-            "mean_steps": self.mean_steps,
-            "reasons": dict(self.reasons),
+            "mean_duration": self.mean_duration,
+            "outcomes": dict(self.outcomes),
         }
 
 
@@ -43,13 +49,13 @@ def evaluate_skill(skill: Any, rig: Any, *, start: Any = None, episodes: int, se
     starts = _starts(rig, start, episodes, seed)
     rollout = run_skill(skill, rig, starts=starts, seed=seed, workers=workers, gamma=gamma, explore=False)
     seg = rollout.segments[0]
-    reasons = {EndReason(r).label: int(np.sum(seg.reason == r)) for r in np.unique(seg.reason)}
+    outcomes = {EndReason(r).label: int(np.sum(seg.reason == r)) for r in np.unique(seg.reason)}
     return SkillMetrics(
         episodes=episodes,
-        success_rate=float(np.mean(seg.reason == int(EndReason.STOPPED))),
+        successes=int(np.sum(seg.reason == int(EndReason.STOPPED))),
         mean_return=float(np.mean(seg.reward)),
-        mean_steps=float(np.mean(seg.steps)),
-        reasons=reasons,
+        mean_duration=float(np.mean(seg.steps)),
+        outcomes=outcomes,
     )
 
 

@@ -38,7 +38,7 @@ from .fitting_kernels import fit_feature_map
 
 __all__ = ["StepTransitions", "TDModels", "TD_OUTPUTS", "fit_td_models"]
 
-TD_OUTPUTS = ("steps", "discount", "stop_discount", "p_stopped", "discounted_return")
+TD_OUTPUTS = ("duration", "discount", "stop_discount", "p_stopped", "discounted_return")
 
 
 @dataclass(frozen=True, eq=False)
@@ -88,13 +88,13 @@ class TDModels:
     gamma: float
 
     def predict(self, states: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
-        """name -> (B,) for TD_OUTPUTS; probabilities and discounts clipped to [0, 1], steps to >= 1."""
+        """name -> (B,) for TD_OUTPUTS; probabilities and discounts clipped to [0, 1], duration to >= 1."""
         phi = self.features(states)
         v = np.concatenate([phi, np.ones((phi.shape[0], 1))], axis=1) @ self.weights
         out = {name: v[:, i] for i, name in enumerate(TD_OUTPUTS)}
         for name in ("discount", "stop_discount", "p_stopped"):
             out[name] = np.clip(out[name], 0.0, 1.0)
-        out["steps"] = np.maximum(out["steps"], 1.0)
+        out["duration"] = np.maximum(out["duration"], 1.0)
         return out
 
 

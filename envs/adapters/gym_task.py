@@ -89,6 +89,7 @@ class GymTask:
     payload_parent: str | None = None
     goal: tuple[str, tuple[str, ...]] | None = None
     notes: str = ""
+    legged: bool = False  # a walking machine: its own type standards apply (see library/safety.py)
 
     def __post_init__(self) -> None:
         if self.frame_skip < 1:
@@ -213,6 +214,7 @@ def build_rig(task: GymTask, *, variant: Any = None) -> Rig:
         max_episode_steps=task.max_episode_steps,
         metadata={
             "robot": task.robot,
+            "legged": task.legged,
             "camera": int(camera),
             "gymnasium_id": task.env_id,
             "asset": task.asset,

@@ -118,6 +118,7 @@ HOPPER = GymTask(
     frame_skip=4,
     max_episode_steps=1000,
     robot="hopper",
+    legged=True,
     quantities=_joint_state("rootx, rootz, rooty, thigh, leg, foot", "thigh, leg, foot; gear 200")
     + _upright_walker_state(("foot",), "foot"),
     reward=_planar_reward(_HOPPER_UNHEALTHY, ctrl_weight=1e-3, alive_bonus=1.0),
@@ -135,6 +136,7 @@ WALKER2D = GymTask(
     frame_skip=4,
     max_episode_steps=1000,
     robot="walker2d",
+    legged=True,
     quantities=_joint_state(
         "rootx, rootz, rooty, thigh, leg, foot, thigh_left, leg_left, foot_left",
         "thigh, leg, foot, thigh_left, leg_left, foot_left; gear 100",
@@ -159,6 +161,7 @@ HALF_CHEETAH = GymTask(
     frame_skip=5,
     max_episode_steps=1000,
     robot="half_cheetah",
+    legged=True,
     quantities=_joint_state(
         "rootx, rootz, rooty, bthigh, bshin, bfoot, fthigh, fshin, ffoot",
         "bthigh, bshin, bfoot, fthigh, fshin, ffoot; gears 120, 90, 60, 120, 60, 30",
@@ -218,6 +221,7 @@ ANT = GymTask(
     frame_skip=5,
     max_episode_steps=1000,
     robot="ant",
+    legged=True,
     quantities=_joint_state(
         "root free joint (x, y, z, qw, qx, qy, qz), hip_1, ankle_1, hip_2, ankle_2, hip_3, ankle_3, hip_4, ankle_4",
         "hip_4, ankle_4, hip_1, ankle_1, hip_2, ankle_2, hip_3, ankle_3; gear 150",

@@ -39,7 +39,7 @@ def _check(args: argparse.Namespace) -> int:
             episodes=args.episodes,
             seed=args.seed,
             workers=args.workers,
-            report_dir=args.report,
+            out=args.report,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

@@ -1,8 +1,8 @@
 """kinetome command entry point: parse arguments, dispatch, map errors to exit codes.
 
 Command modules register their parsers here; each imports heavy libraries
-(torch, mujoco, z3) only inside its ``run`` so that ``list``, ``show`` and
-``history`` stay fast.
+(torch, mujoco, z3) only inside its handler so that ``list``, ``show`` and
+``lineage`` stay fast.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ __all__ = ["main", "build_parser", "common_options"]
 def common_options() -> argparse.ArgumentParser:
     """--store, --debug and --quiet, accepted after the command name too."""
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--store", metavar="DIR", default=argparse.SUPPRESS, help="skill store folder")
+    common.add_argument("--store", metavar="DIR", default=argparse.SUPPRESS, help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
     common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
     common.add_argument(
         "--quiet", action="store_true", default=argparse.SUPPRESS,
@@ -39,12 +39,22 @@ _DESCRIPTION = (
 )
 
 
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("kinetome")
+    except PackageNotFoundError:  # running from a source tree that was never installed
+        return "unknown (not installed)"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="kinetome", description=_DESCRIPTION)
+    parser.add_argument("--version", action="version", version=f"kinetome {_version()}", help="print the installed version and exit")
     parser.add_argument("--store", metavar="DIR", help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bar or progress lines on long commands")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", help="one of the commands below; kinetome COMMAND --help lists its options")
     sub.required = True
     for module_name in _COMMAND_MODULES:
         try:

@@ -5,31 +5,39 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from .old_spellings import add_old_option
 from .output import print_json, print_table
 from .progress import Progress
 
-__all__ = ["add_parsers"]
+__all__ = ["add_parsers", "add_task_options"]
+
+JSON_HELP = "print machine-readable JSON (with a schema field) instead of text"
+
+
+def add_task_options(p: argparse.ArgumentParser, *, variant_required: bool = False) -> None:
+    """--variant and --initial-states (old spelling --start, hidden)."""
+    p.add_argument("--variant", metavar="FILE", required=variant_required, help="task variant YAML (payload, friction, ...; e.g. configs/variants/heavy_payload.yaml)")
+    p.add_argument("--initial-states", dest="initial_states", metavar="FILE", help="initial-states YAML (e.g. configs/initial_states/arm_clearance.yaml; default: the env's own)")
+    add_old_option(p, "--start", "--initial-states", dest="initial_states")
 
 
 def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p = sub.add_parser("run", parents=[common], help="run a stored skill as an option for many episodes")
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("--variant", metavar="FILE", help="task variant YAML (payload, friction, ...)")
-    p.add_argument("--start", metavar="FILE", help="start-state distribution YAML (default: the env's)")
-    p.add_argument("--episodes", type=int, default=100)
-    p.add_argument("--seed", type=int, default=0)
-    p.add_argument("--workers", type=int, default=1, help="simulation threads")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("ref", metavar="NAME[@N]", help="the skill to run (a name means its current version)")
+    add_task_options(p)
+    p.add_argument("--episodes", type=int, default=100, help="episodes to run (default 100)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the initial states and exploration (default 0)")
+    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_run)
 
     p = sub.add_parser("fit", parents=[common], help="fit option models (duration, reward, end state) from rollouts")
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("--episodes", type=int, default=400)
-    p.add_argument("--variant", metavar="FILE")
-    p.add_argument("--start", metavar="FILE")
-    p.add_argument("--seed", type=int, default=0)
-    p.add_argument("--workers", type=int, default=1)
-    p.add_argument("--json", action="store_true")
+    p.add_argument("ref", metavar="NAME[@N]", help="the version to fit models for (a name means its current version)")
+    p.add_argument("--episodes", type=int, default=400, help="episodes to collect, a quarter held out (default 400, at least 20)")
+    add_task_options(p)
+    p.add_argument("--seed", type=int, default=0, help="seed of the initial states and the held-out split (default 0)")
+    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_fit)
 
 
@@ -52,7 +60,7 @@ def _run(args: argparse.Namespace) -> int:
         args.ref,
         store=_store(args),
         variant=args.variant,
-        start=args.start,
+        initial_states=args.initial_states,
         episodes=args.episodes,
         seed=args.seed,
         workers=args.workers,
@@ -62,23 +70,34 @@ def _run(args: argparse.Namespace) -> int:
     if args.json:
         print_json(summary)
         return 0
-    s = summary["success"]
-    low, high = s["interval"]
-    print(f"{summary['skill']} on {summary['env']}" + (f" with variant {summary['variant']}" if summary["variant"] else ""))
-    print(f"  success   {s['count']}/{summary['episodes']} = {s['rate']:.3f}  ({s['confidence']:.0%} exact interval {low:.3f} to {high:.3f})")
-    st = summary["steps"]
-    print(f"  steps     mean {st['mean']:.1f}  p10 {st['p10']:.0f}  median {st['p50']:.0f}  p90 {st['p90']:.0f}  max {st['max']}")
-    r = summary["return"]
-    print(f"  return    mean {r['mean']:.3f}  std {r['std']:.3f}  discounted (gamma {r['gamma']}) {r['discounted_mean']:.3f}")
-    reasons = summary["end_reasons"][summary["skill"]]
-    print("  ended     " + ", ".join(f"{k} {v}" for k, v in reasons.items()))
-    if summary["limits"]:
-        print("\ndeclared limits")
-        print_table(
-            [{**row, "flag": "EXCEEDED" if row["episodes_over"] else "ok"} for row in summary["limits"]],
-            [("limit", "LIMIT"), ("declared", "DECLARED"), ("worst", "WORST SEEN"), ("episodes_over", "EPISODES OVER"), ("flag", "")],
-        )
+    print(format_run(summary))
     return 0
+
+
+def format_run(summary: dict[str, Any]) -> str:
+    """The text ``kinetome run`` prints for a ``run`` summary."""
+    from ..safety import LIMITS_NOTE
+
+    low, high = summary["success_interval"]
+    n = summary["episodes"]
+    lines = [
+        f"{summary['skill']} on {summary['env']}" + (f" with variant {summary['variant']}" if summary["variant"] else ""),
+        f"  success   {summary['successes']}/{n} = {summary['success_rate']:.3f}  ({summary['confidence']:.0%} exact interval {low:.3f} to {high:.3f})",
+    ]
+    d = summary["duration"]
+    lines.append(f"  duration  mean {d['mean']:.1f}  p10 {d['p10']:.0f}  median {d['p50']:.0f}  p90 {d['p90']:.0f}  max {d['max']} steps")
+    r = summary["return"]
+    lines.append(f"  return    mean {r['mean']:.3f}  std {r['std']:.3f}  discounted (gamma {r['gamma']}) {r['discounted_mean']:.3f}")
+    lines.append("  outcomes  " + ", ".join(f"{k} {v}" for k, v in summary["outcomes"][summary["skill"]].items()))
+    if summary["limits"]:
+        from .output import format_table
+
+        rows = [{**row, "seen": f"exceeded in {row['episodes_over']} of {row['episodes']}" if row["episodes_over"] else f"not exceeded in {row['episodes']} simulated episodes"} for row in summary["limits"]]
+        lines += ["", "declared limits (not enforced by kinetome; not a safety function)"]
+        lines.append(format_table(rows, [("limit", "LIMIT"), ("declared", "DECLARED"), ("worst", "WORST SEEN"), ("seen", "IN SIMULATION")]))
+        lines.append(LIMITS_NOTE)
+    lines.append(summary["caution"])
+    return "\n".join(lines)
 
 
 def _fit(args: argparse.Namespace) -> int:
@@ -86,7 +105,7 @@ def _fit(args: argparse.Namespace) -> int:
 
     with Progress(f"fit {args.ref} ({args.episodes} episodes)", unit="steps", quiet=_quiet(args)) as bar:
         result = fit(
-            args.ref, store=_store(args), episodes=args.episodes, variant=args.variant, start=args.start, seed=args.seed,
+            args.ref, store=_store(args), episodes=args.episodes, variant=args.variant, initial_states=args.initial_states, seed=args.seed,
             workers=args.workers, progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

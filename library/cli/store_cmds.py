@@ -1,13 +1,17 @@
-"""Store commands: add, list, show, history, diff, note, verify, export, import."""
+"""Store commands: register, list, show, lineage, diff, note, verify, export, import."""
 
 from __future__ import annotations
 
 import argparse
 from typing import Any
 
+from ..output_schema import tagged
+from .old_spellings import add_old_option, warn_old_command
 from .output import print_json, print_table
 
 __all__ = ["add_parsers"]
+
+JSON_HELP = "print machine-readable JSON (with a schema field) instead of text"
 
 
 def _open_store(args: argparse.Namespace, *, create: bool = True):
@@ -16,39 +20,47 @@ def _open_store(args: argparse.Namespace, *, create: bool = True):
     return Store(resolve_store_root(getattr(args, "store", None)), create=create)
 
 
-def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
-    p = sub.add_parser("add", parents=[common], help="register skills from YAML spec files")
-    p.add_argument("specs", nargs="+", metavar="SPEC", help="skill spec YAML file(s)")
-    p.add_argument("--json", action="store_true", help="machine-readable output")
-    p.set_defaults(handler=_add)
+def _register_parser(p: argparse.ArgumentParser, handler: Any) -> None:
+    p.add_argument("specs", nargs="+", metavar="SPEC", help="skill spec YAML file(s), e.g. configs/skills/*.yaml")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
+    p.set_defaults(handler=handler)
 
-    p = sub.add_parser("list", parents=[common], help="list stored skills and their latest versions")
-    p.add_argument("--json", action="store_true")
+
+def _lineage_parser(p: argparse.ArgumentParser, handler: Any) -> None:
+    p.add_argument("name", metavar="NAME", help="skill name (every version of it is listed)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
+    p.set_defaults(handler=handler)
+
+
+def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
+    _register_parser(sub.add_parser("register", parents=[common], help="store skills from YAML spec files as versions"), _register)
+    _register_parser(sub.add_parser("add", parents=[common]), _add_old_name)  # old name, hidden
+
+    p = sub.add_parser("list", parents=[common], help="list stored skills and their current versions")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_list)
 
     p = sub.add_parser("show", parents=[common], help="show one version: spec, parameters, lineage, models")
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("ref", metavar="NAME[@N]", help="a skill name (its current version) or one version name@N")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_show)
 
-    p = sub.add_parser("history", parents=[common], help="every version of a skill with its lineage")
-    p.add_argument("name", metavar="NAME")
-    p.add_argument("--json", action="store_true")
-    p.set_defaults(handler=_history)
+    _lineage_parser(sub.add_parser("lineage", parents=[common], help="every version of a skill: parent, reason, variant, success"), _lineage)
+    _lineage_parser(sub.add_parser("history", parents=[common]), _history_old_name)  # old name, hidden
 
     p = sub.add_parser("diff", parents=[common], help="compare two versions field by field")
-    p.add_argument("old", metavar="NAME@N")
-    p.add_argument("new", metavar="NAME@M")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("old", metavar="NAME@N", help="the version to compare from")
+    p.add_argument("new", metavar="NAME@M", help="the version to compare to")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_diff)
 
     p = sub.add_parser("note", parents=[common], help="append a note to a version")
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("text")
+    p.add_argument("ref", metavar="NAME[@N]", help="the version to annotate (a name means its current version)")
+    p.add_argument("text", help="the note, one argument (quote it)")
     p.set_defaults(handler=_note)
 
     p = sub.add_parser("verify", parents=[common], help="re-hash every stored blob; exit 1 if any is damaged")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_verify)
 
     p = sub.add_parser(
@@ -57,13 +69,15 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         help="write a version and its lineage to one bundle file",
         description="Write a version with its lineage to a bundle. " + _caution(),
     )
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("-o", "--output", required=True, metavar="FILE")
+    p.add_argument("ref", metavar="NAME[@N]", help="the version to export (its ancestors come with it)")
+    p.add_argument("--out", metavar="FILE", help="bundle file to write (.tar or .tar.gz); required")
+    add_old_option(p, "-o", "--out", dest="out")
+    add_old_option(p, "--output", "--out", dest="out")
     p.set_defaults(handler=_export)
 
     p = sub.add_parser("import", parents=[common], help="import a bundle (refuses unsafe or damaged archives)")
-    p.add_argument("bundle", metavar="FILE")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("bundle", metavar="FILE", help="bundle written by kinetome export")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_import)
 
 
@@ -73,28 +87,33 @@ def _caution() -> str:
     return CAUTION
 
 
-def _add(args: argparse.Namespace) -> int:
-    from ..api import register_skill
+def _register(args: argparse.Namespace) -> int:
+    from ..api import register
     from ..errors import InvalidInputError
 
     store = _open_store(args)
     results, problems = [], []
     for path in args.specs:
         try:
-            result = register_skill(path, store=store)
+            result = register(path, store=store)
         except InvalidInputError as exc:
             problems.extend(exc.problems)
             continue
-        results.append({"ref": result.version.ref, "created": result.created, "spec": path})
+        results.append({"ref": result.version.ref, "is_new": result.is_new, "reason": result.version.reason, "spec": path})
     if args.json:
-        print_json({"added": results, "problems": [str(p) for p in problems]})
+        print_json(tagged("register", {"versions": results, "problems": [str(p) for p in problems]}))
     else:
         for r in results:
-            word = "registered" if r["created"] else "unchanged (identical content)"
+            word = r["reason"] if r["is_new"] else "unchanged (identical content)"
             print(f"{r['ref']}  {word}  <- {r['spec']}")
     if problems:
         raise InvalidInputError(problems)
     return 0
+
+
+def _add_old_name(args: argparse.Namespace) -> int:
+    warn_old_command("add", "register")
+    return _register(args)
 
 
 def _list(args: argparse.Namespace) -> int:
@@ -102,21 +121,27 @@ def _list(args: argparse.Namespace) -> int:
     rows = [
         {
             "name": s.name,
-            "latest": s.latest_ref,
+            "current": s.latest_ref,
             "versions": s.count,
             "env": s.env,
-            "updated": s.latest_created_at[:19].replace("T", " "),
-            "description": (s.description or "")[:60],
+            "updated_at": s.latest_created_at,
+            "description": s.description or "",
         }
         for s in store.list_skills()
     ]
     if args.json:
-        print_json(rows)
+        print_json(tagged("list", {"skills": rows}))
     elif not rows:
-        print(f"no skills in {store.root}; register one with: kinetome add SPEC.yaml")
+        print(f"no skills in {store.root}; register one with: kinetome register SPEC.yaml")
     else:
-        print_table(rows, [("name", "NAME"), ("latest", "LATEST"), ("versions", "VERSIONS"), ("env", "ENV"), ("updated", "UPDATED (UTC)"), ("description", "DESCRIPTION")])
+        table = [{**r, "updated_at": _when(r["updated_at"]), "description": r["description"][:60]} for r in rows]
+        print_table(table, [("name", "NAME"), ("current", "CURRENT"), ("versions", "VERSIONS"), ("env", "ENV"), ("updated_at", "UPDATED (UTC)"), ("description", "DESCRIPTION")])
     return 0
+
+
+def _when(timestamp: str) -> str:
+    """A stored ISO timestamp as ``YYYY-MM-DD HH:MM:SS``."""
+    return timestamp[:19].replace("T", " ")
 
 
 def _version_view(store: Any, ref: str) -> dict[str, Any]:
@@ -124,13 +149,16 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
 
     from ..runtime.files import PARAMS_FILE, SPEC_FILE
 
+    from ..renamed_keys import SPEC_RENAMES, rename_keys
+    from ..stored_meta import current_meta
+
     v = store.get(ref)
-    spec = json.loads(store.read_file(v, SPEC_FILE).decode("utf-8"))
+    spec, _ = rename_keys(json.loads(store.read_file(v, SPEC_FILE).decode("utf-8")), SPEC_RENAMES, source=f"{v.ref} spec", warn=False)
     params = _read_params(store.read_file(v, PARAMS_FILE)) if PARAMS_FILE in v.roles else {}
     models = []
     for m in store.models(v.ref):
         meta = m.meta
-        models.append({"ref": m.ref, "kind": m.kind, "revision": m.revision, "created_at": m.created_at, "errors": meta.get("errors", {}), "episodes": meta.get("episodes")})
+        models.append({"ref": m.ref, "kind": m.kind, "revision": m.revision, "created_at": m.created_at, "errors": _current_errors(meta.get("errors", {})), "episodes": meta.get("episodes")})
     return {
         "ref": v.ref,
         "name": v.name,
@@ -138,7 +166,7 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
         "created_at": v.created_at,
         "reason": v.reason,
         "parent": v.parent,
-        "meta": v.meta,
+        "meta": current_meta(v.meta),
         "spec": spec,
         "parameters": params,
         "files": [{"role": f.role, "digest": f.digest, "size": f.size} for f in v.files],
@@ -146,6 +174,18 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
         "models": models,
         "lineage": [x.ref for x in store.lineage(v.ref)],
     }
+
+
+def _current_errors(errors: dict[str, Any]) -> dict[str, Any]:
+    """Held-out errors of option models under today's names (older fits read silently)."""
+    from ..renamed_keys import DURATION_OUTPUT_RENAMES, OUTCOME_RENAMES
+
+    out = dict(errors)
+    if isinstance(out.get("duration"), dict):
+        out["duration"] = {DURATION_OUTPUT_RENAMES.get(k, k): v for k, v in out["duration"].items()}
+    if isinstance(out.get("outcomes"), dict):
+        out["outcomes"] = {OUTCOME_RENAMES.get(k, k): v for k, v in out["outcomes"].items()}
+    return out
 
 
 def _read_params(data: bytes) -> dict[str, list]:
@@ -163,18 +203,20 @@ def _fmt_value(value: Any) -> str:
 
 
 def _show(args: argparse.Namespace) -> int:
+    from ..stored_meta import success_text
+
     store = _open_store(args)
     view = _version_view(store, args.ref)
     if args.json:
-        print_json(view)
+        print_json(tagged("show", view))
         return 0
     spec = view["spec"]
     c = spec["controller"]
     lines = [
-        f"{view['ref']}  ({view['reason']}{', from ' + view['parent'] if view['parent'] else ''}, {view['created_at'][:19].replace('T', ' ')} UTC)",
+        f"{view['ref']}  ({view['reason']}{', from ' + view['parent'] if view['parent'] else ''}, {_when(view['created_at'])} UTC)",
         f"  description  {spec.get('description') or '-'}",
         f"  env          {spec['env']}",
-        f"  controller   {c['kind']}  options {_fmt_value(c.get('options', {}))}",
+        f"  controller   {c['kind']}  settings {_fmt_value(c.get('settings', {}))}",
         f"  starts_when  {spec['starts_when']}",
         f"  stops_when   {spec['stops_when']}",
         f"  max_steps    {spec['max_steps']}",
@@ -185,9 +227,12 @@ def _show(args: argparse.Namespace) -> int:
         lines.append(f"  tags         {', '.join(spec['tags'])}")
     lines.append(f"  lineage      {' <- '.join(view['lineage'])}")
     meta = view["meta"]
-    for key in ("variant", "seed", "steps", "metrics_before", "metrics_after"):
+    for key in ("method", "variant", "seed", "env_steps"):
         if key in meta:
             lines.append(f"  {key:<12} {_fmt_value(meta[key])}")
+    for key, label in (("metrics_before", "before"), ("metrics_after", "after")):
+        if key in meta:
+            lines.append(f"  {label:<12} success {success_text(meta[key])}, mean return {meta[key]['mean_return']:.4g}, mean duration {meta[key]['mean_duration']:.4g} steps")
     print("\n".join(lines))
     print("\nparameters")
     print_table([{"name": k, "value": _fmt_value(v)} for k, v in view["parameters"].items()], [("name", "NAME"), ("value", "VALUE")])
@@ -205,31 +250,43 @@ def _show(args: argparse.Namespace) -> int:
     if view["notes"]:
         print("\nnotes")
         for n in view["notes"]:
-            print(f"  {n['created_at'][:19].replace('T', ' ')}  {n['text']}")
+            print(f"  {_when(n['created_at'])}  {n['text']}")
     return 0
 
 
-def _history(args: argparse.Namespace) -> int:
+def _lineage(args: argparse.Namespace) -> int:
+    from ..stored_meta import current_meta, success_text
+
     store = _open_store(args)
     rows = []
     for v in store.history(args.name):
-        meta = v.meta
-        after = meta.get("metrics_after", {})
+        meta = current_meta(v.meta)
+        after = meta.get("metrics_after") or {}
         rows.append(
             {
                 "ref": v.ref,
                 "reason": v.reason,
+                "method": meta.get("method"),
                 "parent": v.parent,
-                "created": v.created_at[:19].replace("T", " "),
-                "variant": (meta.get("variant") or {}).get("name") if isinstance(meta.get("variant"), dict) else meta.get("variant"),
-                "success": after.get("success_rate"),
+                "created_at": v.created_at,
+                "variant": (meta.get("variant") or {}).get("name") or (meta.get("variant") or {}).get("file"),
+                "successes": after.get("successes"),
+                "episodes": after.get("episodes"),
+                "success_rate": after.get("success_rate"),
+                "success_text": success_text(after),
             }
         )
     if args.json:
-        print_json(rows)
+        print_json(tagged("lineage", {"name": args.name, "versions": [{k: v for k, v in r.items() if k != "success_text"} for r in rows]}))
     else:
-        print_table(rows, [("ref", "VERSION"), ("reason", "REASON"), ("parent", "PARENT"), ("created", "CREATED (UTC)"), ("variant", "VARIANT"), ("success", "SUCCESS AFTER")])
+        table = [{**r, "created_at": _when(r["created_at"])} for r in rows]
+        print_table(table, [("ref", "VERSION"), ("reason", "REASON"), ("method", "METHOD"), ("parent", "PARENT"), ("created_at", "CREATED (UTC)"), ("variant", "VARIANT"), ("success_text", "SUCCESS AFTER")])
     return 0
+
+
+def _history_old_name(args: argparse.Namespace) -> int:
+    warn_old_command("history", "lineage")
+    return _lineage(args)
 
 
 def _flatten(prefix: str, value: Any, out: dict[str, Any]) -> None:
@@ -249,7 +306,7 @@ def _diff(args: argparse.Namespace) -> int:
     _flatten("", {"spec": new["spec"], "parameters": new["parameters"], "parent": new["parent"], "reason": new["reason"]}, b)
     rows = [{"field": k, "old": a.get(k), "new": b.get(k)} for k in sorted(set(a) | set(b)) if a.get(k) != b.get(k)]
     if args.json:
-        print_json({"old": old["ref"], "new": new["ref"], "changes": rows})
+        print_json(tagged("diff", {"old": old["ref"], "new": new["ref"], "changes": rows}))
     elif not rows:
         print(f"{old['ref']} and {new['ref']} have identical specs and parameters")
     else:
@@ -268,7 +325,7 @@ def _verify(args: argparse.Namespace) -> int:
     store = _open_store(args, create=False)
     report = store.verify()
     if args.json:
-        print_json(report.to_dict())
+        print_json(tagged("verify", report.to_dict()))
     else:
         print(report.format_text())
     return 0 if report.ok else 1
@@ -278,8 +335,12 @@ def _export(args: argparse.Namespace) -> int:
     from ..safety import CAUTION
     from ..store import export_bundle
 
+    from ..errors import InvalidInputError
+
+    if getattr(args, "out", None) is None:
+        raise InvalidInputError("export needs --out FILE, the bundle to write; e.g. --out reach.tar.gz")
     store = _open_store(args)
-    path = export_bundle(store, args.ref, args.output)
+    path = export_bundle(store, args.ref, args.out)
     print(f"exported {store.get(args.ref).ref} with its lineage to {path}")
     print(CAUTION)
     return 0
@@ -290,9 +351,29 @@ def _import(args: argparse.Namespace) -> int:
 
     store = _open_store(args)
     versions = import_bundle(store, args.bundle)
+    notice = _bundle_notice(args.bundle)
     if args.json:
-        print_json([v.ref for v in versions])
+        imported = [{"ref": v.ref, "imported_from": _origin(v.meta)} for v in versions]
+        print_json(tagged("import", {"versions": imported, "notice": notice}))
     else:
         for v in versions:
-            print(f"imported {v.ref} (originally {v.meta.get('imported_from', {}).get('ref', '?') if isinstance(v.meta.get('imported_from'), dict) else v.meta.get('original_ref', '?')})")
+            print(f"imported {v.ref} (originally {_origin(v.meta) or '?'})")
+        if notice:
+            print(f"Notice from the bundle: {notice}")
     return 0
+
+
+def _origin(meta: dict[str, Any]) -> str | None:
+    origin = meta.get("imported_from")
+    return origin.get("ref") if isinstance(origin, dict) else meta.get("original_ref")
+
+
+def _bundle_notice(path: str) -> str | None:
+    """The notice written into the bundle's manifest (read after import validated the archive)."""
+    import json
+    import tarfile
+
+    with tarfile.open(path) as tar:
+        member = tar.extractfile("manifest.json")
+        notice = json.loads(member.read().decode("utf-8")).get("notice") if member is not None else None
+    return notice if isinstance(notice, str) else None

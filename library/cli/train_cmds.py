@@ -8,6 +8,7 @@ from typing import Any
 from .old_spellings import add_old_option
 from .output import print_json, print_table
 from .progress import Progress
+from .run_cmds import JSON_HELP, add_task_options
 
 __all__ = ["add_parsers"]
 
@@ -25,20 +26,19 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         help="retrain a stored skill on a task variant; stores a child version",
         description="Measure the skill on the variant, train, measure again and store the result as a child version with its lineage. " + _caution(),
     )
-    p.add_argument("ref", metavar="NAME[@N]")
-    p.add_argument("--variant", required=True, metavar="FILE", help="task variant YAML (e.g. configs/variants/heavy_payload.yaml)")
+    p.add_argument("ref", metavar="NAME[@N]", help="the version to start from (a name means its current version)")
+    add_task_options(p, variant_required=True)
     p.add_argument("--budget", type=int, dest="env_step_budget", metavar="STEPS", help="env steps of training in total (default: the config's env_step_budget)")
     add_old_option(p, "--steps", "--budget", dest="env_step_budget", type=int)
     p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA",
                    help="refused unless 0: retraining runs one skill with no switches (options mode, `kinetome train`, charges it)")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--seed", type=int, default=0, help="training and measurement seed (default 0)")
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
-    p.add_argument("--workers", type=int, default=1)
+    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
     p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
-    p.add_argument("--start", metavar="FILE", help="start-state distribution YAML")
     p.add_argument("--out", metavar="DIR", help="where curves and checkpoints go (default ./kinetome-retrain/NAME-N)")
     p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out after an interruption")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_retrain)
 
     p = sub.add_parser(
@@ -47,11 +47,11 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         help="train stored skills together with a policy over them (deliberation cost)",
         description="Train the skills a training YAML lists as options on one task; stores refined child versions. " + _caution(),
     )
-    p.add_argument("config", metavar="CONFIG.yaml")
-    p.add_argument("--seed", type=int)
-    p.add_argument("--workers", type=int, default=1)
-    p.add_argument("--out", metavar="DIR")
-    p.add_argument("--json", action="store_true")
+    p.add_argument("config", metavar="CONFIG.yaml", help="training YAML with skills: and task: (e.g. configs/training/options_small.yaml)")
+    p.add_argument("--seed", type=int, help="training seed (default: the config's seed)")
+    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--out", metavar="DIR", help="where curves and checkpoints go (default ./kinetome-train/CONFIG)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_train)
 
 
@@ -66,12 +66,13 @@ def _bar(label: str, args: argparse.Namespace) -> tuple[Progress, Any]:
 
 
 def _metrics_row(label: str, m: dict[str, Any]) -> dict[str, Any]:
-    return {"when": label, "success": m["success_rate"], "return": m["mean_return"], "steps": m["mean_steps"], "episodes": m["episodes"]}
+    from ..stored_meta import success_text
+
+    return {"when": label, "success": success_text(m), "return": m["mean_return"], "duration": m["mean_duration"]}
 
 
 def _retrain(args: argparse.Namespace) -> int:
     from ..api import open_store, retrain
-    from ..safety import CAUTION
 
     bar, on_update = _bar(f"retrain {args.ref}", args)
     result = retrain(
@@ -84,8 +85,8 @@ def _retrain(args: argparse.Namespace) -> int:
         from_scratch=args.from_scratch,
         workers=args.workers,
         config=args.config,
-        start=args.start,
-        out_dir=args.out,
+        initial_states=args.initial_states,
+        out=args.out,
         resume=args.resume,
         progress=on_update,
     )
@@ -93,31 +94,30 @@ def _retrain(args: argparse.Namespace) -> int:
     if args.json:
         print_json(result)
         return 0
-    print(f"{result['parent']} -> {result['child']} on {result['variant']} ({result['steps']} env steps, {result['wall_time_s']:.1f} s)")
-    print_table([_metrics_row("before", result["before"]), _metrics_row("after", result["after"])], [("when", ""), ("success", "SUCCESS"), ("return", "MEAN RETURN"), ("steps", "MEAN STEPS"), ("episodes", "EPISODES")])
+    print(f"{result['parent']} -> {result['child']} on {result['variant']} ({result['env_steps']} env steps, {result['wall_time_s']:.1f} s)")
+    print_table([_metrics_row("before", result["before"]), _metrics_row("after", result["after"])], [("when", ""), ("success", "SUCCESS"), ("return", "MEAN RETURN"), ("duration", "MEAN DURATION (STEPS)")])
     print(f"lineage   {' <- '.join(result['lineage'])}")
     print(f"curve     {result['curve_csv']}  {result['curve_png']}")
     if result["models"]:
         print(f"models    {result['models']['model_ref']}")
-    print(CAUTION)
+    print(result["caution"])
     return 0
 
 
 def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
-    from ..safety import CAUTION
 
     bar, on_update = _bar(f"train {args.config}", args)
-    result = train(args.config, store=open_store(getattr(args, "store", None)), seed=args.seed, workers=args.workers, out_dir=args.out, progress=on_update)
+    result = train(args.config, store=open_store(getattr(args, "store", None)), seed=args.seed, workers=args.workers, out=args.out, progress=on_update)
     bar.close()
     if args.json:
         print_json(result)
         return 0
-    print(f"trained {', '.join(result['skills'])} as options ({result['steps']} env steps)")
-    print(f"  termination rate     {result['termination_rate']:.4f} per step")
+    print(f"trained {', '.join(result['skills'])} as options ({result['env_steps']} env steps)")
+    print(f"  stop rate            {result['stop_rate']:.4f} per step")
     print(f"  mean skill duration  {result['mean_skill_duration']:.1f} steps")
     print(f"  mean return          {result['mean_return']:.3f}")
     print(f"  children             {', '.join(result['children'])}")
     print(f"  curve                {result['curve_csv']}  {result['curve_png']}")
-    print(CAUTION)
+    print(result["caution"])
     return 0

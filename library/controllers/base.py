@@ -23,7 +23,7 @@ class Controller(ControllerKind, torch.nn.Module):
     """A skill's internal policy: a deterministic mean plus Gaussian exploration.
 
     Subclasses register with ``@register_kind`` and provide the kind hooks of
-    ``ControllerKind`` (``OPTIONS``, ``_declare``, ``reads``, optionally
+    ``ControllerKind`` (``SETTINGS``, ``_declare``, ``reads``, optionally
     ``requires``; often by inheriting a torch-free declaration class) and
     ``_mean``. Build instances with ``build_controller``.
 
@@ -39,16 +39,16 @@ class Controller(ControllerKind, torch.nn.Module):
     def __init__(
         self,
         context: ControllerContext,
-        options: Mapping[str, Any],
+        settings: Mapping[str, Any],
         decls: tuple[ParamDecl, ...],
         values: Mapping[str, np.ndarray],
         bounds: Mapping[str, tuple[np.ndarray, np.ndarray]],
     ):
         super().__init__()
         self.context = context
-        self._options = dict(options)
-        self.inputs: tuple[str, ...] = tuple(self.reads(context, self.options))
-        self.needs: tuple[str, ...] = tuple(self.requires(context, self.options))
+        self._settings = dict(settings)
+        self.inputs: tuple[str, ...] = tuple(self.reads(context, self.settings))
+        self.needs: tuple[str, ...] = tuple(self.requires(context, self.settings))
         self._decls: dict[str, ParamDecl] = {d.name: d for d in decls}
         self.p = torch.nn.ParameterDict()
         self.fixed = torch.nn.Module()
@@ -73,9 +73,9 @@ class Controller(ControllerKind, torch.nn.Module):
     # ----- parameters -------------------------------------------------------
 
     @property
-    def options(self) -> Mapping[str, Any]:
-        """The resolved options (defaults filled in), read-only."""
-        return MappingProxyType(self._options)
+    def settings(self) -> Mapping[str, Any]:
+        """The resolved settings (defaults filled in), read-only."""
+        return MappingProxyType(self._settings)
 
     @property
     def n_act(self) -> int:

@@ -1,4 +1,4 @@
-"""The controller error: every problem with a kind, its options, parameters or bounds at once."""
+"""The controller error: every problem with a kind, its settings, parameters or bounds at once."""
 
 from __future__ import annotations
 
@@ -23,7 +23,7 @@ def _line(p: Problem) -> str:
 
 
 class ControllerError(InvalidInputError, ValueError):
-    """A controller kind, option, parameter, bound or parameter file is wrong.
+    """A controller kind, setting, parameter, bound or parameter file is wrong.
 
     ``problems`` keeps each problem's dotted field, message and fix so a spec
     loader can attach file and line; ``str`` gives one line per problem in the

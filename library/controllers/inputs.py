@@ -1,4 +1,4 @@
-"""The ``inputs`` option shared by the feedback kinds: which named quantities feed the policy."""
+"""The ``inputs`` setting shared by the feedback kinds: which named quantities feed the policy."""
 
 from __future__ import annotations
 

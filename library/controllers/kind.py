@@ -1,4 +1,4 @@
-"""What a controller kind declares, without torch: options, parameters, inputs.
+"""What a controller kind declares, without torch: settings, parameters, inputs.
 
 Validating a spec and storing its first version need only these declarations,
 so ``kinetome register`` of a structured kind never imports torch. The torch
@@ -47,56 +47,56 @@ def log_std_decl(context: ControllerContext) -> ParamDecl:
 
 
 class ControllerKind:
-    """The declaration side of a controller kind: subclasses set ``OPTIONS`` and
-    provide ``_declare`` and ``reads`` (and ``requires``, ``_normalise_options``)."""
+    """The declaration side of a controller kind: subclasses set ``SETTINGS`` and
+    provide ``_declare`` and ``reads`` (and ``requires``, ``_normalise_settings``)."""
 
     kind: ClassVar[str] = ""
-    OPTIONS: ClassVar[Mapping[str, Any]] = MappingProxyType({})
+    SETTINGS: ClassVar[Mapping[str, Any]] = MappingProxyType({})
 
     @classmethod
-    def resolve_options(
-        cls, context: ControllerContext, options: Mapping[str, Any] | None = None, *, where: str = "controller"
+    def resolve_settings(
+        cls, context: ControllerContext, settings: Mapping[str, Any] | None = None, *, where: str = "controller"
     ) -> dict[str, Any]:
-        """Options with defaults filled in and values checked; raises ``ControllerError``."""
-        given = dict(options or {})
+        """Settings with defaults filled in and values checked; raises ``ControllerError``."""
+        given = dict(settings or {})
         problems: list[Problem] = []
         for name in given:
-            if name not in cls.OPTIONS:
-                known = ", ".join(sorted(cls.OPTIONS)) or "none"
+            if name not in cls.SETTINGS:
+                known = ", ".join(sorted(cls.SETTINGS)) or "none"
                 problems.append(problem(
-                    f"{where}.options.{name}",
-                    f"is not an option of kind {cls.kind!r}",
-                    f"{close_match_hint(name, cls.OPTIONS)}known options: {known}",
+                    f"{where}.settings.{name}",
+                    f"is not a setting of kind {cls.kind!r}",
+                    f"{close_match_hint(name, cls.SETTINGS)}known settings: {known}",
                 ))
-        merged = {**cls.OPTIONS, **{k: v for k, v in given.items() if k in cls.OPTIONS}}
-        resolved = cls._normalise_options(context, merged, where, problems)
+        merged = {**cls.SETTINGS, **{k: v for k, v in given.items() if k in cls.SETTINGS}}
+        resolved = cls._normalise_settings(context, merged, where, problems)
         if problems:
             raise ControllerError(problems)
         return resolved
 
     @classmethod
-    def _normalise_options(
-        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
+    def _normalise_settings(
+        cls, context: ControllerContext, settings: dict[str, Any], where: str, problems: list[Problem]
     ) -> dict[str, Any]:
-        """Check option values (append problems) and return them in canonical form."""
-        return options
+        """Check setting values (append problems) and return them in canonical form."""
+        return settings
 
     @classmethod
-    def declare(cls, context: ControllerContext, options: Mapping[str, Any] | None = None) -> tuple[ParamDecl, ...]:
-        """Every parameter of this kind for ``context`` and ``options``, ``log_std`` last."""
-        resolved = cls.resolve_options(context, options)
+    def declare(cls, context: ControllerContext, settings: Mapping[str, Any] | None = None) -> tuple[ParamDecl, ...]:
+        """Every parameter of this kind for ``context`` and ``settings``, ``log_std`` last."""
+        resolved = cls.resolve_settings(context, settings)
         return (*cls._declare(context, resolved), log_std_decl(context))
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
         raise NotImplementedError
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
         """Named-state quantities the mean reads."""
         raise NotImplementedError
 
     @classmethod
-    def requires(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+    def requires(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
         """Runtime extras beyond named state (``<site>_jac``, (B, 3, nv))."""
         return ()

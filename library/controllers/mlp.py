@@ -22,8 +22,8 @@ class MLPPolicy(MLPPolicyKind, Controller):
 
     def __init__(self, *args: Any, **kwargs: Any):
         super().__init__(*args, **kwargs)
-        self._n_layers = len(self.options["hidden"]) + 1
-        self._activation = ACTIVATIONS[self.options["activation"]]
+        self._n_layers = len(self.settings["hidden"]) + 1
+        self._activation = ACTIVATIONS[self.settings["activation"]]
         self._mid = torch.tensor(self.context.action_mid, dtype=torch.float64)
         self._half = torch.tensor(self.context.action_half_range, dtype=torch.float64)
 

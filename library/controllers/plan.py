@@ -31,7 +31,7 @@ class ControllerPlan:
 
     kind: str
     context: ControllerContext
-    options: Mapping[str, Any]
+    settings: Mapping[str, Any]
     decls: tuple[ParamDecl, ...]
     values: Mapping[str, np.ndarray]
     bounds: Mapping[str, tuple[np.ndarray, np.ndarray]]
@@ -79,7 +79,7 @@ def plan_controller(
     *,
     parameters: Mapping[str, Any] | None = None,
     bounds: Mapping[str, Any] | None = None,
-    options: Mapping[str, Any] | None = None,
+    settings: Mapping[str, Any] | None = None,
     exploration_std: Any = None,
     where: str = "controller",
 ) -> ControllerPlan:
@@ -93,7 +93,7 @@ def plan_controller(
     once in a ``ControllerError`` whose fields start with ``where``.
     """
     cls = kind_declaration(kind, where=where)
-    resolved = cls.resolve_options(context, options, where=where)
+    resolved = cls.resolve_settings(context, settings, where=where)
     decls = (*cls._declare(context, resolved), log_std_decl(context))
     params = dict(parameters or {})
     problems: list[Problem] = []
@@ -130,10 +130,10 @@ def build_controller(kind: str, context: ControllerContext, **spec: Any) -> "Con
 
     Keywords as ``plan_controller``: ``parameters`` (name -> array-like; missing
     names take the declared default), ``bounds`` (name -> (low, high)),
-    ``options``, ``exploration_std`` (a number or one per actuator) and ``where``
+    ``settings``, ``exploration_std`` (a number or one per actuator) and ``where``
     (the field prefix of problems). Every problem is reported at once in a
     ``ControllerError``.
     """
     plan = plan_controller(kind, context, **spec)
     cls = kind_class(kind, where=spec.get("where", "controller"))
-    return cls(context, plan.options, plan.decls, plan.values, plan.bounds)
+    return cls(context, plan.settings, plan.decls, plan.values, plan.bounds)

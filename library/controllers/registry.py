@@ -63,7 +63,7 @@ def kind_class(kind: str, *, where: str = "controller") -> "type[Controller]":
 
 
 def kind_declaration(kind: str, *, where: str = "controller") -> "type[ControllerKind]":
-    """What ``kind`` declares (options, parameters, inputs), loaded without torch for built-in kinds."""
+    """What ``kind`` declares (settings, parameters, inputs), loaded without torch for built-in kinds."""
     if isinstance(kind, str) and kind in _KINDS:
         return _KINDS[kind]
     if isinstance(kind, str) and kind not in _DECLARED and kind in _BUILTIN:

@@ -17,7 +17,7 @@ class TaskPD(TaskPDKind, Controller):
     __doc__ = TaskPDKind.__doc__
 
     def _mean(self, x: dict[str, torch.Tensor], skill_time: torch.Tensor) -> torch.Tensor:
-        site = self.options["site"]
+        site = self.settings["site"]
         force = self.p["kp"] * (self.p["setpoint"] - x[site]) - self.p["kd"] * x[f"{site}_vel"]
         jac = x[f"{site}_jac"].index_select(2, self._qvel_index)
         return jacobian_transpose(jac, force) - self.p["joint_damping"] * self.actuated_qvel(x) + self.p["bias"]

@@ -6,14 +6,16 @@ import json
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
+from ..renamed_keys import OUTCOME_RENAMES
 from .duration import DurationModel
 from .end_state import END_STATE_OUTCOMES, EndStateModel
 from .reward import RewardModel
 from .serial import FORMAT, file_error
 
+
 __all__ = ["OptionModels", "ModelsMeta", "OUTCOME_KEYS"]
 
-OUTCOME_KEYS = ("stopped", "timed_out", "terminated", "refused")
+OUTCOME_KEYS = ("stopped", "timed_out", "env_ended", "refused")
 
 
 @dataclass(frozen=True)
@@ -74,6 +76,8 @@ class ModelsMeta:
     @classmethod
     def from_json(cls, data: Mapping[str, Any]) -> "ModelsMeta":
         fields = {k: data[k] for k in cls.__dataclass_fields__ if k in data}
+        if isinstance(fields.get("outcomes"), dict):
+            fields["outcomes"] = {OUTCOME_RENAMES.get(k, k): v for k, v in fields["outcomes"].items()}
         return cls(**fields)
 
 
@@ -134,7 +138,7 @@ class OptionModels:
         return self.duration.features.input_names
 
     def outcome_fractions(self) -> dict[str, float]:
-        """Fraction of the episodes offered this skill that stopped / timed out / terminated / were refused."""
+        """Fraction of the episodes offered this skill that stopped / timed out / ended with the env / were refused."""
         total = max(1, sum(self.meta.outcomes.values()))
         return {k: v / total for k, v in self.meta.outcomes.items()}
 

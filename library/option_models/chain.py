@@ -198,7 +198,7 @@ def predict_chain(
     for i, m in enumerate(models):
         reach.append(float(np.mean(reach_w)))
         dur = m.duration.predict(state)
-        steps += reach_w * dur["steps"]
+        steps += reach_w * dur["duration"]
         ret += carry * m.reward.expected_return(state)
         success = reach_w * dur["p_stopped"] * all_stopped
         ends = m.end_states()

@@ -7,6 +7,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..renamed_keys import DURATION_OUTPUT_RENAMES
 from .features import FeatureMap
 from .heads import LinearHead, SoftmaxHead
 from .serial import file_error, pack, unpack
@@ -15,16 +16,16 @@ __all__ = ["DurationModel", "DURATION_OUTPUTS", "OUTCOME_CODES", "OUTCOME_LABELS
 
 # Mirrors kinetome.library.runtime.records.EndReason (a test pins the equality); kept
 # literal here so option models never import the runtime package (and mujoco with it).
-OUTCOME_CODES = {"stopped": 0, "timed_out": 1, "terminated": 2}
+OUTCOME_CODES = {"stopped": 0, "timed_out": 1, "env_ended": 2}
 OUTCOME_LABELS = {v: k for k, v in OUTCOME_CODES.items()}
 
-# steps:            E[k]                          (k env steps the skill ran)
+# duration:         E[k]                          (k env steps the skill ran)
 # discount:         E[gamma^k]                    (discounted duration)
 # stop_discount:    E[gamma^k * 1{stopped}]
 # timeout_discount: E[gamma^k * 1{timed out}]
 # The runtime hands over to the next skill of a chain after a stop or a timeout, so
 # stop_discount + timeout_discount is the discount carried into the next skill.
-DURATION_OUTPUTS = ("steps", "discount", "stop_discount", "timeout_discount")
+DURATION_OUTPUTS = ("duration", "discount", "stop_discount", "timeout_discount")
 
 
 @dataclass(frozen=True, eq=False)
@@ -32,7 +33,7 @@ class DurationModel:
     """How long a skill runs from a start state and how its turn ends.
 
     ``head`` predicts DURATION_OUTPUTS (ridge); ``outcome`` gives the probabilities of
-    stopped / timed_out / terminated (multinomial logistic regression), so the
+    stopped / timed_out / env_ended (multinomial logistic regression), so the
     timeout probability is its ``timed_out`` column. ``errors`` holds the
     held-out errors measured when the model was fitted.
     """
@@ -60,7 +61,7 @@ class DurationModel:
             raise ValueError(f"duration outcome classes must be among {sorted(OUTCOME_LABELS)}, got {unknown}")
 
     def predict(self, start_states: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
-        """name -> (B,): DURATION_OUTPUTS, handoff_discount, p_stopped, p_timed_out, p_terminated."""
+        """name -> (B,): DURATION_OUTPUTS, handoff_discount, p_stopped, p_timed_out, p_env_ended."""
         x = self.features(start_states)
         heads = self.head(x)
         out = {name: heads[:, i] for i, name in enumerate(DURATION_OUTPUTS)}
@@ -72,7 +73,7 @@ class DurationModel:
         out["handoff_discount"] = out["stop_discount"] + out["timeout_discount"]
         return out
 
-    def expected_steps(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
+    def expected_duration(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
         return self.head(self.features(start_states))[:, 0]
 
     def expected_discount(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
@@ -99,10 +100,10 @@ class DurationModel:
             fmap = FeatureMap.from_parts(meta["features"], arrays)
             return cls(
                 fmap,
-                LinearHead.from_parts(meta["outputs"], arrays, "head."),
+                LinearHead.from_parts([DURATION_OUTPUT_RENAMES.get(o, o) for o in meta["outputs"]], arrays, "head."),
                 SoftmaxHead.from_parts(meta["outcome"], arrays, "outcome."),
                 meta["gamma"],
-                dict(meta.get("errors", {})),
+                {DURATION_OUTPUT_RENAMES.get(k, k): v for k, v in dict(meta.get("errors", {})).items()},
             )
         except (KeyError, TypeError, ValueError) as exc:
             raise file_error("duration.safetensors", "", f"does not form a valid duration model: {exc}", "re-export the model") from None

@@ -5,7 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from ..safety import CAUTION
+from ..safety import CAUTION, HANDOVER_NOTE, LIMITS_NOTE
+from ..stored_meta import success_text
 from .html import Report, image_html, table_html
 
 __all__ = ["write_demo_report"]
@@ -71,9 +72,9 @@ def _models_section(report: Report, models: dict[str, dict[str, Any]]) -> None:
 
 def _retrain_section(report: Report, retrain: dict[str, Any]) -> None:
     s = report.section("retrain", "Retraining for a heavier payload")
-    s.text(f"{retrain['parent']} was measured on the heavy-payload variant, retrained for {retrain['steps']} env steps ({retrain['wall_time_s']:.1f} s) and stored as {retrain['child']}.")
-    rows = [{"when": w, **{k: retrain[w][k] for k in ("success_rate", "mean_return", "mean_steps", "episodes")}} for w in ("before", "after")]
-    s.add(table_html(rows, [("when", ""), ("success_rate", "Success rate"), ("mean_return", "Mean return"), ("mean_steps", "Mean steps"), ("episodes", "Episodes")]))
+    s.text(f"{retrain['parent']} was measured on the heavy-payload variant, retrained for {retrain['env_steps']} env steps ({retrain['wall_time_s']:.1f} s) and stored as {retrain['child']}.")
+    rows = [{"when": w, "success": success_text(retrain[w]), **{k: retrain[w][k] for k in ("mean_return", "mean_duration")}} for w in ("before", "after")]
+    s.add(table_html(rows, [("when", ""), ("success", "Success"), ("mean_return", "Mean return"), ("mean_duration", "Mean duration (steps)")]))
     s.text("Lineage: " + " <- ".join(retrain["lineage"]))
     png = Path(retrain["curve_png"])
     if png.exists():
@@ -101,5 +102,8 @@ def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks:
     _models_section(report, summary["models"])
     _retrain_section(report, summary["retrain"])
     _filmstrip_section(report, strips)
-    report.section("safety", "Safety").text(CAUTION)
+    safety = report.section("safety", "Safety")
+    safety.text(CAUTION)
+    safety.text(f"The hand-over skill arm-release holds the arm still so that a person can take the part. {HANDOVER_NOTE}")
+    safety.text(LIMITS_NOTE)
     return report.write(out / "report.html")

@@ -15,13 +15,15 @@ class EndReason(IntEnum):
 
     STOPPED = 0  # stops_when became true
     TIMED_OUT = 1  # max_steps reached first
-    TERMINATED = 2  # the env terminated (the walker fell, ...)
+    ENV_ENDED = 2  # the env ended the episode (gymnasium's `terminated`: the walker fell, ...)
+    TERMINATED = 2  # old name of ENV_ENDED (an alias)
     REFUSED = 3  # the start state was outside starts_when; the skill never ran
     NOT_REACHED = 4  # an earlier skill of the chain did not stop, so this one never started
 
     @property
     def label(self) -> str:
-        return {0: "stopped", 1: "timed_out", 2: "env_terminated", 3: "refused", 4: "not_reached"}[int(self)]
+        """The outcome's name in outputs: stopped, timed_out, env_ended, refused, not_reached."""
+        return {0: "stopped", 1: "timed_out", 2: "env_ended", 3: "refused", 4: "not_reached"}[int(self)]
 
 
 @dataclass(frozen=True, eq=False)

@@ -26,7 +26,7 @@ class LoadedSkill:
     stops_when: Any
     max_steps: int
     parameters: dict[str, np.ndarray]
-    learned_stop: Any = None  # runtime.learned.LearnedStop: a stop head trained in options mode, run as trained
+    learned_stop: Any = None  # runtime.learned.LearnedStop: a stop head trained in settings mode, run as trained
 
     @property
     def name(self) -> str:

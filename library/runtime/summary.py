@@ -1,4 +1,4 @@
-"""Numbers a user reads after a run: success with an exact interval, steps, return, reasons."""
+"""Numbers a user reads after a run: successes with an exact interval, duration, return, outcomes."""
 
 from __future__ import annotations
 
@@ -36,31 +36,33 @@ def limit_exceedances(rollout: ChainRollout, limits_by_segment: list[dict[str, f
 
 
 def summarize_rollout(rollout: ChainRollout, *, confidence: float = 0.95) -> dict[str, Any]:
-    """Success rate with a Clopper-Pearson interval, step quantiles, returns and end reasons."""
+    """Successes with a Clopper-Pearson interval, duration quantiles (steps), returns and outcomes."""
     from ..checker.stats import clopper_pearson
 
     n = rollout.n_episodes
-    success = rollout.success
-    k = int(np.sum(success))
+    k = int(np.sum(rollout.success))
     low, high = clopper_pearson(k, n, confidence)
-    steps = rollout.total_steps.astype(np.float64)
+    duration = rollout.total_steps.astype(np.float64)
     ret = rollout.total_reward
     disc = rollout.segments[0].discounted_return
-    reasons: dict[str, dict[str, int]] = {}
+    outcomes: dict[str, dict[str, int]] = {}
     for seg in rollout.segments:
-        reasons[seg.skill_ref] = {r.label: seg.count(r) for r in EndReason if seg.count(r)}
+        outcomes[seg.skill_ref] = {r.label: seg.count(r) for r in EndReason if seg.count(r)}
     return {
         "env": rollout.env_id,
         "episodes": n,
         "seed": rollout.seed,
-        "success": {"count": k, "rate": k / n if n else float("nan"), "interval": [low, high], "confidence": confidence},
-        "steps": {
-            "mean": float(np.mean(steps)),
-            "p10": float(np.quantile(steps, 0.1)),
-            "p50": float(np.quantile(steps, 0.5)),
-            "p90": float(np.quantile(steps, 0.9)),
-            "max": int(np.max(steps)),
+        "successes": k,
+        "success_rate": k / n if n else float("nan"),
+        "success_interval": [low, high],
+        "confidence": confidence,
+        "duration": {
+            "mean": float(np.mean(duration)),
+            "p10": float(np.quantile(duration, 0.1)),
+            "p50": float(np.quantile(duration, 0.5)),
+            "p90": float(np.quantile(duration, 0.9)),
+            "max": int(np.max(duration)),
         },
         "return": {"mean": float(np.mean(ret)), "std": float(np.std(ret)), "discounted_mean": float(np.mean(disc)), "gamma": rollout.gamma},
-        "end_reasons": reasons,
+        "outcomes": outcomes,
     }

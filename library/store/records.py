@@ -163,3 +163,8 @@ class AddResult:
 
     version: VersionRecord
     created: bool
+
+    @property
+    def is_new(self) -> bool:
+        """Whether this call stored a new version (False: identical content existed)."""
+        return self.created

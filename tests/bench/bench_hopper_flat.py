@@ -45,7 +45,7 @@ def run(seed: int, steps: int, workers: int) -> tuple[float, float, float]:
 
     rig = make_rig("Hopper-v5")
     ctrl = build_controller("mlp", context_from_rig(rig),
-                            options={"inputs": ["qpos", "qvel"], "hidden": [64, 64], "init_seed": seed},
+                            settings={"inputs": ["qpos", "qvel"], "hidden": [64, 64], "init_seed": seed},
                             exploration_std=0.6)
     # Common-practice clipped-surrogate settings for MuJoCo locomotion (2048 samples per update).
     cfg = TrainConfig(env_step_budget=steps, parallel_envs=16, segment_steps=128, update_passes=10, minibatch_size=256, learning_rate=3e-4,

@@ -63,7 +63,7 @@ description: Benchmark only; an untrained two-layer policy.
 env: {env}
 controller:
   kind: mlp
-  options: {{inputs: [qpos, qvel], hidden: [64, 64]}}
+  settings: {{inputs: [qpos, qvel], hidden: [64, 64]}}
 starts_when: norm(qvel) < 1000
 stops_when: {never}
 max_steps: {max_steps}

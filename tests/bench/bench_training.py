@@ -40,7 +40,7 @@ def train_loop(env_id: str, budget: int, workers: int, parallel_envs: int, segme
     from kinetome.trainers import OptionCriticTrainer, TrainConfig, flat_skill
 
     rig = make_rig(env_id)
-    ctrl = build_controller("mlp", context_from_rig(rig), options={"inputs": ["qpos", "qvel"], "hidden": [64, 64]})
+    ctrl = build_controller("mlp", context_from_rig(rig), settings={"inputs": ["qpos", "qvel"], "hidden": [64, 64]})
     cfg = TrainConfig(env_step_budget=budget, parallel_envs=parallel_envs, segment_steps=segment_steps, update_passes=update_passes, minibatch_size=minibatch_size,
                       checkpoint_every=0, seed=0)
     trainer = OptionCriticTrainer([flat_skill(ctrl, max_steps=rig.max_episode_steps)], rig, cfg,

@@ -48,7 +48,7 @@ def test_geometric_option_models_match_closed_forms() -> None:
     start = {"x": np.stack(np.meshgrid(g, g), axis=-1).reshape(-1, 2)}
     dur = models.duration.predict(start)
     assert b * gamma / (1 - (1 - b) * gamma) == pytest.approx(0.908257, abs=5e-7)
-    np.testing.assert_allclose(dur["steps"], 1 / b, rtol=0.01)
+    np.testing.assert_allclose(dur["duration"], 1 / b, rtol=0.01)
     np.testing.assert_allclose(dur["discount"], b * gamma / (1 - (1 - b) * gamma), rtol=0.01)
     np.testing.assert_allclose(dur["stop_discount"], dur["discount"], rtol=1e-12)  # every episode stopped
     assert np.all(dur["timeout_discount"] == 0.0)
@@ -56,7 +56,7 @@ def test_geometric_option_models_match_closed_forms() -> None:
     np.testing.assert_allclose(models.reward.predict(start)["reward"], r / b, rtol=0.01)
     assert np.all(dur["p_timed_out"] == 0.0) and np.all(dur["p_stopped"] == 1.0)
     # k does not depend on the start state: held-out R^2 is ~0 (not a fit failure)
-    assert abs(models.duration.errors["steps"]["r2"]) < 0.01
+    assert abs(models.duration.errors["duration"]["r2"]) < 0.01
     assert models.outcome_fractions()["stopped"] == 1.0
 
 
@@ -153,11 +153,11 @@ def test_refused_and_not_reached_episodes_are_left_out() -> None:
     steps = np.where(reason == 0, 10, 0)
     seg = segment("r@1", {"s": s}, {"y": s}, reason, steps, 1.0, gamma)
     models = fit_option_models(rollout([seg], gamma), features=("s",), fitted_at=STAMP)
-    assert models.meta.outcomes == {"stopped": 320, "timed_out": 0, "terminated": 0, "refused": 50}
+    assert models.meta.outcomes == {"stopped": 320, "timed_out": 0, "env_ended": 0, "refused": 50}
     assert models.meta.episodes == 370
-    np.testing.assert_allclose(models.duration.expected_steps({"s": np.zeros((2, 1))}), 10.0)
-    assert models.duration.errors["steps"]["r2"] is None  # constant target: R^2 undefined, RMSE instead
-    assert models.duration.errors["steps"]["rmse"] < 1e-9
+    np.testing.assert_allclose(models.duration.expected_duration({"s": np.zeros((2, 1))}), 10.0)
+    assert models.duration.errors["duration"]["r2"] is None  # constant target: R^2 undefined, RMSE instead
+    assert models.duration.errors["duration"]["rmse"] < 1e-9
 
 
 def test_fitting_is_deterministic_and_round_trips() -> None:
@@ -181,7 +181,7 @@ def test_rff_expansion_fits_a_nonlinear_duration() -> None:
     seg = segment("nl@1", {"s": s}, {"y": s[:, :2]}, np.zeros(n), steps, 1.0, gamma)
     models = fit_option_models(rollout([seg], gamma), features=("s",), fitted_at=STAMP)
     assert models.duration.features.expansion == "rff"
-    assert models.duration.errors["steps"]["r2"] > 0.7  # the noise-free optimum is 50/(50+1) ~ 0.98
+    assert models.duration.errors["duration"]["r2"] > 0.7  # the noise-free optimum is 50/(50+1) ~ 0.98
 
 
 def test_chain_prediction_from_fitted_models_matches_closed_form() -> None:

@@ -31,7 +31,7 @@ def test_lstd_geometric_option_matches_closed_forms() -> None:
     pred = td.predict(start)
     np.testing.assert_allclose(pred["discount"], b * gamma / (1 - (1 - b) * gamma), rtol=0.01)
     np.testing.assert_allclose(pred["stop_discount"], pred["discount"], rtol=1e-9)
-    np.testing.assert_allclose(pred["steps"], 1 / b, rtol=0.015)
+    np.testing.assert_allclose(pred["duration"], 1 / b, rtol=0.015)
     np.testing.assert_allclose(pred["discounted_return"], r / (1 - gamma * (1 - b)), rtol=0.01)
     np.testing.assert_allclose(pred["p_stopped"], 1.0, rtol=1e-6)
 
@@ -53,7 +53,7 @@ def _exact_option_models(gamma: float) -> dict[str, np.ndarray]:
     eye = np.eye(4)
     r = -0.1 * inner
     return {
-        "steps": np.linalg.solve(eye - q, np.ones(4)),
+        "duration": np.linalg.solve(eye - q, np.ones(4)),
         "discount": np.linalg.solve(eye - gamma * q, gamma * (p[:, 0] + p[:, 5])),
         "stop_discount": np.linalg.solve(eye - gamma * q, gamma * p[:, 5]),
         "p_stopped": np.linalg.solve(eye - q, p[:, 5]),

@@ -69,7 +69,7 @@ def _run_trainer(skills, rig, cfg, *, episode_per_skill):
 
 
 def _mlp_skill(rig):
-    ctrl = build_controller("mlp", context_from_rig(rig), options={"inputs": ["qpos", "qvel"], "hidden": [16]},
+    ctrl = build_controller("mlp", context_from_rig(rig), settings={"inputs": ["qpos", "qvel"], "hidden": [16]},
                             exploration_std=0.5)
     return flat_skill(ctrl, max_steps=rig.max_episode_steps)
 

@@ -16,7 +16,7 @@ def test_inverted_pendulum_reaches_reward_threshold(seed):
 
     threshold = gymnasium.spec("InvertedPendulum-v5").reward_threshold  # 950, gymnasium's registration
     rig = make_rig("InvertedPendulum-v5")
-    ctrl = build_controller("mlp", context_from_rig(rig), options={"inputs": ["qpos", "qvel"], "hidden": [64, 64]},
+    ctrl = build_controller("mlp", context_from_rig(rig), settings={"inputs": ["qpos", "qvel"], "hidden": [64, 64]},
                             exploration_std=1.0)
     cfg = TrainConfig(env_step_budget=BUDGET, parallel_envs=16, segment_steps=128, update_passes=10, minibatch_size=256, learning_rate=3e-4,
                       gamma=0.99, lambda_=0.95, checkpoint_every=0, seed=seed)

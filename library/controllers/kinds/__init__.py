@@ -1,1 +1,1 @@
-"""Torch-free declarations of the built-in controller kinds (options, parameters, inputs)."""
+"""Torch-free declarations of the built-in controller kinds (settings, parameters, inputs)."""

@@ -1,4 +1,4 @@
-"""Declaration of the ``cpg`` kind: its options and parameters, without torch
+"""Declaration of the ``cpg`` kind: its settings and parameters, without torch
 (the torch implementation is ``controllers/cpg.py``)."""
 
 from __future__ import annotations
@@ -32,7 +32,7 @@ class OscillatorGaitKind(ControllerKind):
     """
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
         n = context.n_act
         low, high = context.joint_range()
         return (
@@ -48,5 +48,5 @@ class OscillatorGaitKind(ControllerKind):
         )
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
         return ("qpos", "qvel")

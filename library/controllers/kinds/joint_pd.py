@@ -1,4 +1,4 @@
-"""Declaration of the ``joint_pd`` kind: its options and parameters, without torch
+"""Declaration of the ``joint_pd`` kind: its settings and parameters, without torch
 (the torch implementation is ``controllers/joint_pd.py``)."""
 
 from __future__ import annotations
@@ -49,7 +49,7 @@ class JointPDKind(ControllerKind):
     """
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
         low, high = context.joint_range()
         return (
             ParamDecl("setpoint", (context.n_act,), low, high, None, "joint angle each actuator drives to", "rad",
@@ -59,5 +59,5 @@ class JointPDKind(ControllerKind):
         )
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
         return ("qpos", "qvel")

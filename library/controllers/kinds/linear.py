@@ -1,4 +1,4 @@
-"""Declaration of the ``linear`` kind: its options and parameters, without torch
+"""Declaration of the ``linear`` kind: its settings and parameters, without torch
 (the torch implementation is ``controllers/linear.py``)."""
 
 from __future__ import annotations
@@ -26,23 +26,23 @@ class LinearFeedbackKind(ControllerKind):
     """Linear state feedback: u = gain (s - reference) + bias.
 
     ``s`` is the concatenation of the ``inputs`` quantities, flattened in the
-    order listed (option ``inputs``, default [qpos, qvel]). Use it for
+    order listed (setting ``inputs``, default [qpos, qvel]). Use it for
     balancing and stabilising around an operating point (an LQR gain, a
     hand-tuned full-state feedback) or as a simple trainable policy that stays
     interpretable; ``gain`` is (n_act, n_in).
     """
 
-    OPTIONS = {"inputs": DEFAULT_INPUTS}
+    SETTINGS = {"inputs": DEFAULT_INPUTS}
     @classmethod
-    def _normalise_options(
-        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
+    def _normalise_settings(
+        cls, context: ControllerContext, settings: dict[str, Any], where: str, problems: list[Problem]
     ) -> dict[str, Any]:
-        return {**options, "inputs": normalise_inputs(context, options["inputs"], f"{where}.options.inputs", problems)}
+        return {**settings, "inputs": normalise_inputs(context, settings["inputs"], f"{where}.settings.inputs", problems)}
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
-        n, n_in = context.n_act, input_size(context, options["inputs"])
-        ref_low, ref_high = context.envelope(options["inputs"], REFERENCE_FALLBACK)
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+        n, n_in = context.n_act, input_size(context, settings["inputs"])
+        ref_low, ref_high = context.envelope(settings["inputs"], REFERENCE_FALLBACK)
         return (
             ParamDecl("gain", (n, n_in), -GAIN_MAX, GAIN_MAX, 0.0, "feedback gain, one row per actuator", "ctrl per input unit",
                       shape_help=f"give one row per actuator ({n}) with one column per input value ({n_in})"),
@@ -53,5 +53,5 @@ class LinearFeedbackKind(ControllerKind):
         )
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
-        return tuple(options["inputs"])
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        return tuple(settings["inputs"])

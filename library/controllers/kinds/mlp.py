@@ -1,4 +1,4 @@
-"""Declaration of the ``mlp`` kind: its options and parameters, without torch
+"""Declaration of the ``mlp`` kind: its settings and parameters, without torch
 (the torch implementation is ``controllers/mlp.py``)."""
 
 from __future__ import annotations
@@ -55,41 +55,41 @@ class MLPPolicyKind(ControllerKind):
     s = the ``inputs`` quantities flattened and normalised by ``input_mean`` /
     ``input_std`` (stored, not trained, so a trainer's running normaliser is
     saved with the weights); z = W_L act(... act(W_0 s + b_0)) + b_L; the action
-    is mid + half_range tanh(z), always inside the actuator range. Options:
+    is mid + half_range tanh(z), always inside the actuator range. Settings:
     ``inputs`` (default [qpos, qvel]), ``hidden`` (default [64, 64]),
     ``activation`` (tanh or relu), ``init_seed`` (default 0). Use it when a
     structured kind cannot express the behaviour and the trainer will learn it.
     """
 
-    OPTIONS = {"inputs": DEFAULT_INPUTS, "hidden": (64, 64), "activation": "tanh", "init_seed": 0}
+    SETTINGS = {"inputs": DEFAULT_INPUTS, "hidden": (64, 64), "activation": "tanh", "init_seed": 0}
     @classmethod
-    def _normalise_options(
-        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
+    def _normalise_settings(
+        cls, context: ControllerContext, settings: dict[str, Any], where: str, problems: list[Problem]
     ) -> dict[str, Any]:
-        inputs = normalise_inputs(context, options["inputs"], f"{where}.options.inputs", problems)
-        hidden = options["hidden"]
+        inputs = normalise_inputs(context, settings["inputs"], f"{where}.settings.inputs", problems)
+        hidden = settings["hidden"]
         if (
             isinstance(hidden, str)
             or not isinstance(hidden, (list, tuple))
             or not all(isinstance(h, (int, np.integer)) and not isinstance(h, bool) and 1 <= h <= 4096 for h in hidden)
         ):
-            problems.append(problem(f"{where}.options.hidden", f"must be a list of layer widths in [1, 4096], got {hidden!r}",
+            problems.append(problem(f"{where}.settings.hidden", f"must be a list of layer widths in [1, 4096], got {hidden!r}",
                                     "e.g. [64, 64]; [] gives a single tanh layer"))
-            hidden = cls.OPTIONS["hidden"]
-        activation = options["activation"]
+            hidden = cls.SETTINGS["hidden"]
+        activation = settings["activation"]
         if activation not in ACTIVATION_NAMES:
-            problems.append(problem(f"{where}.options.activation", f"must be one of {', '.join(ACTIVATION_NAMES)}, got {activation!r}",
+            problems.append(problem(f"{where}.settings.activation", f"must be one of {', '.join(ACTIVATION_NAMES)}, got {activation!r}",
                                     "use tanh (the default) or relu"))
-        seed = options["init_seed"]
+        seed = settings["init_seed"]
         if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-            problems.append(problem(f"{where}.options.init_seed", f"must be a non-negative integer, got {seed!r}", "e.g. 0"))
+            problems.append(problem(f"{where}.settings.init_seed", f"must be a non-negative integer, got {seed!r}", "e.g. 0"))
             seed = 0
         return {"inputs": inputs, "hidden": tuple(int(h) for h in hidden), "activation": activation, "init_seed": int(seed)}
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
-        n_in = input_size(context, options["inputs"])
-        init = init_weights(n_in, options["hidden"], context.n_act, options["init_seed"])
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+        n_in = input_size(context, settings["inputs"])
+        init = init_weights(n_in, settings["hidden"], context.n_act, settings["init_seed"])
         decls = [
             ParamDecl("input_mean", (n_in,), -NORMALISER_BOUND, NORMALISER_BOUND, 0.0, "input normaliser: mean",
                       "input units", trainable=False, shape_help=f"give one value per flattened input value ({n_in})"),
@@ -97,7 +97,7 @@ class MLPPolicyKind(ControllerKind):
                       "input units", limit_low=STD_FLOOR, trainable=False,
                       shape_help=f"give one value per flattened input value ({n_in})"),
         ]
-        for i, (fan_out, fan_in) in enumerate(_layer_sizes(n_in, options["hidden"], context.n_act)):
+        for i, (fan_out, fan_in) in enumerate(_layer_sizes(n_in, settings["hidden"], context.n_act)):
             decls.append(ParamDecl(f"w{i}", (fan_out, fan_in), -WEIGHT_BOUND, WEIGHT_BOUND, init[f"w{i}"],
                                    f"layer {i} weights (out, in)", shape_help=f"give a ({fan_out}, {fan_in}) array"))
             decls.append(ParamDecl(f"b{i}", (fan_out,), -WEIGHT_BOUND, WEIGHT_BOUND, init[f"b{i}"],
@@ -105,5 +105,5 @@ class MLPPolicyKind(ControllerKind):
         return tuple(decls)
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
-        return tuple(options["inputs"])
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        return tuple(settings["inputs"])

@@ -1,4 +1,4 @@
-"""Declaration of the ``task_pd`` kind: its options and parameters, without torch
+"""Declaration of the ``task_pd`` kind: its settings and parameters, without torch
 (the torch implementation is ``controllers/task_pd.py``)."""
 
 from __future__ import annotations
@@ -35,13 +35,13 @@ class TaskPDKind(ControllerKind):
     from the runtime (MuJoCo's ``mj_jacSite``).
     """
 
-    OPTIONS = {"site": "fingertip"}
+    SETTINGS = {"site": "fingertip"}
     @classmethod
-    def _normalise_options(
-        cls, context: ControllerContext, options: dict[str, Any], where: str, problems: list[Problem]
+    def _normalise_settings(
+        cls, context: ControllerContext, settings: dict[str, Any], where: str, problems: list[Problem]
     ) -> dict[str, Any]:
-        site = options["site"]
-        field = f"{where}.options.site"
+        site = settings["site"]
+        field = f"{where}.settings.site"
         layout = context.layout
         candidates = [q.name for q in layout if q.shape == (3,) and f"{q.name}_vel" in layout]
         if not isinstance(site, str) or site not in layout:
@@ -50,7 +50,7 @@ class TaskPDKind(ControllerKind):
                 f"must name a 3-vector quantity of the state, got {site!r}",
                 f"{close_match_hint(site, candidates)}quantities with a velocity: {', '.join(candidates) or 'none'}",
             ))
-            return options
+            return settings
         if layout[site].shape != (3,):
             problems.append(problem(field, f"must name a quantity of shape (3,), got {site!r} of shape {layout[site].shape}",
                                     f"quantities with a velocity: {', '.join(candidates) or 'none'}"))
@@ -62,14 +62,14 @@ class TaskPDKind(ControllerKind):
         if context.jacobians is not None and site not in context.jacobians:
             problems.append(problem(field, f"needs the Jacobian '{site}_jac', which the env cannot supply",
                                     f"Jacobians available: {', '.join(context.jacobians) or 'none'}"))
-        return options
+        return settings
 
     @classmethod
-    def _declare(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
+    def _declare(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[ParamDecl, ...]:
         n = context.n_act
-        low, high = context.envelope((options["site"],), WORKSPACE_FALLBACK)
+        low, high = context.envelope((settings["site"],), WORKSPACE_FALLBACK)
         return (
-            ParamDecl("setpoint", (3,), low, high, None, f"world position the {options['site']} is pulled to", "m",
+            ParamDecl("setpoint", (3,), low, high, None, f"world position the {settings['site']} is pulled to", "m",
                       shape_help=PER_AXIS),
             ParamDecl("kp", (3,), 0.0, TASK_KP_MAX, None, "task-space stiffness per world axis", "ctrl/m",
                       limit_low=0.0, shape_help=PER_AXIS),
@@ -81,10 +81,10 @@ class TaskPDKind(ControllerKind):
         )
 
     @classmethod
-    def reads(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
-        site = options["site"]
+    def reads(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        site = settings["site"]
         return (site, f"{site}_vel", "qvel")
 
     @classmethod
-    def requires(cls, context: ControllerContext, options: Mapping[str, Any]) -> tuple[str, ...]:
-        return (f"{options['site']}_jac",)
+    def requires(cls, context: ControllerContext, settings: Mapping[str, Any]) -> tuple[str, ...]:
+        return (f"{settings['site']}_jac",)

@@ -166,5 +166,5 @@ def test_result_json_and_report_folder(tmp_path):
     for p in pngs:
         assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     summary = (tmp_path / "report" / "summary.txt").read_text()
-    assert "Caution: simulation results do not make a controller safe for hardware" in summary
+    assert "Caution: kinetome's results, from simulation and from the solver alike" in " ".join(summary.split())
     assert json.loads((tmp_path / "report" / "result.json").read_text())["chain"]["chain"] == "report"

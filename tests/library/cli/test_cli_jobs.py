@@ -18,7 +18,7 @@ CONFIGS = ROOT / "configs"
 @pytest.fixture(scope="module")
 def store(tmp_path_factory) -> str:
     root = str(tmp_path_factory.mktemp("jobs") / "store")
-    assert main(["--store", root, "add", *map(str, sorted((CONFIGS / "skills").glob("*.yaml")))]) == 0
+    assert main(["--store", root, "register", *map(str, sorted((CONFIGS / "skills").glob("*.yaml")))]) == 0
     return root
 
 
@@ -30,10 +30,11 @@ def _json(capsys, *args: str) -> tuple[int, dict]:
 def test_run_reports_exact_interval(store, capsys) -> None:
     code, s = _json(capsys, "--store", store, "run", "arm-lift", "--episodes", "40", "--json")
     assert code == 0 and s["episodes"] == 40
-    k = s["success"]["count"]
+    k = s["successes"]
     ref = binomtest(k, 40).proportion_ci(confidence_level=0.95, method="exact")  # scipy reference
-    assert s["success"]["interval"] == pytest.approx([ref.low, ref.high], abs=1e-9)
-    assert s["end_reasons"]["arm-lift@1"].get("stopped") == k
+    assert s["success_interval"] == pytest.approx([ref.low, ref.high], abs=1e-9)
+    assert s["outcomes"]["arm-lift@1"].get("stopped") == k and s["success_rate"] == k / 40
+    assert s["schema"] == "kinetome.run/1" and s["caution"].startswith("Caution:")
 
 
 def test_run_flags_declared_limits(store, capsys) -> None:
@@ -41,6 +42,29 @@ def test_run_flags_declared_limits(store, capsys) -> None:
     assert code == 0
     torque = next(r for r in s["limits"] if r["limit"] == "torque")
     assert torque["declared"] == 12.0 and torque["worst"] <= 12.0 + 1e-9  # actions are clipped to ctrlrange
+    assert "standards for that type of machine" in s["caution"]  # the walker is a legged robot
+
+
+def test_run_limits_table_never_reads_like_a_pass(capsys) -> None:
+    from kinetome.library.cli.run_cmds import format_run
+    from kinetome.library.safety import CAUTION
+
+    summary = {
+        "skill": "s@1", "env": "e", "variant": None, "episodes": 8, "successes": 8, "success_rate": 1.0,
+        "success_interval": [0.63, 1.0], "confidence": 0.95, "caution": CAUTION,
+        "duration": {"mean": 5.0, "p10": 5, "p50": 5, "p90": 5, "max": 5},
+        "return": {"mean": 1.0, "std": 0.0, "gamma": 0.99, "discounted_mean": 1.0}, "outcomes": {"s@1": {"stopped": 8}},
+        "limits": [
+            {"skill": "s@1", "limit": "torque", "declared": 12.0, "worst": 11.0, "episodes_over": 0, "episodes": 8},
+            {"skill": "s@1", "limit": "joint_speed", "declared": 1.0, "worst": 2.5, "episodes_over": 3, "episodes": 8},
+        ],
+    }
+    text = format_run(summary)
+    rows = {line.split()[0]: line for line in text.splitlines() if line.startswith(("torque", "joint_speed"))}
+    assert rows["torque"].endswith("not exceeded in 8 simulated episodes")
+    assert rows["joint_speed"].endswith("exceeded in 3 of 8")
+    assert " ok" not in text and "not enforced by kinetome; not a safety function" in text
+    assert text.endswith(CAUTION) and "8/8 = 1.000" in text
 
 
 def test_fit_attaches_models_shown_by_show(store, capsys) -> None:
@@ -69,7 +93,7 @@ def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
     code, r = _json(
         capsys, "--store", store, "retrain", "arm-reach-tray",
         "--variant", str(CONFIGS / "variants" / "heavy_payload.yaml"),
-        "--start", str(CONFIGS / "starts" / "arm_clearance.yaml"),
+        "--initial-states", str(CONFIGS / "starts" / "arm_clearance.yaml"),
         "--config", str(CONFIGS / "training" / "demo_quick.yaml"),
         "--budget", "8192", "--out", str(tmp_path / "rt"), "--json",
     )
@@ -79,7 +103,9 @@ def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
     code, view = _json(capsys, "--store", store, "show", "arm-reach-tray@2", "--json")
     meta = view["meta"]
     assert view["reason"] == "retrained" and view["parent"] == "arm-reach-tray@1"
-    assert meta["variant"]["name"] == "heavy_payload" and meta["seed"] == 0 and meta["steps"] == 8192
+    assert r["schema"] == "kinetome.retrain/1" and r["is_new"] and r["env_steps"] == 8192 and "ISO 12100" in r["caution"]
+    assert r["after"]["successes"] == round(r["after"]["success_rate"] * r["after"]["episodes"])
+    assert meta["variant"]["name"] == "heavy_payload" and meta["seed"] == 0 and meta["env_steps"] == 8192 and meta["method"] == "retrain"
     assert {"metrics_before", "metrics_after", "config"} <= set(meta)
     assert view["models"], "the child's option models are refitted on the variant"
 
@@ -111,11 +137,12 @@ def test_train_options_stores_children_and_reports_durations(store, tmp_path, ca
     config = tmp_path / "options_tiny.yaml"
     config.write_text(text)
     code, r = _json(capsys, "--store", store, "train", str(config), "--out", str(tmp_path / "train"), "--json")
-    assert code == 0 and r["steps"] == 4096
-    assert r["mean_skill_duration"] >= 1.0 and 0.0 <= r["termination_rate"] <= 1.0
+    assert code == 0 and r["env_steps"] == 4096 and r["schema"] == "kinetome.train/1" and r["caution"].startswith("Caution:")
+    assert r["mean_skill_duration"] >= 1.0 and 0.0 <= r["stop_rate"] <= 1.0
     for child in r["children"]:
         code, view = _json(capsys, "--store", store, "show", child, "--json")
         assert view["reason"] == "retrained" and view["parent"].split("@")[0] == child.split("@")[0]
+        assert view["meta"]["method"] == "train" and view["meta"]["variant"] is None and "stop_rate" in view["meta"]
 
 
 def test_old_option_spelling_still_works_with_one_warning() -> None:

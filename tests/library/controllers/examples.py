@@ -41,7 +41,7 @@ class ControllerExample:
     name: str
     kind: str
     parameters: dict[str, Any] = field(default_factory=dict)
-    options: dict[str, Any] = field(default_factory=dict)
+    settings: dict[str, Any] = field(default_factory=dict)
     bounds: dict[str, Any] = field(default_factory=dict)
     exploration_std: Any = 0.2
 
@@ -51,7 +51,7 @@ class ControllerExample:
             context,
             parameters=self.parameters,
             bounds=self.bounds,
-            options=self.options,
+            settings=self.settings,
             exploration_std=self.exploration_std,
         )
 
@@ -64,23 +64,23 @@ EXAMPLES: tuple[ControllerExample, ...] = (
         "task_pd",
         "task_pd",
         {"setpoint": [0.1, 0.2, 0.05], "kp": [10.0, 10.0, 5.0], "kd": [1.0, 1.0, 0.5], "joint_damping": [0.1, 0.2]},
-        options={"site": "fingertip"},
+        settings={"site": "fingertip"},
         bounds={"kp": (0.0, 50.0)},
     ),
     ControllerExample(
         "linear",
         "linear",
         {"gain": _rng.normal(size=(2, 7)).round(3).tolist(), "reference": [0.1, 0.0, -0.1, 0.0, 0.0, 0.0, 0.5]},
-        options={"inputs": ["qpos", "qvel", "torso_height"]},
+        settings={"inputs": ["qpos", "qvel", "torso_height"]},
         exploration_std=[0.1, 0.3],
     ),
     ControllerExample(
         "mlp",
         "mlp",
         {"input_mean": [0.0, 0.1, 0.0, 0.0, 0.0, 0.1, 1.0], "input_std": [1.0, 2.0, 1.0, 0.3, 0.3, 0.3, 0.5]},
-        options={"inputs": ["qpos", "fingertip", "torso_height"], "hidden": [8, 5], "init_seed": 3},
+        settings={"inputs": ["qpos", "fingertip", "torso_height"], "hidden": [8, 5], "init_seed": 3},
     ),
-    ControllerExample("mlp_relu_shallow", "mlp", options={"hidden": [6], "activation": "relu", "init_seed": 1}),
+    ControllerExample("mlp_relu_shallow", "mlp", settings={"hidden": [6], "activation": "relu", "init_seed": 1}),
     ControllerExample(
         "cpg",
         "cpg",

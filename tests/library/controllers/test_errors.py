@@ -21,7 +21,7 @@ from .examples import EXAMPLES, TINY, TINY_LAYOUT, tiny_states
 PD = {"setpoint": [0.0, 0.0], "kp": [1.0, 1.0]}
 TASK = {"setpoint": [0.0, 0.0, 0.1], "kp": [1.0, 1.0, 1.0]}
 
-# (kind, parameters, bounds, options, exploration_std, exact message)
+# (kind, parameters, bounds, settings, exploration_std, exact message)
 BUILD_ERRORS = [
     ("joint_pd", {**PD, "kp": [1.0, 2.0, 3.0]}, None, None, None,
      "controller.parameters.kp must have shape (2,), got (3,); give one value per actuator"),
@@ -60,39 +60,39 @@ BUILD_ERRORS = [
      "controller.kind must name a known controller kind, got 'joint_dp'; did you mean 'joint_pd'? "
      "known kinds: cpg, joint_pd, linear, mlp, task_pd"),
     ("joint_pd", PD, None, {"site": "fingertip"}, None,
-     "controller.options.site is not an option of kind 'joint_pd'; known options: none"),
+     "controller.settings.site is not a setting of kind 'joint_pd'; known settings: none"),
     ("task_pd", TASK, None, {"sitee": "fingertip"}, None,
-     "controller.options.sitee is not an option of kind 'task_pd'; did you mean 'site'? known options: site"),
+     "controller.settings.sitee is not a setting of kind 'task_pd'; did you mean 'site'? known settings: site"),
     ("task_pd", TASK, None, {"site": "fingertipp"}, None,
-     "controller.options.site must name a 3-vector quantity of the state, got 'fingertipp'; "
+     "controller.settings.site must name a 3-vector quantity of the state, got 'fingertipp'; "
      "did you mean 'fingertip'? quantities with a velocity: fingertip"),
     ("task_pd", TASK, None, {"site": "qpos"}, None,
-     "controller.options.site needs the velocity quantity 'qpos_vel', which the state does not have; "
+     "controller.settings.site needs the velocity quantity 'qpos_vel', which the state does not have; "
      "quantities with a velocity: fingertip\n"
-     "controller.options.site needs the Jacobian 'qpos_jac', which the env cannot supply; Jacobians available: fingertip"),
+     "controller.settings.site needs the Jacobian 'qpos_jac', which the env cannot supply; Jacobians available: fingertip"),
     ("task_pd", {**TASK, "kp": [1.0, 1.0]}, None, None, None,
      "controller.parameters.kp must have shape (3,), got (2,); give three values, one per world axis (x, y, z)"),
     ("task_pd", {**TASK, "setpoint": [0.0, 0.0, 1.0]}, None, None, None,
      "controller.parameters.setpoint must lie within its bounds [-0.1, 0.4], got 1 at element 2; "
      "give a value inside the bounds or widen controller.bounds.setpoint"),
     ("linear", {}, None, {"inputs": ["qposs"]}, None,
-     "controller.options.inputs must name quantities of the state, got 'qposs'; did you mean 'qpos'? "
+     "controller.settings.inputs must name quantities of the state, got 'qposs'; did you mean 'qpos'? "
      "known: qpos, qvel, fingertip, fingertip_vel, torso_height"),
     ("linear", {}, None, {"inputs": ["qpos", "qpos"]}, None,
-     "controller.options.inputs must not repeat a quantity, got 'qpos' twice; list each quantity once"),
+     "controller.settings.inputs must not repeat a quantity, got 'qpos' twice; list each quantity once"),
     ("linear", {}, None, {"inputs": "qpos"}, None,
-     "controller.options.inputs must be a non-empty list of named-state quantities, got 'qpos'; "
+     "controller.settings.inputs must be a non-empty list of named-state quantities, got 'qpos'; "
      "e.g. [qpos, qvel]; known: qpos, qvel, fingertip, fingertip_vel, torso_height"),
     ("linear", {"gain": np.zeros((2, 3))}, None, {"inputs": ["qpos", "qvel"]}, None,
      "controller.parameters.gain must have shape (2, 6), got (2, 3); "
      "give one row per actuator (2) with one column per input value (6)"),
     ("mlp", {}, None, {"hidden": [64, 0]}, None,
-     "controller.options.hidden must be a list of layer widths in [1, 4096], got [64, 0]; "
+     "controller.settings.hidden must be a list of layer widths in [1, 4096], got [64, 0]; "
      "e.g. [64, 64]; [] gives a single tanh layer"),
     ("mlp", {}, None, {"activation": "sigmoid"}, None,
-     "controller.options.activation must be one of tanh, relu, got 'sigmoid'; use tanh (the default) or relu"),
+     "controller.settings.activation must be one of tanh, relu, got 'sigmoid'; use tanh (the default) or relu"),
     ("mlp", {}, None, {"init_seed": -3}, None,
-     "controller.options.init_seed must be a non-negative integer, got -3; e.g. 0"),
+     "controller.settings.init_seed must be a non-negative integer, got -3; e.g. 0"),
     ("mlp", {"input_std": [0.0] * 6}, None, None, None,
      "controller.parameters.input_std must lie within its bounds [1e-09, 1e+09], got 0 at element 0; "
      "give a value inside the bounds or widen controller.bounds.input_std"),
@@ -114,11 +114,11 @@ BUILD_ERRORS = [
 
 
 @pytest.mark.parametrize(
-    "kind, parameters, bounds, options, std, message", BUILD_ERRORS, ids=[m.split(";")[0][11:60] for *_, m in BUILD_ERRORS]
+    "kind, parameters, bounds, settings, std, message", BUILD_ERRORS, ids=[m.split(";")[0][11:60] for *_, m in BUILD_ERRORS]
 )
-def test_build_errors_are_pinned(kind, parameters, bounds, options, std, message):
+def test_build_errors_are_pinned(kind, parameters, bounds, settings, std, message):
     with pytest.raises(ControllerError) as info:
-        build_controller(kind, TINY, parameters=parameters, bounds=bounds, options=options, exploration_std=std)
+        build_controller(kind, TINY, parameters=parameters, bounds=bounds, settings=settings, exploration_std=std)
     assert str(info.value) == message
     assert info.value.lines() == message.split("\n")
     assert info.value.problems[0].field == message.split(" ", 1)[0]
@@ -163,7 +163,7 @@ def test_task_pd_refuses_a_site_without_a_jacobian():
     with pytest.raises(ControllerError) as info:
         build_controller("task_pd", ctx, parameters=TASK)
     assert str(info.value) == (
-        "controller.options.site needs the Jacobian 'fingertip_jac', which the env cannot supply; Jacobians available: none"
+        "controller.settings.site needs the Jacobian 'fingertip_jac', which the env cannot supply; Jacobians available: none"
     )
 
 

@@ -62,7 +62,7 @@ def test_linear_matches_formula_and_flattens_in_listed_order():
     gain = rng.normal(size=(2, 7))
     ref = rng.normal(size=7) * 0.1
     c = build_controller("linear", TINY, parameters={"gain": gain, "reference": ref, "bias": [0.2, -0.3]},
-                         options={"inputs": ["qvel", "torso_height", "qpos"]})
+                         settings={"inputs": ["qvel", "torso_height", "qpos"]})
     assert c.inputs == ("qvel", "torso_height", "qpos")
     s = tiny_states(40, seed=14)
     flat = np.concatenate([s["qvel"], s["torso_height"][:, None], s["qpos"]], axis=1)
@@ -72,7 +72,7 @@ def test_linear_matches_formula_and_flattens_in_listed_order():
 
 
 def test_linear_reference_bounds_come_from_the_layout_envelope():
-    c = build_controller("linear", TINY, options={"inputs": ["qpos", "qvel"]})
+    c = build_controller("linear", TINY, settings={"inputs": ["qpos", "qvel"]})
     low, high = c.parameter_bounds()["reference"]
     assert low[:3].tolist() == [-1.0, -2.0, -3.0] and high[:3].tolist() == [1.0, 2.0, 3.0]
     assert low[3:].tolist() == [-1000.0] * 3  # no envelope for qvel: the wide fallback
@@ -90,7 +90,7 @@ def _numpy_mlp(values, s, hidden, activation):
 
 @pytest.mark.parametrize("activation", ["tanh", "relu"])
 def test_mlp_matches_numpy_reference_and_stays_in_range(activation):
-    c = build_controller("mlp", TINY, options={"hidden": [16, 8], "activation": activation, "init_seed": 5})
+    c = build_controller("mlp", TINY, settings={"hidden": [16, 8], "activation": activation, "init_seed": 5})
     with torch.no_grad():  # large weights so the output explores the whole range
         for name, p in c.p.items():
             if name.startswith("w"):
@@ -105,9 +105,9 @@ def test_mlp_matches_numpy_reference_and_stays_in_range(activation):
 
 
 def test_mlp_initialisation_is_deterministic_per_seed():
-    a = build_controller("mlp", TINY, options={"init_seed": 4}).parameter_values()
-    b = build_controller("mlp", TINY, options={"init_seed": 4}).parameter_values()
-    d = build_controller("mlp", TINY, options={"init_seed": 5}).parameter_values()
+    a = build_controller("mlp", TINY, settings={"init_seed": 4}).parameter_values()
+    b = build_controller("mlp", TINY, settings={"init_seed": 4}).parameter_values()
+    d = build_controller("mlp", TINY, settings={"init_seed": 5}).parameter_values()
     assert all(a[k].tobytes() == b[k].tobytes() for k in a)
     assert not np.array_equal(a["w0"], d["w0"])
     init = init_weights(6, (64, 64), 2, 4)
@@ -115,18 +115,18 @@ def test_mlp_initialisation_is_deterministic_per_seed():
     assert a["w0"].shape == (64, 6) and a["w2"].shape == (2, 64) and a["b2"].shape == (2,)
     assert np.all(np.abs(a["w0"]) <= 1 / math.sqrt(6))
     # Small last layer: the initial mean sits near the middle of the action range.
-    out = build_controller("mlp", TINY, options={"init_seed": 4}).mean(tiny_states(30, seed=1), np.zeros(30)).detach().numpy()
+    out = build_controller("mlp", TINY, settings={"init_seed": 4}).mean(tiny_states(30, seed=1), np.zeros(30)).detach().numpy()
     assert np.all(np.abs(out - TINY.action_mid) < 0.1 * TINY.action_half_range)
 
 
 def test_mlp_input_normaliser_is_stored_but_not_trained():
-    c = build_controller("mlp", TINY, options={"hidden": [4]})
+    c = build_controller("mlp", TINY, settings={"hidden": [4]})
     names = {n.split(".")[-1] for n, _ in c.named_parameters()}
     assert "input_mean" not in names and "input_std" not in names
     assert {"input_mean", "input_std"} <= set(c.parameter_values())
     s = tiny_states(5, seed=2)
     shifted = {**s, "qpos": s["qpos"] + 1.0}
-    c2 = build_controller("mlp", TINY, options={"hidden": [4]}, parameters={"input_mean": [1.0, 1.0, 1.0, 0, 0, 0]})
+    c2 = build_controller("mlp", TINY, settings={"hidden": [4]}, parameters={"input_mean": [1.0, 1.0, 1.0, 0, 0, 0]})
     np.testing.assert_array_equal(c2.act(shifted, np.zeros(5)), c.act(s, np.zeros(5)))
 
 
@@ -188,10 +188,10 @@ def test_declarations_depend_on_options_and_context():
 
 
 def test_options_are_resolved_and_read_only():
-    c = build_controller("mlp", TINY, options={"hidden": [3]})
-    assert dict(c.options) == {"inputs": ("qpos", "qvel"), "hidden": (3,), "activation": "tanh", "init_seed": 0}
+    c = build_controller("mlp", TINY, settings={"hidden": [3]})
+    assert dict(c.settings) == {"inputs": ("qpos", "qvel"), "hidden": (3,), "activation": "tanh", "init_seed": 0}
     with pytest.raises(TypeError):
-        c.options["hidden"] = (4,)  # type: ignore[index]
+        c.settings["hidden"] = (4,)  # type: ignore[index]
 
 
 def test_describe_lists_every_parameter():

@@ -80,7 +80,7 @@ def linear_models(
         env_id="kinetome/Test-v0",
         gamma=gamma,
         episodes=100,
-        outcomes={"stopped": 100, "timed_out": 0, "terminated": 0, "refused": 0},
+        outcomes={"stopped": 100, "timed_out": 0, "env_ended": 0, "refused": 0},
         fitted_at="2024-01-01T00:00:00Z",
         features=(name,),
         end_quantities=(name,) if end_m is not None or timeout_m is not None else (),
@@ -95,7 +95,7 @@ def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool 
     fmap = identity_map(dim=dim, expansion=expansion, rng=rng)
     p = fmap.n_features
     fmap = FeatureMap(fmap.quantities, fmap.shapes, rng.normal(size=dim), rng.uniform(0.5, 2, dim), expansion, fmap.rff_weights, fmap.rff_phase)
-    errors = {"steps": {"r2": 0.5, "rmse": 1.25, "n": 10}, "discount": {"r2": None, "rmse": 0.0, "n": 10, "note": "constant"}}
+    errors = {"duration": {"r2": 0.5, "rmse": 1.25, "n": 10}, "discount": {"r2": None, "rmse": 0.0, "n": 10, "note": "constant"}}
     duration = DurationModel(
         fmap,
         LinearHead(DURATION_OUTPUTS, rng.normal(size=(p, 4)), rng.normal(size=4), np.array([1.0, 0, 0, 0]), np.array([50.0, 1, 1, 1])),
@@ -125,7 +125,7 @@ def random_models(seed: int, *, expansion: str = "linear", with_end_state: bool 
         )
     meta = ModelsMeta(
         skill_ref="reach@3", env_id="kinetome/Test-v0", gamma=0.97, episodes=120,
-        outcomes={"stopped": 80, "timed_out": 20, "terminated": 10, "refused": 10},
+        outcomes={"stopped": 80, "timed_out": 20, "env_ended": 10, "refused": 10},
         fitted_at="2024-05-06T07:08:09Z", features=("x",), end_quantities=("y", "h") if with_end_state or with_timed_out else (),
         variant="heavy", variant_digest="ab" * 32, seed=seed,
     )

@@ -26,7 +26,7 @@ from kinetome.library.runtime.records import EndReason
 
 def test_outcome_codes_mirror_end_reason() -> None:
     # option_models keeps literal codes to avoid importing the runtime; they must agree.
-    assert OUTCOME_CODES == {"stopped": int(EndReason.STOPPED), "timed_out": int(EndReason.TIMED_OUT), "terminated": int(EndReason.TERMINATED)}
+    assert OUTCOME_CODES == {"stopped": int(EndReason.STOPPED), "timed_out": int(EndReason.TIMED_OUT), "env_ended": int(EndReason.ENV_ENDED)}
 
 
 def test_poly2_features_are_inputs_and_pairwise_products() -> None:
