@@ -212,7 +212,26 @@ def _train_config(config: str | Path | None, overrides: dict[str, Any]) -> Any:
         base = load_train_config(config)
     import dataclasses
 
-    return dataclasses.replace(base, **{k: v for k, v in overrides.items() if v is not None})
+    given = {k: v for k, v in overrides.items() if v is not None}
+    try:
+        return dataclasses.replace(base, **given)
+    except ValueError as exc:  # the config's own checks: say which option carried the bad value
+        from .errors import InvalidInputError
+
+        options = {"env_step_budget": "--budget", "deliberation_cost": "--deliberation-cost"}
+        named = ", ".join(f"{options.get(k, k)} {v}" for k, v in given.items())
+        raise InvalidInputError(f"{exc} (from {named})") from None
+
+
+def _budget_note(cfg: Any) -> str | None:
+    """How the budget was rounded: training runs whole batches of parallel_envs x segment_steps env steps."""
+    batch, budget = cfg.batch_size, cfg.env_step_budget
+    if budget % batch == 0:
+        return None
+    return (
+        f"budget {budget:,} env steps rounded up to {cfg.updates * batch:,}: training runs whole batches of "
+        f"parallel_envs x segment_steps = {cfg.parallel_envs} x {cfg.segment_steps} = {batch:,} env steps"
+    )
 
 
 @renamed_arguments({"start": "initial_states", "out_dir": "out", "steps": "env_step_budget"})
@@ -232,8 +251,14 @@ def retrain(
     resume: bool = False,
     refit_episodes: int = 200,
     progress: Any = None,
+    on_run: Any = None,
 ) -> dict[str, Any]:
     """Retrain a stored skill on a task variant and store the child version with its evidence.
+
+    Output goes to ``out``, else to a new ``kinetome-retrain/<name>-<N>/<variant>/run-<K>``
+    (``resume`` without ``out`` continues the newest interrupted run of this parent,
+    variant and store; see ``retrain_runs``). ``on_run(run, budget_note)`` is called
+    once the folder is chosen, before training.
 
     Measures the parent on the variant, trains, measures again, registers
     ``name@N+1`` (reason ``retrained``, method ``retrain``; lineage: parent,
@@ -243,6 +268,7 @@ def retrain(
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.retrain import refuse_deliberation_cost, retrain_skill
 
+    from .retrain_runs import explicit_run, find_run_to_resume, mark_finished, new_run
     from .runtime.skill import PARAMS_FILE, SPEC_FILE
     from .safety import caution_for
     from .spec import canonical_json, skill_to_document
@@ -254,8 +280,15 @@ def retrain(
     parent = load(ref, store=store)
     task_variant = load_variant_file(variant)
     rig = task_rig(parent.skill.env, task_variant)
-    folder = Path(out) if out is not None else Path("kinetome-retrain") / parent.ref.replace("@", "-")
-    folder.mkdir(parents=True, exist_ok=True)
+    if out is not None:
+        run = explicit_run(out, resume=resume)
+    elif resume:
+        run = find_run_to_resume(parent.ref, variant, store_root=store.root)
+    else:
+        run = new_run(parent.ref, variant, store_root=store.root, seed=seed)
+    folder = run.folder
+    if on_run is not None:
+        on_run(run, _budget_note(cfg))
     result = retrain_skill(
         parent,
         rig,
@@ -264,8 +297,8 @@ def retrain(
         seed=seed,
         workers=workers,
         progress=progress,
-        checkpoint_dir=folder / "checkpoints",
-        resume=resume,
+        checkpoint_dir=run.checkpoint_dir,
+        resume=run.resumed,
         from_scratch=from_scratch,
     )
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
@@ -288,6 +321,7 @@ def retrain(
     })
     added = store.add(parent.skill.name, files, parent=parent.ref, reason="retrained", meta=meta)
     child = added.version.ref
+    mark_finished(run, child)
     fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, workers=workers) if refit_episodes else None
     return tagged("retrain", {
         "parent": parent.ref,
@@ -303,6 +337,9 @@ def retrain(
         "models": fitted,
         "lineage": [v.ref for v in store.lineage(child)],
         "caution": caution_for(rig),
+        "run_folder": str(folder),
+        "resumed": run.resumed,
+        "budget_note": _budget_note(cfg),
     })
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from typing import Any
 
 from .old_spellings import add_old_option
@@ -36,8 +37,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
     p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
     p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
-    p.add_argument("--out", metavar="DIR", help="where curves and checkpoints go (default ./kinetome-retrain/NAME-N)")
-    p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out after an interruption")
+    p.add_argument("--out", metavar="DIR", help="folder for the curve and checkpoints (default: a new ./kinetome-retrain/NAME-N/VARIANT/run-K per run)")
+    p.add_argument("--resume", action="store_true", help="continue an interrupted run: the one in --out, else the newest unfinished run of this skill, variant and store (named before training)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_retrain)
 
@@ -71,6 +72,13 @@ def _metrics_row(label: str, m: dict[str, Any]) -> dict[str, Any]:
     return {"when": label, "success": success_text(m), "return": m["mean_return"], "duration": m["mean_duration"]}
 
 
+def _say_run(run: Any, budget_note: str | None) -> None:
+    """Name the run folder (and what is resumed) before training starts."""
+    print(f"{'resuming' if run.resumed else 'writing to'} {run.folder}", file=sys.stderr)
+    if budget_note:
+        print(f"note: {budget_note}", file=sys.stderr)
+
+
 def _retrain(args: argparse.Namespace) -> int:
     from ..api import open_store, retrain
 
@@ -89,6 +97,7 @@ def _retrain(args: argparse.Namespace) -> int:
         out=args.out,
         resume=args.resume,
         progress=on_update,
+        on_run=_say_run if not args.json else None,
     )
     bar.close()
     if args.json:
