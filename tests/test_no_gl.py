@@ -63,7 +63,7 @@ def test_demo_register_and_check_without_any_gl(tmp_path: Path) -> None:
 
     store = tmp_path / "store"
     skills = [str(ROOT / "configs" / "skills" / f) for f in ("arm-lift.yaml", "walker-walk.yaml")]
-    registered = _kinetome(tmp_path, "add", *skills, "--store", str(store))
+    registered = _kinetome(tmp_path, "register", *skills, "--store", str(store))
     assert _gl_modules(registered) == []
     chain = ROOT / "configs" / "chains" / "arm-lift-reach-place.yaml"
     checked = _kinetome(tmp_path, "check", str(chain), "--store", str(out / "store"), "--episodes", "20")

@@ -6,6 +6,8 @@ import os
 import tempfile
 from pathlib import Path
 
+from kinetome.library.file_modes import apply_umask
+
 __all__ = ["write_atomic"]
 
 
@@ -15,6 +17,7 @@ def write_atomic(path: Path, data: bytes) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        apply_umask(fd)  # mkstemp makes 0600; the file gets the user's umask like any other
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

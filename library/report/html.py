@@ -116,9 +116,12 @@ class Report:
         import os
         import tempfile
 
+        from ..file_modes import apply_umask
+
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".report-", suffix=".tmp")
+        apply_umask(fd)  # mkstemp makes 0600: readable by teammates like any file the user writes
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(self.render())
         os.replace(tmp, path)

@@ -9,6 +9,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from kinetome.library.errors import StoreIntegrityError
+from kinetome.library.file_modes import apply_umask
 
 __all__ = ["BlobDir", "sha256_bytes", "hash_file"]
 
@@ -76,6 +77,7 @@ class BlobDir:
             return digest
         fd, tmp_name = tempfile.mkstemp(prefix="blob-", dir=self.tmp)
         try:
+            apply_umask(fd)  # a shared store stays readable by the group the umask allows
             with os.fdopen(fd, "wb") as f:
                 f.write(data)
                 f.flush()

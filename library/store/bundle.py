@@ -19,6 +19,7 @@ import zlib
 from pathlib import Path
 
 from kinetome.library.errors import BundleError, InvalidInputError
+from kinetome.library.file_modes import apply_umask
 from kinetome.library.store import index
 from kinetome.library.store.manifest import MANIFEST_NAME, BundleVersion, Manifest, build_manifest, parse_manifest
 from kinetome.library.store.metadata import canonical_meta
@@ -93,6 +94,7 @@ def export_bundle(
         compress = target.name.endswith((".gz", ".tgz"))
     fd, tmp_name = tempfile.mkstemp(prefix=".kinetome-bundle-", dir=target.parent)
     try:
+        apply_umask(fd)
         with os.fdopen(fd, "wb") as raw:
             sink = gzip.GzipFile(filename="", mode="wb", fileobj=raw, mtime=0) if compress else raw
             with tarfile.open(fileobj=sink, mode="w", format=tarfile.PAX_FORMAT) as tar:

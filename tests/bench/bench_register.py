@@ -1,15 +1,15 @@
-"""Benchmark: whole-process `kinetome add` of a PD spec against `python -c "import numpy, yaml, mujoco"`.
+"""Benchmark: whole-process `kinetome register` of a PD spec against `python -c "import numpy, yaml, mujoco"`.
 
 Run by hand (not collected by pytest):
 
     python tests/bench/bench_register.py [--runs 9] [--spec configs/skills/arm-lift.yaml]
 
 Each round runs, as whole processes and interleaved so machine load hits both alike,
-(a) `kinetome add SPEC --store <new empty folder>` (the console script beside this
+(a) `kinetome register SPEC --store <new empty folder>` (the console script beside this
 Python) and (b) the baseline `python -c "import numpy, yaml, mujoco"`. One warm-up
 round first writes the bytecode caches (PYTHONDONTWRITEBYTECODE is dropped from the
 children's environment, as on a user's machine). Target: median(a) <= 2 x median(b).
-Also reports whether the add process imported torch (it must not for PD and CPG specs).
+Also reports whether the register process imported torch (it must not for PD and CPG specs).
 Prints a markdown table.
 """
 
@@ -54,13 +54,13 @@ def main() -> None:
     adds, bases = [], []
     try:
         for i in range(args.runs + 1):
-            add = _timed([*_kinetome(), "add", args.spec, "--store", str(work / f"store{i}")], env)
+            add = _timed([*_kinetome(), "register", args.spec, "--store", str(work / f"store{i}")], env)
             base = _timed(BASELINE, env)
             if i:  # round 0 warms the bytecode caches
                 adds.append(add)
                 bases.append(base)
         probe = subprocess.run(
-            [sys.executable, "-c", TORCH_PROBE, "add", args.spec, "--store", str(work / "probe")],
+            [sys.executable, "-c", TORCH_PROBE, "register", args.spec, "--store", str(work / "probe")],
             env=env, capture_output=True, text=True, check=True,
         )
     finally:
@@ -70,7 +70,7 @@ def main() -> None:
     print(f"| command | median s ({args.runs} runs) | ratio to baseline | target |")
     print("| --- | --- | --- | --- |")
     print(f"| `python -c \"import numpy, yaml, mujoco\"` | {b:.3f} | 1.00 | |")
-    print(f"| `kinetome add {Path(args.spec).name}` | {a:.3f} | {a / b:.2f} | <= 2x {'met' if a <= 2 * b else 'MISSED'} |")
+    print(f"| `kinetome register {Path(args.spec).name}` | {a:.3f} | {a / b:.2f} | <= 2x {'met' if a <= 2 * b else 'MISSED'} |")
     print(f"\ntorch imported by add: {torch_loaded}")
 
 

@@ -74,7 +74,7 @@ def test_cli_retrains_in_two_stores_and_resumes_after_a_kill(tmp_path: Path) -> 
     config = tmp_path / "small.yaml"
     config.write_text("env_step_budget: 16384\nparallel_envs: 32\nsegment_steps: 64\ncheckpoint_every: 1\neval_episodes: 16\n")
     for store in ("s1", "s2"):
-        _cli("add", spec, "--store", store, cwd=tmp_path)
+        _cli("register", spec, "--store", store, cwd=tmp_path)
     for store in ("s1", "s2"):  # the second run must not trip over the first run's checkpoint
         done = _cli("retrain", "arm-lift", "--variant", str(VARIANT), "--config", str(config), "--budget", "2048",
                     "--store", store, "--quiet", cwd=tmp_path)

@@ -85,7 +85,7 @@ def test_cli_refuses_a_bomb_with_exit_2(tmp_path: Path) -> None:
     path = tmp_path / "bomb.yaml"
     path.write_text(BOMB)
     done = subprocess.run(
-        [sys.executable, "-m", "kinetome.library.cli.main", "add", str(path), "--store", str(tmp_path / "s")],
+        [sys.executable, "-m", "kinetome.library.cli.main", "register", str(path), "--store", str(tmp_path / "s")],
         capture_output=True, text=True, timeout=60, check=False,
     )
     assert done.returncode == 2, done.stderr

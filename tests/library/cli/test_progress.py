@@ -68,7 +68,7 @@ def test_quiet_writes_nothing_anywhere() -> None:
 def _run_cli(tmp_path: Path, *extra: str) -> subprocess.CompletedProcess:
     store = tmp_path / "store"
     exe = [sys.executable, "-m", "kinetome.library.cli.main"]
-    subprocess.run([*exe, "add", str(ROOT / "configs/skills/arm-lift.yaml"), "--store", str(store)], check=True, capture_output=True)
+    subprocess.run([*exe, "register", str(ROOT / "configs/skills/arm-lift.yaml"), "--store", str(store)], check=True, capture_output=True)
     return subprocess.run([*exe, "run", "arm-lift", "--episodes", "20", "--store", str(store), *extra],
                           capture_output=True, text=True, timeout=300, check=True)
 

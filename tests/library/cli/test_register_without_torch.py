@@ -40,7 +40,7 @@ def test_spec_files_equal_the_torch_built_ones(spec: Path) -> None:
 
 def test_register_of_pd_and_cpg_specs_imports_no_torch(tmp_path: Path) -> None:
     pd, cpg = ROOT / "configs/skills/arm-lift.yaml", ROOT / "configs/skills/walker-walk.yaml"
-    rc, heavy, err = _run("add", str(pd), str(cpg), "--store", str(tmp_path / "s"))
+    rc, heavy, err = _run("register", str(pd), str(cpg), "--store", str(tmp_path / "s"))
     assert rc == 0, err
     assert heavy == []
 
@@ -49,7 +49,7 @@ def test_semantic_errors_import_no_torch(tmp_path: Path) -> None:
     text = (ROOT / "configs/skills/arm-lift.yaml").read_text().replace("kp: [30.0, 20.0, 6.0]", "kp: [30.0, 20.0]")
     bad = tmp_path / "bad.yaml"
     bad.write_text(text)
-    rc, heavy, err = _run("add", str(bad), "--store", str(tmp_path / "s"))
+    rc, heavy, err = _run("register", str(bad), "--store", str(tmp_path / "s"))
     assert rc == 2 and "controller.parameters.kp: must have shape (3,), got (2,)" in err
     assert heavy == []
 
