@@ -33,6 +33,7 @@ __all__ = [
     "spec_version_files",
     "version_files",
     "RETRAIN_DEFAULTS",
+    "resolve",
 ]
 
 
@@ -65,11 +66,13 @@ def spec_version_files(skill: Any) -> dict[str, bytes]:
 
 
 def register(spec_path: str | Path, *, store: Any) -> Any:
-    """Validate ``spec_path`` and store it as a version (lineage reason ``registered``).
+    """Validate ``spec_path`` and store it as a version that is current for the nominal task.
 
-    Returns the store's ``AddResult``: ``.version`` and ``.is_new`` (False when
-    identical content was stored before; that version is returned). Structured
-    controller kinds never import torch here.
+    The first version of a name is ``registered``; a changed spec under an existing name is
+    ``revised`` with the nominal current version as parent. Returns the store's
+    ``AddResult``: ``.version`` and ``.is_new`` (False when identical content was stored
+    before; that version is returned and nothing changes). Structured controller kinds
+    never import torch here.
     """
     from .spec_load import load_spec
 
@@ -81,7 +84,13 @@ def register(spec_path: str | Path, *, store: Any) -> Any:
         "tags": list(skill.tags),
         "source_file": Path(spec_path).name,
     }
-    return store.add(skill.name, spec_version_files(skill), parent=None, reason="registered", meta=meta)
+    return store.register(skill.name, spec_version_files(skill), meta=meta)
+
+
+def resolve(ref: str, *, store: Any, variant: Any = None) -> str:
+    """The pinned ``name@N`` a reference means on a task: a bare name is the current version
+    for ``variant`` (a TaskVariant, or None for nominal), else the current one for nominal."""
+    return store.get(ref, task=getattr(variant, "name", None)).ref
 
 
 def register_skill(spec_path: str | Path, *, store: Any) -> Any:
@@ -127,8 +136,9 @@ def run(
         from .errors import InvalidInputError
 
         raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
-    loaded = load(ref, store=store)
-    rig = task_rig(loaded.skill.env, load_variant_file(variant))
+    task_variant = load_variant_file(variant)
+    loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
+    rig = task_rig(loaded.skill.env, task_variant)
     qpos, qvel = sample_initial_states(rig, load_start_file(initial_states), episodes, seed=seed)
     rollout = run_skill(loaded, rig, starts=(qpos, qvel), seed=seed, workers=workers, progress=progress)
     summary = summarize_rollout(rollout, confidence=confidence)
@@ -165,8 +175,9 @@ def fit(
         from .errors import InvalidInputError
 
         raise InvalidInputError(f"--episodes must be >= 20 so that enough episodes run for a held-out split, got {episodes}")
-    loaded = load(ref, store=store)
-    rig = task_rig(loaded.skill.env, load_variant_file(variant))
+    task_variant = load_variant_file(variant)
+    loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
+    rig = task_rig(loaded.skill.env, task_variant)
     models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(initial_states), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}

@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InvalidInputError, KinetomeError, Problem
+from ..store.names import REF_PATTERN
 from ..yaml_source import YamlDocument, load_yaml_file, load_yaml_text
 
 __all__ = [
@@ -45,7 +46,7 @@ CHAIN_FIELDS = (
 )
 _REQUIRED = ("chain", "env", "steps")
 _NAME_RE = re.compile(r"[a-z0-9][a-z0-9_-]{0,63}")
-_REF_RE = re.compile(r"(?P<name>[a-z0-9][a-z0-9_-]{0,63})(@(?P<number>[1-9][0-9]{0,17}))?")
+_REF_RE = re.compile(REF_PATTERN)  # name, name@N or name@id:HEX (a content identity pin)
 _FIXES = {
     "chain": "name the chain with lowercase letters, digits, '-' or '_', e.g. arm-pick-to-tray",
     "env": "name a registered env, e.g. kinetome/BenchArm-v0",
@@ -142,7 +143,7 @@ def _value_problems(c: Chain) -> list[Problem]:
             out.append(
                 c.problem(
                     f"steps[{i}]",
-                    f"must be a skill name, name@N (N >= 1) or a spec file ending in .yaml, got {step!r}",
+                    f"must be a skill name, name@N (N >= 1), name@id:HEX (an identity) or a spec file ending in .yaml, got {step!r}",
                     "write e.g. arm-lift@1",
                 )
             )

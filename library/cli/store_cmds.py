@@ -36,7 +36,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     _register_parser(sub.add_parser("register", parents=[common], help="store skills from YAML spec files as versions"), _register)
     _register_parser(sub.add_parser("add", parents=[common]), _add_old_name)  # old name, hidden
 
-    p = sub.add_parser("list", parents=[common], help="list stored skills and their current versions")
+    p = sub.add_parser("list", parents=[common], help="list stored skills with their current (nominal) and newest versions")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_list)
 
@@ -77,6 +77,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
 
     p = sub.add_parser("import", parents=[common], help="import a bundle (refuses unsafe or damaged archives)")
     p.add_argument("bundle", metavar="FILE", help="bundle written by kinetome export")
+    p.add_argument("--renumber", action="store_true", help="store versions whose number is taken here under the next free number (identity and origin stay)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_import)
 
@@ -121,7 +122,8 @@ def _list(args: argparse.Namespace) -> int:
     rows = [
         {
             "name": s.name,
-            "current": s.latest_ref,
+            "current": s.current_ref,
+            "newest": s.latest_ref,
             "versions": s.count,
             "env": s.env,
             "updated_at": s.latest_created_at,
@@ -135,7 +137,7 @@ def _list(args: argparse.Namespace) -> int:
         print(f"no skills in {store.root}; register one with: kinetome register SPEC.yaml")
     else:
         table = [{**r, "updated_at": _when(r["updated_at"]), "description": r["description"][:60]} for r in rows]
-        print_table(table, [("name", "NAME"), ("current", "CURRENT"), ("versions", "VERSIONS"), ("env", "ENV"), ("updated_at", "UPDATED (UTC)"), ("description", "DESCRIPTION")])
+        print_table(table, [("name", "NAME"), ("current", "CURRENT"), ("newest", "NEWEST"), ("versions", "VERSIONS"), ("env", "ENV"), ("updated_at", "UPDATED (UTC)"), ("description", "DESCRIPTION")])
     return 0
 
 
@@ -155,18 +157,25 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
     v = store.get(ref)
     spec, _ = rename_keys(json.loads(store.read_file(v, SPEC_FILE).decode("utf-8")), SPEC_RENAMES, source=f"{v.ref} spec", warn=False)
     params = _read_params(store.read_file(v, PARAMS_FILE)) if PARAMS_FILE in v.roles else {}
-    models = []
-    for m in store.models(v.ref):
+    models, artifacts = [], []
+    for m in store.artifacts(v.ref):
         meta = m.meta
-        models.append({"ref": m.ref, "kind": m.kind, "revision": m.revision, "created_at": m.created_at, "errors": _current_errors(meta.get("errors", {})), "episodes": meta.get("episodes")})
+        artifacts.append({"ref": m.ref, "kind": m.kind, "revision": m.revision, "created_at": m.created_at, "digest": m.digest, "task": m.task, "settings": m.settings, "software": m.software})
+        if m.kind == "option-models":
+            models.append({"ref": m.ref, "kind": m.kind, "revision": m.revision, "created_at": m.created_at, "errors": _current_errors(meta.get("errors", {})), "episodes": meta.get("episodes")})
     return {
         "ref": v.ref,
         "name": v.name,
         "number": v.number,
+        "identity": v.identity,
         "created_at": v.created_at,
         "reason": v.reason,
         "parent": v.parent,
+        "parent_identity": v.parent_identity,
+        "origin": v.origin,
+        "current_for": store.current_tasks(v.ref),
         "meta": current_meta(v.meta),
+        "artifacts": artifacts,
         "spec": spec,
         "parameters": params,
         "files": [{"role": f.role, "digest": f.digest, "size": f.size} for f in v.files],
@@ -214,6 +223,8 @@ def _show(args: argparse.Namespace) -> int:
     c = spec["controller"]
     lines = [
         f"{view['ref']}  ({view['reason']}{', from ' + view['parent'] if view['parent'] else ''}, {_when(view['created_at'])} UTC)",
+        f"  identity     {view['identity']}",
+        f"  current for  {', '.join(view['current_for']) or '-'}",
         f"  description  {spec.get('description') or '-'}",
         f"  env          {spec['env']}",
         f"  controller   {c['kind']}  settings {_fmt_value(c.get('settings', {}))}",
@@ -226,6 +237,9 @@ def _show(args: argparse.Namespace) -> int:
     if spec.get("tags"):
         lines.append(f"  tags         {', '.join(spec['tags'])}")
     lines.append(f"  lineage      {' <- '.join(view['lineage'])}")
+    if view["origin"]:
+        lines.append(f"  origin       {view['origin'].get('ref') or '?'} in store {view['origin'].get('store') or '(unknown)'}")
+    lines.append(f"  pin          {view['name']}@id:{view['identity'][:16]} (the same version in every store)")
     meta = view["meta"]
     for key in ("method", "variant", "seed", "env_steps"):
         if key in meta:
@@ -255,32 +269,25 @@ def _show(args: argparse.Namespace) -> int:
 
 
 def _lineage(args: argparse.Namespace) -> int:
-    from ..stored_meta import current_meta, success_text
+    from ..lineage.view import lineage_view
 
     store = _open_store(args)
-    rows = []
-    for v in store.history(args.name):
-        meta = current_meta(v.meta)
-        after = meta.get("metrics_after") or {}
-        rows.append(
-            {
-                "ref": v.ref,
-                "reason": v.reason,
-                "method": meta.get("method"),
-                "parent": v.parent,
-                "created_at": v.created_at,
-                "variant": (meta.get("variant") or {}).get("name") or (meta.get("variant") or {}).get("file"),
-                "successes": after.get("successes"),
-                "episodes": after.get("episodes"),
-                "success_rate": after.get("success_rate"),
-                "success_text": success_text(after),
-            }
-        )
+    view = lineage_view(store, args.name)
     if args.json:
-        print_json(tagged("lineage", {"name": args.name, "versions": [{k: v for k, v in r.items() if k != "success_text"} for r in rows]}))
+        print_json(tagged("lineage", view))
+        return 0
+    rows = [
+        {**v, "identity": v["identity"][:12], "created_at": _when(v["created_at"]), "current_for": ", ".join(v["current_for"]) or None}
+        for v in view["versions"]
+    ]
+    print_table(rows, [("ref", "VERSION"), ("identity", "IDENTITY"), ("reason", "REASON"), ("method", "METHOD"), ("parent", "PARENT"), ("created_at", "CREATED (UTC)"), ("task", "TASK"), ("success_on_task", "SUCCESS ON TASK"), ("current_for", "CURRENT FOR")])
+    print("\ncurrent versions")
+    if view["current"]:
+        print_table(view["current"], [("task", "TASK"), ("version", "VERSION"), ("why", "WHY")])
     else:
-        table = [{**r, "created_at": _when(r["created_at"])} for r in rows]
-        print_table(table, [("ref", "VERSION"), ("reason", "REASON"), ("method", "METHOD"), ("parent", "PARENT"), ("created_at", "CREATED (UTC)"), ("variant", "VARIANT"), ("success_text", "SUCCESS AFTER")])
+        print(f"  none set: unpinned references resolve to the newest version; set one with kinetome promote {args.name}@N")
+    if len(view["changes"]) > len(view["current"]):
+        print(f"\n{len(view['changes'])} changes of current versions; see them with --json (changes)")
     return 0
 
 
@@ -350,22 +357,24 @@ def _import(args: argparse.Namespace) -> int:
     from ..store import import_bundle
 
     store = _open_store(args)
-    versions = import_bundle(store, args.bundle)
+    report = import_bundle(store, args.bundle, renumber=args.renumber)
     notice = _bundle_notice(args.bundle)
     if args.json:
-        imported = [{"ref": v.ref, "imported_from": _origin(v.meta)} for v in versions]
-        print_json(tagged("import", {"versions": imported, "notice": notice}))
-    else:
-        for v in versions:
-            print(f"imported {v.ref} (originally {_origin(v.meta) or '?'})")
-        if notice:
-            print(f"Notice from the bundle: {notice}")
+        versions = [{"ref": v.ref, "identity": v.identity, "origin": v.origin, "is_new": v.ref in report.added} for v in report.versions]
+        print_json(tagged("import", {"versions": versions, "current_set": list(report.currents_set), "root_identity": report.root_identity, "warnings": list(report.warnings), "notice": notice}))
+        return 0
+    for warning in report.warnings:
+        print(f"warning: {warning}")
+    for v in report.versions:
+        word = "imported" if v.ref in report.added else "already here"
+        origin = (v.origin or {}).get("ref")
+        moved = f" (originally {origin})" if origin and origin != v.ref else ""
+        print(f"{word:<12} {v.ref}{moved}  identity {v.identity[:16]}")
+    for text in report.currents_set:
+        print(f"current      {text}")
+    if notice:
+        print(f"Notice from the bundle: {notice}")
     return 0
-
-
-def _origin(meta: dict[str, Any]) -> str | None:
-    origin = meta.get("imported_from")
-    return origin.get("ref") if isinstance(origin, dict) else meta.get("original_ref")
 
 
 def _bundle_notice(path: str) -> str | None:

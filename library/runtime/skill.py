@@ -66,10 +66,12 @@ def skill_from_spec(skill: Skill, *, ref: str | None = None, rig: Any = None, pa
 
 
 def load_skill(store: Any, ref: str, *, rig: Any = None) -> LoadedSkill:
-    """Load a stored version ``name@N`` (or the latest of ``name``)."""
+    """Load a stored version ``name@N`` / ``name@id:HEX``; a bare ``name`` resolves to its
+    current version for the rig's task variant (else for nominal)."""
     from ..controllers import load_parameters
 
-    version = store.get(ref)
+    variant = getattr(rig, "variant", None)
+    version = store.get(ref, task=getattr(variant, "name", None))
     doc = json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))
     values = load_parameters(store.read_file(version, PARAMS_FILE))
     loaded = skill_from_spec(skill_from_document(doc), ref=version.ref, rig=rig, parameter_values=values)

@@ -1,14 +1,20 @@
-"""Versioned skill store: SQLite index, sha256 content-addressed blobs, lineage, bundles.
+"""Versioned skill store: SQLite index, sha256 content-addressed blobs, lineage, current versions,
+content identities, artifacts (stored evidence) and sealed bundles.
 
-Standard library and platformdirs only, so ``kinetome list/show/history`` stay light.
+Standard library and platformdirs only, so ``kinetome list/show/lineage`` stay light.
 """
 
+from kinetome.library.store.identity import artifact_digest, lookup_key, version_identity
 from kinetome.library.store.location import STORE_ENV_VAR, resolve_store_root
-from kinetome.library.store.names import format_ref, parse_ref, validate_name
+from kinetome.library.store.names import NOMINAL_TASK, format_ref, parse_pin, parse_ref, validate_name, validate_task
 from kinetome.library.store.records import (
+    ARTIFACT_KINDS,
     REASONS,
     AddResult,
+    ArtifactRecord,
+    CurrentEntry,
     FileEntry,
+    ImportReport,
     ModelRecord,
     Note,
     SkillSummary,
@@ -22,14 +28,24 @@ __all__ = [
     "Store",
     "resolve_store_root",
     "STORE_ENV_VAR",
+    "NOMINAL_TASK",
     "parse_ref",
+    "parse_pin",
     "format_ref",
     "validate_name",
+    "validate_task",
+    "version_identity",
+    "artifact_digest",
+    "lookup_key",
     "REASONS",
+    "ARTIFACT_KINDS",
     "AddResult",
     "FileEntry",
     "VersionRecord",
+    "ArtifactRecord",
     "ModelRecord",
+    "CurrentEntry",
+    "ImportReport",
     "Note",
     "SkillSummary",
     "VerifyReport",
@@ -44,7 +60,7 @@ __all__ = [
 ]
 
 
-# Bundles need tarfile (slow to import); list/show/history never touch them.
+# Bundles need tarfile (slow to import); list/show/lineage never touch them.
 _BUNDLE_NAMES = {"export_bundle", "import_bundle", "MAX_MEMBER_BYTES", "MAX_TOTAL_BYTES", "MAX_MEMBERS"}
 
 

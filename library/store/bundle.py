@@ -1,14 +1,14 @@
-"""Bundles: one tar (optionally gzip) archive of a version, its lineage and models, with a digest manifest.
+"""Bundles: one tar (optionally gzip) archive of a version, its lineage, notes and artifacts, sealed.
 
-Import never extracts: members are read one by one into a staging folder and
-checked (paths, types, sizes, digests, manifest) before anything touches the
-store; then blobs are moved into place and the index changes in one transaction.
+Import never extracts: members are read one by one into a staging folder and checked
+(paths, types, sizes, blob digests, the seal over the manifest, every identity and
+artifact digest, and that the archive is byte for byte the canonical one) before
+anything touches the store; then blobs are moved into place and the index changes in
+one transaction. Imported versions keep their identity, number and origin.
 """
 
 from __future__ import annotations
 
-import gzip
-import hashlib
 import io
 import os
 import re
@@ -16,14 +16,36 @@ import shutil
 import tarfile
 import tempfile
 import zlib
+from dataclasses import dataclass
 from pathlib import Path
 
 from kinetome.library.errors import BundleError, InvalidInputError
 from kinetome.library.file_modes import apply_umask
 from kinetome.library.store import index
-from kinetome.library.store.manifest import MANIFEST_NAME, BundleVersion, Manifest, build_manifest, parse_manifest
-from kinetome.library.store.metadata import canonical_meta
-from kinetome.library.store.records import VersionRecord
+from kinetome.library.store.bundle_tar import (
+    ArchiveReader,
+    GzipSink,
+    bytes_member,
+    canonical_sha256,
+    check_member,
+    copy_member,
+    file_member,
+    fsync_write,
+    write_canonical_tar,
+)
+from kinetome.library.store.identity import lookup_key
+from kinetome.library.store.manifest import (
+    MANIFEST_NAME,
+    SEAL_NAME,
+    Manifest,
+    build_manifest,
+    build_seal,
+    check_seal,
+    manifest_format,
+    parse_manifest,
+)
+from kinetome.library.store.metadata import canonical_json, canonical_meta
+from kinetome.library.store.records import ImportReport
 from kinetome.library.store.schema import write_transaction
 from kinetome.library.store.store import Store
 
@@ -42,20 +64,14 @@ MAX_MEMBERS = 100_000
 MAX_MANIFEST_BYTES = 16 * 1024**2
 
 _BLOB_MEMBER_RE = re.compile(r"blobs/([0-9a-f]{64})")
-_CHUNK = 1 << 20
-_LAYOUT = f"a bundle holds only {MANIFEST_NAME} and blobs/<sha256> as regular files"
+_LAYOUT = f"a bundle holds only {SEAL_NAME}, {MANIFEST_NAME} and blobs/<sha256> as regular files"
+_UNSEALED = (
+    "bundle format 1 (made before sealed bundles): its blobs were checked against their digests, but its "
+    "metadata (notes, timestamps, meta) carries no seal; export it again from this store to get a sealed bundle"
+)
 
 
 # -- export ----------------------------------------------------------------------------
-
-
-def _add_member(tar: tarfile.TarFile, name: str, data: bytes) -> None:
-    info = tarfile.TarInfo(name)
-    info.size = len(data)
-    info.mode = 0o644
-    info.mtime = 0  # identical content gives identical archives
-    info.uname = info.gname = ""
-    tar.addfile(info, io.BytesIO(data))
 
 
 def export_bundle(
@@ -66,7 +82,7 @@ def export_bundle(
     with_lineage: bool = True,
     compress: bool | None = None,
 ) -> Path:
-    """Write ``ref`` (and, with lineage, all its ancestors) with their models and notes to one archive.
+    """Write ``ref`` (and, with lineage, all its ancestors) with their artifacts and notes to one archive.
 
     ``path`` is the archive file, or an existing folder to write ``<name>-<N>.kinetome.tar.gz`` into.
     ``compress=None`` gzips when the file name ends in ``.gz`` or ``.tgz``. Returns the written path.
@@ -74,34 +90,40 @@ def export_bundle(
     """
     version = store.get(ref)
     chain = list(reversed(store.lineage(version.ref))) if with_lineage else [version]
-    models = {v.ref: store.models(v.ref, all_revisions=True) for v in chain}
+    artifacts = [a for v in chain for a in store.artifacts(v.ref, all_revisions=True)]
     notes = {v.ref: store.notes(v.ref) for v in chain}
-    manifest = build_manifest(version.ref, chain, models, notes)
+    current_for = {v.ref: store.current_tasks(v.ref) for v in chain}
+    manifest = build_manifest(store.store_id, version.ref, chain, artifacts, notes, current_for)
     users: dict[str, tuple[int, str]] = {}
-    for v in chain:
-        for e in v.files:
-            users.setdefault(e.digest, (e.size, f"{v.ref} {e.role}"))
-        for m in models[v.ref]:
-            for e in m.files:
-                users.setdefault(e.digest, (e.size, f"{m.ref} {e.role}"))
+    for owner in [*chain, *artifacts]:
+        for e in owner.files:
+            users.setdefault(e.digest, (e.size, f"{owner.ref} {e.role}"))
+    members = [bytes_member(SEAL_NAME, build_seal(manifest, version.identity)), bytes_member(MANIFEST_NAME, manifest)]
+    for digest in sorted(users):
+        size, used_by = users[digest]
+        data = store._blobs.read(digest, size=size, used_by=used_by)
+        members.append(bytes_member(f"blobs/{digest}", data))
+    return _write_archive(_target(path, version.name, version.number), members, compress)
 
+
+def _target(path: str | os.PathLike, name: str, number: int) -> Path:
     target = Path(path).expanduser()
     if target.is_dir():
-        target = target / f"{version.name}-{version.number}.kinetome.tar.gz"
+        target = target / f"{name}-{number}.kinetome.tar.gz"
     if not target.parent.is_dir():
         raise InvalidInputError(f"bundle folder {target.parent} must exist, got a missing folder; create it first")
+    return target
+
+
+def _write_archive(target: Path, members: list, compress: bool | None) -> Path:
     if compress is None:
         compress = target.name.endswith((".gz", ".tgz"))
     fd, tmp_name = tempfile.mkstemp(prefix=".kinetome-bundle-", dir=target.parent)
     try:
         apply_umask(fd)
         with os.fdopen(fd, "wb") as raw:
-            sink = gzip.GzipFile(filename="", mode="wb", fileobj=raw, mtime=0) if compress else raw
-            with tarfile.open(fileobj=sink, mode="w", format=tarfile.PAX_FORMAT) as tar:
-                _add_member(tar, MANIFEST_NAME, manifest)
-                for digest in sorted(users):
-                    size, used_by = users[digest]
-                    _add_member(tar, f"blobs/{digest}", store._blobs.read(digest, size=size, used_by=used_by))
+            sink = GzipSink(raw) if compress else raw
+            write_canonical_tar(sink, members)
             if compress:
                 sink.close()
             raw.flush()
@@ -116,130 +138,99 @@ def export_bundle(
 # -- import: reading and checking members ----------------------------------------------
 
 
-def _check_member(member: tarfile.TarInfo, max_member_bytes: int) -> None:
-    """Refuse unsafe paths, non-regular members and oversized members (before reading data)."""
-    name = member.name
-    if not name:
-        raise BundleError(f"a member has an empty name; {_LAYOUT}")
-    norm = name.replace("\\", "/")
-    if norm.startswith("/") or re.match(r"[A-Za-z]:", norm):
-        raise BundleError(f"member {name!r} has an absolute path; refused ({_LAYOUT})")
-    if ".." in norm.split("/"):
-        raise BundleError(f"member {name!r} has a '..' component that would leave the import folder; refused")
-    if member.issym():
-        raise BundleError(f"member {name!r} is a symbolic link (to {member.linkname!r}); refused ({_LAYOUT})")
-    if member.islnk():
-        raise BundleError(f"member {name!r} is a hard link (to {member.linkname!r}); refused ({_LAYOUT})")
-    if member.ischr() or member.isblk():
-        raise BundleError(f"member {name!r} is a device file; refused ({_LAYOUT})")
-    if member.isfifo():
-        raise BundleError(f"member {name!r} is a FIFO (named pipe); refused ({_LAYOUT})")
-    if member.isdir():
-        raise BundleError(f"member {name!r} is a directory; refused ({_LAYOUT})")
-    if member.issparse() or not member.isreg():
-        raise BundleError(f"member {name!r} has unsupported tar type {member.type!r}; refused ({_LAYOUT})")
-    if member.size > max_member_bytes:
-        raise BundleError(
-            f"member {name!r} is {member.size} bytes, over the per-member limit of {max_member_bytes} bytes; refused"
-        )
+@dataclass
+class _Archive:
+    seal: bytes | None
+    manifest: bytes | None
+    staged: dict[str, tuple[Path, int]]  # digest -> (staged file, size)
+    tar_sha256: str
 
 
-def _copy_member(tar: tarfile.TarFile, member: tarfile.TarInfo, sink) -> tuple[str, int]:
-    """Stream one member's data into ``sink``; returns (sha256, bytes read)."""
-    source = tar.extractfile(member)
-    if source is None:
-        raise BundleError(f"member {member.name!r} has no data; refused")
-    h = hashlib.sha256()
-    n = 0
-    while n < member.size:
-        chunk = source.read(min(_CHUNK, member.size - n))
-        if not chunk:
-            break
-        h.update(chunk)
-        sink.write(chunk)
-        n += len(chunk)
-    if n != member.size:
-        raise BundleError(f"member {member.name!r} is truncated: {n} of {member.size} bytes; the archive is damaged")
-    return h.hexdigest(), n
+@dataclass(frozen=True)
+class _Limits:
+    member: int
+    total: int
+    members: int
 
 
-def _read_archive(
-    source: Path, staging: Path, *, max_member_bytes: int, max_total_bytes: int, max_members: int
-) -> tuple[bytes, dict[str, tuple[Path, int]]]:
-    """(manifest bytes, digest -> (staged file, size)) after checking every member."""
+_READ_ERRORS = (tarfile.TarError, OSError, EOFError, zlib.error)
+
+
+def _read_archive(source: Path, staging: Path, limits: _Limits) -> _Archive:
     with open(source, "rb") as raw:
-        # gzip via GzipFile (not tarfile's own stream) so a truncated archive raises EOFError
-        stream = gzip.GzipFile(fileobj=raw, mode="rb") if raw.read(2) == b"\x1f\x8b" else raw
-        raw.seek(0)
-        return _read_stream(
-            source, stream, staging, max_member_bytes=max_member_bytes, max_total_bytes=max_total_bytes, max_members=max_members
-        )
+        reader = ArchiveReader(raw, source)
+        try:
+            tar = tarfile.open(fileobj=reader, mode="r|")  # type: ignore[call-overload]
+        except _READ_ERRORS as e:
+            raise BundleError(
+                f"{source} is not a readable tar or tar.gz archive ({e}); export it again with `kinetome export`"
+            ) from None
+        archive = _Archive(None, None, {}, "")
+        with tar:
+            _read_members(source, tar, staging, limits, archive)
+        try:
+            reader.finish()
+        except _READ_ERRORS as e:
+            raise BundleError(f"{source} is damaged at its end ({e}); export it again") from None
+        archive.tar_sha256 = reader.sha256.hexdigest()
+    if archive.manifest is None:
+        raise BundleError(f"{source} has no member {MANIFEST_NAME!r}; it is not a kinetome bundle")
+    return archive
 
 
-def _read_stream(
-    source: Path, stream, staging: Path, *, max_member_bytes: int, max_total_bytes: int, max_members: int
-) -> tuple[bytes, dict[str, tuple[Path, int]]]:
-    try:
-        tar = tarfile.open(fileobj=stream, mode="r|")
-    except (tarfile.TarError, OSError, EOFError, zlib.error) as e:
-        raise BundleError(
-            f"{source} is not a readable tar or tar.gz archive ({e}); export it again with `kinetome export`"
-        ) from None
-    manifest: bytes | None = None
-    staged: dict[str, tuple[Path, int]] = {}
+def _read_members(source: Path, tar: tarfile.TarFile, staging: Path, limits: _Limits, archive: _Archive) -> None:
     seen: set[str] = set()
     total = 0
     last = "(start of archive)"
-    with tar:
-        while True:
-            try:
-                member = tar.next()
-            except (tarfile.TarError, OSError, EOFError, zlib.error) as e:
-                raise BundleError(f"{source} is damaged after member {last!r} ({e}); export it again") from None
-            if member is None:
-                break
-            if len(seen) >= max_members:
-                raise BundleError(f"{source} has more than {max_members} members; refused")
-            _check_member(member, max_member_bytes)
-            name = member.name
-            if name in seen:
-                raise BundleError(f"member {name!r} appears twice in the archive; refused")
-            seen.add(name)
-            total += member.size
-            if total > max_total_bytes:
-                raise BundleError(
-                    f"member {name!r} brings the archive to {total} bytes, over the total limit of {max_total_bytes}; refused"
-                )
-            try:
-                if name == MANIFEST_NAME:
-                    if member.size > MAX_MANIFEST_BYTES:
-                        raise BundleError(
-                            f"member {name!r} is {member.size} bytes, over the limit of {MAX_MANIFEST_BYTES}; refused"
-                        )
-                    buf = io.BytesIO()
-                    _copy_member(tar, member, buf)
-                    manifest = buf.getvalue()
-                elif match := _BLOB_MEMBER_RE.fullmatch(name):
-                    digest = match.group(1)
-                    path = staging / f"{len(staged):06d}"
-                    with open(path, "wb") as f:
-                        actual, size = _copy_member(tar, member, f)
-                        f.flush()
-                        os.fsync(f.fileno())
-                    if actual != digest:
-                        raise BundleError(
-                            f"member {name!r} does not match its name: its content has sha256 {actual}; "
-                            "the archive is damaged or was altered"
-                        )
-                    staged[digest] = (path, size)
-                else:
-                    raise BundleError(f"member {name!r} is not listed in {MANIFEST_NAME}; refused ({_LAYOUT})")
-            except (tarfile.TarError, OSError, EOFError, zlib.error) as e:
-                raise BundleError(f"member {name!r} could not be read ({e}); the archive is damaged") from None
-            last = name
-    if manifest is None:
-        raise BundleError(f"{source} has no member {MANIFEST_NAME!r}; it is not a kinetome bundle")
-    return manifest, staged
+    while True:
+        try:
+            member = tar.next()
+        except _READ_ERRORS as e:
+            raise BundleError(f"{source} is damaged after member {last!r} ({e}); export it again") from None
+        if member is None:
+            return
+        if len(seen) >= limits.members:
+            raise BundleError(f"{source} has more than {limits.members} members; refused")
+        check_member(member, limits.member)
+        name = member.name
+        if name in seen:
+            raise BundleError(f"member {name!r} appears twice in the archive; refused")
+        seen.add(name)
+        total += member.size
+        if total > limits.total:
+            raise BundleError(
+                f"member {name!r} brings the archive to {total} bytes, over the total limit of {limits.total}; refused"
+            )
+        try:
+            _read_member(tar, member, staging, archive)
+        except _READ_ERRORS as e:
+            raise BundleError(f"member {name!r} could not be read ({e}); the archive is damaged") from None
+        last = name
+
+
+def _read_member(tar: tarfile.TarFile, member: tarfile.TarInfo, staging: Path, archive: _Archive) -> None:
+    name = member.name
+    if name in (MANIFEST_NAME, SEAL_NAME):
+        if member.size > MAX_MANIFEST_BYTES:
+            raise BundleError(f"member {name!r} is {member.size} bytes, over the limit of {MAX_MANIFEST_BYTES}; refused")
+        buf = io.BytesIO()
+        copy_member(tar, member, buf)
+        if name == MANIFEST_NAME:
+            archive.manifest = buf.getvalue()
+        else:
+            archive.seal = buf.getvalue()
+    elif match := _BLOB_MEMBER_RE.fullmatch(name):
+        digest = match.group(1)
+        path = staging / f"{len(archive.staged):06d}"
+        actual, size = fsync_write(path, lambda f: copy_member(tar, member, f))
+        if actual != digest:
+            raise BundleError(
+                f"member {name!r} does not match its name: its content has sha256 {actual}; "
+                "the archive is damaged or was altered"
+            )
+        archive.staged[digest] = (path, size)
+    else:
+        raise BundleError(f"member {name!r} is not listed in {MANIFEST_NAME}; refused ({_LAYOUT})")
 
 
 def _match_manifest(manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> None:
@@ -249,14 +240,7 @@ def _match_manifest(manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> 
             raise BundleError(f"member 'blobs/{digest}' is not listed in {MANIFEST_NAME}; refused")
     for digest, size in manifest.blobs.items():
         if digest not in staged:
-            users = [f"{v.ref} {e.role}" for v in manifest.versions for e in v.files if e.digest == digest]
-            users += [
-                f"{v.ref}/{m.kind}#{m.revision} {e.role}"
-                for v in manifest.versions
-                for m in v.models
-                for e in m.files
-                if e.digest == digest
-            ]
+            users = [f"{o.ref} {e.role}" for o in [*manifest.versions, *manifest.artifacts] for e in o.files if e.digest == digest]
             raise BundleError(
                 f"{MANIFEST_NAME} lists blob {digest} (used by {', '.join(users)}) but the archive has no "
                 f"member 'blobs/{digest}'; refused"
@@ -267,67 +251,155 @@ def _match_manifest(manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> 
             )
 
 
-# -- import: writing -------------------------------------------------------------------
+def _check_archive(source: Path, archive: _Archive) -> tuple[Manifest, list[str]]:
+    """Seal, manifest, blobs and the canonical form of the whole archive; returns (manifest, warnings)."""
+    assert archive.manifest is not None
+    sealed = manifest_format(archive.manifest) >= 2
+    if sealed:
+        check_seal(archive.seal, archive.manifest)
+    elif archive.seal is not None:
+        raise BundleError(f"member {SEAL_NAME!r} is not part of a format-1 bundle; the bundle was altered")
+    manifest = parse_manifest(archive.manifest)
+    _match_manifest(manifest, archive.staged)
+    members = [bytes_member(SEAL_NAME, archive.seal)] if sealed and archive.seal is not None else []
+    members.append(bytes_member(MANIFEST_NAME, archive.manifest))
+    members += [file_member(f"blobs/{d}", archive.staged[d][0], archive.staged[d][1]) for d in sorted(archive.staged)]
+    if canonical_sha256(members) != archive.tar_sha256:
+        raise BundleError(
+            f"{source} is not byte for byte the bundle its members describe (a header field, padding, the member "
+            "order or trailing bytes were changed); refused: export it again"
+        )
+    return manifest, [] if sealed else [_UNSEALED]
 
 
-def _imported_meta(bv: BundleVersion) -> str:
-    meta = dict(bv.meta)
-    origin = {"ref": bv.ref, "parent": bv.parent, "reason": bv.reason, "created_at": bv.created_at}
-    if "imported_from" in meta:
-        origin["previous"] = meta["imported_from"]
-    meta["imported_from"] = origin
-    return canonical_meta(meta)
+# -- import: planning and writing ------------------------------------------------------
 
 
-def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> list[VersionRecord]:
+@dataclass(frozen=True)
+class _Step:
+    index: int  # position in manifest.versions
+    row: int | None  # existing row with this identity
+    number: int | None  # number to insert under (None: reuse ``row``)
+
+
+def _conflict(store: Store, bv, row: int) -> BundleError:
+    local = store._load_id(row)
+    return BundleError(
+        f"{bv.ref} in the bundle (identity {bv.identity[:12]}) conflicts with {local.ref} here (identity "
+        f"{local.identity[:12]}): this store has another version under that number; nothing was imported. "
+        "Import with --renumber to store it under the next free number (its identity and origin stay), "
+        "or import it into another store"
+    )
+
+
+def _plan(store: Store, manifest: Manifest, renumber: bool) -> list[_Step]:
+    """Which bundle versions exist here (by identity) and the number each new one gets."""
+    conn = store._conn
+    steps: list[_Step] = []
+    planned: set[tuple[str, int]] = set()
+    in_bundle = {(v.name, v.number) for v in manifest.versions}
+    for i, bv in enumerate(manifest.versions):
+        row = index.find_by_identity(conn, bv.identity)
+        if row is not None:
+            steps.append(_Step(i, row, None))
+            continue
+        taken = index.version_id(conn, bv.name, bv.number)
+        number = bv.number
+        if taken is not None:
+            if not renumber:
+                raise _conflict(store, bv, taken)
+            number = max(index.numbers_of(conn, bv.name)) + 1
+            while (bv.name, number) in planned or (bv.name, number) in in_bundle:
+                number += 1
+        planned.add((bv.name, number))
+        steps.append(_Step(i, None, number))
+    return steps
+
+
+def _origin(manifest: Manifest, thing) -> str:
+    origin = thing.origin or {"store": manifest.store_id, "ref": thing.ref, "created_at": thing.created_at}
+    return canonical_json(origin)
+
+
+def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step]) -> tuple[dict[str, int], list[int]]:
+    conn = store._conn
+    rows: dict[str, int] = {}
+    added: list[int] = []
+    for step in steps:
+        bv = manifest.versions[step.index]
+        row = step.row
+        if row is None:
+            parent_id = rows.get(bv.parent) if bv.parent in rows else None
+            if parent_id is None and bv.parent_identity is not None:
+                parent_id = index.find_by_identity(conn, bv.parent_identity)
+            row = index.insert_version(
+                conn, name=bv.name, number=step.number, files=bv.files, parent_id=parent_id,
+                parent_identity=bv.parent_identity, reason=bv.reason, identity=bv.identity,
+                origin_json=_origin(manifest, bv), meta_json=canonical_meta(bv.meta), created_at=index.utc_now(),
+            )
+            for text, created_at in bv.notes:
+                index.insert_note(conn, row, text, created_at)
+            added.append(row)
+        rows[bv.ref] = row
+    return rows, added
+
+
+def _insert_artifacts(store: Store, manifest: Manifest, rows: dict[str, int]) -> None:
+    conn = store._conn
+    for ba in sorted(manifest.artifacts, key=lambda a: (a.owner, a.kind, a.revision)):
+        row = rows[ba.owner]
+        if index.find_artifact_by_content(conn, row, ba.kind, files_key="", lookup="", digest=ba.digest) is not None:
+            continue
+        revisions = [a.revision for a in index.load_artifacts(conn, "a.version_id = ? AND a.kind = ?", (row, ba.kind))]
+        index.insert_artifact(
+            conn, version_row=row, kind=ba.kind, files=ba.files, computed_on_json=canonical_json(list(ba.computed_on)),
+            task_json=canonical_json(ba.task), settings_json=canonical_json(ba.settings),
+            software_json=canonical_json(ba.software), meta_json=canonical_json(ba.meta),
+            lookup=lookup_key(ba.kind, ba.computed_on, ba.task, ba.settings), digest=ba.digest,
+            created_at=index.utc_now(), origin_json=_origin(manifest, ba),
+            revision=None if ba.revision in revisions else ba.revision,
+        )
+
+
+def _set_currents(store: Store, manifest: Manifest, rows: dict[str, int]) -> list[str]:
+    """Tasks the bundle's versions were current for become current here where nothing is current yet."""
+    conn = store._conn
+    done = []
+    for bv in manifest.versions:
+        for task in bv.current_for:
+            if index.current_row(conn, bv.name, task) is None:
+                evidence = canonical_json({"store": manifest.store_id, "ref": bv.ref})
+                index.insert_current(
+                    conn, name=bv.name, task=task, version_row=rows[bv.ref], reason="imported",
+                    evidence_json=evidence, created_at=index.utc_now(),
+                )
+                done.append(f"{store._load_id(rows[bv.ref]).ref} for {task}")
+    return done
+
+
+def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]], renumber: bool) -> tuple:
+    _plan(store, manifest, renumber)  # refuse conflicts before any blob is written
     for digest, (path, _) in staged.items():
         store._blobs.adopt(path, digest)
-    rows: dict[str, int] = {}
-    with write_transaction(store._conn) as conn:
-        for bv in manifest.versions:
-            row = index.find_by_content(conn, bv.name, index.content_key({e.role: e.digest for e in bv.files}))
-            if row is None:
-                row = index.insert_version(
-                    conn,
-                    name=bv.name,
-                    files=bv.files,
-                    parent_id=rows.get(bv.parent) if bv.parent is not None else None,
-                    reason="imported",
-                    meta_json=_imported_meta(bv),
-                    created_at=index.utc_now(),
-                )
-                for text, created_at in bv.notes:
-                    index.insert_note(conn, row, text, created_at)
-            rows[bv.ref] = row
-            for bm in sorted(bv.models, key=lambda m: (m.kind, m.revision)):
-                key = index.content_key({e.role: e.digest for e in bm.files})
-                if index.find_model_by_content(conn, row, bm.kind, key, latest_only=False) is None:
-                    meta = dict(bm.meta)
-                    meta["imported_from"] = {"ref": f"{bv.ref}/{bm.kind}#{bm.revision}", "created_at": bm.created_at}
-                    index.insert_model(
-                        conn,
-                        version_row=row,
-                        kind=bm.kind,
-                        files=bm.files,
-                        meta_json=canonical_meta(meta),
-                        created_at=index.utc_now(),
-                    )
-    return [store._load_id(rows[bv.ref]) for bv in manifest.versions]
+    with write_transaction(store._conn):
+        rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber))
+        _insert_artifacts(store, manifest, rows)
+        currents = _set_currents(store, manifest, rows)
+    return rows, added, currents
 
 
 def import_bundle(
     store: Store,
     path: str | os.PathLike,
     *,
+    renumber: bool = False,
     max_member_bytes: int = MAX_MEMBER_BYTES,
     max_total_bytes: int = MAX_TOTAL_BYTES,
     max_members: int = MAX_MEMBERS,
-) -> list[VersionRecord]:
-    """Import a bundle; returns the store's versions for the bundle's versions, parents first.
-
-    A version whose files already exist under its name is reused; others get the next
-    free number, reason ``imported``, and ``meta["imported_from"]`` with the original
-    ref, parent, reason and time. Any BundleError leaves the store unchanged.
+) -> ImportReport:
+    """Import a bundle; versions already here (same identity) are reused, new ones keep their
+    number, identity, reason and origin. A number taken here by another version is refused
+    unless ``renumber`` (then the next free number). Any BundleError leaves the store unchanged.
     """
     source = Path(path).expanduser()
     if not source.is_file():
@@ -335,11 +407,15 @@ def import_bundle(
     store._blobs.create()
     staging = Path(tempfile.mkdtemp(prefix="import-", dir=store._blobs.tmp))
     try:
-        manifest_bytes, staged = _read_archive(
-            source, staging, max_member_bytes=max_member_bytes, max_total_bytes=max_total_bytes, max_members=max_members
-        )
-        manifest = parse_manifest(manifest_bytes)
-        _match_manifest(manifest, staged)
-        return _commit(store, manifest, staged)
+        archive = _read_archive(source, staging, _Limits(max_member_bytes, max_total_bytes, max_members))
+        manifest, warnings = _check_archive(source, archive)
+        rows, added, currents = _commit(store, manifest, archive.staged, renumber)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
+    return ImportReport(
+        versions=tuple(store._load_id(rows[bv.ref]) for bv in manifest.versions),
+        added=tuple(store._load_id(r).ref for r in added),
+        currents_set=tuple(currents),
+        root_identity=manifest.root_identity,
+        warnings=tuple(warnings),
+    )

@@ -1,34 +1,47 @@
-"""SQL queries on the index: insert and load versions, models and notes (no blob I/O here)."""
+"""SQL on the index: versions, current versions, artifacts, notes (the only module with SQL
+for a live store; no blob I/O here). Another index backend provides these functions."""
 
 from __future__ import annotations
 
-import hashlib
+import json
 import sqlite3
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from datetime import datetime, timezone
 
-from kinetome.library.store.metadata import canonical_json
-from kinetome.library.store.records import FileEntry, ModelRecord, Note, VersionRecord
+from kinetome.library.store.identity import content_key
+from kinetome.library.store.records import ArtifactRecord, CurrentEntry, FileEntry, Note, VersionRecord
 
 __all__ = [
     "utc_now",
     "content_key",
+    "store_info",
     "version_id",
     "numbers_of",
     "all_names",
     "find_by_content",
+    "find_by_identity",
+    "find_by_identity_prefix",
+    "latest_row",
+    "parent_row",
     "insert_blobs",
     "insert_version",
     "load_versions",
-    "insert_model",
-    "find_model_by_content",
-    "load_models",
+    "skill_summaries",
+    "insert_current",
+    "current_row",
+    "load_currents",
+    "load_current_history",
+    "current_tasks",
+    "insert_artifact",
+    "find_artifact_by_content",
+    "find_artifacts_by_key",
+    "load_artifacts",
     "insert_note",
     "load_notes",
 ]
 
 _VERSION_SELECT = """
-    SELECT v.id, v.name, v.number, v.reason, v.meta, v.created_at,
+    SELECT v.id, v.name, v.number, v.reason, v.meta, v.created_at, v.identity, v.parent_identity, v.origin,
            p.name AS parent_name, p.number AS parent_number
     FROM versions v LEFT JOIN versions p ON p.id = v.parent_id
 """
@@ -39,9 +52,12 @@ def utc_now() -> str:
     return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
-def content_key(digests: Mapping[str, str]) -> str:
-    """sha256 of the canonical role -> digest map: equal keys mean identical files."""
-    return hashlib.sha256(canonical_json(sorted(digests.items())).encode()).hexdigest()
+def store_info(conn: sqlite3.Connection, key: str) -> str | None:
+    row = conn.execute("SELECT value FROM store_info WHERE key = ?", (key,)).fetchone()
+    return None if row is None else str(row[0])
+
+
+# -- versions --------------------------------------------------------------------------
 
 
 def version_id(conn: sqlite3.Connection, name: str, number: int) -> int | None:
@@ -58,8 +74,32 @@ def all_names(conn: sqlite3.Connection) -> list[str]:
 
 
 def find_by_content(conn: sqlite3.Connection, name: str, key: str) -> int | None:
-    row = conn.execute("SELECT id FROM versions WHERE name = ? AND content_key = ?", (name, key)).fetchone()
+    row = conn.execute(
+        "SELECT id FROM versions WHERE name = ? AND content_key = ? ORDER BY number LIMIT 1", (name, key)
+    ).fetchone()
     return None if row is None else int(row[0])
+
+
+def find_by_identity(conn: sqlite3.Connection, identity: str) -> int | None:
+    row = conn.execute("SELECT id FROM versions WHERE identity = ?", (identity,)).fetchone()
+    return None if row is None else int(row[0])
+
+
+def find_by_identity_prefix(conn: sqlite3.Connection, name: str, prefix: str) -> list[int]:
+    rows = conn.execute(
+        "SELECT id FROM versions WHERE name = ? AND substr(identity, 1, ?) = ? ORDER BY number", (name, len(prefix), prefix)
+    )
+    return [int(r[0]) for r in rows]
+
+
+def latest_row(conn: sqlite3.Connection, name: str) -> int | None:
+    row = conn.execute("SELECT id FROM versions WHERE name = ? ORDER BY number DESC LIMIT 1", (name,)).fetchone()
+    return None if row is None else int(row[0])
+
+
+def parent_row(conn: sqlite3.Connection, row_id: int) -> int | None:
+    row = conn.execute("SELECT parent_id FROM versions WHERE id = ?", (row_id,)).fetchone()
+    return None if row is None or row[0] is None else int(row[0])
 
 
 def insert_blobs(conn: sqlite3.Connection, entries: Iterable[FileEntry]) -> None:
@@ -74,17 +114,34 @@ def insert_version(
     name: str,
     files: tuple[FileEntry, ...],
     parent_id: int | None,
+    parent_identity: str | None,
     reason: str,
+    identity: str,
     meta_json: str,
     created_at: str,
+    number: int | None = None,
+    origin_json: str | None = None,
 ) -> int:
-    """Insert ``name@(latest+1)``; call inside a write transaction. Returns the row id."""
-    (latest,) = conn.execute("SELECT COALESCE(MAX(number), 0) FROM versions WHERE name = ?", (name,)).fetchone()
+    """Insert ``name@number`` (default: the highest number + 1); call inside a write transaction."""
+    if number is None:
+        (latest,) = conn.execute("SELECT COALESCE(MAX(number), 0) FROM versions WHERE name = ?", (name,)).fetchone()
+        number = int(latest) + 1
     insert_blobs(conn, files)
     cur = conn.execute(
-        "INSERT INTO versions (name, number, parent_id, reason, meta, content_key, created_at)"
-        " VALUES (?, ?, ?, ?, ?, ?, ?)",
-        (name, int(latest) + 1, parent_id, reason, meta_json, content_key({e.role: e.digest for e in files}), created_at),
+        "INSERT INTO versions (name, number, parent_id, parent_identity, reason, identity, origin, meta, content_key, created_at)"
+        " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (
+            name,
+            number,
+            parent_id,
+            parent_identity,
+            reason,
+            identity,
+            origin_json,
+            meta_json,
+            content_key({e.role: e.digest for e in files}),
+            created_at,
+        ),
     )
     vid = int(cur.lastrowid)
     conn.executemany(
@@ -124,72 +181,184 @@ def load_versions(
             reason=r["reason"],
             meta_json=r["meta"],
             created_at=r["created_at"],
+            identity=r["identity"],
+            parent_identity=r["parent_identity"],
+            origin_json=r["origin"],
         )
         out.append((int(r["id"]), record))
     return out
 
 
-def insert_model(
+def skill_summaries(conn: sqlite3.Connection) -> list[tuple]:
+    """(name, newest number, count, newest created_at, description, env, nominal current number) per skill.
+
+    description/env come from the newest version whose meta holds them as text.
+    """
+    return conn.execute(
+        "SELECT v.name, v.number, c.n, v.created_at,"
+        " (SELECT json_extract(d.meta, '$.description') FROM versions d WHERE d.name = v.name"
+        "   AND json_type(d.meta, '$.description') = 'text' ORDER BY d.number DESC LIMIT 1),"
+        " (SELECT json_extract(e.meta, '$.env') FROM versions e WHERE e.name = v.name"
+        "   AND json_type(e.meta, '$.env') = 'text' ORDER BY e.number DESC LIMIT 1),"
+        " (SELECT cv.number FROM currents k JOIN versions cv ON cv.id = k.version_id"
+        "   WHERE k.name = v.name AND k.task = 'nominal' ORDER BY k.id DESC LIMIT 1)"
+        " FROM versions v"
+        " JOIN (SELECT name, MAX(number) AS top, COUNT(*) AS n FROM versions GROUP BY name) c"
+        " ON c.name = v.name AND c.top = v.number ORDER BY v.name"
+    ).fetchall()
+
+
+# -- current versions ------------------------------------------------------------------
+
+_CURRENT_SELECT = (
+    "SELECT k.name, k.task, v.name || '@' || v.number AS ref, k.reason, k.evidence, k.created_at"
+    " FROM currents k JOIN versions v ON v.id = k.version_id"
+)
+
+
+def _current(row: sqlite3.Row) -> CurrentEntry:
+    return CurrentEntry(row[0], row[1], row[2], row[3], row[4], row[5])
+
+
+def insert_current(
+    conn: sqlite3.Connection, *, name: str, task: str, version_row: int, reason: str, evidence_json: str, created_at: str
+) -> None:
+    conn.execute(
+        "INSERT INTO currents (name, task, version_id, reason, evidence, created_at) VALUES (?, ?, ?, ?, ?, ?)",
+        (name, task, version_row, reason, evidence_json, created_at),
+    )
+
+
+def current_row(conn: sqlite3.Connection, name: str, task: str) -> int | None:
+    """Row id of the current version of ``name`` for ``task`` (None: never set)."""
+    row = conn.execute(
+        "SELECT version_id FROM currents WHERE name = ? AND task = ? ORDER BY id DESC LIMIT 1", (name, task)
+    ).fetchone()
+    return None if row is None else int(row[0])
+
+
+def load_currents(conn: sqlite3.Connection, name: str) -> list[CurrentEntry]:
+    """The latest entry per task, sorted by task."""
+    rows = conn.execute(
+        f"{_CURRENT_SELECT} WHERE k.id IN (SELECT MAX(id) FROM currents WHERE name = ? GROUP BY task) ORDER BY k.task",
+        (name,),
+    )
+    return [_current(r) for r in rows]
+
+
+def load_current_history(conn: sqlite3.Connection, name: str) -> list[CurrentEntry]:
+    return [_current(r) for r in conn.execute(f"{_CURRENT_SELECT} WHERE k.name = ? ORDER BY k.id", (name,))]
+
+
+def current_tasks(conn: sqlite3.Connection, version_row: int) -> list[str]:
+    """Tasks for which the version is current now, sorted."""
+    rows = conn.execute(
+        "SELECT task FROM currents WHERE id IN (SELECT MAX(id) FROM currents"
+        "  WHERE name = (SELECT name FROM versions WHERE id = ?) GROUP BY task) AND version_id = ? ORDER BY task",
+        (version_row, version_row),
+    )
+    return [r[0] for r in rows]
+
+
+# -- artifacts -------------------------------------------------------------------------
+
+
+def insert_artifact(
     conn: sqlite3.Connection,
     *,
     version_row: int,
     kind: str,
     files: tuple[FileEntry, ...],
+    computed_on_json: str,
+    task_json: str,
+    settings_json: str,
+    software_json: str,
     meta_json: str,
+    lookup: str,
+    digest: str,
     created_at: str,
+    origin_json: str | None = None,
+    revision: int | None = None,
 ) -> int:
-    """Insert the next revision of ``kind`` on a version; call inside a write transaction."""
-    (latest,) = conn.execute(
-        "SELECT COALESCE(MAX(revision), 0) FROM models WHERE version_id = ? AND kind = ?", (version_row, kind)
-    ).fetchone()
+    """Insert the next revision of ``kind`` on a version (or ``revision``); call inside a write transaction."""
+    if revision is None:
+        (latest,) = conn.execute(
+            "SELECT COALESCE(MAX(revision), 0) FROM artifacts WHERE version_id = ? AND kind = ?", (version_row, kind)
+        ).fetchone()
+        revision = int(latest) + 1
     insert_blobs(conn, files)
     cur = conn.execute(
-        "INSERT INTO models (version_id, kind, revision, meta, content_key, created_at) VALUES (?, ?, ?, ?, ?, ?)",
-        (version_row, kind, int(latest) + 1, meta_json, content_key({e.role: e.digest for e in files}), created_at),
+        "INSERT INTO artifacts (version_id, kind, revision, computed_on, task, settings, software, meta,"
+        " lookup_key, digest, content_key, origin, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (
+            version_row, kind, revision, computed_on_json, task_json, settings_json, software_json, meta_json,
+            lookup, digest, content_key({e.role: e.digest for e in files}), origin_json, created_at,
+        ),
     )
-    mid = int(cur.lastrowid)
+    aid = int(cur.lastrowid)
     conn.executemany(
-        "INSERT INTO model_files (model_id, role, digest, size) VALUES (?, ?, ?, ?)",
-        [(mid, e.role, e.digest, e.size) for e in files],
+        "INSERT INTO artifact_files (artifact_id, role, digest, size) VALUES (?, ?, ?, ?)",
+        [(aid, e.role, e.digest, e.size) for e in files],
     )
-    return mid
+    return aid
 
 
-def find_model_by_content(conn: sqlite3.Connection, version_row: int, kind: str, key: str, *, latest_only: bool) -> int | None:
-    """Row id of a revision of ``kind`` with identical files (only the latest one if ``latest_only``)."""
-    if latest_only:
+def find_artifact_by_content(
+    conn: sqlite3.Connection, version_row: int, kind: str, *, files_key: str, lookup: str, digest: str | None = None
+) -> int | None:
+    """The latest revision of ``kind`` if it has the same files and lookup key (or, given ``digest``,
+    any revision with that digest)."""
+    if digest is not None:
         row = conn.execute(
-            "SELECT id, content_key FROM models WHERE version_id = ? AND kind = ? ORDER BY revision DESC LIMIT 1",
-            (version_row, kind),
+            "SELECT id FROM artifacts WHERE version_id = ? AND kind = ? AND digest = ? ORDER BY revision DESC LIMIT 1",
+            (version_row, kind, digest),
         ).fetchone()
-        return int(row[0]) if row is not None and row[1] == key else None
+        return None if row is None else int(row[0])
     row = conn.execute(
-        "SELECT id FROM models WHERE version_id = ? AND kind = ? AND content_key = ? ORDER BY revision DESC LIMIT 1",
-        (version_row, kind, key),
+        "SELECT id, content_key, lookup_key FROM artifacts WHERE version_id = ? AND kind = ? ORDER BY revision DESC LIMIT 1",
+        (version_row, kind),
     ).fetchone()
-    return None if row is None else int(row[0])
+    return int(row[0]) if row is not None and (row[1], row[2]) == (files_key, lookup) else None
 
 
-def load_models(conn: sqlite3.Connection, where: str, params: tuple = ()) -> list[ModelRecord]:
-    """Model revisions matching ``where`` (SQL on alias ``m``; version alias ``v``)."""
+def find_artifacts_by_key(conn: sqlite3.Connection, kind: str, lookup: str) -> list[int]:
+    """Artifact row ids of ``kind`` with this lookup key, newest first."""
     rows = conn.execute(
-        "SELECT m.id, m.kind, m.revision, m.meta, m.created_at, v.name, v.number"
-        f" FROM models m JOIN versions v ON v.id = m.version_id WHERE {where}"
-        " ORDER BY v.name, v.number, m.kind, m.revision",
+        "SELECT id FROM artifacts WHERE kind = ? AND lookup_key = ? ORDER BY id DESC", (kind, lookup)
+    )
+    return [int(r[0]) for r in rows]
+
+
+def load_artifacts(conn: sqlite3.Connection, where: str, params: tuple = ()) -> list[ArtifactRecord]:
+    """Artifact revisions matching ``where`` (SQL on alias ``a``; version alias ``v``)."""
+    rows = conn.execute(
+        "SELECT a.id, a.kind, a.revision, a.meta, a.created_at, a.computed_on, a.task, a.settings, a.software,"
+        " a.digest, a.origin, v.name, v.number"
+        f" FROM artifacts a JOIN versions v ON v.id = a.version_id WHERE {where}"
+        " ORDER BY v.name, v.number, a.kind, a.revision",
         params,
     ).fetchall()
-    files = _files_by_owner(conn, "model_files", "model_id", [int(r["id"]) for r in rows])
+    files = _files_by_owner(conn, "artifact_files", "artifact_id", [int(r["id"]) for r in rows])
     return [
-        ModelRecord(
+        ArtifactRecord(
             version=f"{r['name']}@{r['number']}",
             kind=r["kind"],
             revision=int(r["revision"]),
             files=tuple(files[int(r["id"])]),
             meta_json=r["meta"],
             created_at=r["created_at"],
+            computed_on=tuple(json.loads(r["computed_on"])),
+            task_json=r["task"],
+            settings_json=r["settings"],
+            software_json=r["software"],
+            digest=r["digest"],
+            origin_json=r["origin"],
         )
         for r in rows
     ]
+
+
+# -- notes -----------------------------------------------------------------------------
 
 
 def insert_note(conn: sqlite3.Connection, version_row: int, text: str, created_at: str) -> None:

@@ -1,42 +1,78 @@
-"""The bundle manifest: build it from store records, and parse/validate an untrusted one."""
+"""The bundle manifest and its seal: build them from store records, parse and check untrusted ones.
+
+A format-2 bundle holds ``seal.json`` (the sha256 of ``manifest.json`` and the root's
+identity), ``manifest.json`` (versions with identities, lineage, origin, notes, metadata
+and current tasks; artifacts with their provenance and digests; blob sizes) and
+``blobs/<sha256>``. Import recomputes every identity and artifact digest from the files.
+"""
 
 from __future__ import annotations
 
+import hashlib
 import json
 from dataclasses import dataclass
 from typing import Any
 
-from kinetome.library.errors import BundleError, InvalidInputError
+from kinetome.library.errors import BundleError
 from kinetome.library.safety import CAUTION
-from kinetome.library.store.metadata import canonical_meta
-from kinetome.library.store.names import parse_ref, validate_kind, validate_role
-from kinetome.library.store.records import REASONS, FileEntry, ModelRecord, Note, VersionRecord, is_digest
+from kinetome.library.store.identity import artifact_digest, version_identity
+from kinetome.library.store.manifest_fields import (
+    MANIFEST_NAME,
+    checked,
+    fail,
+    get,
+    parse_blobs,
+    parse_files,
+    parse_identity,
+    parse_meta,
+    parse_notes,
+    parse_optional_ref,
+    parse_version_ref,
+)
+from kinetome.library.store.names import validate_kind, validate_task
+from kinetome.library.store.records import REASONS, ArtifactRecord, FileEntry, Note, VersionRecord
 
 __all__ = [
     "BUNDLE_FORMAT",
     "BUNDLE_FORMAT_VERSION",
     "MANIFEST_NAME",
+    "SEAL_NAME",
     "BUNDLE_NOTICE",
-    "BundleModel",
+    "BundleArtifact",
     "BundleVersion",
     "Manifest",
     "build_manifest",
+    "build_seal",
     "parse_manifest",
+    "check_seal",
 ]
 
 BUNDLE_FORMAT = "kinetome-bundle"
-BUNDLE_FORMAT_VERSION = 1
-MANIFEST_NAME = "manifest.json"
+BUNDLE_FORMAT_VERSION = 2
+MANIFEST_NAME = MANIFEST_NAME
+SEAL_NAME = "seal.json"
+SEAL_FORMAT = "kinetome-bundle-seal"
 BUNDLE_NOTICE = CAUTION  # written into every manifest
 
 
 @dataclass(frozen=True)
-class BundleModel:
+class BundleArtifact:
+    owner: str  # ref of the version in the bundle it is attached to
     kind: str
     revision: int
     created_at: str
+    computed_on: tuple[str, ...]
+    task: dict[str, Any]
+    settings: dict[str, Any]
+    software: dict[str, Any]
     meta: dict[str, Any]
+    digest: str
+    origin: dict[str, Any] | None
     files: tuple[FileEntry, ...]
+
+    @property
+    def ref(self) -> str:
+        return f"{self.owner}/{self.kind}#{self.revision}"
 
 
 @dataclass(frozen=True)
@@ -44,186 +80,194 @@ class BundleVersion:
     ref: str
     name: str
     number: int
+    identity: str
     parent: str | None
+    parent_identity: str | None
     reason: str
+    origin: dict[str, Any] | None
     created_at: str
     meta: dict[str, Any]
     files: tuple[FileEntry, ...]
     notes: tuple[tuple[str, str], ...]  # (text, created_at)
-    models: tuple[BundleModel, ...]
+    current_for: tuple[str, ...]
 
 
 @dataclass(frozen=True)
 class Manifest:
+    format_version: int
+    store_id: str | None  # the exporting store
     root: str
     versions: tuple[BundleVersion, ...]  # parents before children
+    artifacts: tuple[BundleArtifact, ...]
     blobs: dict[str, int]  # digest -> size
+
+    @property
+    def root_identity(self) -> str:
+        return next(v.identity for v in self.versions if v.ref == self.root)
 
 
 def _files_json(files: tuple[FileEntry, ...]) -> dict[str, dict[str, Any]]:
     return {e.role: {"digest": e.digest, "size": e.size} for e in files}
 
 
+def _version_entry(v: VersionRecord, notes: list[Note], current_for: list[str]) -> dict[str, Any]:
+    return {
+        "ref": v.ref,
+        "identity": v.identity,
+        "parent": v.parent,
+        "parent_identity": v.parent_identity,
+        "reason": v.reason,
+        "origin": v.origin,
+        "created_at": v.created_at,
+        "meta": v.meta,
+        "files": _files_json(v.files),
+        "notes": [{"text": n.text, "created_at": n.created_at} for n in notes],
+        "current_for": current_for,
+    }
+
+
+def _artifact_entry(a: ArtifactRecord) -> dict[str, Any]:
+    return {
+        "owner": a.version,
+        "kind": a.kind,
+        "revision": a.revision,
+        "created_at": a.created_at,
+        "computed_on": list(a.computed_on),
+        "task": a.task,
+        "settings": a.settings,
+        "software": a.software,
+        "meta": a.meta,
+        "digest": a.digest,
+        "origin": a.origin,
+        "files": _files_json(a.files),
+    }
+
+
 def build_manifest(
+    store_id: str,
     root: str,
     versions: list[VersionRecord],
-    models: dict[str, list[ModelRecord]],
+    artifacts: list[ArtifactRecord],
     notes: dict[str, list[Note]],
+    current_for: dict[str, list[str]],
 ) -> bytes:
-    """Manifest bytes for ``versions`` (parents first), with their models and notes."""
-    blobs: dict[str, int] = {}
-    entries = []
-    for v in versions:
-        for e in v.files:
-            blobs[e.digest] = e.size
-        model_entries = []
-        for m in models.get(v.ref, []):
-            for e in m.files:
-                blobs[e.digest] = e.size
-            model_entries.append(
-                {
-                    "kind": m.kind,
-                    "revision": m.revision,
-                    "created_at": m.created_at,
-                    "meta": m.meta,
-                    "files": _files_json(m.files),
-                }
-            )
-        entries.append(
-            {
-                "ref": v.ref,
-                "parent": v.parent,
-                "reason": v.reason,
-                "created_at": v.created_at,
-                "meta": v.meta,
-                "files": _files_json(v.files),
-                "notes": [{"text": n.text, "created_at": n.created_at} for n in notes.get(v.ref, [])],
-                "models": model_entries,
-            }
-        )
+    """Manifest bytes for ``versions`` (parents first), their artifacts, notes and current tasks."""
+    blobs = {e.digest: e.size for owner in [*versions, *artifacts] for e in owner.files}
     doc = {
         "format": BUNDLE_FORMAT,
         "format_version": BUNDLE_FORMAT_VERSION,
         "notice": BUNDLE_NOTICE,
+        "store": {"id": store_id},
         "root": root,
-        "versions": entries,
+        "versions": [_version_entry(v, notes.get(v.ref, []), current_for.get(v.ref, [])) for v in versions],
+        "artifacts": [_artifact_entry(a) for a in artifacts],
         "blobs": dict(sorted(blobs.items())),
     }
     return (json.dumps(doc, indent=1, sort_keys=True, ensure_ascii=False) + "\n").encode()
 
 
+def build_seal(manifest: bytes, root_identity: str) -> bytes:
+    doc = {
+        "format": SEAL_FORMAT,
+        "manifest_sha256": hashlib.sha256(manifest).hexdigest(),
+        "root_identity": root_identity,
+    }
+    return (json.dumps(doc, indent=1, sort_keys=True) + "\n").encode()
+
+
+def check_seal(seal: bytes | None, manifest: bytes) -> dict[str, Any]:
+    """The seal's fields, after checking that it covers exactly these manifest bytes."""
+    if seal is None:
+        raise BundleError(f"the bundle has no member {SEAL_NAME!r}, which a format-2 bundle must have; refused (re-export it)")
+    try:
+        doc = json.loads(seal.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as e:
+        raise BundleError(f"member {SEAL_NAME!r} is not JSON text ({e}); the bundle was damaged or altered") from None
+    if not isinstance(doc, dict) or doc.get("format") != SEAL_FORMAT:
+        raise BundleError(f"member {SEAL_NAME!r} must be a {SEAL_FORMAT!r} object; the bundle was damaged or altered")
+    actual = hashlib.sha256(manifest).hexdigest()
+    if doc.get("manifest_sha256") != actual:
+        raise BundleError(
+            f"member {MANIFEST_NAME!r} has sha256 {actual}, but {SEAL_NAME!r} seals {str(doc.get('manifest_sha256'))!r:.80}: "
+            "the manifest (metadata, notes, lineage or evidence) was changed after export; refused"
+        )
+    return doc
+
+
 # -- parsing an untrusted manifest -----------------------------------------------------
 
 
-def _fail(path: str, rule: str, got: object) -> BundleError:
-    return BundleError(f"member {MANIFEST_NAME!r}: {path} must {rule}, got {got!r:.120}; re-export the bundle")
+def _parse_origin(obj: object, path: str) -> dict[str, Any] | None:
+    if obj is None:
+        return None
+    meta = parse_meta(obj, path)
+    ref = meta.get("ref")
+    if ref is not None and not isinstance(ref, str):
+        raise fail(f"{path}.ref", "be null or a ref name@N", ref)
+    return meta
 
 
-def _get(obj: dict, key: str, kind: type | tuple[type, ...], path: str, rule: str) -> Any:
-    if key not in obj:
-        raise BundleError(f"member {MANIFEST_NAME!r}: {path}.{key} is missing; re-export the bundle")
-    value = obj[key]
-    if not isinstance(value, kind) or (kind is int and isinstance(value, bool)):
-        raise _fail(f"{path}.{key}", rule, value)
-    return value
-
-
-def _checked(fn, value, path: str, rule: str):
-    try:
-        return fn(value)
-    except InvalidInputError:
-        raise _fail(path, rule, value) from None
-
-
-def _parse_files(obj: object, path: str, blobs: dict[str, int]) -> tuple[FileEntry, ...]:
-    if not isinstance(obj, dict) or not obj:
-        raise _fail(path, "be a non-empty object of role -> {digest, size}", obj)
-    out = []
-    for role, spec in sorted(obj.items()):
-        _checked(validate_role, role, f"{path} key", "be a valid file role")
-        where = f"{path}[{role!r}]"
-        if not isinstance(spec, dict):
-            raise _fail(where, "be an object {digest, size}", spec)
-        digest = _get(spec, "digest", str, where, "be a sha256 hex digest")
-        size = _get(spec, "size", int, where, "be a whole number of bytes")
-        if not is_digest(digest):
-            raise _fail(f"{where}.digest", "be 64 lowercase hex characters", digest)
-        if digest not in blobs:
-            raise _fail(f"{where}.digest", "be listed in blobs", digest)
-        if blobs[digest] != size:
-            raise _fail(f"{where}.size", f"equal the size listed in blobs ({blobs[digest]})", size)
-        out.append(FileEntry(role, digest, size))
-    return tuple(out)
-
-
-def _parse_meta(obj: object, path: str) -> dict[str, Any]:
-    try:
-        return json.loads(canonical_meta(obj, what=path))
-    except InvalidInputError as e:
-        raise BundleError(f"member {MANIFEST_NAME!r}: {e}; re-export the bundle") from None
-
-
-def _parse_version(obj: object, path: str, blobs: dict[str, int]) -> BundleVersion:
+def _parse_version(obj: object, path: str, blobs: dict[str, int], identities: dict[str, str]) -> BundleVersion:
     if not isinstance(obj, dict):
-        raise _fail(path, "be an object", obj)
-    ref = _get(obj, "ref", str, path, "be a ref name@N")
-    name, number = _checked(parse_ref, ref, f"{path}.ref", "be a ref name@N")
-    if number is None:
-        raise _fail(f"{path}.ref", "be a ref name@N with a number", ref)
-    parent = obj.get("parent")
-    if parent is not None:
-        if not isinstance(parent, str) or _checked(parse_ref, parent, f"{path}.parent", "be null or a ref name@N")[1] is None:
-            raise _fail(f"{path}.parent", "be null or a ref name@N", parent)
-    reason = _get(obj, "reason", str, path, f"be one of {REASONS}")
+        raise fail(path, "be an object", obj)
+    ref, name, number = parse_version_ref(obj, "ref", path)
+    parent = parse_optional_ref(obj, "parent", path)
+    parent_identity = parse_identity(obj.get("parent_identity"), f"{path}.parent_identity", optional=True)
+    if parent is not None and parent in identities and identities[parent] != parent_identity:
+        raise fail(f"{path}.parent_identity", f"equal the identity of {parent} in this bundle", parent_identity)
+    reason = get(obj, "reason", str, path, f"be one of {REASONS}")
     if reason not in REASONS:
-        raise _fail(f"{path}.reason", f"be one of {REASONS}", reason)
-    created_at = _get(obj, "created_at", str, path, "be an ISO 8601 time")
-    notes_obj = obj.get("notes", [])
-    if not isinstance(notes_obj, list):
-        raise _fail(f"{path}.notes", "be a list", notes_obj)
-    notes = []
-    for i, n in enumerate(notes_obj):
-        where = f"{path}.notes[{i}]"
-        if not isinstance(n, dict):
-            raise _fail(where, "be an object {text, created_at}", n)
-        notes.append((_get(n, "text", str, where, "be text"), _get(n, "created_at", str, where, "be an ISO 8601 time")))
-    models_obj = obj.get("models", [])
-    if not isinstance(models_obj, list):
-        raise _fail(f"{path}.models", "be a list", models_obj)
-    models = []
-    for i, m in enumerate(models_obj):
-        where = f"{path}.models[{i}]"
-        if not isinstance(m, dict):
-            raise _fail(where, "be an object", m)
-        kind = _checked(validate_kind, _get(m, "kind", str, where, "be a model kind"), f"{where}.kind", "be a model kind")
-        revision = _get(m, "revision", int, where, "be a whole number >= 1")
-        if revision < 1:
-            raise _fail(f"{where}.revision", "be a whole number >= 1", revision)
-        models.append(
-            BundleModel(
-                kind=kind,
-                revision=revision,
-                created_at=_get(m, "created_at", str, where, "be an ISO 8601 time"),
-                meta=_parse_meta(m.get("meta", {}), f"{where}.meta"),
-                files=_parse_files(m.get("files"), f"{where}.files", blobs),
-            )
-        )
+        raise fail(f"{path}.reason", f"be one of {REASONS}", reason)
+    files = parse_files(obj.get("files"), f"{path}.files", blobs)
+    identity = parse_identity(obj.get("identity"), f"{path}.identity")
+    expected = version_identity(name, {e.role: e.digest for e in files}, parent_identity=parent_identity, reason=reason)
+    if identity != expected:
+        raise fail(f"{path}.identity", f"be the identity of its files, reason and parent ({expected[:12]}...)", identity)
+    current_for = obj.get("current_for", [])
+    if not isinstance(current_for, list):
+        raise fail(f"{path}.current_for", "be a list of task names", current_for)
     return BundleVersion(
         ref=ref,
         name=name,
         number=number,
+        identity=identity,
         parent=parent,
+        parent_identity=parent_identity,
         reason=reason,
-        created_at=created_at,
-        meta=_parse_meta(obj.get("meta", {}), f"{path}.meta"),
-        files=_parse_files(obj.get("files"), f"{path}.files", blobs),
-        notes=tuple(notes),
-        models=tuple(models),
+        origin=_parse_origin(obj.get("origin"), f"{path}.origin"),
+        created_at=get(obj, "created_at", str, path, "be an ISO 8601 time"),
+        meta=parse_meta(obj.get("meta", {}), f"{path}.meta"),
+        files=files,
+        notes=parse_notes(obj.get("notes", []), f"{path}.notes"),
+        current_for=tuple(checked(validate_task, t, f"{path}.current_for", "hold task names") for t in current_for),
     )
 
 
-def parse_manifest(data: bytes) -> Manifest:
-    """Parse and check manifest bytes; every problem is a BundleError naming the field."""
+def _parse_artifact(obj: object, path: str, blobs: dict[str, int], refs: set[str]) -> BundleArtifact:
+    if not isinstance(obj, dict):
+        raise fail(path, "be an object", obj)
+    owner, _, _ = parse_version_ref(obj, "owner", path)
+    if owner not in refs:
+        raise fail(f"{path}.owner", "be the ref of a version in this bundle", owner)
+    kind = checked(validate_kind, get(obj, "kind", str, path, "be an artifact kind"), f"{path}.kind", "be an artifact kind")
+    revision = get(obj, "revision", int, path, "be a whole number >= 1")
+    if revision < 1:
+        raise fail(f"{path}.revision", "be a whole number >= 1", revision)
+    computed_on = get(obj, "computed_on", list, path, "be a list of identities")
+    ids = tuple(parse_identity(x, f"{path}.computed_on[{i}]") for i, x in enumerate(computed_on))
+    parts = {k: parse_meta(obj.get(k, {}), f"{path}.{k}") for k in ("task", "settings", "software", "meta")}
+    files = parse_files(obj.get("files"), f"{path}.files", blobs)
+    digest = parse_identity(obj.get("digest"), f"{path}.digest")
+    expected = artifact_digest(kind=kind, computed_on=ids, files={e.role: e.digest for e in files}, **parts)
+    if digest != expected:
+        raise fail(f"{path}.digest", f"be the digest of its provenance, metadata and files ({expected[:12]}...)", digest)
+    return BundleArtifact(
+        owner=owner, kind=kind, revision=revision, created_at=get(obj, "created_at", str, path, "be an ISO 8601 time"),
+        computed_on=ids, digest=digest, origin=_parse_origin(obj.get("origin"), f"{path}.origin"), files=files, **parts,
+    )
+
+
+def _decode(data: bytes) -> dict:
     try:
         doc = json.loads(data.decode("utf-8"))
     except UnicodeDecodeError as e:
@@ -235,44 +279,66 @@ def parse_manifest(data: bytes) -> Manifest:
             f"member {MANIFEST_NAME!r} is not valid JSON: {e.msg} at line {e.lineno} column {e.colno}; re-export the bundle"
         ) from None
     if not isinstance(doc, dict):
-        raise _fail("the top level", "be a JSON object", type(doc).__name__)
+        raise fail("the top level", "be a JSON object", type(doc).__name__)
     if doc.get("format") != BUNDLE_FORMAT:
-        raise _fail("format", f"be {BUNDLE_FORMAT!r}", doc.get("format"))
-    fv = doc.get("format_version")
-    if fv != BUNDLE_FORMAT_VERSION:
-        raise _fail("format_version", f"be {BUNDLE_FORMAT_VERSION} (upgrade kinetome for newer bundles)", fv)
-    blobs_obj = doc.get("blobs")
-    if not isinstance(blobs_obj, dict):
-        raise _fail("blobs", "be an object of sha256 -> size", blobs_obj)
-    blobs: dict[str, int] = {}
-    for digest, size in blobs_obj.items():
-        if not is_digest(digest):
-            raise _fail("blobs key", "be 64 lowercase hex characters", digest)
-        if not isinstance(size, int) or isinstance(size, bool) or size < 0:
-            raise _fail(f"blobs[{digest!r}]", "be a whole number of bytes >= 0", size)
-        blobs[digest] = size
+        raise fail("format", f"be {BUNDLE_FORMAT!r}", doc.get("format"))
+    return doc
+
+
+def manifest_format(data: bytes) -> int:
+    """The format version a manifest declares (1 or 2); BundleError for anything else."""
+    fv = _decode(data).get("format_version")
+    if fv not in (1, BUNDLE_FORMAT_VERSION) or isinstance(fv, bool):
+        raise fail("format_version", f"be 1 or {BUNDLE_FORMAT_VERSION} (upgrade kinetome for newer bundles)", fv)
+    return int(fv)
+
+
+def parse_manifest(data: bytes) -> Manifest:
+    """Parse and check manifest bytes of either format; every problem is a BundleError naming the field."""
+    doc = _decode(data)
+    if manifest_format(data) == 1:
+        from kinetome.library.store.manifest_v1 import parse_v1
+
+        return parse_v1(doc)
+    blobs = parse_blobs(doc.get("blobs"))
     versions_obj = doc.get("versions")
     if not isinstance(versions_obj, list) or not versions_obj:
-        raise _fail("versions", "be a non-empty list", versions_obj)
-    versions = [_parse_version(v, f"versions[{i}]", blobs) for i, v in enumerate(versions_obj)]
-    seen: set[str] = set()
-    for i, v in enumerate(versions):
-        if v.ref in seen:
-            raise _fail(f"versions[{i}].ref", "be unique in the bundle", v.ref)
-        seen.add(v.ref)
-    refs = [v.ref for v in versions]
-    for i, v in enumerate(versions):
-        if v.parent is not None and v.parent in refs and refs.index(v.parent) >= i:
-            raise _fail(f"versions[{i}].parent", "come earlier in the list (parents first)", v.parent)
-        kinds = [(m.kind, m.revision) for m in v.models]
-        if len(set(kinds)) != len(kinds):
-            raise _fail(f"versions[{i}].models", "hold each (kind, revision) once", kinds)
-    used = {e.digest for v in versions for e in v.files} | {e.digest for v in versions for m in v.models for e in m.files}
+        raise fail("versions", "be a non-empty list", versions_obj)
+    identities: dict[str, str] = {}
+    versions = []
+    for i, obj in enumerate(versions_obj):
+        v = _parse_version(obj, f"versions[{i}]", blobs, identities)
+        check_order(versions_obj, i, v.ref, v.parent, seen=identities)
+        identities[v.ref] = v.identity
+        versions.append(v)
+    artifacts_obj = doc.get("artifacts", [])
+    if not isinstance(artifacts_obj, list):
+        raise fail("artifacts", "be a list", artifacts_obj)
+    artifacts = [_parse_artifact(a, f"artifacts[{i}]", blobs, set(identities)) for i, a in enumerate(artifacts_obj)]
+    return _finish(doc, versions, artifacts, blobs, format_version=2)
+
+
+def check_order(entries: list, i: int, ref: str, parent: str | None, *, seen: dict[str, str]) -> None:
+    """Refs are unique and parents come before their children."""
+    if ref in seen:
+        raise fail(f"versions[{i}].ref", "be unique in the bundle", ref)
+    later = {x.get("ref") for x in entries[i + 1 :] if isinstance(x, dict)}
+    if parent is not None and parent not in seen and (parent in later or parent == ref):
+        raise fail(f"versions[{i}].parent", "come earlier in the list (parents first)", parent)
+
+
+def _finish(doc: dict, versions: list, artifacts: list, blobs: dict[str, int], *, format_version: int) -> Manifest:
+    """Checks shared by both formats: each artifact revision once, every blob used, a root among the versions."""
+    keys = [(a.owner, a.kind, a.revision) for a in artifacts]
+    if len(set(keys)) != len(keys):
+        raise fail("artifacts", "hold each (owner, kind, revision) once", keys)
+    used = {e.digest for owner in [*versions, *artifacts] for e in owner.files}
     unused = sorted(set(blobs) - used)
     if unused:
-        raise _fail(f"blobs[{unused[0]!r}]", "be used by a version or model file", "unused")
+        raise fail(f"blobs[{unused[0]!r}]", "be used by a version or artifact file", "unused")
     root = doc.get("root")
-    if root not in refs:
-        raise _fail("root", "be the ref of one of the versions", root)
-    return Manifest(root=root, versions=tuple(versions), blobs=blobs)
-
+    if root not in {v.ref for v in versions}:
+        raise fail("root", "be the ref of one of the versions", root)
+    store = doc.get("store") if isinstance(doc.get("store"), dict) else {}
+    store_id = store.get("id") if isinstance(store.get("id"), str) else None
+    return Manifest(format_version, store_id, root, tuple(versions), tuple(artifacts), blobs)

@@ -3,13 +3,20 @@
 from __future__ import annotations
 
 import re
+from dataclasses import dataclass
 
 from kinetome.library.errors import InvalidInputError
 
 __all__ = [
     "NAME_PATTERN",
     "ROLE_PATTERN",
+    "TASK_PATTERN",
+    "REF_PATTERN",
+    "NOMINAL_TASK",
+    "Pin",
     "validate_name",
+    "validate_task",
+    "parse_pin",
     "validate_role",
     "validate_kind",
     "parse_ref",
@@ -18,10 +25,18 @@ __all__ = [
 
 NAME_PATTERN = r"[a-z0-9][a-z0-9_-]{0,63}"
 ROLE_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]{0,127}"
+# a task is named by its variant's name (the same rule as TaskVariant.name); "nominal" is the unchanged task
+TASK_PATTERN = r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}"
+NOMINAL_TASK = "nominal"
+IDENTITY_PREFIX_MIN = 12
+# NAME, NAME@N (local number) or NAME@id:HEX (content identity, 12 to 64 hex characters)
+REF_PATTERN = NAME_PATTERN + r"(@([1-9][0-9]{0,17}|id:[0-9a-f]{12,64}))?"
 
 _NAME_RE = re.compile(NAME_PATTERN)
 _ROLE_RE = re.compile(ROLE_PATTERN)
+_TASK_RE = re.compile(TASK_PATTERN)
 _NUMBER_RE = re.compile(r"[1-9][0-9]{0,17}")
+_IDENTITY_RE = re.compile(r"[0-9a-f]{12,64}")
 _NAME_RULE = (
     f"match {NAME_PATTERN} (lowercase letters, digits, '_' or '-', "
     "starting with a letter or digit, at most 64 characters)"
@@ -72,6 +87,43 @@ def parse_ref(ref: object) -> tuple[str, int | None]:
             f"got {number!r}; write NAME for the latest version or NAME@N, e.g. '{name}@1'"
         )
     return name, int(number)
+
+
+def validate_task(task: object) -> str:
+    """Return ``task`` if it is a valid task name (a variant name such as ``heavy_payload``, or ``nominal``)."""
+    if not isinstance(task, str) or _TASK_RE.fullmatch(task) is None:
+        raise InvalidInputError(
+            f"task must match {TASK_PATTERN} (a task variant's name, e.g. 'heavy_payload', or 'nominal'), got {task!r}"
+        )
+    return task
+
+
+@dataclass(frozen=True)
+class Pin:
+    """A parsed reference: a bare name (the current version), ``name@N``, or ``name@id:HEX``."""
+
+    name: str
+    number: int | None = None
+    identity: str | None = None  # a hex prefix of the content identity
+
+    @property
+    def pinned(self) -> bool:
+        return self.number is not None or self.identity is not None
+
+
+def parse_pin(ref: object) -> Pin:
+    """Parse ``name``, ``name@3`` or ``name@id:3f2a9c41d0e2`` (identity prefixes of 12 to 64 hex characters)."""
+    if isinstance(ref, str) and "@id:" in ref:
+        name, _, prefix = ref.partition("@id:")
+        validate_name(name, what=f"skill name in ref {ref!r}")
+        if _IDENTITY_RE.fullmatch(prefix) is None:
+            raise InvalidInputError(
+                f"identity prefix in ref {ref!r} must be {IDENTITY_PREFIX_MIN} to 64 lowercase hex characters, "
+                f"got {prefix!r}; copy the identity `kinetome show {name}` prints"
+            )
+        return Pin(name, identity=prefix)
+    name, number = parse_ref(ref)
+    return Pin(name, number=number)
 
 
 def format_ref(name: str, number: int) -> str:

@@ -1,4 +1,4 @@
-"""Immutable records the store hands out: versions, files, models, notes, summaries."""
+"""Immutable records the store hands out: versions, files, artifacts, current versions, notes, summaries."""
 
 from __future__ import annotations
 
@@ -12,16 +12,23 @@ from kinetome.library.store.names import format_ref, validate_kind, validate_nam
 
 __all__ = [
     "REASONS",
+    "ARTIFACT_KINDS",
     "is_digest",
     "FileEntry",
     "VersionRecord",
+    "ArtifactRecord",
     "ModelRecord",
+    "CurrentEntry",
     "Note",
     "SkillSummary",
     "AddResult",
+    "ImportReport",
 ]
 
-REASONS = ("registered", "retrained", "imported")
+# Why a version exists. An imported version keeps its reason; where it came from is its ``origin``.
+REASONS = ("registered", "revised", "retrained", "initiation-learned")
+# The kinds of evidence kinetome itself attaches (any valid kind name may be attached).
+ARTIFACT_KINDS = ("option-models", "check-result", "sweep", "initiation-proposal")
 
 _DIGEST_RE = re.compile(r"[0-9a-f]{64}")
 
@@ -95,9 +102,14 @@ class VersionRecord(_StoredFiles):
     reason: str
     meta_json: str
     created_at: str
+    identity: str
+    parent_identity: str | None
+    origin_json: str | None  # where an imported version came from: store, original ref, created_at
 
     def __post_init__(self) -> None:
         validate_name(self.name)
+        if not is_digest(self.identity):
+            raise ValueError(f"VersionRecord.identity must be 64 lowercase hex characters, got {self.identity!r}")
         if not isinstance(self.number, int) or self.number < 1:
             raise ValueError(f"VersionRecord.number must be an int >= 1, got {self.number!r}")
         if self.reason not in REASONS:
@@ -107,11 +119,24 @@ class VersionRecord(_StoredFiles):
     def ref(self) -> str:
         return format_ref(self.name, self.number)
 
+    @property
+    def identity_ref(self) -> str:
+        """The portable pin ``name@id:<first 16 hex>``."""
+        return f"{self.name}@id:{self.identity[:16]}"
+
+    @property
+    def origin(self) -> dict[str, Any] | None:
+        return None if self.origin_json is None else json.loads(self.origin_json)
 
 
 @dataclass(frozen=True)
-class ModelRecord(_StoredFiles):
-    """One revision of an option model attached to a version, written ``name@N/kind#R``."""
+class ArtifactRecord(_StoredFiles):
+    """One revision of a piece of evidence attached to a version, written ``name@N/kind#R``.
+
+    ``computed_on`` lists the content identities it was computed on (in order, e.g. a
+    chain's skills), ``task`` and ``settings`` what it was computed for, ``software``
+    the versions it was computed with, and ``digest`` covers all of that and the files.
+    """
 
     version: str
     kind: str
@@ -119,16 +144,56 @@ class ModelRecord(_StoredFiles):
     files: tuple[FileEntry, ...]
     meta_json: str
     created_at: str
+    computed_on: tuple[str, ...]
+    task_json: str
+    settings_json: str
+    software_json: str
+    digest: str
+    origin_json: str | None = None
 
     def __post_init__(self) -> None:
         validate_kind(self.kind)
         if not isinstance(self.revision, int) or self.revision < 1:
-            raise ValueError(f"ModelRecord.revision must be an int >= 1, got {self.revision!r}")
+            raise ValueError(f"ArtifactRecord.revision must be an int >= 1, got {self.revision!r}")
 
     @property
     def ref(self) -> str:
         return f"{self.version}/{self.kind}#{self.revision}"
 
+    @property
+    def task(self) -> dict[str, Any]:
+        return json.loads(self.task_json)
+
+    @property
+    def settings(self) -> dict[str, Any]:
+        return json.loads(self.settings_json)
+
+    @property
+    def software(self) -> dict[str, Any]:
+        return json.loads(self.software_json)
+
+    @property
+    def origin(self) -> dict[str, Any] | None:
+        return None if self.origin_json is None else json.loads(self.origin_json)
+
+
+ModelRecord = ArtifactRecord  # option models are artifacts of kind "option-models"
+
+
+@dataclass(frozen=True)
+class CurrentEntry:
+    """A skill's current version for one task, and why: ``reason`` and JSON ``evidence``."""
+
+    name: str
+    task: str
+    version: str
+    reason: str
+    evidence_json: str
+    created_at: str
+
+    @property
+    def evidence(self) -> dict[str, Any]:
+        return json.loads(self.evidence_json)
 
 
 @dataclass(frozen=True)
@@ -151,20 +216,38 @@ class SkillSummary:
     latest_created_at: str
     description: str | None
     env: str | None
+    current: int | None = None  # number of the current version for nominal (None: never set)
 
     @property
     def latest_ref(self) -> str:
         return format_ref(self.name, self.latest)
 
+    @property
+    def current_ref(self) -> str:
+        """The version a bare name resolves to on the nominal task."""
+        return format_ref(self.name, self.current if self.current is not None else self.latest)
+
 
 @dataclass(frozen=True)
 class AddResult:
-    """What ``Store.add`` did: the version, and whether it was newly created."""
+    """What ``Store.add`` / ``Store.register`` did: the version, and whether it is new."""
 
     version: VersionRecord
-    created: bool
+    is_new: bool
 
     @property
-    def is_new(self) -> bool:
-        """Whether this call stored a new version (False: identical content existed)."""
-        return self.created
+    def created(self) -> bool:
+        """Old name of ``is_new``."""
+        return self.is_new
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    """What ``import_bundle`` did: the store's versions for the bundle's (parents first),
+    which refs are new here, the current versions it set, and warnings (e.g. an unsealed old bundle)."""
+
+    versions: tuple[VersionRecord, ...]
+    added: tuple[str, ...]
+    currents_set: tuple[str, ...]
+    root_identity: str
+    warnings: tuple[str, ...] = ()

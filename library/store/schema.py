@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sqlite3
+import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -11,28 +12,36 @@ from kinetome.library.errors import StoreIntegrityError
 
 __all__ = ["SCHEMA_VERSION", "SCHEMA", "connect", "write_transaction"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 BUSY_TIMEOUT_S = 60.0
 
-# Stored in PRAGMA user_version. Versions and model revisions are only ever inserted.
+# Stored in PRAGMA user_version (schema 1: the first wave's stores, migrated on open by
+# ``migrate.py``). Versions, artifacts, notes and current-version events are only ever inserted.
 SCHEMA: tuple[str, ...] = (
+    """CREATE TABLE IF NOT EXISTS store_info (
+        key   TEXT PRIMARY KEY,
+        value TEXT NOT NULL
+    )""",
     """CREATE TABLE IF NOT EXISTS blobs (
         digest TEXT PRIMARY KEY CHECK (length(digest) = 64),
         size   INTEGER NOT NULL CHECK (size >= 0)
     )""",
     """CREATE TABLE IF NOT EXISTS versions (
-        id          INTEGER PRIMARY KEY,
-        name        TEXT    NOT NULL,
-        number      INTEGER NOT NULL CHECK (number >= 1),
-        parent_id   INTEGER REFERENCES versions(id),
-        reason      TEXT    NOT NULL CHECK (reason IN ('registered', 'retrained', 'imported')),
-        meta        TEXT    NOT NULL,
-        content_key TEXT    NOT NULL,
-        created_at  TEXT    NOT NULL,
-        UNIQUE (name, number),
-        UNIQUE (name, content_key)
+        id              INTEGER PRIMARY KEY,
+        name            TEXT    NOT NULL,
+        number          INTEGER NOT NULL CHECK (number >= 1),
+        parent_id       INTEGER REFERENCES versions(id),
+        parent_identity TEXT    CHECK (parent_identity IS NULL OR length(parent_identity) = 64),
+        reason          TEXT    NOT NULL CHECK (reason IN ('registered', 'revised', 'retrained', 'initiation-learned')),
+        identity        TEXT    NOT NULL UNIQUE CHECK (length(identity) = 64),
+        origin          TEXT,
+        meta            TEXT    NOT NULL,
+        content_key     TEXT    NOT NULL,
+        created_at      TEXT    NOT NULL,
+        UNIQUE (name, number)
     )""",
     "CREATE INDEX IF NOT EXISTS versions_parent ON versions(parent_id)",
+    "CREATE INDEX IF NOT EXISTS versions_content ON versions(name, content_key)",
     """CREATE TABLE IF NOT EXISTS version_files (
         version_id INTEGER NOT NULL REFERENCES versions(id),
         role       TEXT    NOT NULL,
@@ -48,24 +57,42 @@ SCHEMA: tuple[str, ...] = (
         created_at TEXT    NOT NULL
     )""",
     "CREATE INDEX IF NOT EXISTS notes_version ON notes(version_id)",
-    """CREATE TABLE IF NOT EXISTS models (
+    """CREATE TABLE IF NOT EXISTS currents (
+        id         INTEGER PRIMARY KEY,
+        name       TEXT    NOT NULL,
+        task       TEXT    NOT NULL,
+        version_id INTEGER NOT NULL REFERENCES versions(id),
+        reason     TEXT    NOT NULL,
+        evidence   TEXT    NOT NULL,
+        created_at TEXT    NOT NULL
+    )""",
+    "CREATE INDEX IF NOT EXISTS currents_name_task ON currents(name, task, id)",
+    """CREATE TABLE IF NOT EXISTS artifacts (
         id          INTEGER PRIMARY KEY,
         version_id  INTEGER NOT NULL REFERENCES versions(id),
         kind        TEXT    NOT NULL,
         revision    INTEGER NOT NULL CHECK (revision >= 1),
+        computed_on TEXT    NOT NULL,
+        task        TEXT    NOT NULL,
+        settings    TEXT    NOT NULL,
+        software    TEXT    NOT NULL,
         meta        TEXT    NOT NULL,
+        lookup_key  TEXT    NOT NULL,
+        digest      TEXT    NOT NULL CHECK (length(digest) = 64),
         content_key TEXT    NOT NULL,
+        origin      TEXT,
         created_at  TEXT    NOT NULL,
         UNIQUE (version_id, kind, revision)
     )""",
-    """CREATE TABLE IF NOT EXISTS model_files (
-        model_id INTEGER NOT NULL REFERENCES models(id),
-        role     TEXT    NOT NULL,
-        digest   TEXT    NOT NULL REFERENCES blobs(digest),
-        size     INTEGER NOT NULL,
-        PRIMARY KEY (model_id, role)
+    "CREATE INDEX IF NOT EXISTS artifacts_lookup ON artifacts(kind, lookup_key)",
+    """CREATE TABLE IF NOT EXISTS artifact_files (
+        artifact_id INTEGER NOT NULL REFERENCES artifacts(id),
+        role        TEXT    NOT NULL,
+        digest      TEXT    NOT NULL REFERENCES blobs(digest),
+        size        INTEGER NOT NULL,
+        PRIMARY KEY (artifact_id, role)
     )""",
-    "CREATE INDEX IF NOT EXISTS model_files_digest ON model_files(digest)",
+    "CREATE INDEX IF NOT EXISTS artifact_files_digest ON artifact_files(digest)",
 )
 
 
@@ -97,7 +124,12 @@ def _prepare(conn: sqlite3.Connection, path: Path, *, create: bool) -> None:
             if conn.execute("PRAGMA user_version").fetchone()[0] == 0:
                 for statement in SCHEMA:
                     conn.execute(statement)
+                conn.execute("INSERT INTO store_info (key, value) VALUES ('store_id', ?)", (uuid.uuid4().hex,))
                 conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+    elif version < SCHEMA_VERSION:
+        from kinetome.library.store.migrate import migrate_index
+
+        migrate_index(conn, path, from_version=version)
     elif version > SCHEMA_VERSION:
         raise StoreIntegrityError(
             f"{path} has index schema {version}, newer than this kinetome understands ({SCHEMA_VERSION}); "

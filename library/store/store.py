@@ -1,4 +1,4 @@
-"""``Store``: immutable skill versions with lineage, notes and option models over one folder."""
+"""``Store``: immutable skill versions with lineage, current versions per task, notes and artifacts over one folder."""
 
 from __future__ import annotations
 
@@ -11,18 +11,13 @@ from pathlib import Path
 from kinetome.library.errors import InvalidInputError, NotFoundError, StoreIntegrityError
 from kinetome.library.store import index
 from kinetome.library.store.blobs import BlobDir
+from kinetome.library.store.identity import version_identity
 from kinetome.library.store.metadata import canonical_meta
-from kinetome.library.store.names import format_ref, parse_ref, validate_kind, validate_name, validate_role
-from kinetome.library.store.records import (
-    REASONS,
-    AddResult,
-    FileEntry,
-    ModelRecord,
-    Note,
-    SkillSummary,
-    VersionRecord,
-)
+from kinetome.library.store.names import NOMINAL_TASK, format_ref, parse_pin, parse_ref, validate_name, validate_role, validate_task
+from kinetome.library.store.records import REASONS, AddResult, FileEntry, Note, SkillSummary, VersionRecord
 from kinetome.library.store.schema import connect, write_transaction
+from kinetome.library.store.store_artifacts import ArtifactMethods
+from kinetome.library.store.store_currents import CurrentMethods
 from kinetome.library.store.verify import VerifyReport, verify_store
 
 __all__ = ["Store", "INDEX_NAME", "MAX_NOTE_CHARS"]
@@ -45,7 +40,7 @@ def _number_ranges(numbers: list[int]) -> str:
     return ", ".join(parts)
 
 
-def _check_files(files: object, *, what: str) -> dict[str, bytes]:
+def check_files(files: object, *, what: str) -> dict[str, bytes]:
     """Validate a role -> bytes mapping; returns plain bytes values."""
     if not isinstance(files, Mapping) or not files:
         raise InvalidInputError(
@@ -63,12 +58,12 @@ def _check_files(files: object, *, what: str) -> dict[str, bytes]:
     return out
 
 
-class Store:
+class Store(CurrentMethods, ArtifactMethods):
     """A store folder: ``index.sqlite`` plus ``blobs/<aa>/<sha256>``.
 
-    Versions and model revisions are only ever added. Each add writes its blobs
-    first (atomically) and then its index rows in one transaction, so a killed
-    add leaves at most unused blobs, never a partial version.
+    Versions, artifacts and current-version events are only ever added. Each add
+    writes its blobs first (atomically) and then its index rows in one transaction,
+    so a killed add leaves at most unused blobs, never a partial version.
     """
 
     def __init__(self, root: str | os.PathLike, *, create: bool = True):
@@ -86,6 +81,7 @@ class Store:
         self._blobs = BlobDir(self.root)
         self._blobs.create()
         self._conn = connect(self.index_path, create=create)
+        self.store_id = index.store_info(self._conn, "store_id") or ""
 
     # -- lifecycle ---------------------------------------------------------------------
 
@@ -120,24 +116,44 @@ class Store:
             hint = "the store is empty; register a skill first"
         return NotFoundError(f"no skill named {name!r} in the store at {self.root}; {hint}")
 
-    def _row(self, ref: str) -> tuple[int, VersionRecord]:
-        name, number = parse_ref(ref)
-        if number is None:
-            found = index.load_versions(
-                self._conn, "v.name = ? AND v.number = (SELECT MAX(number) FROM versions WHERE name = ?)", (name, name)
-            )
+    def _row(self, ref: str, task: str | None = None) -> tuple[int, VersionRecord]:
+        pin = parse_pin(ref)
+        if pin.identity is not None:
+            row_id = self._identity_row(pin.name, pin.identity)
+        elif pin.number is not None:
+            row_id = index.version_id(self._conn, pin.name, pin.number)
         else:
-            found = index.load_versions(self._conn, "v.name = ? AND v.number = ?", (name, number))
-        if not found:
-            raise self._not_found(name, number)
-        return found[0]
+            row_id = self._current_or_latest(pin.name, task)
+        if row_id is None:
+            raise self._not_found(pin.name, pin.number)
+        return row_id, self._load_id(row_id)
+
+    def _identity_row(self, name: str, prefix: str) -> int:
+        rows = index.find_by_identity_prefix(self._conn, name, prefix)
+        if not rows:
+            raise NotFoundError(
+                f"no version of {name} has identity {prefix}; `kinetome lineage {name}` lists its versions and identities"
+            )
+        if len(rows) > 1:
+            refs = ", ".join(self._load_id(r).ref for r in rows)
+            raise InvalidInputError(f"identity prefix {prefix} of {name} matches {refs}; give more hex characters")
+        return rows[0]
+
+    def _current_or_latest(self, name: str, task: str | None) -> int | None:
+        """The current version for ``task``, else for nominal, else the newest version."""
+        for t in dict.fromkeys([validate_task(task) if task is not None else NOMINAL_TASK, NOMINAL_TASK]):
+            row = index.current_row(self._conn, name, t)
+            if row is not None:
+                return row
+        return index.latest_row(self._conn, name)
 
     def _load_id(self, row_id: int) -> VersionRecord:
         return index.load_versions(self._conn, "v.id = ?", (row_id,))[0][1]
 
-    def get(self, ref: str) -> VersionRecord:
-        """The version ``name@N``, or the latest one for a bare ``name``."""
-        return self._row(ref)[1]
+    def get(self, ref: str, *, task: str | None = None) -> VersionRecord:
+        """The version ``name@N`` or ``name@id:HEX``; for a bare ``name`` the current version for
+        ``task`` (default nominal), else the current one for nominal, else the newest."""
+        return self._row(ref, task)[1]
 
     def exists(self, ref: str) -> bool:
         try:
@@ -158,16 +174,6 @@ class Store:
         description/env come from the newest version whose meta holds them as text
         (a newer version whose meta omits them keeps showing an older version's).
         """
-        rows = self._conn.execute(
-            "SELECT v.name, v.number, c.n, v.created_at,"
-            " (SELECT json_extract(d.meta, '$.description') FROM versions d WHERE d.name = v.name"
-            "   AND json_type(d.meta, '$.description') = 'text' ORDER BY d.number DESC LIMIT 1),"
-            " (SELECT json_extract(e.meta, '$.env') FROM versions e WHERE e.name = v.name"
-            "   AND json_type(e.meta, '$.env') = 'text' ORDER BY e.number DESC LIMIT 1)"
-            " FROM versions v"
-            " JOIN (SELECT name, MAX(number) AS top, COUNT(*) AS n FROM versions GROUP BY name) c"
-            " ON c.name = v.name AND c.top = v.number ORDER BY v.name"
-        ).fetchall()
         return [
             SkillSummary(
                 name=name,
@@ -176,8 +182,9 @@ class Store:
                 latest_created_at=created_at,
                 description=description,
                 env=env,
+                current=None if current is None else int(current),
             )
-            for name, number, count, created_at, description, env in rows
+            for name, number, count, created_at, description, env, current in index.skill_summaries(self._conn)
         ]
 
     def history(self, name: str) -> list[VersionRecord]:
@@ -194,13 +201,13 @@ class Store:
         chain = [record]
         seen = {row_id}
         while True:
-            parent = self._conn.execute("SELECT parent_id FROM versions WHERE id = ?", (row_id,)).fetchone()[0]
+            parent = index.parent_row(self._conn, row_id)
             if parent is None:
                 return chain
             if parent in seen:
                 raise StoreIntegrityError(f"lineage of {ref} loops back to {chain[-1].ref}; the index is damaged")
             seen.add(parent)
-            row_id = int(parent)
+            row_id = parent
             chain.append(self._load_id(row_id))
 
     def children(self, ref: str) -> list[VersionRecord]:
@@ -213,6 +220,21 @@ class Store:
     def _store_files(self, payload: dict[str, bytes]) -> tuple[FileEntry, ...]:
         return tuple(FileEntry(role, self._blobs.put(data), len(data)) for role, data in sorted(payload.items()))
 
+    def _insert(self, conn, name: str, entries: tuple[FileEntry, ...], parent_id: int | None, reason: str, meta_json: str) -> int:
+        parent_identity = None if parent_id is None else self._load_id(parent_id).identity
+        digests = {e.role: e.digest for e in entries}
+        return index.insert_version(
+            conn,
+            name=name,
+            files=entries,
+            parent_id=parent_id,
+            parent_identity=parent_identity,
+            reason=reason,
+            identity=version_identity(name, digests, parent_identity=parent_identity, reason=reason),
+            meta_json=meta_json,
+            created_at=index.utc_now(),
+        )
+
     def add(
         self,
         name: str,
@@ -222,19 +244,19 @@ class Store:
         reason: str = "registered",
         meta: Mapping | None = None,
     ) -> AddResult:
-        """Add ``name@(latest+1)`` holding ``files`` (role -> bytes).
+        """Add ``name@(highest+1)`` holding ``files`` (role -> bytes); current versions do not change.
 
         If a version of ``name`` already has exactly these role -> content pairs, it
-        is returned with ``created=False`` and nothing changes (parent, reason and
+        is returned with ``is_new=False`` and nothing changes (parent, reason and
         meta of the call are then ignored).
         """
         validate_name(name)
         if reason not in REASONS:
             raise InvalidInputError(f"reason must be one of {', '.join(REASONS)}, got {reason!r}")
-        if reason == "retrained" and parent is None:
-            raise InvalidInputError("a retrained version needs its parent, got parent=None; pass parent='name@N'")
+        if reason in ("retrained", "revised", "initiation-learned") and parent is None:
+            raise InvalidInputError(f"a {reason} version needs its parent, got parent=None; pass parent='name@N'")
         meta_json = canonical_meta(meta)
-        payload = _check_files(files, what="files")
+        payload = check_files(files, what="files")
         # Versions are never deleted, so a parent found now still exists at commit time.
         parent_id = None if parent is None else self._row(parent)[0]
         entries = self._store_files(payload)
@@ -242,19 +264,32 @@ class Store:
         with write_transaction(self._conn) as conn:
             existing = index.find_by_content(conn, name, key)
             if existing is not None:
-                created, row_id = False, existing
-            else:
-                row_id = index.insert_version(
-                    conn,
-                    name=name,
-                    files=entries,
-                    parent_id=parent_id,
-                    reason=reason,
-                    meta_json=meta_json,
-                    created_at=index.utc_now(),
-                )
-                created = True
-        return AddResult(self._load_id(row_id), created)
+                return AddResult(self._load_id(existing), False)
+            row_id = self._insert(conn, name, entries, parent_id, reason, meta_json)
+        return AddResult(self._load_id(row_id), True)
+
+    def register(self, name: str, files: Mapping[str, bytes], *, meta: Mapping | None = None) -> AddResult:
+        """Store a spec's version and make it current for the nominal task.
+
+        The first version of a name is ``registered``; a changed spec under an existing
+        name is ``revised`` with the nominal current version (else the newest) as parent.
+        Identical content returns the existing version and changes nothing.
+        """
+        validate_name(name)
+        meta_json = canonical_meta(meta)
+        entries = self._store_files(check_files(files, what="files"))
+        key = index.content_key({e.role: e.digest for e in entries})
+        with write_transaction(self._conn) as conn:
+            existing = index.find_by_content(conn, name, key)
+            if existing is not None:
+                return AddResult(self._load_id(existing), False)
+            parent_id = self._current_or_latest(name, None)
+            reason = "registered" if parent_id is None else "revised"
+            row_id = self._insert(conn, name, entries, parent_id, reason, meta_json)
+            index.insert_current(
+                conn, name=name, task=NOMINAL_TASK, version_row=row_id, reason=reason, evidence_json="{}", created_at=index.utc_now()
+            )
+        return AddResult(self._load_id(row_id), True)
 
     # -- notes -------------------------------------------------------------------------
 
@@ -275,65 +310,8 @@ class Store:
         row_id, record = self._row(ref)
         return index.load_notes(self._conn, row_id, record.ref)
 
-    # -- option models -----------------------------------------------------------------
-
-    def attach_model(self, ref: str, kind: str, files: Mapping[str, bytes], meta: Mapping | None = None) -> ModelRecord:
-        """Attach a new revision of option model ``kind`` to a version.
-
-        Files identical to the latest revision of ``kind`` return that revision unchanged.
-        """
-        validate_kind(kind)
-        meta_json = canonical_meta(meta)
-        row_id, record = self._row(ref)
-        entries = self._store_files(_check_files(files, what="model files"))
-        key = index.content_key({e.role: e.digest for e in entries})
-        with write_transaction(self._conn) as conn:
-            model_id = index.find_model_by_content(conn, row_id, kind, key, latest_only=True)
-            if model_id is None:
-                model_id = index.insert_model(
-                    conn, version_row=row_id, kind=kind, files=entries, meta_json=meta_json, created_at=index.utc_now()
-                )
-        return index.load_models(self._conn, "m.id = ?", (model_id,))[0]
-
-    def models(self, ref: str, *, all_revisions: bool = False) -> list[ModelRecord]:
-        """Models attached to a version: the latest revision of each kind, or every revision."""
-        row_id, _ = self._row(ref)
-        where = "m.version_id = ?"
-        if not all_revisions:
-            where += (
-                " AND m.revision = (SELECT MAX(revision) FROM models m2"
-                " WHERE m2.version_id = m.version_id AND m2.kind = m.kind)"
-            )
-        return index.load_models(self._conn, where, (row_id,))
-
-    def get_model(self, ref: str, kind: str, *, revision: int | None = None) -> ModelRecord:
-        """One model revision (the latest if ``revision`` is None)."""
-        validate_kind(kind)
-        row_id, record = self._row(ref)
-        revisions = index.load_models(self._conn, "m.version_id = ? AND m.kind = ?", (row_id, kind))
-        if not revisions:
-            kinds = sorted({m.kind for m in self.models(record.ref)})
-            have = ", ".join(kinds) if kinds else "none"
-            raise NotFoundError(
-                f"{record.ref} has no {kind!r} model; attached kinds: {have}; fit one with `kinetome fit-models {record.ref}`"
-            )
-        if revision is None:
-            return revisions[-1]
-        for m in revisions:
-            if m.revision == revision:
-                return m
-        raise NotFoundError(
-            f"{record.ref}/{kind}#{revision} does not exist; {kind} has revisions "
-            f"{_number_ranges([m.revision for m in revisions])}"
-        )
-
-    def read_model(self, model: ModelRecord, role: str) -> bytes:
-        """The bytes of one file of a model revision, re-hashed."""
-        entry = model.file(role)
-        return self._blobs.read(entry.digest, size=entry.size, used_by=f"{model.ref} {role}")
-
     # -- integrity ---------------------------------------------------------------------
 
     def verify(self) -> VerifyReport:
-        """Re-hash every blob; name each version and model revision a bad blob breaks."""
+        """Re-hash every blob and recompute every identity and artifact digest from the index rows."""
         return verify_store(self._conn, self._blobs, self.root)

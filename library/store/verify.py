@@ -1,12 +1,15 @@
-"""``verify``: re-hash every blob, name every version and model revision a damaged blob breaks."""
+"""``verify``: re-hash every blob, recompute every identity and artifact digest from the index rows,
+and name every version and artifact a problem breaks."""
 
 from __future__ import annotations
 
+import json
 import sqlite3
 from dataclasses import dataclass
 from pathlib import Path
 
 from kinetome.library.store.blobs import BlobDir, hash_file
+from kinetome.library.store.identity import artifact_digest, version_identity
 from kinetome.library.store.records import is_digest
 
 __all__ = ["BlobUse", "BlobProblem", "VerifyReport", "verify_store"]
@@ -14,7 +17,7 @@ __all__ = ["BlobUse", "BlobProblem", "VerifyReport", "verify_store"]
 
 @dataclass(frozen=True)
 class BlobUse:
-    """One user of a blob: a version (``name@N``) or a model revision (``name@N/kind#R``) and its role."""
+    """One user of a blob: a version (``name@N``) or an artifact revision (``name@N/kind#R``) and its role."""
 
     owner: str
     role: str
@@ -55,7 +58,7 @@ class VerifyReport:
     blobs_checked: int
     bytes_checked: int
     versions_checked: int
-    models_checked: int
+    artifacts_checked: int
     problems: tuple[BlobProblem, ...]
     index_problems: tuple[str, ...]
     orphans: tuple[Path, ...]
@@ -78,7 +81,7 @@ class VerifyReport:
             "blobs_checked": self.blobs_checked,
             "bytes_checked": self.bytes_checked,
             "versions_checked": self.versions_checked,
-            "models_checked": self.models_checked,
+            "artifacts_checked": self.artifacts_checked,
             "problems": [
                 {
                     "digest": p.digest,
@@ -116,7 +119,7 @@ class VerifyReport:
             )
         status = "ok" if self.ok else f"DAMAGED: {len(self.problems)} bad blob(s), {len(self.index_problems)} index problem(s)"
         out.append(
-            f"{status}: {self.versions_checked} versions, {self.models_checked} model revisions, "
+            f"{status}: {self.versions_checked} versions, {self.artifacts_checked} artifact revisions, "
             f"{self.blobs_checked} blobs ({self.bytes_checked} bytes) checked in {self.root}"
         )
         return out
@@ -126,9 +129,6 @@ def _index_problems(conn: sqlite3.Connection) -> list[str]:
     problems = [r[0] for r in conn.execute("PRAGMA integrity_check") if r[0] != "ok"]
     for table, rowid, parent, _ in conn.execute("PRAGMA foreign_key_check"):
         problems.append(f"table {table} row {rowid} points at a missing row of {parent}")
-    for name, count, top in conn.execute("SELECT name, COUNT(*), MAX(number) FROM versions GROUP BY name"):
-        if count != top:
-            problems.append(f"skill {name} has {count} versions but numbers up to {top} (numbers must be gap-free)")
     for (ref,) in conn.execute(
         "SELECT v.name || '@' || v.number FROM versions v"
         " WHERE NOT EXISTS (SELECT 1 FROM version_files f WHERE f.version_id = v.id)"
@@ -139,6 +139,56 @@ def _index_problems(conn: sqlite3.Connection) -> list[str]:
         " JOIN versions v ON v.id = f.version_id JOIN blobs b ON b.digest = f.digest WHERE f.size != b.size"
     ):
         problems.append(f"version {ref} file {role} records {fsize} bytes but its blob records {bsize}")
+    return problems + _identity_problems(conn) + _artifact_problems(conn)
+
+
+def _files_of(conn: sqlite3.Connection, table: str, owner: str) -> dict[int, dict[str, str]]:
+    out: dict[int, dict[str, str]] = {}
+    for owner_id, role, digest in conn.execute(f"SELECT {owner}, role, digest FROM {table}"):
+        out.setdefault(int(owner_id), {})[role] = digest
+    return out
+
+
+def _identity_problems(conn: sqlite3.Connection) -> list[str]:
+    """Recompute each version's identity from its files, reason and parent; flag rows that no longer match."""
+    files = _files_of(conn, "version_files", "version_id")
+    identities = {int(i): ident for i, ident in conn.execute("SELECT id, identity FROM versions")}
+    problems = []
+    rows = conn.execute("SELECT id, name, number, reason, identity, parent_id, parent_identity FROM versions ORDER BY id")
+    for vid, name, number, reason, identity, parent_id, parent_identity in rows:
+        ref = f"{name}@{number}"
+        if parent_id is not None and identities.get(int(parent_id)) != parent_identity:
+            problems.append(f"version {ref} records parent identity {str(parent_identity)[:12]} but its parent row has another identity; the index row was changed")
+        expected = version_identity(name, files.get(int(vid), {}), parent_identity=parent_identity, reason=reason)
+        if expected != identity:
+            problems.append(
+                f"version {ref} no longer matches its identity {str(identity)[:12]} (its files, reason, name or parent "
+                f"give {expected[:12]}); the index row was changed: restore the index from a backup or re-import the version"
+            )
+    return problems
+
+
+def _artifact_problems(conn: sqlite3.Connection) -> list[str]:
+    """Recompute each artifact's digest from its row and files; flag rows that no longer match."""
+    files = _files_of(conn, "artifact_files", "artifact_id")
+    problems = []
+    rows = conn.execute(
+        "SELECT a.id, v.name || '@' || v.number || '/' || a.kind || '#' || a.revision, a.kind, a.computed_on, a.task,"
+        " a.settings, a.software, a.meta, a.digest FROM artifacts a JOIN versions v ON v.id = a.version_id ORDER BY a.id"
+    )
+    for aid, ref, kind, computed_on, task, settings, software, meta, digest in rows:
+        try:
+            expected = artifact_digest(
+                kind=kind, computed_on=json.loads(computed_on), task=json.loads(task), settings=json.loads(settings),
+                software=json.loads(software), files=files.get(int(aid), {}), meta=json.loads(meta),
+            )
+        except (ValueError, TypeError):
+            expected = "unreadable"
+        if expected != digest:
+            problems.append(
+                f"artifact {ref} no longer matches its digest {str(digest)[:12]} (its provenance, metadata or files "
+                f"give {expected[:12]}); the index row was changed: restore the index from a backup or re-import it"
+            )
     return problems
 
 
@@ -155,9 +205,9 @@ def _users(conn: sqlite3.Connection, digests: list[str]) -> dict[str, list[BlobU
         ):
             out[digest].append(BlobUse(owner, role))
         for digest, owner, role in conn.execute(
-            "SELECT f.digest, v.name || '@' || v.number || '/' || m.kind || '#' || m.revision, f.role"
-            " FROM model_files f JOIN models m ON m.id = f.model_id JOIN versions v ON v.id = m.version_id"
-            f" WHERE f.digest IN ({marks}) ORDER BY v.name, v.number, m.kind, m.revision, f.role",
+            "SELECT f.digest, v.name || '@' || v.number || '/' || a.kind || '#' || a.revision, f.role"
+            " FROM artifact_files f JOIN artifacts a ON a.id = f.artifact_id JOIN versions v ON v.id = a.version_id"
+            f" WHERE f.digest IN ({marks}) ORDER BY v.name, v.number, a.kind, a.revision, f.role",
             chunk,
         ):
             out[digest].append(BlobUse(owner, role))
@@ -172,7 +222,7 @@ def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> Verify
     index_problems = _index_problems(conn)
     expected = {d: int(s) for d, s in conn.execute("SELECT digest, size FROM blobs ORDER BY digest")}
     (n_versions,) = conn.execute("SELECT COUNT(*) FROM versions").fetchone()
-    (n_models,) = conn.execute("SELECT COUNT(*) FROM models").fetchone()
+    (n_artifacts,) = conn.execute("SELECT COUNT(*) FROM artifacts").fetchone()
     bad: list[tuple[str, str, int | None, str | None]] = []
     total = 0
     for digest, size in expected.items():
@@ -208,7 +258,7 @@ def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> Verify
         blobs_checked=len(expected),
         bytes_checked=total,
         versions_checked=int(n_versions),
-        models_checked=int(n_models),
+        artifacts_checked=int(n_artifacts),
         problems=problems,
         index_problems=tuple(index_problems),
         orphans=orphans,

@@ -35,7 +35,7 @@ def test_old_store_verifies_and_lists(old_store, capsys) -> None:
 def test_old_bundle_imports(tmp_path) -> None:
     with Store(tmp_path / "fresh") as store:
         imported = import_bundle(store, FIXTURES / "arm-reach-tray-2.bundle.tar.gz")
-        assert [v.ref for v in imported] == ["arm-reach-tray@1", "arm-reach-tray@2"]
+        assert [v.ref for v in imported.versions] == ["arm-reach-tray@1", "arm-reach-tray@2"]
         assert store.models("arm-reach-tray@2")
 
 

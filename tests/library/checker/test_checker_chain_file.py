@@ -72,7 +72,7 @@ BAD = [
     ("require not a number", lambda t: t.replace("require: 0.9", "require: high"), ["require: must be a number strictly between 0 and 1, got 'high'"]),
     ("unknown env", lambda t: t.replace("kinetome/BenchArm-v0", "kinetome/BenchArm-v9"), ["chain.yaml:3: env: unknown env 'kinetome/BenchArm-v9'", "did you mean 'kinetome/BenchArm-v0'?"]),
     ("missing env", lambda t: t.replace("env: kinetome/BenchArm-v0\n", ""), ["env: is required but missing"]),
-    ("bad step syntax", lambda t: t.replace("arm-place]", "Arm Place]"), ["steps[1]: must be a skill name, name@N (N >= 1) or a spec file ending in .yaml, got 'Arm Place'"]),
+    ("bad step syntax", lambda t: t.replace("arm-place]", "Arm Place]"), ["steps[1]: must be a skill name, name@N (N >= 1), name@id:HEX (an identity) or a spec file ending in .yaml, got 'Arm Place'"]),
     ("zero episodes", lambda t: t.replace("episodes: 50", "episodes: 0"), ["episodes: must be a whole number >= 1, got 0"]),
     ("not a mapping", lambda t: "- just\n- a list\n", ["a chain file must be a mapping of field: value, got list"]),
     ("bad yaml", lambda t: t + "steps: [unclosed\n", ["not valid YAML"]),

@@ -111,8 +111,9 @@ def test_export_import_round_trip_with_caution(tmp_path, capsys) -> None:
     assert "Notice from the bundle: Caution:" in out and "ISO 12100" in out  # the bundle's own notice
     imported = json.loads(_cli(capsys, "--store", str(tmp_path / "c"), "import", str(tmp_path / "reach.bundle"), "--json")[1])
     assert imported["schema"] == "kinetome.import/1" and imported["notice"].startswith("Caution:")
-    assert imported["versions"] == [{"ref": "arm-reach-tray@1", "imported_from": "arm-reach-tray@1"}]
-    assert json.loads(_cli(capsys, "--store", b, "show", "arm-reach-tray@1", "--json")[1])["reason"] == "imported"
+    assert [(v["ref"], v["origin"]["ref"], v["is_new"]) for v in imported["versions"]] == [("arm-reach-tray@1", "arm-reach-tray@1", True)]
+    shown = json.loads(_cli(capsys, "--store", b, "show", "arm-reach-tray@1", "--json")[1])
+    assert shown["reason"] == "registered" and shown["origin"]["ref"] == "arm-reach-tray@1"  # imports keep the reason
 
 
 @pytest.mark.parametrize("command", [["list"], ["show", "arm-lift"], ["lineage", "arm-lift"], ["history", "arm-lift"]])

@@ -131,7 +131,7 @@ def test_models_have_revisions_per_kind(store):
     assert store.read_model(r1, "x.bin") == b"r1x"
     assert store.read_model(store.get_model("reach@1", "duration", revision=2), "table.bin") == b"d2"
     assert store.get("reach@1").files == store.add("reach", {"spec.json": SPEC}).version.files
-    with pytest.raises(NotFoundError, match=r"reach@1 has no 'end_state' model; attached kinds: duration, reward"):
+    with pytest.raises(NotFoundError, match=r"reach@1 has no 'end_state' artifact; attached kinds: duration, reward"):
         store.get_model("reach@1", "end_state")
     with pytest.raises(NotFoundError, match=r"reach@1/duration#9 does not exist; duration has revisions 1-3"):
         store.get_model("reach@1", "duration", revision=9)
@@ -182,7 +182,7 @@ def test_bad_refs_are_refused_clearly(store, ref, message):
         ({"files": {"../spec.json": b"x"}}, r"file role must match .* got '../spec.json'"),
         ({"files": {"a/b": b"x"}}, r"no '/'"),
         ({"files": {"spec.json": "text"}}, r"files\['spec.json'\] must be bytes, got str"),
-        ({"reason": "copied"}, r"reason must be one of registered, retrained, imported, got 'copied'"),
+        ({"reason": "copied"}, r"reason must be one of registered, revised, retrained, initiation-learned, got 'copied'"),
         ({"reason": "retrained"}, r"a retrained version needs its parent, got parent=None"),
         ({"meta": ["a"]}, r"meta must be a dict \(a JSON object\), got list"),
         ({"meta": {"x": float("nan")}}, r"meta\['x'\] is nan; store non-finite numbers as null"),
@@ -252,8 +252,8 @@ def test_bad_notes_are_refused(store, text, message):
     "kind, files, message",
     [
         ("Duration", {"t.bin": b"x"}, r"model kind must match .* got 'Duration'"),
-        ("duration", {}, r"model files must be a non-empty dict"),
-        ("duration", {"t.bin": 3}, r"model files\['t.bin'\] must be bytes, got int"),
+        ("duration", {}, r"artifact files must be a non-empty dict"),
+        ("duration", {"t.bin": 3}, r"artifact files\['t.bin'\] must be bytes, got int"),
     ],
 )
 def test_bad_model_arguments(store, kind, files, message):
@@ -285,7 +285,7 @@ def test_open_errors(tmp_path):
     conn = sqlite3.connect(tmp_path / "newer" / "index.sqlite")
     conn.execute("PRAGMA user_version = 99")
     conn.close()
-    with pytest.raises(StoreIntegrityError, match=r"has index schema 99, newer than this kinetome understands \(1\); upgrade"):
+    with pytest.raises(StoreIntegrityError, match=r"has index schema 99, newer than this kinetome understands \(2\); upgrade"):
         Store(tmp_path / "newer")
 
 

@@ -14,6 +14,7 @@ import pytest
 
 from kinetome.library.errors import BundleError
 from kinetome.library.store import MAX_MEMBER_BYTES, Store, export_bundle, import_bundle
+from kinetome.library.store.bundle_tar import gzip_bytes
 
 
 def _populate(store: Store) -> None:
@@ -52,15 +53,16 @@ def test_round_trip_keeps_lineage_models_and_notes(source, target, tmp_path, suf
     with open(path, "rb") as f:
         assert (f.read(2) == b"\x1f\x8b") == suffix.endswith(".gz")  # gzip magic number (RFC 1952)
 
-    imported = import_bundle(target, path)
+    report = import_bundle(target, path)
+    imported = report.versions
     assert [v.ref for v in imported] == ["reach@1", "reach@2", "carry@1"]
-    assert all(v.reason == "imported" for v in imported)
+    assert report.added == ("reach@1", "reach@2", "carry@1") and report.warnings == ()
+    assert [v.reason for v in imported] == ["registered", "retrained", "retrained"]  # reasons are kept
     assert [v.ref for v in target.lineage("carry@1")] == ["carry@1", "reach@2", "reach@1"]
     for v in imported:
-        original = source.get(v.meta["imported_from"]["ref"])
-        assert v.digests == original.digests
-        assert v.meta["imported_from"] == {"ref": original.ref, "parent": original.parent, "reason": original.reason, "created_at": original.created_at}
-        assert {k: x for k, x in v.meta.items() if k != "imported_from"} == original.meta
+        original = source.get(v.ref)
+        assert v.digests == original.digests and v.identity == original.identity and v.meta == original.meta
+        assert v.origin == {"store": source.store_id, "ref": original.ref, "created_at": original.created_at}
         for role in v.roles:
             assert target.read_file(v, role) == source.read_file(original, role)
     assert [(m.ref, target.read_model(m, "table.bin")) for m in target.models("reach@2", all_revisions=True)] == [
@@ -71,40 +73,44 @@ def test_round_trip_keeps_lineage_models_and_notes(source, target, tmp_path, suf
     assert [n.text for n in target.notes("reach@1")] == ["first try"]
     assert target.verify().ok
 
-    # importing the same bundle again reuses every version and model revision
+    # importing the same bundle again reuses every version and artifact revision
     before = _snapshot(target.root)
     again = import_bundle(target, path)
-    assert again == imported
+    assert again.versions == imported and again.added == ()
     assert _snapshot(target.root) == before
 
 
-def test_import_renumbers_under_existing_names(source, tmp_path):
+def test_import_reuses_versions_with_the_same_identity(source, tmp_path):
     path = export_bundle(source, "reach@2", tmp_path / "reach.tar")
     with Store(tmp_path / "other") as other:
-        other.add("reach", {"spec.json": b"a different reach"})
-        other.add("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50})  # same as source reach@1
-        imported = import_bundle(other, path)
-        assert [v.ref for v in imported] == ["reach@2", "reach@3"]
-        assert imported[0].reason == "registered"  # reused as it was
-        assert imported[1].parent == "reach@2" and imported[1].meta["imported_from"]["ref"] == "reach@2"
-        assert [v.number for v in other.history("reach")] == [1, 2, 3]
+        other.add("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50}, meta={"mine": True})  # same as source reach@1
+        report = import_bundle(other, path)
+        assert [v.ref for v in report.versions] == ["reach@1", "reach@2"] and report.added == ("reach@2",)
+        assert report.versions[0].meta == {"mine": True} and report.versions[0].origin is None  # reused as it was
+        assert report.versions[1].parent == "reach@1"
 
 
 def test_export_without_lineage(source, target, tmp_path):
     path = export_bundle(source, "carry", tmp_path, with_lineage=False)
     assert path.name == "carry-1.kinetome.tar.gz"
-    (v,) = import_bundle(target, path)
-    assert v.ref == "carry@1" and v.parent is None
-    assert v.meta["imported_from"]["parent"] == "reach@2"
+    (v,) = import_bundle(target, path).versions
+    assert v.ref == "carry@1" and v.parent is None  # the parent is not in this store
+    assert v.parent_identity == source.get("reach@2").identity and v.identity == source.get("carry@1").identity
+    assert target.verify().ok
 
 
 def test_export_is_deterministic(source, tmp_path):
     a = export_bundle(source, "carry@1", tmp_path / "a.tar.gz")
     b = export_bundle(source, "carry@1", tmp_path / "b.tar.gz")
     assert a.read_bytes() == b.read_bytes()
-    manifest = json.loads(_members(a)[0][1])
-    assert manifest["format"] == "kinetome-bundle" and manifest["root"] == "carry@1"
+    members = _members(a)
+    assert [m.name for m, _ in members[:2]] == ["seal.json", "manifest.json"]
+    manifest = json.loads(members[1][1])
+    assert manifest["format"] == "kinetome-bundle" and manifest["format_version"] == 2 and manifest["root"] == "carry@1"
     assert "ISO 12100" in manifest["notice"]
+    seal = json.loads(members[0][1])
+    assert seal["manifest_sha256"] == hashlib.sha256(members[1][1]).hexdigest()
+    assert seal["root_identity"] == source.get("carry@1").identity
 
 
 # -- malicious and broken archives -----------------------------------------------------
@@ -135,7 +141,7 @@ def _write(path: Path, members, *, gz: bool = False, raw_tail: bytes = b"") -> P
         for info, data in members:
             tar.addfile(info, io.BytesIO(data) if info.isreg() else None)
     data = buf.getvalue() + raw_tail
-    path.write_bytes(gzip.compress(data, mtime=0) if gz else data)
+    path.write_bytes(gzip_bytes(data) if gz else data)
     return path
 
 
@@ -153,12 +159,26 @@ def _snapshot(root: Path):
     return files, dirs, dump
 
 
+def _with_manifest(members, data: bytes):
+    """Replace the manifest and re-seal it, as a careful editor would: the checks behind the seal must still hold."""
+    seal = json.dumps({"format": "kinetome-bundle-seal", "manifest_sha256": hashlib.sha256(data).hexdigest(), "root_identity": "0" * 64})
+    out = []
+    for m, d in members:
+        if m.name == "manifest.json":
+            out.append(_reg("manifest.json", data))
+        elif m.name == "seal.json":
+            out.append(_reg("seal.json", seal.encode()))
+        else:
+            out.append((m, d))
+    return out
+
+
 def _edit_manifest(members, fn):
-    (info, data), rest = members[0], members[1:]
+    (info, data) = members[1]
     assert info.name == "manifest.json"
     doc = json.loads(data)
     fn(doc)
-    return [_reg("manifest.json", json.dumps(doc).encode())] + rest
+    return _with_manifest(members, json.dumps(doc).encode())
 
 
 def _replace(members, name, new):
@@ -176,18 +196,17 @@ def _size_plus_one(members):
 
     def fn(doc):
         doc["blobs"][digest] += 1
-        for v in doc["versions"]:
-            for owner in [v, *v["models"]]:
-                for spec in owner["files"].values():
-                    if spec["digest"] == digest:
-                        spec["size"] += 1
+        for owner in [*doc["versions"], *doc["artifacts"]]:
+            for spec in owner["files"].values():
+                if spec["digest"] == digest:
+                    spec["size"] += 1
 
     return _edit_manifest(members, fn)
 
 
 def _forged_huge_header(members, path: Path) -> Path:
     """A valid manifest, then a header that claims a 300 MiB member (the data never follows)."""
-    manifest_info, manifest = _reg("manifest.json", members[0][1])
+    manifest_info, manifest = _reg("manifest.json", members[1][1])
     huge = tarfile.TarInfo(_first_blob(members)[0])
     huge.size = 300 * 1024**2
     body = manifest_info.tobuf(format=tarfile.USTAR_FORMAT) + manifest + b"\0" * (-len(manifest) % 512)
@@ -225,11 +244,16 @@ CASES = [
     ("digest-mismatch", lambda ms, p: _write(p, _replace(ms, _first_blob(ms)[0], _reg(_first_blob(ms)[0], bytes(len(_first_blob(ms)[1]))))), {},
      r"member 'blobs/[0-9a-f]{64}' does not match its name: its content has sha256 [0-9a-f]{64}"),
     ("size-mismatch", lambda ms, p: _write(p, _size_plus_one(ms)), {}, r"member 'blobs/[0-9a-f]{64}' has (\d+) bytes but manifest.json says \d+"),
-    ("duplicate-member", lambda ms, p: _write(p, ms + [ms[1]]), {}, r"member 'blobs/[0-9a-f]{64}' appears twice"),
-    ("bad-manifest-json", lambda ms, p: _write(p, [_reg("manifest.json", b'{"format": "kinetome-bundle",')] + ms[1:]), {},
+    ("duplicate-member", lambda ms, p: _write(p, ms + [ms[2]]), {}, r"member 'blobs/[0-9a-f]{64}' appears twice"),
+    ("bad-manifest-json", lambda ms, p: _write(p, _with_manifest(ms, b'{"format": "kinetome-bundle",')), {},
      r"member 'manifest.json' is not valid JSON: .* at line 1 column 30"),
-    ("manifest-not-utf8", lambda ms, p: _write(p, [_reg("manifest.json", b"\xff\xfe{}")] + ms[1:]), {}, r"member 'manifest.json' is not UTF-8"),
-    ("no-manifest", lambda ms, p: _write(p, ms[1:]), {}, r"has no member 'manifest.json'; it is not a kinetome bundle"),
+    ("manifest-not-utf8", lambda ms, p: _write(p, _with_manifest(ms, b"\xff\xfe{}")), {}, r"member 'manifest.json' is not UTF-8"),
+    ("no-manifest", lambda ms, p: _write(p, [ms[0]] + ms[2:]), {}, r"has no member 'manifest.json'; it is not a kinetome bundle"),
+    ("unsealed-edit", lambda ms, p: _write(p, [ms[0], _reg("manifest.json", ms[1][1].replace(b'"first try"', b'"first tri"'))] + ms[2:]), {},
+     r"member 'manifest.json' has sha256 [0-9a-f]{64}, but 'seal.json' seals .*was changed after export"),
+    ("no-seal", lambda ms, p: _write(p, ms[1:]), {}, r"the bundle has no member 'seal.json'"),
+    ("manifest-wrong-identity", lambda ms, p: _write(p, _edit_manifest(ms, lambda d: d["versions"][1].update(reason="revised"))), {},
+     r"versions\[1\]\.identity must be the identity of its files, reason and parent"),
     ("manifest-wrong-format", lambda ms, p: _write(p, _edit_manifest(ms, lambda d: d.update(format="zip"))), {}, r"member 'manifest.json': format must be 'kinetome-bundle', got 'zip'"),
     ("manifest-bad-ref", lambda ms, p: _write(p, _edit_manifest(ms, lambda d: d["versions"][0].update(ref="Reach@1"))), {}, r"versions\[0\]\.ref must be a ref name@N, got 'Reach@1'"),
     ("manifest-bad-reason", lambda ms, p: _write(p, _edit_manifest(ms, lambda d: d["versions"][1].update(reason="stolen"))), {}, r"versions\[1\]\.reason must be one of"),
@@ -245,7 +269,7 @@ CASES = [
 def test_unsafe_or_broken_bundles_are_refused_and_change_nothing(source, target, tmp_path, case_id, build, kwargs, message):
     good = export_bundle(source, "carry@1", tmp_path / "good.tar")
     members = _members(good)
-    assert members[0][0].name == "manifest.json" and len(_blob_names(members)) == 9
+    assert [m.name for m, _ in members[:2]] == ["seal.json", "manifest.json"] and len(_blob_names(members)) == 9
     archive = build(members, tmp_path / f"{case_id}.tar")
     # a store that already shares content with the bundle, so a partial write would show
     target.add("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50})

@@ -34,7 +34,7 @@ def _blob_path(store, data: bytes):
 def test_clean_store_verifies_ok(store):
     report = store.verify()
     assert report.ok and not report.problems and not report.orphans
-    assert report.blobs_checked == 6 and report.versions_checked == 3 and report.models_checked == 2
+    assert report.blobs_checked == 6 and report.versions_checked == 3 and report.artifacts_checked == 2
 
 
 def test_flipped_byte_is_reported_with_every_user(store):
@@ -110,13 +110,3 @@ def test_readding_identical_content_repairs_a_corrupt_blob(store):
     assert not result.created and result.version.ref == "lift@1"
     assert store.read_file("lift@1", "params.safetensors") == b"p3"
     assert store.verify().ok
-
-
-def test_index_gap_is_an_index_problem(store):
-    conn = sqlite3.connect(store.index_path)
-    conn.execute("UPDATE versions SET number = 5 WHERE name = 'reach' AND number = 2")
-    conn.commit()
-    conn.close()
-    report = store.verify()
-    assert not report.ok
-    assert any("reach has 2 versions but numbers up to 5" in p for p in report.index_problems)
