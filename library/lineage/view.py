@@ -37,7 +37,8 @@ def made_for(store: Any, version: Any) -> str | None:
         return NOMINAL_TASK
     variant = current_meta(version.meta).get("variant")  # versions stored before retrains kept a record
     if isinstance(variant, dict):
-        return variant.get("name") or variant.get("file")
+        file = variant.get("file")
+        return variant.get("name") or (file.replace("\\", "/").rsplit("/", 1)[-1].rsplit(".", 1)[0] if isinstance(file, str) else None)
     return None
 
 

@@ -150,12 +150,12 @@ def test_verify_flags_an_index_row_that_no_longer_matches_its_identity(source, s
 def test_show_prints_the_identity(tmp_path, capsys):
     from pathlib import Path
 
-    from kinetome.library.api import open_store, register_skill
+    from kinetome.library.api import open_store, register
     from kinetome.library.cli.main import main
 
     spec = Path(__file__).resolve().parents[3] / "configs" / "skills" / "arm-reach-tray.yaml"
     with open_store(tmp_path / "s") as store:
-        identity = register_skill(spec, store=store).version.identity
+        identity = register(spec, store=store).version.identity
     assert main(["--store", str(tmp_path / "s"), "show", "arm-reach-tray@1"]) == 0
     out = capsys.readouterr().out
     assert f"identity     {identity}" in out and "current for  nominal" in out

@@ -85,7 +85,7 @@ def test_a_migrated_store_runs_its_skills(wave1_store):
 def test_the_read_commands_work_on_a_wave1_store(wave1_store, capsys):
     from kinetome.library.cli.main import main
 
-    for command in (["list"], ["show", "arm-reach-tray@2"], ["history", "arm-reach-tray"], ["verify"]):
+    for command in (["list"], ["show", "arm-reach-tray@2"], ["lineage", "arm-reach-tray"], ["verify"]):
         assert main(["--store", str(wave1_store), *command]) == 0, command
     out = capsys.readouterr().out
     assert "heavy_payload" in out and "the newest version when the store was migrated" in out
