@@ -1,4 +1,4 @@
-"""kinetome.envs: MuJoCo robots with named state, task variants and start distributions.
+"""kinetome.envs: MuJoCo robots with named state, task variants and initial-states distributions.
 
 Imports nothing else of kinetome. ``make_rig(env_id, variant=...)`` gives the
 batched-simulation description; ``gymnasium.make("kinetome/<Name>-v0")`` gives
@@ -22,7 +22,7 @@ __all__ = [
     "EnvConfigError",
 ]
 
-# Own robots, task variants, start distributions, rendering; importing
+# Own robots, task variants, initial-states distributions, rendering; importing
 # gym_registration registers kinetome/BenchArm-v0, TestWalker-v0, TestWalkerStand-v0.
 from . import gym_registration  # noqa: E402
 from .variants import (  # noqa: E402

@@ -1,4 +1,4 @@
-"""Errors raised by envs for bad task variants and start distributions.
+"""Errors raised by envs for bad task variants and initial-states distributions.
 
 envs imports nothing else of kinetome, so it has its own small error type; the
 library maps it to exit code 2 with one line per problem.

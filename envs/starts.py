@@ -1,6 +1,6 @@
-"""Start distributions: a nominal pose plus noise, optionally kept inside a box or ball.
+"""Initial states: a nominal pose plus noise, optionally kept inside a box or ball.
 
-A start distribution says where episodes begin. It is a frozen value object
+An initial-states file says where episodes begin. It is a frozen value object
 (loaded from YAML or built in code) that samples ``(qpos, qvel)`` batches from a
 model and a numpy Generator, deterministically for the generator's seed.
 Constraints over named quantities (e.g. the fingertip within 5 cm of the pick

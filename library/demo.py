@@ -68,7 +68,7 @@ def configs_dir() -> Path:
 
 
 def _chain_inputs(path: Path, store: Any) -> tuple[Any, Any, list[Any]]:
-    """(rig, start distribution, loaded skills) of a chain file, resolved as the checker does."""
+    """(rig, initial-states distribution, loaded skills) of a chain file, resolved as the checker does."""
     from .checker import CheckOptions, load_chain, prepare_context
 
     ctx = prepare_context(load_chain(path, store=store), store=store, options=CheckOptions())
@@ -156,7 +156,7 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
         store=store,
         variant=variant,
         config=configs / "training" / settings.retrain_config,
-        initial_states=configs / "starts" / "arm_clearance.yaml",  # where arm-lift hands over
+        initial_states=configs / "initial_states" / "arm_clearance.yaml",  # where arm-lift hands over
         seed=settings.seed,
         workers=settings.workers,
         out=out / "retrain",

@@ -201,7 +201,7 @@ class Collector:
             names = ", ".join(s.name for s in self.skills)
             raise TrainingError(
                 f"start states must satisfy starts_when of {names}, got none of {_MAX_START_ROUNDS} draws accepted "
-                f"for {pending.size} simulations; give a start distribution inside starts_when"
+                f"for {pending.size} simulations; give an initial-states distribution inside starts_when"
             )
         ids = np.asarray(ids, dtype=np.int64)
         self.skill_steps[ids] = 0

@@ -1,4 +1,4 @@
-"""Start states for training episodes: the rig's default, a start distribution, or given rows."""
+"""Start states for training episodes: the rig's default, an initial-states distribution, or given rows."""
 
 from __future__ import annotations
 
@@ -31,7 +31,7 @@ class StartSampler:
         elif start is None or hasattr(start, "sample"):
             self._rows = None
         else:
-            raise TypeError(f"start must be None, a start distribution or (qpos, qvel) arrays, got {type(start).__name__}")
+            raise TypeError(f"start must be None, an initial-states distribution or (qpos, qvel) arrays, got {type(start).__name__}")
 
     def sample(self, rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray]:
         if self._rows is not None:

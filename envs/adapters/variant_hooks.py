@@ -11,7 +11,7 @@ gymnasium's robots need two things it cannot find in their assets:
   geom-derived inertia exactly.
 - ``target_position`` moves a site; Reacher's target and Pusher's goal are
   bodies on slide joints that gymnasium's reset places. The variant moves the
-  world site ``kt_target_marker`` and the start distribution puts the goal
+  world site ``kt_target_marker`` and the initial-states distribution puts the goal
   joints where the target body's frame coincides with that marker.
 """
 
@@ -79,7 +79,7 @@ def goal_coordinates(model: mujoco.MjModel, body: str, joints: tuple[str, ...], 
 
 @dataclass(frozen=True)
 class FixedGoal:
-    """A start distribution with the goal coordinates pinned (``qpos[:, index] = values``).
+    """An initial-states distribution with the goal coordinates pinned (``qpos[:, index] = values``).
 
     Draws exactly as ``base`` does, so the rest of the start state keeps its distribution.
     """

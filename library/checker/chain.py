@@ -221,13 +221,13 @@ def _check_files(doc: YamlDocument, base: Path, data: Mapping[str, Any]) -> tupl
             except (EnvConfigError, ValueError) as exc:
                 problems += _env_problems(doc, "start", "inline start distribution", Path(doc.source), exc)
         elif not isinstance(raw, str) or not raw.strip():
-            problems.append(doc.problem(("start",), f"must be a path to a start-distribution file or a mapping, got {raw!r}", "write e.g. ../starts/arm_home.yaml"))
+            problems.append(doc.problem(("start",), f"must be a path to an initial-states file or a mapping, got {raw!r}", "write e.g. ../initial_states/arm_home.yaml"))
         else:
             path = _relative(base, raw)
             start = path
             if not path.is_file():
                 where = "" if Path(raw).is_absolute() else f" (looked at {path})"
-                problems.append(doc.problem(("start",), f"start distribution {raw!r} cannot be read: file not found{where}", _close_files(path, "starts")))
+                problems.append(doc.problem(("start",), f"initial-states file {raw!r} cannot be read: file not found{where}", _close_files(path, "initial_states")))
             else:
                 try:
                     load_start(path)

@@ -1,4 +1,4 @@
-"""Start states for a batch of episodes, from a start distribution or the rig's default."""
+"""Start states for a batch of episodes, from an initial-states distribution or the rig's default."""
 
 from __future__ import annotations
 

@@ -57,7 +57,7 @@ def _chain_file(folder: Path, handoffs: int, episodes: int) -> Path:
     steps = [str(_spec(folder, i)) for i in range(handoffs + 1)]
     text = (
         "chain: bench-twenty\nenv: kinetome/BenchArm-v0\n"
-        f"start: {REPO / 'configs' / 'starts' / 'arm_home.yaml'}\n"
+        f"start: {REPO / 'configs' / 'initial_states' / 'arm_home.yaml'}\n"
         f"steps: [{', '.join(steps)}]\nrequire: 0.95\nconfidence: 0.95\nepisodes: {episodes}\n"
     )
     path = folder / "bench-twenty.yaml"

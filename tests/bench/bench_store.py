@@ -6,7 +6,7 @@ Run by hand (not collected by pytest):
 
 1. ``--adds`` distinct specs (configs/skills/arm-reach-tray.yaml with kp[0]
    varied) are written to a temp folder and registered one by one with
-   ``kinetome.library.api.register_skill(path, store=Store(root))`` in this
+   ``kinetome.library.api.register(path, store=Store(root))`` in this
    process (validation, controller build and store add: what ``kinetome add``
    does per file); then ``--adds`` raw ``Store.add`` calls of small distinct
    files give the store's own add rate.
@@ -20,7 +20,7 @@ Run by hand (not collected by pytest):
    its slowest imports listed from ``python -X importtime``.
 
 ``--what-if`` adds rows for changes proposed in files this benchmark does not
-own, applied by patching inside this run only: register_skill with one rig per
+own, applied by patching inside this run only: register with one rig per
 env and a cached schema validator (``make_rig`` and ``spec_schema`` memoised),
 and ``show`` with the numpy import (via ``runtime.skill``'s file-name
 constants) and the tarfile import (via ``store.bundle``) kept out of the process.
@@ -64,16 +64,16 @@ def write_specs(folder: Path, n: int) -> list[Path]:
 
 
 def register_all(root: Path, paths: list[Path]) -> float:
-    """register_skill on every path with one Store; returns adds/s (all must create a version)."""
-    from kinetome.library.api import register_skill
+    """api.register on every path with one Store; returns adds/s (all must create a version)."""
+    from kinetome.library.api import register
     from kinetome.library.store import Store
 
     store = Store(root)
     t = time.perf_counter()
     for path in paths:
-        result = register_skill(path, store=store)
-        if not result.created:
-            raise SystemExit(f"{path}: register_skill returned the existing {result.version.ref}; specs must differ")
+        result = register(path, store=store)
+        if not result.is_new:
+            raise SystemExit(f"{path}: register returned the existing {result.version.ref}; specs must differ")
     rate = len(paths) / (time.perf_counter() - t)
     store.close()
     return rate
@@ -187,7 +187,7 @@ def slowest_imports(args: list[str], top: int) -> list[tuple[int, int, str]]:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--adds", type=int, default=1000, help="register_skill calls, and raw Store.add calls (default 1000)")
+    ap.add_argument("--adds", type=int, default=1000, help="api.register calls, and raw Store.add calls (default 1000)")
     ap.add_argument("--versions", type=int, default=10000, help="fill the store to this many versions (default 10000)")
     ap.add_argument("--names", type=int, default=9, help="filler skill names (default 9)")
     ap.add_argument("--runs", type=int, default=7, help="runs per timed command, >= 5 (default 7)")
@@ -242,9 +242,9 @@ def main() -> None:
         print()
         print("| add path | adds | adds/s |")
         print("| --- | ---: | ---: |")
-        print(f"| register_skill(path, store=Store(root)), one process | {a.adds:,} | {register_rate:,.1f} |")
+        print(f"| api.register(path, store=Store(root)), one process | {a.adds:,} | {register_rate:,.1f} |")
         if what_if_rate is not None:
-            print(f"| register_skill, make_rig and schema validator memoised (what-if) | {a.adds:,} | {what_if_rate:,.1f} |")
+            print(f"| api.register, make_rig and schema validator memoised (what-if) | {a.adds:,} | {what_if_rate:,.1f} |")
         print(f"| Store.add, small distinct files | {a.adds:,} | {raw_rate:,.1f} |")
         print()
         print(f"| command ({total:,} versions) | median s ({a.runs} runs) | min s | ratio vs baseline | target < {TARGET:g}x |")

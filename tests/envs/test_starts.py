@@ -1,4 +1,4 @@
-"""Start distributions: YAML errors with lines, noise statistics, constraints, determinism."""
+"""Initial-states distributions: YAML errors with lines, noise statistics, constraints, determinism."""
 
 from __future__ import annotations
 
@@ -23,7 +23,7 @@ from kinetome.envs.starts import (
 from kinetome.envs.test_walker import STANDING_START, build_test_walker
 
 ROOT = Path(__file__).resolve().parents[2]
-STARTS = ROOT / "configs" / "starts"
+STARTS = ROOT / "configs" / "initial_states"
 
 
 @pytest.fixture(scope="module")

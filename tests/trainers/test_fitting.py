@@ -42,7 +42,7 @@ def test_geometric_option_models_match_closed_forms() -> None:
     # (0.35%), of E[gamma^k] ~ 0.03%; 1% is ~3 se for steps and far more for the rest.
     b, gamma, r = 0.1, 0.99, 1.5
     models = fit_option_models(rollout([geometric_segment(100_000, b, r, gamma, seed=11)], gamma), features=("x",), seed=0, fitted_at=STAMP)
-    # Evaluated on a grid over the bulk of the start distribution x ~ N(0, I), |x_i| <= 1:
+    # Evaluated on a grid over the bulk of the initial-states distribution x ~ N(0, I), |x_i| <= 1:
     # far in the tails the quadratic features amplify sampling noise (2% at |x| = 3.3).
     g = np.linspace(-1.0, 1.0, 5)
     start = {"x": np.stack(np.meshgrid(g, g), axis=-1).reshape(-1, 2)}
@@ -135,7 +135,7 @@ def test_timeouts_are_modelled_by_state_and_kept_out_of_end_states() -> None:
     pred = models.duration.predict(grid)
     # E[gamma^k 1{timed out}] = P(timed out) gamma^50 since every timeout runs 50 steps. The
     # linear head cannot follow the sigmoid pointwise, but ridge with an intercept matches
-    # the mean over the start distribution (fresh draws: sd of the mean ~0.002).
+    # the mean over the initial-states distribution (fresh draws: sd of the mean ~0.002).
     fresh = {"s": np.random.default_rng(10).normal(size=(20_000, 1))}
     p_fresh = 1 / (1 + np.exp(-(3 * fresh["s"][:, 0] - 1)))
     td_mean = models.duration.predict(fresh)["timeout_discount"].mean()

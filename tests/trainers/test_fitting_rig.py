@@ -17,7 +17,7 @@ from kinetome.library.spec_load import parse_spec_text
 from kinetome.library.tasks import load_start_file
 from kinetome.trainers.fitting import collect_and_fit, fit_option_models
 
-WIDE_START = Path(__file__).resolve().parents[2] / "configs" / "starts" / "arm_home_wide.yaml"
+WIDE_START = Path(__file__).resolve().parents[2] / "configs" / "initial_states" / "arm_home_wide.yaml"
 
 # Lift with a short step cap (about half the turns time out mid-motion) and a reach
 # that accepts only slow starts: the chain exercises refusals, timeouts handed over

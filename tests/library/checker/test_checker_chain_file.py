@@ -42,7 +42,7 @@ def _write(tmp_path, text, name="chain.yaml"):
 
 def test_good_chain_loads_with_paths_relative_to_the_file(tmp_path, store):
     (tmp_path / "starts").mkdir()
-    (tmp_path / "starts" / "home.yaml").write_text((CONFIGS / "starts" / "arm_home.yaml").read_text())
+    (tmp_path / "starts" / "home.yaml").write_text((CONFIGS / "initial_states" / "arm_home.yaml").read_text())
     chain = load_chain(_write(tmp_path, GOOD.format(start="starts/home.yaml")), store=store)
     assert chain.name == "arm-demo"
     assert chain.steps == ("arm-reach-tray@1", "arm-place")
@@ -65,7 +65,7 @@ BAD = [
     ("unknown skill", lambda t: t.replace("arm-place]", "arm-plaice]"), ["chain.yaml:5: steps[1]: no skill named 'arm-plaice'", "did you mean 'arm-place'"]),
     ("missing version", lambda t: t.replace("arm-reach-tray@1", "arm-reach-tray@7"), ["steps[0]: arm-reach-tray@7 does not exist; arm-reach-tray has versions 1"]),
     ("unknown variant", lambda t: t + "variant: ../variants/heavy_paylod.yaml\n", ["chain.yaml:10: variant: variant file '../variants/heavy_paylod.yaml' not found"]),
-    ("unreadable start", lambda t: t.replace("{start}", "nowhere/home.yaml"), ["chain.yaml:4: start: start distribution 'nowhere/home.yaml' cannot be read: file not found"]),
+    ("unreadable start", lambda t: t.replace("{start}", "nowhere/home.yaml"), ["chain.yaml:4: start: initial-states file 'nowhere/home.yaml' cannot be read: file not found"]),
     ("invalid start", lambda t: t.replace("{start}", "broken_start.yaml"), ["chain.yaml:4: start: start distribution", "is invalid", "noise"]),
     ("require above 1", lambda t: t.replace("require: 0.9", "require: 1.5"), ["chain.yaml:6: require: must be a number strictly between 0 and 1, got 1.5"]),
     ("confidence 0", lambda t: t.replace("confidence: 0.99", "confidence: 0"), ["chain.yaml:7: confidence: must be a number strictly between 0 and 1, got 0"]),
@@ -82,7 +82,7 @@ BAD = [
 @pytest.mark.parametrize("label, edit, fragments", BAD, ids=[b[0] for b in BAD])
 def test_bad_input_is_reported_with_line_and_fix(tmp_path, store, label, edit, fragments):
     (tmp_path / "broken_start.yaml").write_text("name: broken\nnoise:\n  qpos: {distribution: cauchy, scale: 0.1}\n")
-    good_start = CONFIGS / "starts" / "arm_home.yaml"
+    good_start = CONFIGS / "initial_states" / "arm_home.yaml"
     text = edit(GOOD)
     text = text.replace("{start}", str(good_start))
     path = _write(tmp_path, text)
@@ -106,13 +106,13 @@ def test_every_problem_is_reported_at_once(tmp_path, store):
 
 
 def test_check_chain_raises_the_same_errors(tmp_path, store):
-    path = _write(tmp_path, GOOD.format(start=CONFIGS / "starts" / "arm_home.yaml").replace("@1", "@4"))
+    path = _write(tmp_path, GOOD.format(start=CONFIGS / "initial_states" / "arm_home.yaml").replace("@1", "@4"))
     with pytest.raises(InvalidInputError, match="arm-reach-tray@4 does not exist"):
         check_chain(path, store=store)
 
 
 def test_stored_steps_need_a_store(tmp_path):
-    path = _write(tmp_path, GOOD.format(start=CONFIGS / "starts" / "arm_home.yaml"))
+    path = _write(tmp_path, GOOD.format(start=CONFIGS / "initial_states" / "arm_home.yaml"))
     with pytest.raises(InvalidInputError, match="names stored skills but no store was given"):
         check_chain(path, store=None)
 

@@ -22,7 +22,7 @@ def fitted(tmp_path_factory):
     for name in ("arm-reach-tray", "arm-place", "arm-release"):
         register_skill(CONFIGS / "skills" / f"{name}.yaml", store=store)
     rig = task_rig("kinetome/BenchArm-v0")
-    home = load_start_file(CONFIGS / "starts" / "arm_home.yaml")
+    home = load_start_file(CONFIGS / "initial_states" / "arm_home.yaml")
     tray = start_from_mapping({"name": "tray", "nominal": {"pose": "tray"}, "noise": {"qpos": {"distribution": "uniform", "scale": 0.003}}})
     for ref, start in (("arm-reach-tray@1", home), ("arm-place@1", tray)):
         models = collect_and_fit(load(ref, store=store, rig=rig), rig, episodes=60, seed=0, start=start)
@@ -30,7 +30,7 @@ def fitted(tmp_path_factory):
     chain = folder / "chain.yaml"
     chain.write_text(
         "chain: with-models\nenv: kinetome/BenchArm-v0\n"
-        f"start: {CONFIGS / 'starts' / 'arm_home.yaml'}\n"
+        f"start: {CONFIGS / 'initial_states' / 'arm_home.yaml'}\n"
         "steps: [arm-reach-tray@1, arm-place@1, arm-release@1]\nepisodes: 80\n"
     )
     return store, chain
@@ -60,7 +60,7 @@ def test_missing_models_leave_the_handoff_to_simulation(fitted, tmp_path):
     chain = tmp_path / "release-first.yaml"
     chain.write_text(
         "chain: no-models\nenv: kinetome/BenchArm-v0\n"
-        f"start: {CONFIGS / 'starts' / 'arm_home.yaml'}\n"
+        f"start: {CONFIGS / 'initial_states' / 'arm_home.yaml'}\n"
         "steps: [arm-release@1, arm-reach-tray@1]\nepisodes: 20\n"
     )
     result = check_chain(chain, store=store, method="model")

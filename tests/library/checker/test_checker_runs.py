@@ -13,8 +13,8 @@ from kinetome.library.checker import Verdict, check_chain
 from kinetome.library.checker.stats import clopper_pearson
 
 SKILLS = CONFIGS / "skills"
-HOME = str(CONFIGS / "starts" / "arm_home.yaml")
-WIDE = str(CONFIGS / "starts" / "arm_home_wide.yaml")
+HOME = str(CONFIGS / "initial_states" / "arm_home.yaml")
+WIDE = str(CONFIGS / "initial_states" / "arm_home_wide.yaml")
 
 
 @pytest.fixture(scope="module")

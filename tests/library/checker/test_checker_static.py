@@ -170,7 +170,7 @@ def test_start_box_contains_every_sampled_start(arm):
     from kinetome.envs.starts import load_start
     from kinetome.library.runtime.starts import sample_starts
 
-    start = load_start(CONFIGS / "starts" / "arm_home.yaml")
+    start = load_start(CONFIGS / "initial_states" / "arm_home.yaml")
     box = start_box(start, arm)
     qpos, qvel = sample_starts(arm, start, 2000, seed=3)
     low, high = box["qpos"]
@@ -183,14 +183,14 @@ def test_start_box_contains_every_sampled_start(arm):
 def test_gaussian_start_is_not_a_box(arm):
     from kinetome.envs.starts import load_start
 
-    assert start_box(load_start(CONFIGS / "starts" / "arm_home_wide.yaml"), arm) is None
+    assert start_box(load_start(CONFIGS / "initial_states" / "arm_home_wide.yaml"), arm) is None
     assert start_box(None, arm) is None
 
 
 def test_entry_is_proved_over_the_start_box(arm):
     from kinetome.envs.starts import load_start
 
-    start = load_start(CONFIGS / "starts" / "arm_home.yaml")
+    start = load_start(CONFIGS / "initial_states" / "arm_home.yaml")
     b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5 and qpos[0] > 0.04")
     ctx = stub_context(arm, [b], start=start)
     ev = static_method(ctx, [Junction(0, "start", b.ref)])[0]

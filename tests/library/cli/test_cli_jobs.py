@@ -93,7 +93,7 @@ def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
     code, r = _json(
         capsys, "--store", store, "retrain", "arm-reach-tray",
         "--variant", str(CONFIGS / "variants" / "heavy_payload.yaml"),
-        "--initial-states", str(CONFIGS / "starts" / "arm_clearance.yaml"),
+        "--initial-states", str(CONFIGS / "initial_states" / "arm_clearance.yaml"),
         "--config", str(CONFIGS / "training" / "demo_quick.yaml"),
         "--budget", "8192", "--out", str(tmp_path / "rt"), "--json",
     )
