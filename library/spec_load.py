@@ -84,16 +84,34 @@ def _schema_problems(doc: YamlDocument) -> list[Problem]:
             fix = (f"did you mean '{close[0]}'? " if close else "") + f"use one of: {choices}"
             problems.append(doc.problem(path, f"must be one of the known values, got {error.instance!r}", fix))
         elif error.validator == "oneOf":
-            problems.append(doc.problem(path, f"must be a number or a list of numbers, got {error.instance!r}", "write e.g. 0.5 or [0.5, 0.5, 0.5]"))
+            problems.append(doc.problem(path, _positive_numbers_message(error.instance), "write e.g. 0.5 or [0.5, 0.5, 0.5]"))
         elif error.validator == "type":
             problems.append(doc.problem(path, f"must be of type {error.validator_value}, got {error.instance!r}", _FIX_BY_FIELD.get(str(field), "")))
         elif error.validator == "pattern":
             problems.append(doc.problem(path, f"has an invalid form {error.instance!r}", _FIX_BY_FIELD.get(str(field), f"must match {error.validator_value}")))
-        elif error.validator in ("minimum", "exclusiveMinimum", "maximum", "minLength", "maxLength", "minItems", "maxItems", "uniqueItems"):
+        elif error.validator in _BOUND_WORDS:
+            problems.append(doc.problem(path, f"must be {_BOUND_WORDS[error.validator]} {error.validator_value}, got {error.instance!r}", _FIX_BY_FIELD.get(str(field), "")))
+        elif error.validator in ("minLength", "maxLength", "minItems", "maxItems", "uniqueItems"):
             problems.append(doc.problem(path, f"{error.message}", _FIX_BY_FIELD.get(str(field), "")))
         else:
             problems.append(doc.problem(path, error.message))
     return problems
+
+
+_BOUND_WORDS = {"minimum": ">=", "exclusiveMinimum": ">", "maximum": "<=", "exclusiveMaximum": "<"}
+
+
+def _positive_numbers_message(value: Any) -> str:
+    """Why a value is not a positive number or a non-empty list of them (the exploration std)."""
+    def is_number(v: Any) -> bool:
+        return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+    if is_number(value):
+        return f"must be > 0, got {value!r}"
+    if isinstance(value, list) and value and all(is_number(v) for v in value):
+        i = next(i for i, v in enumerate(value) if v <= 0)
+        return f"must be > 0 at element {i}, got {value[i]!r}"
+    return f"must be a number or a list of numbers, got {value!r}"
 
 
 def _skill_from_data(doc: YamlDocument) -> tuple[Skill | None, list[Problem]]:
@@ -176,8 +194,9 @@ def check_semantics(data: dict[str, Any], doc: YamlDocument, *, skip: set[str] =
         if label in data and label not in skip:
             try:
                 parse_predicate(data[label], names, what=label)
-            except PredicateError as exc:
-                problems.append(doc.problem((label,), str(exc), "predicates may use named state and the controller's parameters"))
+            except PredicateError as exc:  # the field is named once, by the problem itself
+                message = str(exc).removeprefix(f"{label}: ")
+                problems.append(doc.problem((label,), message, "predicates may use named state and the controller's parameters"))
     return problems
 
 

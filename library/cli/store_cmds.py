@@ -92,22 +92,30 @@ def _register(args: argparse.Namespace) -> int:
     from ..api import register
     from ..errors import InvalidInputError
 
+    # Each file is registered on its own: good files are stored, bad ones are reported
+    # with every problem and stored nothing; the exit code is 2 when any file was refused.
     store = _open_store(args)
-    results, problems = [], []
+    results, problems, refused = [], [], []
     for path in args.specs:
         try:
             result = register(path, store=store)
         except InvalidInputError as exc:
             problems.extend(exc.problems)
+            refused.append(path)
             continue
         results.append({"ref": result.version.ref, "is_new": result.is_new, "reason": result.version.reason, "spec": path})
     if args.json:
-        print_json(tagged("register", {"versions": results, "problems": [str(p) for p in problems]}))
+        print_json(tagged("register", {"versions": results, "refused": refused, "problems": [str(p) for p in problems]}))
     else:
         for r in results:
             word = r["reason"] if r["is_new"] else "unchanged (identical content)"
             print(f"{r['ref']}  {word}  <- {r['spec']}")
     if problems:
+        if len(args.specs) > 1:
+            problems.append(
+                f"registered {len(results)} of {len(args.specs)} files; not stored: {', '.join(refused)} "
+                "(each file is registered on its own: fix these and register them again)"
+            )
         raise InvalidInputError(problems)
     return 0
 
