@@ -170,11 +170,8 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
 
 
 def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, dict[str, Any]]:
-    """One rendered episode per chain, frames side by side: {chain: {"path", "renderer"}}."""
-    import numpy as np
-
-    from kinetome.envs.render import filmstrip_png, render_frames
-
+    """One traced episode per chain as a labelled filmstrip: {chain: {"path", "renderer", "frames"}}."""
+    from .report.filmstrip import chain_filmstrip
     from .runtime.execute import run_chain
     from .runtime.starts import sample_starts
 
@@ -182,13 +179,10 @@ def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, lo
     for path in sorted((configs / "chains").glob("*.yaml")):
         rig, start, skills = _chain_inputs(path, store)
         rollout = run_chain(skills, rig, starts=sample_starts(rig, start, 1, seed=settings.seed), seed=settings.seed, trace=1)
-        qpos = rollout.qpos_trace[0]
-        qpos = qpos[~np.isnan(qpos).all(axis=1)]
-        picks = sorted({int(round(i)) for i in np.linspace(0, len(qpos) - 1, 6)})
-        frames = render_frames(rig, qpos[picks], width=240, height=180)
-        target = out / f"filmstrip-{path.stem}.png"
-        filmstrip_png(frames, target, footer=CAUTION_FOOTER)
-        strips[path.stem] = {"path": target, "renderer": frames.renderer}
+        strips[path.stem] = chain_filmstrip(
+            rig, rollout.qpos_trace[0], rollout.segment_of_step[0], [s.ref for s in skills],
+            out / f"filmstrip-{path.stem}.png", footer=CAUTION_FOOTER,
+        )
     drawn_by = sorted({s["renderer"] for s in strips.values()})
     log.step(f"rendered {len(strips)} filmstrips ({', '.join(drawn_by) or 'none'})")
     return strips
@@ -225,7 +219,7 @@ def run_demo(
         "models": fitted,
         "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],
         "retrain": retrained,
-        "filmstrips": {k: {"path": str(v["path"]), "renderer": v["renderer"]} for k, v in strips.items()},
+        "filmstrips": {k: {**v, "path": str(v["path"])} for k, v in strips.items()},
     }
     (out / "demo.json").write_text(json.dumps(summary, indent=2, sort_keys=True, default=str), encoding="utf-8")
     report = write_demo_report(out, store=store, summary=summary, checks=checks, strips=strips)

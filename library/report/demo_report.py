@@ -85,6 +85,11 @@ def _filmstrip_section(report: Report, strips: dict[str, dict[str, Any]]) -> Non
     from kinetome.envs.render_backend import RENDERER_LABELS
 
     s = report.section("filmstrips", "Filmstrips")
+    s.text(
+        "One episode of each chain, left to right. Frames are spread over the whole chain by how far the "
+        "robot moved; each is labelled with its time and the running skill, and frames with an orange "
+        "border are handoffs (the state the next skill starts from)."
+    )
     for name, strip in strips.items():
         drawn_by = RENDERER_LABELS.get(strip["renderer"], strip["renderer"])
         s.add(image_html(Path(strip["path"]), f"{name}: one episode, left to right; drawn by {drawn_by}"))
