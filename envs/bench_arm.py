@@ -130,19 +130,19 @@ def _layout(model: mujoco.MjModel, target: np.ndarray) -> StateLayout:
     ctrl = model.actuator_ctrlrange
     return StateLayout(
         (
-            Quantity("qpos", (3,), "rad", "shoulder, elbow, wrist angles (about -y; 0 = link along +x)",
+            Quantity("qpos", (3,), "rad", "generalised positions: shoulder, elbow, wrist angles (about -y; 0 = link along +x)",
                      low=tuple(lo), high=tuple(hi)),
-            Quantity("qvel", (3,), "rad/s", "shoulder, elbow, wrist speeds (envelope: declared max joint speed)",
+            Quantity("qvel", (3,), "rad/s", "generalised velocities: shoulder, elbow, wrist speeds (envelope: declared max joint speed)",
                      low=tuple(-vmax), high=tuple(vmax)),
-            Quantity("fingertip", (3,), "m", "fingertip site position in the world",
+            Quantity("fingertip", (3,), "m", "fingertip position, world frame: fingertip site",
                      low=box_lo, high=box_hi, derived=True),
-            Quantity("fingertip_vel", (3,), "m/s", "fingertip linear velocity in the world",
+            Quantity("fingertip_vel", (3,), "m/s", "fingertip velocity, world frame: fingertip site",
                      low=(-vtip, -1e-6, -vtip), high=(vtip, 1e-6, vtip), derived=True),
             Quantity("payload", (3,), "m", "payload centre of mass in the world (held at the fingertip)",
                      low=box_lo, high=box_hi, derived=True),
-            Quantity("target", (3,), "m", "tray site position in the world (fixed per variant)",
+            Quantity("target", (3,), "m", "target position, world frame: the tray site (fixed per variant)",
                      low=tuple(map(float, target)), high=tuple(map(float, target))),
-            Quantity("torque", (3,), "N m", "applied motor command (joint torque at gear 1; "
+            Quantity("torque", (3,), "N m", "actuator controls as applied, clipped to the ctrl range: joint torque (gear 1; "
                      "actuator_gain scales the delivered torque)",
                      low=tuple(map(float, ctrl[:, 0])), high=tuple(map(float, ctrl[:, 1]))),
         )

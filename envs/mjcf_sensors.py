@@ -14,7 +14,7 @@ __all__ = [
     "add_framepos",
     "add_framelinvel",
     "add_framequat",
-    "add_touch",
+    "add_contact_force",
     "sensor_index",
 ]
 
@@ -45,13 +45,17 @@ def add_framequat(spec: mujoco.MjSpec, name: str, objtype: str, objname: str) ->
     return _add_frame(spec, mujoco.mjtSensor.mjSENS_FRAMEQUAT, name, objtype, objname)
 
 
-def add_touch(spec: mujoco.MjSpec, name: str, site: str) -> mujoco.MjsSensor:
-    """Touch sensor (1,) N: summed normal contact force inside the site's volume."""
+def add_contact_force(spec: mujoco.MjSpec, name: str, geom: str) -> mujoco.MjsSensor:
+    """Contact sensor (3,) N: the net contact force on ``geom`` from what it touches, world axes.
+
+    MuJoCo's contact sensor with ``reduce="netforce"`` matching the geom as
+    ``geom2``, so the force is the one acting *on* it (0 when it touches nothing);
+    the gymnasium adapters read their feet the same way (per body).
+    """
     _check_new_name(spec, name)
-    _check_object(spec, "site", site, name)
-    return spec.add_sensor(
-        name=name, type=mujoco.mjtSensor.mjSENS_TOUCH, objtype=mujoco.mjtObj.mjOBJ_SITE, objname=site
-    )
+    _check_object(spec, "geom", geom, name)
+    # intprm: data = force (bit 1 of mjtConDataField), reduce = netforce (3), num = 1
+    return spec.add_sensor(name=name, type=mujoco.mjtSensor.mjSENS_CONTACT, reftype=mujoco.mjtObj.mjOBJ_GEOM, refname=geom, intprm=[1 << 1, 3, 1])
 
 
 def sensor_index(model: mujoco.MjModel, name: str) -> tuple[int, ...]:

@@ -12,7 +12,17 @@ from typing import Iterator, Mapping
 
 import numpy as np
 
-__all__ = ["Quantity", "StateLayout", "StateValues", "take_states"]
+__all__ = [
+    "Quantity",
+    "StateLayout",
+    "StateValues",
+    "take_states",
+    "CONVENTIONS",
+    "FOOT_FORCE_MEANING",
+    "FOOT_CONTACT_MEANING",
+    "foot_contact_magnitude",
+    "convention_problems",
+]
 
 # Batched values: name -> array of shape (batch, *quantity.shape).
 StateValues = Mapping[str, np.ndarray]
@@ -97,3 +107,44 @@ class StateLayout:
 def take_states(values: StateValues, index: np.ndarray) -> dict[str, np.ndarray]:
     """Select rows (a boolean mask or integer index) from a batched state dict."""
     return {name: np.asarray(v)[index] for name, v in values.items()}
+
+
+FOOT_FORCE_MEANING = "net contact force on each foot from what it touches, world axes"
+FOOT_CONTACT_MEANING = "magnitude of the net contact force on each foot; 0 when the foot touches nothing"
+
+# One named quantity means one thing on every env: name -> (unit, meaning). A
+# quantity's meaning starts with this text and may add env detail after it (which
+# joint, axis or body); unit None lets the unit follow the env's coordinates.
+CONVENTIONS: dict[str, tuple[str | None, str]] = {
+    "qpos": (None, "generalised positions"),
+    "qvel": (None, "generalised velocities"),
+    "torque": (None, "actuator controls as applied, clipped to the ctrl range"),
+    "fingertip": ("m", "fingertip position, world frame"),
+    "fingertip_vel": ("m/s", "fingertip velocity, world frame"),
+    "target": ("m", "target position, world frame"),
+    "torso_height": ("m", "height of the torso above the floor"),
+    "torso_pitch": ("rad", "torso pitch angle"),
+    "torso_vel": ("m/s", "torso velocity"),
+    "foot_force": ("N", FOOT_FORCE_MEANING),
+    "foot_contact": ("N", FOOT_CONTACT_MEANING),
+}
+
+
+def foot_contact_magnitude(values: Mapping[str, np.ndarray]) -> np.ndarray:
+    """``foot_contact`` from ``foot_force``: (B, feet, 3) -> (B, feet) N."""
+    return np.linalg.norm(values["foot_force"], axis=-1)
+
+
+def convention_problems(layout: StateLayout) -> list[str]:
+    """Quantities of ``layout`` whose unit or meaning departs from ``CONVENTIONS`` (empty: none)."""
+    out = []
+    for name in layout.names:
+        if name not in CONVENTIONS:
+            continue
+        unit, meaning = CONVENTIONS[name]
+        q = layout[name]
+        if unit is not None and q.unit != unit:
+            out.append(f"{name}: unit must be {unit!r}, got {q.unit!r}")
+        if not q.meaning.startswith(meaning):
+            out.append(f"{name}: meaning must start with {meaning!r}, got {q.meaning!r}")
+    return out

@@ -13,8 +13,8 @@ from pathlib import Path
 import mujoco
 import numpy as np
 
-from .mjcf_sensors import add_touch, sensor_index
-from .named_state import Quantity, StateLayout, StateValues
+from .mjcf_sensors import add_contact_force, sensor_index
+from .named_state import FOOT_CONTACT_MEANING, FOOT_FORCE_MEANING, Quantity, StateLayout, StateValues, foot_contact_magnitude
 from .rig import Rig, Source, register_rig
 from .starts import Noise, RigStart, StartDistribution
 from .variants import TaskVariant, VariantTargets, apply_variant, resolve_variant
@@ -50,7 +50,7 @@ FRAME_SKIP = 10  # 10 x 2 ms: 50 Hz control
 MAX_EPISODE_STEPS = 500  # 10 s
 DEFAULT_SPEED = 0.5  # m/s, commanded forward speed of the walking task
 LEG_JOINTS = ("front_hip", "front_knee", "hind_hip", "hind_knee")
-FEET = ("front_foot", "hind_foot")
+FEET = ("front_pad", "hind_pad")  # foot pad geoms (the spheres that meet the floor)
 STANDING_QPOS = (0.0, 0.4121, 0.0, -0.3, 0.6, -0.3, 0.6)  # the MJCF keyframe "standing"
 # Termination: the torso is below 0.25 m above the floor (standing: 0.41 m; a
 # torso on the ground: about 0.05 m) or pitched more than 0.8 rad (46 degrees).
@@ -137,18 +137,19 @@ def _layout(model: mujoco.MjModel) -> StateLayout:
     return StateLayout(
         (
             Quantity("qpos", (7,), "m, m, rad, rad x4",
-                     "rootx, rootz, rooty (pitch), front hip, front knee, hind hip, hind knee "
-                     "(inf: unbounded)", low=qlo, high=qhi),
+                     "generalised positions: chassis_x, chassis_z, chassis_pitch, front hip, front knee, "
+                     "hind hip, hind knee (inf: unbounded)", low=qlo, high=qhi),
             Quantity("qvel", (7,), "m/s, m/s, rad/s x5",
-                     "root and joint velocities (joint envelope: declared max joint speed; inf: unbounded)",
+                     "generalised velocities: chassis and joint velocities (joint envelope: declared max joint speed; inf: unbounded)",
                      low=vlo, high=vhi),
             Quantity("torso_height", (), "m",
-                     "height of the torso origin above the floor directly below it", derived=True),
-            Quantity("torso_pitch", (), "rad", "torso pitch about -y; positive raises the front end"),
-            Quantity("torso_vel", (2,), "m/s", "torso origin velocity: forward x, vertical z (world)"),
-            Quantity("foot_contact", (2,), "N", "touch-sensor normal force on the front and hind foot",
-                     low=(0.0, 0.0), high=(inf, inf)),
-            Quantity("torque", (4,), "N m", "applied motor command (joint torque at gear 1)",
+                     "height of the torso above the floor: the chassis origin, above the floor directly below it", derived=True),
+            Quantity("torso_pitch", (), "rad", "torso pitch angle: chassis_pitch, about -y; positive raises the front end"),
+            Quantity("torso_vel", (2,), "m/s", "torso velocity: chassis origin, forward x, vertical z (world)"),
+            Quantity("foot_force", (2, 3), "N", f"{FOOT_FORCE_MEANING} (front pad, hind pad)"),
+            Quantity("foot_contact", (2,), "N", f"{FOOT_CONTACT_MEANING} (front pad, hind pad)",
+                     low=(0.0, 0.0), high=(inf, inf), derived=True),
+            Quantity("torque", (4,), "N m", "actuator controls as applied, clipped to the ctrl range: joint torque (gear 1)",
                      low=tuple(map(float, ctrl[:, 0])), high=tuple(map(float, ctrl[:, 1]))),
         )
     )
@@ -158,14 +159,14 @@ def _build(env_id: str, variant: TaskVariant | dict | str | Path | None, *, comm
     variant = resolve_variant(variant)
     spec = mujoco.MjSpec.from_file(str(ASSET))
     apply_variant(spec, variant, walker_targets(commanded=commanded))
-    for foot in FEET:
-        add_touch(spec, f"{foot}_touch", f"{foot}_touch")
+    for pad in FEET:
+        add_contact_force(spec, f"{pad}_force", pad)
     model = spec.compile()
 
     speed = (variant.speed_command if variant.speed_command is not None else DEFAULT_SPEED) if commanded else 0.0
     slope = math.tan(math.radians(variant.floor_slope or 0.0))
     weight = float(np.sum(model.body_mass) * np.linalg.norm(model.opt.gravity)) or 1.0
-    touch = sensor_index(model, "front_foot_touch") + sensor_index(model, "hind_foot_touch")
+    pad_force = sensor_index(model, "front_pad_force") + sensor_index(model, "hind_pad_force")
     trn = model.actuator_trnid[:, 0]
 
     def torso_height(values: dict[str, np.ndarray]) -> np.ndarray:
@@ -181,13 +182,13 @@ def _build(env_id: str, variant: TaskVariant | dict | str | Path | None, *, comm
         sources={
             "qpos": Source("qpos", tuple(range(model.nq))),
             "qvel": Source("qvel", tuple(range(model.nv))),
-            "torso_pitch": Source("qpos", (int(model.jnt_qposadr[model.joint("rooty").id]),)),
-            "torso_vel": Source("qvel", (int(model.jnt_dofadr[model.joint("rootx").id]),
-                                         int(model.jnt_dofadr[model.joint("rootz").id]))),
-            "foot_contact": Source("sensordata", touch),
+            "torso_pitch": Source("qpos", (int(model.jnt_qposadr[model.joint("chassis_pitch").id]),)),
+            "torso_vel": Source("qvel", (int(model.jnt_dofadr[model.joint("chassis_x").id]),
+                                         int(model.jnt_dofadr[model.joint("chassis_z").id]))),
+            "foot_force": Source("sensordata", pad_force),
             "torque": Source("ctrl", tuple(range(model.nu))),
         },
-        derived={"torso_height": torso_height},
+        derived={"torso_height": torso_height, "foot_contact": foot_contact_magnitude},
         reward=lambda b, a, s: walker_reward(b, a, s, speed_command=speed),
         terminated=walker_terminated,
         observe=lambda s: walker_observe(s, speed_command=speed, weight=weight),
@@ -199,7 +200,7 @@ def _build(env_id: str, variant: TaskVariant | dict | str | Path | None, *, comm
         metadata={
             "robot": "test_walker",
             "legged": True,
-            "camera": "track",
+            "camera": "side_follow",
             "speed_command": speed,
             "floor_slope_deg": float(variant.floor_slope or 0.0),
             "variant_digest": variant.digest,

@@ -11,6 +11,7 @@ from functools import partial
 
 import numpy as np
 
+from ..named_state import FOOT_CONTACT_MEANING, FOOT_FORCE_MEANING, foot_contact_magnitude
 from . import kernels as k
 from .gym_task import GymTask, Named
 from .readings import BodyContact, BodyFrame, Coordinate, SubtreeCom
@@ -42,16 +43,12 @@ def _joint_state(joints: str, actuators: str, *, effort: str = "N m") -> tuple[N
     )
 
 
-def _foot_contact(values) -> np.ndarray:
-    return np.linalg.norm(values["foot_force"], axis=-1)
-
-
 def _torso_vel_xz() -> Named:
     # rootx and rootz are consecutive slide joints, so qvel[0:2] is the (forward, vertical) torso velocity.
     return Named(
         "torso_vel",
         "m/s",
-        "torso frame velocity: forward x, vertical z (qvel[0], qvel[1])",
+        "torso velocity: torso frame, forward x, vertical z (qvel[0], qvel[1])",
         Coordinate("qvel", "rootx", components=(0, 1)),
     )
 
@@ -61,7 +58,7 @@ def _feet_state(feet: tuple[str, ...], feet_text: str) -> tuple[Named, ...]:
         Named(
             "foot_force",
             "N",
-            f"net contact force on each foot ({feet_text}) from what it touches, world axes",
+            f"{FOOT_FORCE_MEANING} ({feet_text})",
             BodyContact(feet),
             shape=(len(feet), 3),
             derived=True,
@@ -69,8 +66,8 @@ def _feet_state(feet: tuple[str, ...], feet_text: str) -> tuple[Named, ...]:
         Named(
             "foot_contact",
             "N",
-            f"magnitude of foot_force per foot ({feet_text}); 0 when the foot touches nothing",
-            derive=_foot_contact,
+            f"{FOOT_CONTACT_MEANING} ({feet_text})",
+            derive=foot_contact_magnitude,
             shape=(len(feet),),
             derived=True,
         ),
@@ -81,13 +78,13 @@ def _upright_walker_state(feet: tuple[str, ...], feet_text: str) -> tuple[Named,
     """Hopper and Walker2d: the torso frame sits at (qpos[0], qpos[1]) (rootz has ref 1.25), pitch qpos[2]."""
     return (
         Named(
-            "torso_height", "m", "torso frame z above the floor plane (qpos[1], rootz)",
+            "torso_height", "m", "height of the torso above the floor: torso frame z above the floor plane (qpos[1], rootz)",
             Coordinate("qpos", "rootz"), shape=(),
         ),
         Named(
             "torso_pitch",
             "rad",
-            "torso angle about +y (qpos[2], rooty); positive leans the torso top forward (+x)",
+            "torso pitch angle: about +y (qpos[2], rooty); positive leans the torso top forward (+x)",
             Coordinate("qpos", "rooty"),
             shape=(),
         ),
@@ -170,7 +167,7 @@ HALF_CHEETAH = GymTask(
         Named(
             "torso_height",
             "m",
-            "torso frame z above the floor plane (0.7 + qpos[1]; rootz has no ref offset)",
+            "height of the torso above the floor: torso frame z above the floor plane (0.7 + qpos[1]; rootz has no ref offset)",
             BodyFrame("pos", "torso", (2,)),
             shape=(),
             derived=True,
@@ -178,7 +175,7 @@ HALF_CHEETAH = GymTask(
         Named(
             "torso_pitch",
             "rad",
-            "torso angle about +y (qpos[2], rooty); positive tips the head (+x end) down",
+            "torso pitch angle: about +y (qpos[2], rooty); positive tips the head (+x end) down",
             Coordinate("qpos", "rooty"),
             shape=(),
         ),
@@ -227,7 +224,7 @@ ANT = GymTask(
         "hip_4, ankle_4, hip_1, ankle_1, hip_2, ankle_2, hip_3, ankle_3; gear 150",
     )
     + (
-        Named("torso_height", "m", "torso centre z above the floor plane (qpos[2])", Coordinate("qpos", "root", (2,)), shape=()),
+        Named("torso_height", "m", "height of the torso above the floor: torso centre z above the floor plane (qpos[2])", Coordinate("qpos", "root", (2,)), shape=()),
         Named(
             "torso_orientation",
             "1",
@@ -237,7 +234,7 @@ ANT = GymTask(
         Named(
             "torso_vel",
             "m/s",
-            "torso centre linear velocity, world axes x, y, z (qvel[0:3])",
+            "torso velocity: torso centre, world axes x, y, z (qvel[0:3])",
             Coordinate("qvel", "root", (0, 1, 2)),
         ),
         Named("robot_com", "m", "centre of mass of the whole ant, world frame", SubtreeCom("torso"), derived=True),
@@ -276,7 +273,7 @@ ANT = GymTask(
         Named(
             "foot_contact",
             "N",
-            "magnitude of the net contact force on lower legs 1-4 (body4, body7, body10, body13); 0 without contact",
+            f"{FOOT_CONTACT_MEANING} (feet: lower legs 1-4, body4, body7, body10, body13)",
             derive=_ant_foot_contact,
             shape=(4,),
             derived=True,
@@ -315,11 +312,11 @@ REACHER = GymTask(
     robot="reacher",
     quantities=_joint_state("joint0, joint1 (arm), target_x, target_y (target)", "joint0, joint1; gear 200")
     + (
-        Named("fingertip", "m", "fingertip body frame position, world frame", BodyFrame("pos", "fingertip"), derived=True),
+        Named("fingertip", "m", "fingertip position, world frame: fingertip body frame", BodyFrame("pos", "fingertip"), derived=True),
         Named(
-            "fingertip_vel", "m/s", "fingertip body frame linear velocity, world axes", BodyFrame("linvel", "fingertip"), derived=True
+            "fingertip_vel", "m/s", "fingertip velocity, world frame: fingertip body frame linear velocity", BodyFrame("linvel", "fingertip"), derived=True
         ),
-        Named("target", "m", "target body frame position, world frame", BodyFrame("pos", "target"), derived=True),
+        Named("target", "m", "target position, world frame: target body frame", BodyFrame("pos", "target"), derived=True),
     ),
     reward=_fixed(partial(k.reacher_reward, dist_weight=1.0, ctrl_weight=1.0)),
     terminated=k.never,
@@ -345,8 +342,8 @@ PUSHER = GymTask(
         "the seven arm joints in qpos order; gear 1",
     )
     + (
-        Named("fingertip", "m", "tips_arm body frame position (between the two tips), world frame", BodyFrame("pos", "tips_arm"), derived=True),
-        Named("fingertip_vel", "m/s", "tips_arm body frame linear velocity, world axes", BodyFrame("linvel", "tips_arm"), derived=True),
+        Named("fingertip", "m", "fingertip position, world frame: tips_arm body frame (between the two tips)", BodyFrame("pos", "tips_arm"), derived=True),
+        Named("fingertip_vel", "m/s", "fingertip velocity, world frame: tips_arm body frame linear velocity", BodyFrame("linvel", "tips_arm"), derived=True),
         Named("object", "m", "cylinder (object body) frame position, world frame", BodyFrame("pos", "object"), derived=True),
         Named("goal", "m", "goal body frame position, world frame", BodyFrame("pos", "goal"), derived=True),
     ),

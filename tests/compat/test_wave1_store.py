@@ -73,6 +73,9 @@ def test_old_versions_still_run_and_their_models_load(old_store, capsys) -> None
     store = open_store(old_store, create=False)
     summary = run("arm-hold-mlp@1", store=store, episodes=4)  # controller.options stored in spec.json
     assert summary["episodes"] == 4
+    # a walker skill stored before the walker's MJCF names changed: named-state quantities stayed
+    walker = run("walker-stand@1", store=store, episodes=4)
+    assert walker["successes"] == 4 and "standards for that type of machine" in walker["caution"]
     models = load_models("arm-lift@1", store=store)
     assert set(models.meta.outcomes) == {"stopped", "timed_out", "env_ended", "refused"}
     assert models.duration.head.outputs[0] == "duration"

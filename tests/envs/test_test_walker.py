@@ -68,13 +68,13 @@ def _starts(rig, n, seed):
 def test_layout_and_metadata(rig):
     assert rig.layout.shapes() == {
         "qpos": (7,), "qvel": (7,), "torso_height": (), "torso_pitch": (), "torso_vel": (2,),
-        "foot_contact": (2,), "torque": (4,),
+        "foot_force": (2, 3), "foot_contact": (2,), "torque": (4,),
     }
     lo = rig.layout["qpos"].low
     assert lo[:3] == (-math.inf,) * 3
     np.testing.assert_allclose(lo[3:], rig.model.jnt_range[3:, 0] - LIMIT_MARGIN)
     assert rig.metadata["robot"] == "test_walker" == build_test_walker_stand().metadata["robot"]
-    assert rig.metadata["camera"] == "track"
+    assert rig.metadata["camera"] == "side_follow" and rig.metadata["legged"]
     assert rig.metadata["speed_command"] == DEFAULT_SPEED
     assert build_test_walker_stand().metadata["speed_command"] == 0.0
     assert rig.actuated_qpos == (3, 4, 5, 6) and rig.actuated_qvel == (3, 4, 5, 6)
@@ -84,7 +84,7 @@ def test_torso_height_and_pitch_match_mujoco_body_pose(rig):
     model = rig.model
     data = mujoco.MjData(model)
     rng = np.random.default_rng(0)
-    torso = model.body("torso").id
+    torso = model.body("chassis").id
     for _ in range(20):
         data.qpos[:] = [rng.uniform(-2, 2), rng.uniform(0.2, 0.8), rng.uniform(-1.5, 1.5), *rng.uniform(-0.5, 0.5, 4)]
         mujoco.mj_forward(model, data)
@@ -110,7 +110,7 @@ def test_torso_height_on_a_slope_is_height_above_the_floor():
         s = read_state(rig, qpos=data.qpos[None], qvel=data.qvel[None], sensordata=data.sensordata[None])
         # Vertical distance to the plane through geom_xpos with normal = its z axis.
         normal = data.geom_xmat[floor].reshape(3, 3)[:, 2]
-        p = data.xpos[model.body("torso").id]
+        p = data.xpos[model.body("chassis").id]
         height = normal @ (p - data.geom_xpos[floor]) / normal[2]
         assert s["torso_height"][0] == pytest.approx(height, abs=1e-9)
     assert normal[0] < 0  # the floor rises toward +x (uphill forward)
@@ -123,7 +123,18 @@ def test_foot_contact_carries_the_weight_when_standing(rig):
     contact = env.named_state()["foot_contact"][0]
     weight = float(np.sum(rig.model.body_mass) * 9.81)
     assert np.all(contact > 0.2 * weight)
-    assert contact.sum() == pytest.approx(weight, rel=0.05)  # statics: normal forces carry the weight
+    assert contact.sum() == pytest.approx(weight, rel=0.05)  # statics: contact forces carry the weight
+    # foot_force is the net contact force on each pad, as gymnasium adapters read their feet:
+    # the same sum over mjData.contact through mj_contactForce (envs/adapters/readings.net_contact);
+    # standing, only the pads touch the floor, so each lower-leg body's net force is its pad's.
+    from kinetome.envs.adapters.readings import net_contact
+
+    force = env.named_state()["foot_force"][0]
+    for row, body in enumerate(("front_lower_leg", "hind_lower_leg")):
+        reference, _, _ = net_contact(env.model, env.data, env.model.body(body).id)
+        np.testing.assert_allclose(force[row], reference, rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(contact, np.linalg.norm(force, axis=1), rtol=1e-12)
+    assert force[:, 2].min() > 0  # pushed up by the floor
 
 
 def test_standing_pd_holds_the_pose_for_5_seconds(rig):
@@ -165,7 +176,7 @@ def _drag_slip(variant) -> float:
     env = RigEnv(rig)
     env.set_state(np.array(STANDING_QPOS), np.zeros(7))
     _run(env, 0.5, lambda t: STAND_Q)
-    feet = [model.geom(f).id for f in ("front_foot", "hind_foot")]
+    feet = [model.geom(f).id for f in ("front_pad", "hind_pad")]
     x0 = env.data.geom_xpos[feet, 0].copy()
     for _ in range(int(round(1.0 / rig.dt))):
         # The pull acts at the feet (ground level), so it drags rather than tips the walker.

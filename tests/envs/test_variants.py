@@ -176,9 +176,9 @@ def test_each_field_changes_the_model_as_declared():
     np.testing.assert_array_equal(arm.body_mass[others], nominal.body_mass[others])
 
     walker = build_test_walker(TaskVariant(name="w", friction=0.3, floor_slope=10.0, joint_damping=0.9)).model
-    for g in ("floor", "front_foot", "hind_foot"):
+    for g in ("floor", "front_pad", "hind_pad"):
         assert walker.geom(g).friction[0] == 0.3
-    assert walker.geom("torso").friction[0] == 1.0
+    assert walker.geom("chassis").friction[0] == 1.0
     np.testing.assert_allclose(walker.dof_damping[3:], 0.9)
     np.testing.assert_allclose(walker.dof_damping[:3], 0.0)
     data = mujoco.MjData(walker)
