@@ -130,7 +130,8 @@ def run(
     from .runtime.execute import run_skill
     from .runtime.summary import limit_exceedances, summarize_rollout
     from .safety import caution_for
-    from .tasks import load_start_file, load_variant_file, task_rig
+    from .initial_states import initial_states_for
+    from .tasks import load_variant_file, task_rig
 
     if episodes < 1:
         from .errors import InvalidInputError
@@ -139,7 +140,7 @@ def run(
     task_variant = load_variant_file(variant)
     loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
     rig = task_rig(loaded.skill.env, task_variant)
-    qpos, qvel = sample_initial_states(rig, load_start_file(initial_states), episodes, seed=seed)
+    qpos, qvel = sample_initial_states(rig, initial_states_for(loaded.skill, initial_states), episodes, seed=seed)
     rollout = run_skill(loaded, rig, starts=(qpos, qvel), seed=seed, workers=workers, progress=progress)
     summary = summarize_rollout(rollout, confidence=confidence)
     limits = loaded.skill.limits.as_dict() if loaded.skill.limits else {}
@@ -169,7 +170,8 @@ def fit(
     ``progress(done, total)`` follows the rollouts."""
     from kinetome.trainers.fitting import collect_and_fit  # trainers only here, lazily
 
-    from .tasks import load_start_file, load_variant_file, task_rig
+    from .initial_states import initial_states_for
+    from .tasks import load_variant_file, task_rig
 
     if episodes < 20:
         from .errors import InvalidInputError
@@ -178,7 +180,7 @@ def fit(
     task_variant = load_variant_file(variant)
     loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
     rig = task_rig(loaded.skill.env, task_variant)
-    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=load_start_file(initial_states), progress=progress)
+    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=initial_states_for(loaded.skill, initial_states), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
     record = store.attach_model(loaded.ref, MODEL_KIND, models.to_files(), meta=meta)
@@ -284,7 +286,8 @@ def retrain(
     from .safety import caution_for
     from .spec import canonical_json, skill_to_document
     from .stored_meta import current_meta, variant_record
-    from .tasks import load_start_file, load_variant_file, task_rig
+    from .initial_states import initial_states_for
+    from .tasks import load_variant_file, task_rig
 
     cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
     refuse_deliberation_cost(cfg, "--deliberation-cost" if deliberation_cost else f"{config}: deliberation_cost")
@@ -304,7 +307,7 @@ def retrain(
         parent,
         rig,
         cfg,
-        start=load_start_file(initial_states),
+        start=initial_states_for(parent.skill, initial_states),
         seed=seed,
         workers=workers,
         progress=progress,

@@ -123,6 +123,7 @@ class Skill:
     description: str = ""
     limits: Limits | None = None
     tags: tuple[str, ...] = ()
+    initial_states: Any = None  # the usual initial states: a start-distribution mapping (kept as canonical JSON), or None
 
     def __post_init__(self) -> None:
         if not NAME_PATTERN.match(self.name):
@@ -135,6 +136,23 @@ class Skill:
             if not getattr(self, label).strip():
                 raise ValueError(f"{label} must be a non-empty predicate")
         object.__setattr__(self, "tags", tuple(self.tags))
+        if self.initial_states is not None:
+            if isinstance(self.initial_states, str):  # already canonical JSON (dataclasses.replace)
+                try:
+                    parsed = json.loads(self.initial_states)
+                except json.JSONDecodeError:
+                    parsed = None
+                if not isinstance(parsed, dict):
+                    raise ValueError(f"initial_states must be a mapping (a start distribution), got the text {self.initial_states!r}")
+                return
+            if not isinstance(self.initial_states, Mapping):
+                raise ValueError(f"initial_states must be a mapping (a start distribution), got {type(self.initial_states).__name__}")
+            frozen = json.dumps(self.initial_states, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+            object.__setattr__(self, "initial_states", frozen)
+
+    def initial_states_mapping(self) -> dict[str, Any] | None:
+        """The usual initial states as plain data (a start distribution mapping), or None."""
+        return None if self.initial_states is None else json.loads(self.initial_states)
 
 
 def skill_to_document(skill: Skill) -> dict[str, Any]:
@@ -158,6 +176,8 @@ def skill_to_document(skill: Skill) -> dict[str, Any]:
     }
     if skill.limits is not None:
         doc["limits"] = skill.limits.as_dict()
+    if skill.initial_states is not None:  # omitted when absent: older versions keep their content
+        doc["initial_states"] = skill.initial_states_mapping()
     return doc
 
 
@@ -191,6 +211,7 @@ def skill_from_document(doc: Mapping[str, Any]) -> Skill:
         description=doc.get("description", ""),
         limits=limits,
         tags=tuple(doc.get("tags", ())),
+        initial_states=doc.get("initial_states"),
     )
 
 

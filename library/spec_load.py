@@ -114,9 +114,13 @@ def _positive_numbers_message(value: Any) -> str:
     return f"must be a number or a list of numbers, got {value!r}"
 
 
-def _skill_from_data(doc: YamlDocument) -> tuple[Skill | None, list[Problem]]:
+def _skill_from_data(doc: YamlDocument, initial_states: Any = None) -> tuple[Skill | None, list[Problem]]:
+    data = dict(doc.data)
+    data.pop("initial_states", None)
+    if initial_states is not None:
+        data["initial_states"] = initial_states
     try:
-        return skill_from_document(doc.data), []
+        return skill_from_document(data), []
     except (TypeError, ValueError) as exc:
         return None, [doc.problem(("controller",), str(exc))]
 
@@ -200,6 +204,20 @@ def check_semantics(data: dict[str, Any], doc: YamlDocument, *, skip: set[str] =
     return problems
 
 
+def resolve_initial_states(doc: YamlDocument) -> tuple[dict[str, Any] | None, list[Problem]]:
+    """The spec's ``initial_states`` as a start-distribution mapping (a file is read relative to
+    the spec), checked by drawing one state on the spec's env; or (None, problems)."""
+    from .initial_states import check_on_env, read_initial_states
+
+    value, field = doc.data["initial_states"], ("initial_states",)
+    base = Path(doc.source).parent if Path(doc.source).is_file() else Path.cwd()
+    mapping, found = read_initial_states(value, base=base)
+    if mapping is None:
+        return None, [doc.problem(field, message, fix) for message, fix in found]
+    found = check_on_env(mapping, doc.data.get("env"), source=f"{doc.source}: initial_states")
+    return (mapping, []) if not found else (None, [doc.problem(field, message, fix) for message, fix in found])
+
+
 def validate_document(doc: YamlDocument) -> Skill:
     """Schema, value-object and semantic checks; raises InvalidSpecError with every problem."""
     if not isinstance(doc.data, dict):
@@ -207,9 +225,13 @@ def validate_document(doc: YamlDocument) -> Skill:
     schema = _schema_problems(doc)
     skip = {p.field.split(".")[0].split("[")[0] for p in schema if p.field}
     problems = schema + check_semantics(doc.data, doc, skip=skip)
+    initial_states = None
+    if "initial_states" in doc.data and "initial_states" not in skip:
+        initial_states, found = resolve_initial_states(doc)
+        problems += found
     if problems:
         raise InvalidSpecError(sorted(problems, key=lambda p: (p.line or 0)))
-    skill, problems = _skill_from_data(doc)
+    skill, problems = _skill_from_data(doc, initial_states)
     if problems:
         raise InvalidSpecError(problems)
     return skill
