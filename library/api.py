@@ -428,10 +428,12 @@ def check_chain(
     progress: Any = None,
 ) -> Any:
     """Check a chain file handoff by handoff; with ``out``, write the report folder there.
-    ``progress(done, total)`` follows the simulation, when one runs.
+    ``progress(done, total)`` follows the simulation (episodes), when one runs.
 
-    Returns a ``CheckResult``: ``exit_code`` 0 all compose, 1 some handoff
-    breaks, 3 some unsure (bad input raises ``InvalidInputError``, exit 2).
+    Returns a ``CheckResult``: ``exit_code`` 0 when every handoff composes and the
+    whole chain meets its requirement, 1 when something breaks or fails, 3 when
+    unsure (bad input raises ``InvalidInputError``, exit 2). ``result.to_dict()``
+    is the JSON-ready value.
     """
     from .checker import check_chain as _check
 

@@ -137,7 +137,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
             )
         data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
-        verdicts = ", ".join(f"{h['from']} -> {h['to']}: {h['verdict']} ({h['decided_by']})" for h in data["junctions"] if h["kind"] == "handoff")
+        verdicts = ", ".join(f"{h['from']} -> {h['to']}: {h['verdict']} ({h['decided_by']})" for h in data["handoffs"] if h["kind"] == "handoff")
         log.step(f"checked {path.name}: {verdicts or data.get('summary', '')}")
     return results
 

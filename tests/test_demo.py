@@ -28,10 +28,10 @@ def test_demo_registers_fits_checks_and_retrains(demo: Path) -> None:
     refs = {r["ref"] for r in summary["registered"]}
     assert {"arm-lift@1", "arm-reach-tray@1", "walker-walk@1"} <= refs
     assert sum("model" in m for m in summary["models"].values()) >= 4
-    verdicts = {c["name"]: {j["verdict"] for j in c["result"]["junctions"] if j["kind"] == "handoff"} for c in summary["checks"]}
+    verdicts = {c["name"]: {j["verdict"] for j in c["result"]["handoffs"] if j["kind"] == "handoff"} for c in summary["checks"]}
     assert verdicts["arm-lift-reach-place"] == {"composes"}
     assert "breaks" in verdicts["arm-place-release"]
-    decided = {j["decided_by"] for c in summary["checks"] for j in c["result"]["junctions"]}
+    decided = {j["decided_by"] for c in summary["checks"] for j in c["result"]["handoffs"]}
     assert "static" in decided and "sim" in decided
     retrain = summary["retrain"]
     assert retrain["child"] == "arm-reach-tray@2" and retrain["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]

@@ -1,10 +1,14 @@
-"""Chain files: a planned sequence of skills on one env, the value object and its YAML loader.
+"""Chain files: a planned sequence of skills on one task, the value object and its YAML loader.
 
-A chain file (our own format) names the env, an optional task variant and start
-distribution (paths relative to the chain file, or the start inline), the skill
-steps (``name``, ``name@N`` or a spec file ``*.yaml``), the required handoff
-probability and the confidence of the intervals. ``load_chain`` reports every
-problem at once as ``FILE:LINE: field: problem; fix`` (InvalidInputError, exit 2).
+A chain file (our own format) names the task (env, optional task variant and
+initial states, paths relative to the chain file or initial states inline),
+the skills in order (``name``, ``name@N``, a spec file ``*.yaml``, or a mapping
+``{skill: ref, may_time_out: true}``), the requirements (each handoff's success
+probability and the whole chain's), the confidence, the simulation budget and
+the disturbances of stochastic episodes. ``load_chain`` reports every problem
+at once as ``FILE:LINE: field: problem; fix`` (InvalidInputError, exit 2).
+Files in the wave-1 format (``chain:``, top-level ``env``/``variant``/``start``,
+``steps:``, scalar ``require``) load with one warning per old key.
 """
 
 from __future__ import annotations
@@ -17,104 +21,120 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InvalidInputError, KinetomeError, Problem
+from ..runtime.disturbances import NO_DISTURBANCES, Disturbances
 from ..store.names import REF_PATTERN
 from ..yaml_source import YamlDocument, load_yaml_file, load_yaml_text
+from .chain_files import check_task_files, close_files, old_spelling_table
 
 __all__ = [
     "Chain",
     "CHAIN_FIELDS",
     "DEFAULT_EPISODES",
+    "DEFAULT_REQUIRE",
     "load_chain",
     "parse_chain_text",
     "chain_from_document",
-    "step_is_spec_file",
-    "resolve_steps",
+    "skill_is_spec_file",
+    "resolve_skills",
 ]
 
 DEFAULT_EPISODES = 200
-CHAIN_FIELDS = (
-    "chain",
-    "description",
-    "env",
-    "variant",
-    "start",
-    "steps",
-    "require",
-    "confidence",
-    "episodes",
-    "seed",
-)
-_REQUIRED = ("chain", "env", "steps")
+DEFAULT_REQUIRE = 0.95
+CHAIN_FIELDS = ("name", "description", "task", "skills", "require", "confidence", "episodes", "seed", "disturbances")
+TASK_FIELDS = ("env", "variant", "initial_states")
+REQUIRE_FIELDS = ("handoff", "chain")
+DISTURBANCE_FIELDS = ("exploration", "sensor_noise", "action_delay_steps", "gain_spread")
+SKILL_ITEM_FIELDS = ("skill", "may_time_out")
+_REQUIRED = ("name", "task", "skills")
 _NAME_RE = re.compile(r"[a-z0-9][a-z0-9_-]{0,63}")
 _REF_RE = re.compile(REF_PATTERN)  # name, name@N or name@id:HEX (a content identity pin)
 _FIXES = {
-    "chain": "name the chain with lowercase letters, digits, '-' or '_', e.g. arm-pick-to-tray",
-    "env": "name a registered env, e.g. kinetome/BenchArm-v0",
-    "steps": "list skills in order, e.g. [arm-lift@1, arm-reach-tray, arm-place]",
-    "require": "give the required handoff probability, e.g. 0.95",
-    "confidence": "give the confidence level of the intervals, e.g. 0.95",
+    "name": "name the chain with lowercase letters, digits, '-' or '_', e.g. arm-pick-to-tray",
+    "task": "give the task, e.g. task: {env: kinetome/BenchArm-v0}",
+    "task.env": "name a registered env, e.g. kinetome/BenchArm-v0",
+    "skills": "list skills in order, e.g. [arm-lift@1, arm-reach-tray, {skill: arm-place, may_time_out: true}]",
+    "require.handoff": "give each handoff's required success probability, e.g. 0.95",
+    "require.chain": "give the whole chain's required success probability, e.g. 0.9",
+    "confidence": "give the confidence level of the bounds, e.g. 0.95",
     "episodes": "give a whole number of simulated episodes, e.g. 200",
     "seed": "give a whole number >= 0, e.g. 0",
 }
 
 
-def step_is_spec_file(step: str) -> bool:
-    """A step naming a spec file (``*.yaml``/``*.yml``) rather than a stored skill."""
-    return step.endswith((".yaml", ".yml"))
+def skill_is_spec_file(ref: str) -> bool:
+    """A chain item naming a spec file (``*.yaml``/``*.yml``) rather than a stored skill."""
+    return ref.endswith((".yaml", ".yml"))
 
 
 @dataclass(frozen=True)
 class Chain:
-    """A validated chain: what to run, from where, and the verdict thresholds.
+    """A validated chain: what to run, on which task, and the verdict thresholds.
 
-    ``variant`` and a file ``start`` are absolute paths; ``start`` may also be an
-    inline mapping (a start distribution written in the chain file) or None (the
-    rig's default start). ``steps`` are store refs or absolute spec paths.
-    ``lines`` maps fields (``steps[1]`` too) to their line in ``source``.
+    ``variant`` and a file ``initial_states`` are absolute paths; ``initial_states``
+    may also be an inline mapping or None (the robot's default). ``skills`` are
+    store refs or absolute spec paths; ``may_time_out[i]`` allows skill i to time
+    out and still hand over. ``require_chain`` None means "same as the handoff
+    requirement". ``lines`` maps fields (``skills[1]``, ``task.env``...) to lines.
     """
 
     name: str
     env: str
-    steps: tuple[str, ...]
+    skills: tuple[str, ...]
+    may_time_out: tuple[bool, ...] = ()
     description: str = ""
     variant: Path | None = None
-    start: Path | Mapping[str, Any] | None = None
-    require: float = 0.95
+    initial_states: Path | Mapping[str, Any] | None = None
+    require_handoff: float = DEFAULT_REQUIRE
+    require_chain: float | None = None
     confidence: float = 0.95
     episodes: int = DEFAULT_EPISODES
     seed: int = 0
+    disturbances: Disturbances = NO_DISTURBANCES
     source: str = field(default="<chain>", compare=False)
     lines: Mapping[str, int] = field(default_factory=dict, compare=False, repr=False)
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "steps", tuple(self.steps))
+        object.__setattr__(self, "skills", tuple(self.skills))
+        flags = tuple(self.may_time_out) or tuple(False for _ in self.skills)
+        object.__setattr__(self, "may_time_out", tuple(bool(x) for x in flags))
         problems = _value_problems(self)
         if problems:
             raise InvalidInputError(problems)
 
     @property
     def n_handoffs(self) -> int:
-        return max(0, len(self.steps) - 1)
+        return max(0, len(self.skills) - 1)
+
+    @property
+    def chain_requirement(self) -> float:
+        """The whole chain's required success probability."""
+        return self.require_handoff if self.require_chain is None else self.require_chain
 
     def line(self, fieldname: str) -> int | None:
-        return self.lines.get(fieldname, self.lines.get(fieldname.split("[")[0]))
+        while fieldname:
+            if fieldname in self.lines:
+                return self.lines[fieldname]
+            cut = max(fieldname.rfind("."), fieldname.rfind("["))
+            fieldname = fieldname[:cut] if cut > 0 else ""
+        return None
 
     def problem(self, fieldname: str, message: str, fix: str = "") -> Problem:
         return Problem(self.source, self.line(fieldname), fieldname, message, fix)
 
     def to_dict(self) -> dict[str, Any]:
-        start: Any = str(self.start) if isinstance(self.start, Path) else (dict(self.start) if self.start else None)
+        init = self.initial_states
+        initial: Any = str(init) if isinstance(init, Path) else (dict(init) if init else None)
+        skills = [ref if not flag else {"skill": ref, "may_time_out": True} for ref, flag in zip(self.skills, self.may_time_out)]
         return {
-            "chain": self.name,
+            "name": self.name,
             "description": self.description,
-            "env": self.env,
-            "variant": None if self.variant is None else str(self.variant),
-            "start": start,
-            "steps": list(self.steps),
-            "require": self.require,
+            "task": {"env": self.env, "variant": None if self.variant is None else str(self.variant), "initial_states": initial},
+            "skills": skills,
+            "require": {"handoff": self.require_handoff, "chain": self.chain_requirement},
             "confidence": self.confidence,
             "episodes": self.episodes,
             "seed": self.seed,
+            "disturbances": self.disturbances.to_dict(),
             "source": self.source,
         }
 
@@ -131,25 +151,21 @@ def _value_problems(c: Chain) -> list[Problem]:
     """Rules on the values themselves (no files, no store): shared by the loader and the constructor."""
     out: list[Problem] = []
     if not isinstance(c.name, str) or not _NAME_RE.fullmatch(c.name):
-        out.append(c.problem("chain", f"must be a name of lowercase letters, digits, '-' or '_', got {c.name!r}", _FIXES["chain"]))
+        out.append(c.problem("name", f"must be a name of lowercase letters, digits, '-' or '_', got {c.name!r}", _FIXES["name"]))
     if not isinstance(c.env, str) or not c.env:
-        out.append(c.problem("env", f"must name an env, got {c.env!r}", _FIXES["env"]))
-    if not c.steps:
-        out.append(c.problem("steps", "must list at least one skill, got an empty chain", _FIXES["steps"]))
-    for i, step in enumerate(c.steps):
-        if not isinstance(step, str) or not step.strip():
-            out.append(c.problem(f"steps[{i}]", f"must be a skill name, name@N or a spec file, got {step!r}", _FIXES["steps"]))
-        elif not step_is_spec_file(step) and not _REF_RE.fullmatch(step):
-            out.append(
-                c.problem(
-                    f"steps[{i}]",
-                    f"must be a skill name, name@N (N >= 1), name@id:HEX (an identity) or a spec file ending in .yaml, got {step!r}",
-                    "write e.g. arm-lift@1",
-                )
-            )
-    for label in ("require", "confidence"):
-        value = getattr(c, label)
-        if not _is_probability(value):
+        out.append(c.problem("task.env", f"must name an env, got {c.env!r}", _FIXES["task.env"]))
+    if not c.skills:
+        out.append(c.problem("skills", "must list at least one skill, got an empty chain", _FIXES["skills"]))
+    if len(c.may_time_out) != len(c.skills):
+        out.append(c.problem("skills", f"needs one may_time_out flag per skill, got {len(c.may_time_out)} for {len(c.skills)}"))
+    for i, ref in enumerate(c.skills):
+        if not isinstance(ref, str) or not ref.strip():
+            out.append(c.problem(f"skills[{i}]", f"must be a skill name, name@N or a spec file, got {ref!r}", _FIXES["skills"]))
+        elif not skill_is_spec_file(ref) and not _REF_RE.fullmatch(ref):
+            out.append(c.problem(f"skills[{i}]", f"must be a skill name, name@N (N >= 1), name@id:HEX (an identity) or a spec file ending in .yaml, got {ref!r}", "write e.g. arm-lift@1"))
+    probabilities = [("require.handoff", c.require_handoff), ("require.chain", c.require_chain), ("confidence", c.confidence)]
+    for label, value in probabilities:
+        if not (value is None and label == "require.chain") and not _is_probability(value):
             out.append(c.problem(label, f"must be a number strictly between 0 and 1, got {value!r}", _FIXES[label]))
     if not _is_count(c.episodes, 1):
         out.append(c.problem("episodes", f"must be a whole number >= 1, got {c.episodes!r}", _FIXES["episodes"]))
@@ -167,140 +183,130 @@ def _value_problems(c: Chain) -> list[Problem]:
 def _field_lines(doc: YamlDocument) -> dict[str, int]:
     lines: dict[str, int] = {}
     for path, line in doc.lines.items():
-        if len(path) == 1 and isinstance(path[0], str):
-            lines[path[0]] = line
-        elif len(path) == 2 and path[0] == "steps" and isinstance(path[1], int):
-            lines[f"steps[{path[1]}]"] = line
+        if not path:
+            continue
+        text = str(path[0])
+        for part in path[1:]:
+            text += f"[{part}]" if isinstance(part, int) else f".{part}"
+        lines[text] = line
     return lines
 
 
-def _relative(base: Path, value: str) -> Path:
-    p = Path(value).expanduser()
-    return p if p.is_absolute() else (base / p).resolve()
-
-
-def _env_problems(doc: YamlDocument, fieldname: str, what: str, path: Path, exc: Exception) -> list[Problem]:
-    lines = exc.problems if hasattr(exc, "problems") else [str(exc)]
+def _unknown_keys(doc: YamlDocument, data: Mapping[str, Any], where: tuple, known: tuple[str, ...]) -> list[Problem]:
     out = []
-    for item in lines:
-        out.append(doc.problem((fieldname,), f"{what} {path} is invalid: {item}", f"fix {path.name} or point {fieldname} at another file"))
+    for key in data:
+        if key not in known:
+            close = difflib.get_close_matches(str(key), known, n=1)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            label = ".".join(str(p) for p in where) + ("." if where else "")
+            out.append(doc.problem((*where, key), "unknown field", f"{hint}valid fields{' of ' + label.rstrip('.') if where else ''}: {', '.join(known)}"))
     return out
 
 
-def _check_files(doc: YamlDocument, base: Path, data: Mapping[str, Any]) -> tuple[Path | None, Any, list[Problem]]:
-    """Resolve and load the variant and start files so that bad ones fail here, with the chain's line."""
-    from kinetome.envs import EnvConfigError
-
-    problems: list[Problem] = []
-    variant: Path | None = None
-    raw = data.get("variant")
-    if raw is not None:
-        if not isinstance(raw, str) or not raw.strip():
-            problems.append(doc.problem(("variant",), f"must be a path to a variant file, got {raw!r}", "write e.g. ../variants/heavy_payload.yaml"))
-        else:
-            variant = _relative(base, raw)
-            if not variant.is_file():
-                where = "" if Path(raw).is_absolute() else f" (looked at {variant})"
-                problems.append(doc.problem(("variant",), f"variant file {raw!r} not found{where}", _close_files(variant, "variants")))
-            else:
-                from kinetome.envs.variants import load_variant
-
-                try:
-                    load_variant(variant)
-                except (EnvConfigError, OSError, ValueError) as exc:
-                    problems += _env_problems(doc, "variant", "variant file", variant, exc)
-    start: Any = None
-    raw = data.get("start")
-    if raw is not None:
-        from kinetome.envs.starts import load_start, start_from_mapping
-
-        if isinstance(raw, Mapping):
-            try:
-                start_from_mapping(raw, source=f"{doc.source}:start")
-                start = dict(raw)
-            except (EnvConfigError, ValueError) as exc:
-                problems += _env_problems(doc, "start", "inline start distribution", Path(doc.source), exc)
-        elif not isinstance(raw, str) or not raw.strip():
-            problems.append(doc.problem(("start",), f"must be a path to an initial-states file or a mapping, got {raw!r}", "write e.g. ../initial_states/arm_home.yaml"))
-        else:
-            path = _relative(base, raw)
-            start = path
-            if not path.is_file():
-                where = "" if Path(raw).is_absolute() else f" (looked at {path})"
-                problems.append(doc.problem(("start",), f"initial-states file {raw!r} cannot be read: file not found{where}", _close_files(path, "initial_states")))
-            else:
-                try:
-                    load_start(path)
-                except (EnvConfigError, OSError, ValueError, UnicodeDecodeError) as exc:
-                    problems += _env_problems(doc, "start", "start distribution", path, exc)
-    return variant, start, problems
+def _mapping(doc: YamlDocument, data: Mapping[str, Any], key: str, known: tuple[str, ...], problems: list[Problem]) -> dict[str, Any]:
+    raw = data.get(key)
+    if raw is None:
+        return {}
+    if not isinstance(raw, Mapping):
+        problems.append(doc.problem((key,), f"must be a mapping of {', '.join(known)}, got {raw!r}", f"write e.g. {key}: {{{known[0]}: ...}}"))
+        return {}
+    problems += _unknown_keys(doc, raw, (key,), known)
+    return dict(raw)
 
 
-def _close_files(path: Path, kind: str) -> str:
-    folder = path.parent
-    if folder.is_dir():
-        names = sorted(p.name for p in folder.glob("*.y*ml"))
-        close = difflib.get_close_matches(path.name, names, n=1)
-        if close:
-            return f"did you mean {close[0]!r}? files there: {', '.join(names)}"
-        if names:
-            return f"files in {folder}: {', '.join(names)}"
-    return f"give a path relative to the chain file, e.g. ../{kind}/<name>.yaml"
+def _skill_items(doc: YamlDocument, base: Path, raw: Any, problems: list[Problem]) -> tuple[list[str], list[bool]]:
+    if raw is None:
+        return [], []
+    if not isinstance(raw, list):
+        problems.append(doc.problem(("skills",), f"must be a list of skills, got {type(raw).__name__}", _FIXES["skills"]))
+        return [], []
+    refs, flags = [], []
+    for i, item in enumerate(raw):
+        flag: Any = False
+        if isinstance(item, Mapping):
+            problems += _unknown_keys(doc, item, ("skills", i), SKILL_ITEM_FIELDS)
+            if "skill" not in item:
+                problems.append(doc.problem(("skills", i), "a mapping item needs 'skill'", "write {skill: arm-place, may_time_out: true}"))
+            flag = item.get("may_time_out", False)
+            if not isinstance(flag, bool):
+                problems.append(doc.problem(("skills", i, "may_time_out"), f"must be true or false, got {flag!r}", "write may_time_out: true"))
+                flag = False
+            item = item.get("skill", "")
+        if isinstance(item, str) and skill_is_spec_file(item):
+            p = Path(item).expanduser()
+            item = str(p if p.is_absolute() else (base / p).resolve())
+        refs.append(item if isinstance(item, str) else repr(item))
+        flags.append(bool(flag))
+    return refs, flags
+
+
+def _disturbances(doc: YamlDocument, raw: Mapping[str, Any], problems: list[Problem]) -> Disturbances:
+    draft = object.__new__(Disturbances)
+    for key, default in NO_DISTURBANCES.to_dict().items():
+        object.__setattr__(draft, key, raw.get(key, default))
+    found = draft.problems()
+    for fieldname, message, fix in found:
+        problems.append(doc.problem(("disturbances", fieldname), message, fix))
+    return NO_DISTURBANCES if found else Disturbances.from_mapping({k: raw[k] for k in raw if k in DISTURBANCE_FIELDS})
+
+
+def _require(doc: YamlDocument, data: Mapping[str, Any], problems: list[Problem]) -> tuple[Any, Any]:
+    raw = _mapping(doc, data, "require", REQUIRE_FIELDS, problems)
+    return raw.get("handoff", DEFAULT_REQUIRE), raw.get("chain")
 
 
 def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: Any = None) -> Chain:
     """Validate a parsed chain document; raise InvalidInputError listing every problem."""
+    from ..renamed_keys import rename_document
+
     base = base if base is not None else Path(".").resolve()
+    if isinstance(doc.data, Mapping):
+        doc = rename_document(doc, old_spelling_table())
     data = doc.data
     if not isinstance(data, Mapping):
-        raise InvalidInputError([doc.problem((), f"a chain file must be a mapping of field: value, got {type(data).__name__}", "start with 'chain: <name>'")])
-    problems: list[Problem] = []
-    for key in data:
-        if key not in CHAIN_FIELDS:
-            close = difflib.get_close_matches(str(key), CHAIN_FIELDS, n=1)
-            hint = f"did you mean {close[0]!r}? " if close else ""
-            problems.append(doc.problem((key,), "unknown field", f"{hint}valid fields: {', '.join(CHAIN_FIELDS)}"))
+        raise InvalidInputError([doc.problem((), f"a chain file must be a mapping of field: value, got {type(data).__name__}", "start with 'name: <name>'")])
+    problems: list[Problem] = _unknown_keys(doc, data, (), CHAIN_FIELDS)
     for key in _REQUIRED:
         if key not in data:
             problems.append(Problem(doc.source, 1, key, "is required but missing", _FIXES[key]))
-    steps_raw = data.get("steps", [])
-    if not isinstance(steps_raw, list):
-        problems.append(doc.problem(("steps",), f"must be a list of skills, got {type(steps_raw).__name__}", _FIXES["steps"]))
-        steps_raw = []
-    steps = []
-    for i, s in enumerate(steps_raw):
-        if isinstance(s, str) and step_is_spec_file(s):
-            steps.append(str(_relative(base, s)))
-        else:
-            steps.append(s if isinstance(s, str) else repr(s))
-    variant, start, file_problems = _check_files(doc, base, data)
+    task = _mapping(doc, data, "task", TASK_FIELDS, problems)
+    if isinstance(data.get("task"), Mapping) and "env" not in task:
+        problems.append(doc.problem(("task",), "env is required but missing", _FIXES["task.env"]))
+    skills, flags = _skill_items(doc, base, data.get("skills"), problems)
+    variant, initial, file_problems = check_task_files(doc, base, task)
     problems += file_problems
-    lines = _field_lines(doc)
+    handoff, whole = _require(doc, data, problems)
+    disturbances = _disturbances(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems)
     fields = dict(
-        name=data.get("chain", ""),
-        env=data.get("env", ""),
-        steps=tuple(steps),
+        name=data.get("name", ""),
+        env=task.get("env", ""),
+        skills=tuple(skills),
+        may_time_out=tuple(flags),
         description=data.get("description", "") if data.get("description") is not None else "",
         variant=variant,
-        start=start,
-        require=data.get("require", 0.95),
+        initial_states=initial,
+        require_handoff=handoff,
+        require_chain=whole,
         confidence=data.get("confidence", 0.95),
         episodes=data.get("episodes", DEFAULT_EPISODES),
         seed=data.get("seed", 0),
+        disturbances=disturbances,
         source=doc.source,
-        lines=lines,
+        lines=_field_lines(doc),
     )
     draft = object.__new__(Chain)
     for k, v in fields.items():
         object.__setattr__(draft, k, v)
-    required_missing = {p.field for p in problems if p.message == "is required but missing"}
-    problems += [p for p in _value_problems(draft) if p.field not in required_missing]
+    reported = {p.field for p in problems if "required but missing" in p.message}
+    if "task" in reported or "env" not in task:
+        reported.add("task.env")
+    problems += [p for p in _value_problems(draft) if p.field not in reported]
     if isinstance(fields["env"], str) and fields["env"]:
         problems += _env_id_problems(draft)
     if store is not None:
-        problems += _step_problems(draft, store)
+        problems += _skill_problems(draft, store)
     if problems:
-        raise InvalidInputError(sorted(problems, key=lambda p: (p.line or 0, p.field)))
+        raise InvalidInputError(sorted(set(problems), key=lambda p: (p.line or 0, p.field, p.message)))
     return Chain(**fields)
 
 
@@ -312,46 +318,46 @@ def _env_id_problems(c: Chain) -> list[Problem]:
         return []
     close = difflib.get_close_matches(c.env, known, n=1)
     hint = f"did you mean {close[0]!r}? " if close else ""
-    return [c.problem("env", f"unknown env {c.env!r}", f"{hint}known envs: {', '.join(known)}")]
+    return [c.problem("task.env", f"unknown env {c.env!r}", f"{hint}known envs: {', '.join(known)}")]
 
 
-def _step_problems(c: Chain, store: Any) -> list[Problem]:
-    """Every step must resolve: a stored version (missing versions list the existing ones) or a valid spec file."""
+def _skill_problems(c: Chain, store: Any) -> list[Problem]:
+    """Every skill must resolve: a stored version (missing versions list the existing ones) or a valid spec file."""
     out: list[Problem] = []
-    for i, step in enumerate(c.steps):
-        if not isinstance(step, str) or not step:
+    for i, ref in enumerate(c.skills):
+        if not isinstance(ref, str) or not ref:
             continue
-        where = f"steps[{i}]"
-        if step_is_spec_file(step):
-            if not Path(step).is_file():
-                out.append(c.problem(where, f"spec file {step} not found", "give a path relative to the chain file"))
+        where = f"skills[{i}]"
+        if skill_is_spec_file(ref):
+            if not Path(ref).is_file():
+                out.append(c.problem(where, f"spec file {ref} not found", close_files(Path(ref), "skills")))
                 continue
             from ..spec_load import load_spec
 
             try:
-                load_spec(step)
+                load_spec(ref)
             except InvalidInputError as exc:
-                out += [c.problem(where, f"spec file {Path(step).name} is invalid: {p}", "fix the spec") for p in exc.problems]
+                out += [c.problem(where, f"spec file {Path(ref).name} is invalid: {p}", "fix the spec") for p in exc.problems]
             continue
-        if not _REF_RE.fullmatch(step):
+        if not _REF_RE.fullmatch(ref):
             continue
         try:
-            store.get(step)
+            store.get(ref)
         except KinetomeError as exc:
-            fix = "register it with `kinetome add <spec.yaml>`" if "@" not in step else "use an existing version"
+            fix = "register it with `kinetome register <spec.yaml>`" if "@" not in ref else "use an existing version"
             out.append(c.problem(where, str(exc), fix))
     return out
 
 
-def resolve_steps(chain: Chain, store: Any) -> None:
-    """Raise InvalidInputError (exit 2) if a step does not resolve in ``store``."""
-    problems = _step_problems(chain, store)
+def resolve_skills(chain: Chain, store: Any) -> None:
+    """Raise InvalidInputError (exit 2) if a skill does not resolve in ``store``."""
+    problems = _skill_problems(chain, store)
     if problems:
         raise InvalidInputError(problems)
 
 
 def load_chain(path: str | Path, *, store: Any = None) -> Chain:
-    """Read and validate a chain file; with ``store``, every step must resolve in it."""
+    """Read and validate a chain file; with ``store``, every skill must resolve in it."""
     path = Path(path)
     doc = load_yaml_file(path)
     return chain_from_document(doc, base=path.resolve().parent, store=store)

@@ -1,4 +1,4 @@
-"""Whole-chain numbers from a simulation: success with an exact interval, duration, return, per-skill timing."""
+"""Whole-chain numbers from a simulation: success with its bounds and requirement verdict, duration, return, per-skill timing."""
 
 from __future__ import annotations
 
@@ -7,27 +7,28 @@ from typing import Any
 
 import numpy as np
 
-from .verdict import Estimate, estimate
+from .verdict import Estimate
 
 __all__ = ["ChainStats", "SkillTiming", "chain_stats_from_rollout"]
 
 
 @dataclass(frozen=True)
 class SkillTiming:
-    """How one chain step ran: end reasons and how long it took (env steps) where it ran."""
+    """How one skill of the chain ran: outcomes, and its duration (steps) where it ran."""
 
     ref: str
-    offered: int  # episodes that reached this step
-    ran: int  # accepted its start state
+    offered: int  # episodes that reached this skill
+    ran: int  # accepted its initial state
     stopped: int
     timed_out: int
-    env_terminated: int
+    env_ended: int
     refused: int
-    steps_mean: float
-    steps_p10: float
-    steps_p50: float
-    steps_p90: float
-    start_mean: float  # mean env step at which the skill started, over episodes where it ran
+    may_time_out: bool
+    duration_mean: float
+    duration_p10: float
+    duration_p50: float
+    duration_p90: float
+    start_mean: float  # mean step at which the skill started, over episodes where it ran
 
     def to_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
@@ -35,22 +36,35 @@ class SkillTiming:
 
 @dataclass(frozen=True)
 class ChainStats:
-    """Whole chain over ``episodes`` simulated episodes; durations in env steps (``dt`` seconds each)."""
+    """Whole chain over ``episodes`` simulated episodes; durations in steps (``dt`` seconds each).
+
+    ``success`` is over the ``distinct_trajectories`` (its verdict: the chain requirement
+    is met, failed or unsure); ``stages`` gives the episodes each stage of the plan ran.
+    """
 
     episodes: int
+    distinct_trajectories: int
     success: Estimate
     dt: float
-    steps: dict[str, float]
+    duration: dict[str, float]
     ret: dict[str, float]
     skills: tuple[SkillTiming, ...]
+    stages: dict[str, int]
+    rule: str
+    disturbances: dict[str, Any]
 
     def to_dict(self) -> dict[str, Any]:
         return {
             "episodes": self.episodes,
+            "distinct_trajectories": self.distinct_trajectories,
             "success": self.success.to_dict(),
+            "requirement": self.success.verdict.value,
+            "stages": dict(self.stages),
+            "rule": self.rule,
+            "disturbances": dict(self.disturbances),
             "dt": self.dt,
-            "steps": dict(self.steps),
-            "seconds": {k: v * self.dt for k, v in self.steps.items()},
+            "duration": dict(self.duration),
+            "seconds": {k: v * self.dt for k, v in self.duration.items()},
             "return": dict(self.ret),
             "skills": [s.to_dict() for s in self.skills],
         }
@@ -64,16 +78,17 @@ def _quantiles(x: np.ndarray) -> tuple[float, float, float, float]:
     return float(np.mean(x)), float(np.quantile(x, 0.1)), float(np.quantile(x, 0.5)), float(np.quantile(x, 0.9))
 
 
-def chain_stats_from_rollout(rollout: Any, *, dt: float, require: float, confidence: float) -> ChainStats:
-    """Summarise a ChainRollout: success = every skill stopped by its stops_when."""
+def chain_stats_from_rollout(
+    rollout: Any, *, dt: float, success: Estimate, chain_ok: np.ndarray, distinct: int, may_time_out: tuple[bool, ...],
+    stages: dict[str, int], rule: str, disturbances: dict[str, Any],
+) -> ChainStats:
+    """Summarise a ChainRollout; ``chain_ok`` (n,) marks the episodes that completed the chain."""
     from ..runtime.records import EndReason
 
     n = rollout.n_episodes
-    success = rollout.success
-    k = int(np.sum(success))
     total = rollout.total_steps.astype(np.float64)
     mean, p10, p50, p90 = _quantiles(total)
-    smean, _, sp50, _ = _quantiles(total[success])
+    smean, _, sp50, _ = _quantiles(total[chain_ok])
     # discounted return of the chain: sum_i (prod_{j<i} gamma^{k_j}) * G_i
     carry = np.ones(n)
     disc = np.zeros(n)
@@ -83,7 +98,7 @@ def chain_stats_from_rollout(rollout: Any, *, dt: float, require: float, confide
     ret = rollout.total_reward
     timings = []
     clock = np.zeros(n)
-    for seg in rollout.segments:
+    for seg, allowed in zip(rollout.segments, may_time_out):
         reason = seg.reason
         ran = (reason != int(EndReason.NOT_REACHED)) & (reason != int(EndReason.REFUSED))
         m, q10, q50, q90 = _quantiles(seg.steps[ran])
@@ -94,22 +109,27 @@ def chain_stats_from_rollout(rollout: Any, *, dt: float, require: float, confide
                 ran=int(np.sum(ran)),
                 stopped=seg.count(EndReason.STOPPED),
                 timed_out=seg.count(EndReason.TIMED_OUT),
-                env_terminated=seg.count(EndReason.TERMINATED),
+                env_ended=seg.count(EndReason.ENV_ENDED),
                 refused=seg.count(EndReason.REFUSED),
-                steps_mean=m,
-                steps_p10=q10,
-                steps_p50=q50,
-                steps_p90=q90,
+                may_time_out=bool(allowed),
+                duration_mean=m,
+                duration_p10=q10,
+                duration_p50=q50,
+                duration_p90=q90,
                 start_mean=float(np.mean(clock[ran])) if np.any(ran) else float("nan"),
             )
         )
         clock = clock + seg.steps
     return ChainStats(
         episodes=n,
-        success=estimate(k, n, require=require, confidence=confidence),
+        distinct_trajectories=int(distinct),
+        success=success,
         dt=float(dt),
-        steps={"mean": mean, "p10": p10, "p50": p50, "p90": p90, "success_mean": smean, "success_p50": sp50},
+        duration={"mean": mean, "p10": p10, "p50": p50, "p90": p90, "success_mean": smean, "success_p50": sp50},
         ret={"mean": float(np.mean(ret)) if n else float("nan"), "std": float(np.std(ret)) if n else float("nan"),
              "discounted_mean": float(np.mean(disc)) if n else float("nan"), "gamma": float(rollout.gamma)},
         skills=tuple(timings),
+        stages=dict(stages),
+        rule=rule,
+        disturbances=dict(disturbances),
     )

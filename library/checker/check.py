@@ -1,11 +1,12 @@
 """Check a chain: structural checks, then the methods cheapest first, then one verdict per junction.
 
-``auto`` (the default) runs static where it decides, the option models where
-they are attached, and simulation for whatever is still undecided. The entry
-(start distribution -> first skill) is proved statically when the start
-distribution is a box over raw state, else measured on sampled start states.
-Precedence per junction: a structural mismatch breaks it; otherwise the first
-method that decides (cheapest first) gives the verdict.
+A handoff A -> B composes when A ends by its stop condition in time (liveness)
+and B's ``starts_when`` holds there (containment). The static method can prove
+containment only; liveness needs simulation (or option models valid for this
+task). So ``auto`` runs static, then the models, then simulation unless every
+handoff was already decided; how many episodes it runs follows ``sequential.py``.
+The entry (initial states -> first skill) is proved statically when the initial
+states form a box over raw state, else measured on sampled initial states.
 """
 
 from __future__ import annotations
@@ -15,13 +16,13 @@ from pathlib import Path
 from typing import Any
 
 from .chain import Chain, load_chain
+from .combine import combine_handoff, whole_chain_verdict
 from .context import CheckContext, CheckOptions, prepare_context
 from .entry import sample_entry
-from .evidence import Counterexample, Evidence, Junction
+from .evidence import Evidence
 from .registry import AUTO, get_method, methods
-from .result import CheckResult, HandoffResult
+from .result import CheckResult
 from .structural import structural_check
-from .verdict import Verdict
 
 __all__ = ["check_chain", "run_check"]
 
@@ -38,18 +39,21 @@ def check_chain(
     gamma: float = 0.99,
     start_samples: int = 1000,
     model_samples: int = 2000,
+    block_size: int | None = None,
     progress: Any = None,
 ) -> CheckResult:
     """Check that a chain composes. ``chain`` is a Chain or the path of a chain file.
 
     Raises InvalidInputError (exit code 2) for bad input; otherwise the
-    result's ``exit_code`` is 0 (all compose), 1 (some handoff breaks) or 3
-    (some unsure). ``episodes``/``seed`` override the chain file's values.
-    ``progress(done, total)`` follows the simulation, when one runs.
+    result's ``exit_code`` is 0 (every handoff composes and the whole chain
+    meets its requirement), 1 (something breaks or fails) or 3 (unsure).
+    ``episodes``/``seed`` override the chain file's values.
+    ``progress(done, total)`` follows the simulation in episodes, when one runs.
     """
+    extra = {} if block_size is None else {"block_size": block_size}
     options = CheckOptions(
         method=method, episodes=episodes, seed=seed, workers=workers, gamma=gamma,
-        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress,
+        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress, **extra,
     )
     if not isinstance(chain, Chain):
         chain = load_chain(chain, store=store)
@@ -64,120 +68,71 @@ def _plan(method: str) -> list[str]:
     return [method]
 
 
-def _confirm_candidates(static: Evidence, sim: Evidence) -> Evidence:
-    """Static candidates become confirmed where the simulation refused states on the same clause."""
-    sim_clauses = {cl["clause"] for c in sim.counterexamples for cl in c.clauses}
-    if not static.candidates or not sim_clauses:
-        return static
-    kept, promoted = [], []
-    for c in static.candidates:
-        if {cl["clause"] for cl in c.clauses} & sim_clauses:
-            promoted.append(Counterexample(c.state, c.violations, c.clauses, c.source, True, c.note + "; confirmed: the simulation refused states on the same clause"))
+def _timed(timings: dict[str, float], name: str, fn: Any, *args: Any) -> Any:
+    t0 = time.perf_counter()
+    out = fn(*args)
+    timings[name] = timings.get(name, 0.0) + time.perf_counter() - t0
+    return out
+
+
+def _decided(evidence: list[Evidence]) -> bool:
+    return any(e.decided for e in evidence)
+
+
+def _gather(ctx: CheckContext, timings: dict[str, float]) -> dict[int, list[Evidence]]:
+    """Every method's evidence per junction. Simulation runs unless every handoff is already decided."""
+    junctions = ctx.junctions()
+    entry, handoffs = junctions[0], junctions[1:]
+    found: dict[int, list[Evidence]] = {j.index: [] for j in junctions}
+    for idx, ev in _timed(timings, "structural", structural_check, ctx, junctions).items():
+        found[idx].append(ev)
+    broken = any(_decided(evs) for evs in found.values())
+    sampled = False
+    for name in _plan(ctx.options.method):
+        if name != "static" and not sampled and not _decided(found[0]):
+            found[0].append(_timed(timings, "entry", sample_entry, ctx, entry))
+            sampled = True
+        if name == "sim":
+            if broken:
+                ctx.notes.append("simulation skipped: the chain is structurally broken (see the mismatch above)")
+                continue
+            if ctx.options.method == AUTO and ctx.chain_stats is not None and all(_decided(found[j.index]) for j in handoffs):
+                continue  # cheaper evidence decided every handoff and the whole chain
+            targets = handoffs  # one simulation serves every handoff and the whole chain
         else:
-            kept.append(c)
-    return Evidence(static.method, static.verdict, static.reason, static.estimate, static.counterexamples + tuple(promoted), tuple(kept), static.details, static.points, static.accepted)
+            targets = [j for j in (junctions if name == "static" else handoffs) if not _decided(found[j.index])]
+            if not targets:
+                continue
+        for idx, ev in _timed(timings, name, get_method(name).fn, ctx, targets).items():
+            found[idx].append(ev)
+    if not sampled and not _decided(found[0]):
+        found[0].append(_timed(timings, "entry", sample_entry, ctx, entry))
+    return found
 
 
 def run_check(ctx: CheckContext) -> CheckResult:
     """Run the plan on a prepared context and assemble the result."""
-    junctions = ctx.junctions()
-    found: dict[int, list[Evidence]] = {j.index: [] for j in junctions}
-    decided: dict[int, Evidence] = {}
     timings: dict[str, float] = {}
-
-    t0 = time.perf_counter()
-    for idx, ev in structural_check(ctx, junctions).items():
-        found[idx].append(ev)
-        if ev.decided:
-            decided[idx] = ev
-    timings["structural"] = time.perf_counter() - t0
-
-    handoffs = [j for j in junctions if not j.is_entry]
-    structurally_broken = {i for i, e in decided.items() if e.method == "structural"}
-    entry_done = False
-    for name in _plan(ctx.options.method):
-        if name != "static" and not entry_done:
-            # The entry is measured on sampled start states once static had its chance.
-            entry_done = _run_entry(ctx, junctions[0], found, decided, timings)
-        targets = [j for j in (junctions if name == "static" else handoffs) if j.index not in decided]
-        if name == "sim" and targets:
-            if structurally_broken:
-                ctx.notes.append("simulation skipped: the chain is structurally broken (see the mismatch above)")
-                continue
-            # One rollout serves every handoff: decided ones get it as a cross-check.
-            targets = handoffs
-        if not targets:
-            continue
-        t0 = time.perf_counter()
-        results = get_method(name).fn(ctx, targets)
-        timings[name] = timings.get(name, 0.0) + time.perf_counter() - t0
-        for idx, ev in results.items():
-            found[idx].append(ev)
-            if idx not in decided and ev.decided:
-                decided[idx] = ev
-    if not entry_done:
-        _run_entry(ctx, junctions[0], found, decided, timings)
-
-    results = [_assemble(ctx, j, found[j.index], decided.get(j.index)) for j in junctions]
+    found = _gather(ctx, timings)
+    results = [combine_handoff(ctx, j, found[j.index]) for j in ctx.junctions()]
     chain = ctx.chain
     start = ""
     if ctx.start is not None:
-        start = getattr(ctx.start, "name", "") or str(chain.start)
+        start = getattr(ctx.start, "name", "") or str(chain.initial_states)
     variant = (getattr(ctx.rig.variant, "name", "") or chain.variant.stem) if chain.variant is not None else ""
+    stats = ctx.chain_stats
     return CheckResult(
         chain=chain,
         method=ctx.options.method,
         junctions=tuple(results),
-        chain_stats=ctx.chain_stats,
+        whole_chain=stats,
+        chain_verdict=whole_chain_verdict(stats),
         notes=tuple(dict.fromkeys(ctx.notes)),
         timings=timings,
         env_id=ctx.rig.env_id,
         variant=variant,
-        start=start,
-        episodes=ctx.episodes if "sim" in timings else 0,
+        initial_states=start,
+        episodes=0 if stats is None else stats.episodes,
         seed=ctx.seed,
         layout=ctx.rig.layout,
-    )
-
-
-def _run_entry(ctx: CheckContext, j: Junction, found: dict, decided: dict, timings: dict) -> bool:
-    if j.index in decided:
-        return True
-    t0 = time.perf_counter()
-    ev = sample_entry(ctx, j)
-    timings["sample"] = timings.get("sample", 0.0) + time.perf_counter() - t0
-    found[j.index].append(ev)
-    if ev.decided:
-        decided[j.index] = ev
-    return True
-
-
-def _assemble(ctx: CheckContext, j: Junction, evidence: list[Evidence], decided: Evidence | None) -> HandoffResult:
-    notes: list[str] = []
-    sim = next((e for e in evidence if e.method == "sim"), None)
-    if sim is not None:
-        evidence = [_confirm_candidates(e, sim) if e.method == "static" else e for e in evidence]
-        if decided is not None and decided.method == "static" and decided.verdict is Verdict.COMPOSES and sim.counterexamples:
-            notes.append(
-                f"the static proof assumed the physical envelope and declared limits; the simulation found "
-                f"{len(sim.counterexamples)}+ refused stops, so a state left that envelope (check joint limits and limits lint)"
-            )
-        if decided is not None and decided.method == "static":
-            decided = next(e for e in evidence if e.method == "static")
-    if decided is not None:
-        verdict, by, reason = decided.verdict, decided.method, decided.reason
-    else:
-        verdict, by = Verdict.UNSURE, None
-        tried = [e for e in evidence if e.method != "structural"]
-        reason = "; ".join(f"{e.method}: {e.reason}" for e in tried) or "no method could examine it"
-    b = ctx.target_skill(j)
-    return HandoffResult(
-        junction=j,
-        verdict=verdict,
-        decided_by=by,
-        reason=reason,
-        evidence=tuple(evidence),
-        starts_when=b.starts_when,
-        parameters=dict(b.parameters),
-        notes=tuple(notes),
     )

@@ -9,8 +9,9 @@ from typing import Any, Mapping
 import numpy as np
 
 from ..errors import InvalidInputError, KinetomeError, Problem
-from .chain import Chain, step_is_spec_file
+from .chain import Chain, skill_is_spec_file
 from .evidence import Junction
+from .sequential import DEFAULT_BLOCK
 
 __all__ = ["CheckOptions", "CheckContext", "prepare_context"]
 
@@ -19,8 +20,10 @@ __all__ = ["CheckOptions", "CheckContext", "prepare_context"]
 class CheckOptions:
     """How to check. ``episodes``/``seed`` default to the chain file's values.
 
-    ``start_samples``: start states drawn to test the entry; ``model_samples``:
-    particles for the model method; ``timeout_ms``: per z3 query.
+    ``start_samples``: initial states drawn to test the entry; ``model_samples``:
+    particles for the model method; ``timeout_ms``: per z3 query; ``block_size``:
+    episodes per simulation block (results do not depend on it for ``--method sim``
+    beyond which initial states are drawn; stopping rules look only at block ends).
     """
 
     method: str = "auto"
@@ -32,7 +35,8 @@ class CheckOptions:
     start_samples: int = 1000
     model_samples: int = 2000
     max_counterexamples: int = 5
-    progress: Any = field(default=None, compare=False)  # progress(done, total) while simulating
+    block_size: int = DEFAULT_BLOCK
+    progress: Any = field(default=None, compare=False)  # progress(done, total) in episodes while simulating
 
     def __post_init__(self) -> None:
         problems = []
@@ -51,6 +55,7 @@ class CheckOptions:
         count("start_samples", 1)
         count("model_samples", 1)
         count("max_counterexamples", 0)
+        count("block_size", 1)
         if not (isinstance(self.gamma, (int, float)) and 0.0 < self.gamma <= 1.0):
             problems.append(Problem("<options>", None, "gamma", f"must be in (0, 1], got {self.gamma!r}"))
         from .registry import AUTO, method_names
@@ -75,7 +80,7 @@ class CheckContext:
     rig: Any
     skills: tuple[Any, ...]  # LoadedSkill, built for the chain's rig
     skill_envs: tuple[str, ...]  # each skill's own env id (its spec's env)
-    start: Any  # StartDistribution or None (the rig's default start)
+    start: Any  # StartDistribution of the initial states, or None (the robot's default)
     store: Any = None
     cache: dict[str, Any] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
@@ -95,7 +100,7 @@ class CheckContext:
 
     def junctions(self) -> list[Junction]:
         refs = [s.ref for s in self.skills]
-        out = [Junction(0, "start", refs[0])]
+        out = [Junction(0, "initial states", refs[0])]
         out += [Junction(j, refs[j - 1], refs[j]) for j in range(1, len(refs))]
         return out
 
@@ -113,18 +118,22 @@ class CheckContext:
         parts = [named_state_of_states(self.rig, qpos[i : i + chunk], qvel[i : i + chunk]) for i in range(0, qpos.shape[0], chunk)]
         return {k: np.concatenate([p[k] for p in parts], axis=0) for k in parts[0] if not k.endswith("_jac")}
 
-    def start_states(self, n: int, *, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    def block_starts(self, first: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
+        """Initial states of episodes first..stop-1: their own stream, whatever runs the block."""
+        return self.start_states(stop - first, seed=(self.seed, 3, first, stop))
+
+    def start_states(self, n: int, *, seed: int | tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
         key = f"starts:{n}:{seed}"
         if key not in self.cache:
             from ..runtime.starts import sample_starts
 
             try:
-                self.cache[key] = sample_starts(self.rig, self.start, n, seed=seed)
+                self.cache[key] = sample_starts(self.rig, self.start, n, seed=list(seed) if isinstance(seed, tuple) else seed)
             except KinetomeError:
                 raise
             except Exception as exc:  # envs raises EnvConfigError (a ValueError) for bad constraints
                 raise InvalidInputError(
-                    [self.chain.problem("start", f"cannot sample start states: {exc}", "fix the start distribution")]
+                    [self.chain.problem("task.initial_states", f"cannot sample initial states: {exc}", "fix the initial states")]
                 ) from None
         return self.cache[key]
 
@@ -133,7 +142,7 @@ def _load_step(step: str, store: Any, rig: Any) -> Any:
     from ..runtime.skill import load_skill, skill_from_spec
     from ..spec_load import load_spec
 
-    if step_is_spec_file(step):
+    if skill_is_spec_file(step):
         return skill_from_spec(load_spec(step), ref=Path(step).name, rig=rig)
     return load_skill(store, step, rig=rig)
 
@@ -142,7 +151,7 @@ def _spec_env(step: str, store: Any) -> str:
     """The env a step's spec names, without building its controller."""
     import json
 
-    if step_is_spec_file(step):
+    if skill_is_spec_file(step):
         from ..spec_load import load_spec
 
         return load_spec(step).env
@@ -160,29 +169,29 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
     structural check then reports the mismatch as ``breaks``.
     """
     from ..tasks import load_start_file, load_variant_file, task_rig
-    from .chain import resolve_steps
+    from .chain import resolve_skills
 
-    if any(not step_is_spec_file(s) for s in chain.steps):
+    if any(not skill_is_spec_file(s) for s in chain.skills):
         if store is None:
-            raise InvalidInputError([chain.problem("steps", "names stored skills but no store was given", "pass --store or set KINETOME_STORE")])
-        resolve_steps(chain, store)
+            raise InvalidInputError([chain.problem("skills", "names stored skills but no store was given", "pass --store or set KINETOME_STORE")])
+        resolve_skills(chain, store)
     variant = load_variant_file(chain.variant) if chain.variant is not None else None
     rig = task_rig(chain.env, variant)
-    if isinstance(chain.start, Path):
-        start = load_start_file(chain.start)
-    elif isinstance(chain.start, Mapping):
+    if isinstance(chain.initial_states, Path):
+        start = load_start_file(chain.initial_states)
+    elif isinstance(chain.initial_states, Mapping):
         from kinetome.envs import EnvConfigError
         from kinetome.envs.starts import start_from_mapping
 
         try:
-            start = start_from_mapping(chain.start, source=f"{chain.source}:start")
+            start = start_from_mapping(chain.initial_states, source=f"{chain.source}:task.initial_states")
         except EnvConfigError as exc:
-            raise InvalidInputError([chain.problem("start", line) for line in exc.problems]) from None
+            raise InvalidInputError([chain.problem("task.initial_states", line) for line in exc.problems]) from None
     else:
         start = None
     skills, envs = [], []
     own_rigs: dict[str, Any] = {rig.env_id: rig}
-    for step in chain.steps:
+    for step in chain.skills:
         env = _spec_env(step, store)
         envs.append(env)
         if env not in own_rigs:

@@ -1,9 +1,11 @@
-"""Entry check: do the chain's start states lie in the first skill's initiation set? (by sampling)
+"""Entry check by sampling: do the chain's initial states lie in the first skill's initiation set?
 
-Start states are drawn from the start distribution and their named state is
-computed by MuJoCo (reset, write, forward; no stepping), so this costs no
-simulation. The static method proves the entry when the distribution is a box
-over raw state; otherwise this sample decides, with an exact interval.
+Initial states are drawn from the chain's initial-state distribution and their
+named state is computed by MuJoCo (reset, write, forward; no stepping), so this
+costs almost nothing. It belongs to the ``sim`` method (``decided_by: sim``).
+The static method proves the entry instead when the distribution is a box over
+raw state. The upper bound is Bonferroni-corrected over the chain's junctions,
+like the handoffs' (``decision.py``).
 """
 
 from __future__ import annotations
@@ -12,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from .decision import bonferroni_confidence
 from .evidence import Evidence, Junction, counterexample_from
 from .verdict import estimate
 
@@ -19,21 +22,23 @@ __all__ = ["sample_entry"]
 
 
 def sample_entry(ctx: Any, j: Junction) -> Evidence:
-    """k of n sampled start states accepted by the first skill's starts_when."""
+    """k of n sampled initial states accepted by the first skill's starts_when."""
     b = ctx.target_skill(j)
+    chain = ctx.chain
     n = ctx.options.start_samples
-    qpos, qvel = ctx.start_states(n, seed=ctx.seed + 1)
+    qpos, qvel = ctx.start_states(n, seed=(ctx.seed, 1))
     state = ctx.named_state(qpos, qvel)
     ok = b.starts_when.evaluate({**state, **b.parameters})
-    est = estimate(int(ok.sum()), n, require=ctx.chain.require, confidence=ctx.chain.confidence)
+    upper = bonferroni_confidence(chain.confidence, len(ctx.skills))
+    est = estimate(int(ok.sum()), n, require=chain.require_handoff, confidence=chain.confidence, upper_confidence=upper)
     names = tuple(ctx.layout.names)
     cex = tuple(
-        counterexample_from(b.starts_when, state, int(r), parameters=b.parameters, names=names, source="start", confirmed=True, note=f"sampled start state {int(r)}")
+        counterexample_from(b.starts_when, state, int(r), parameters=b.parameters, names=names, source="start", confirmed=True, note=f"sampled initial state {int(r)}")
         for r in np.flatnonzero(~ok)[: ctx.options.max_counterexamples]
     )
-    where = "the rig's default start" if ctx.start is None else f"start distribution {getattr(ctx.start, 'name', '')}".strip()
+    where = "the robot's default initial states" if ctx.start is None else f"initial states {getattr(ctx.start, 'name', '')}".strip()
     return Evidence(
-        "sample", est.verdict, f"{est.k} of {n} states from {where} accepted by {b.ref}",
+        "sim", est.verdict, f"{est.k} of {n} states sampled from {where} accepted by {b.ref} (MuJoCo forward, no stepping)",
         estimate=est, counterexamples=cex, details={"samples": n},
         points={k: v[:2000] for k, v in state.items()}, accepted=ok[:2000],
     )

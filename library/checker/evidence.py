@@ -14,12 +14,12 @@ __all__ = ["Junction", "Counterexample", "Evidence", "counterexample_from"]
 
 @dataclass(frozen=True)
 class Junction:
-    """Where the checker looks: ``index`` 0 is the entry (start distribution -> first skill);
-    ``index`` j >= 1 is the handoff from step j-1 to step j.
+    """Where the checker looks: ``index`` 0 is the entry (initial states -> first skill);
+    ``index`` j >= 1 is the handoff from skill j-1 to skill j.
     """
 
     index: int
-    source: str  # skill ref of A, or "start"
+    source: str  # skill ref of A, or "initial states"
     target: str  # skill ref of B
 
     @property
@@ -44,7 +44,7 @@ class Counterexample:
     clauses as text (``qvel[2] = 1.8, needs <= 1 (over by 0.8)``) with the
     structured form in ``clauses``. ``source`` is ``sim`` (an episode's end
     state), ``z3`` (a solver model), ``model`` (an end-state model sample) or
-    ``start`` (a sampled start state). ``confirmed`` tells whether the state is
+    ``start`` (a sampled initial state). ``confirmed`` tells whether the state is
     known to be physical: a simulated state, or a solver model realised in
     MuJoCo (see ``static.py``). ``note`` says where it came from.
     """
@@ -125,7 +125,7 @@ class Evidence:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "method": self.method,
+            "kind": self.method,
             "verdict": self.verdict.value,
             "reason": self.reason,
             "estimate": None if self.estimate is None else self.estimate.to_dict(),

@@ -17,7 +17,7 @@ import numpy as np
 
 from .evidence import Evidence, Junction, counterexample_from
 from .registry import checker_method
-from .verdict import estimate
+from .verdict import Verdict, estimate
 
 __all__ = ["model_method", "skill_models"]
 
@@ -43,7 +43,7 @@ def skill_models(ctx: Any, index: int) -> Any:
 def _propagate(ctx: Any, j: Junction, rng: np.random.Generator) -> tuple[dict, str | None]:
     """End states of step j-1 conditioned on stopping, reached through the chain; or why not."""
     n = ctx.options.model_samples
-    qpos, qvel = ctx.start_states(n, seed=ctx.seed + 7919)
+    qpos, qvel = ctx.start_states(n, seed=(ctx.seed, 7919))
     state = ctx.named_state(qpos, qvel)
     for i in range(j.index):
         skill = ctx.skills[i]
@@ -90,7 +90,7 @@ def model_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
             continue
         n = next(iter(state.values())).shape[0] if state else 0
         ok = b.starts_when.evaluate({**state, **b.parameters}) if n else np.zeros(0, dtype=bool)
-        est = estimate(int(ok.sum()), n, require=ctx.chain.require, confidence=ctx.chain.confidence)
+        est = estimate(int(ok.sum()), n, require=ctx.chain.require_handoff, confidence=ctx.chain.confidence)
         names = tuple(sorted(state))
         bad = np.flatnonzero(~ok)[: ctx.options.max_counterexamples]
         cex = tuple(
@@ -98,8 +98,10 @@ def model_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
             for r in bad
         )
         errors = a_models.end_state.errors if a_models.end_state is not None else {}
+        # Models not yet checked against this task (env, variant, version, support) inform but do not decide.
         out[j.index] = Evidence(
-            "model", est.verdict, f"{est.k} of {n} model end states of {j.source} accepted by {j.target}",
+            "model", Verdict.UNSURE,
+            f"{est.k} of {n} model end states of {j.source} accepted by {j.target} (the models' task is not checked: informative only)",
             estimate=est, candidates=cex,
             details={"samples": n, "end_state_errors": errors, "outcomes": a_models.outcome_fractions()},
             points={k: v[:2000] for k, v in state.items()}, accepted=ok[:2000],

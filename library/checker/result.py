@@ -15,10 +15,15 @@ from .chain_stats import ChainStats
 from .evidence import Counterexample, Evidence, Junction
 from .verdict import Estimate, Verdict, exit_code_for
 
-__all__ = ["HandoffResult", "CheckResult"]
+__all__ = ["HandoffResult", "CheckResult", "SCHEMA", "EXIT_TEXT"]
 
-_EXIT_TEXT = {0: "every junction composes", 1: "some handoff breaks", 3: "some junction is unsure"}
-_PREFERRED = ("sim", "model", "sample")  # which estimate to show for an undecided junction
+SCHEMA = "kinetome.check/1"
+EXIT_TEXT = {
+    0: "every handoff composes and the whole chain meets its requirement",
+    1: "a handoff breaks or the whole chain fails its requirement",
+    3: "unsure: more evidence is needed",
+}
+_PREFERRED = ("sim", "model")  # which estimate to show for an undecided junction
 
 
 @dataclass(frozen=True, eq=False)
@@ -85,15 +90,12 @@ class HandoffResult:
 
     @property
     def timeouts(self) -> str:
-        """Timeouts of A: measured counts when simulated, else what the static method could say."""
+        """Timeouts of A: measured counts when simulated (``+`` where allowed), else unknown."""
         sim = self.evidence_of("sim")
         if sim is not None and "timed_out" in sim.details:
             d = sim.details
-            return f"{d['timed_out']}/{d['source_ran']}"
-        static = self.evidence_of("static")
-        if static is not None and "timeouts" in static.details:
-            return "possible"
-        return "-"
+            return f"{d['timed_out']}/{d['source_ran']}" + (" allowed" if d.get("may_time_out") else "")
+        return "-" if self.junction.is_entry else "not measured"
 
     @property
     def points(self) -> tuple[Mapping[str, np.ndarray] | None, np.ndarray | None, str]:
@@ -114,6 +116,7 @@ class HandoffResult:
         return {
             "index": self.index,
             "kind": "entry" if self.junction.is_entry else "handoff",
+            "single_start": bool(est is not None and est.single_start),
             "from": self.junction.source,
             "to": self.junction.target,
             "verdict": self.verdict.value,
@@ -126,6 +129,15 @@ class HandoffResult:
             "starts_when": None if self.starts_when is None else str(self.starts_when),
             "notes": list(self.notes),
         }
+
+
+STATISTICS = {
+    "composes": "one-sided exact (Clopper-Pearson) lower bound, at the chain's confidence, on handing over at every "
+    "junction up to this one; it bounds each junction's own probability, and the nested claims need no correction",
+    "breaks": "one-sided exact upper bound on the junction's own probability at 1 - alpha/m (Bonferroni over the m junctions)",
+    "whole_chain": "one-sided exact bounds at the chain's confidence against require.chain",
+    "trials": "only distinct trajectories count; one distinct trajectory is one trial (a single-start verdict, no bound)",
+}
 
 
 def _json_default(x: Any) -> Any:
@@ -150,17 +162,23 @@ def _finite_or_none(x: Any) -> Any:
 
 @dataclass(frozen=True, eq=False)
 class CheckResult:
-    """Everything a chain check found. ``junctions[0]`` is the entry; the rest are the handoffs."""
+    """Everything a chain check found. ``junctions[0]`` is the entry; the rest are the handoffs.
+
+    ``whole_chain`` holds the simulation's whole-chain numbers (None without a
+    simulation) and ``chain_verdict`` whether the chain meets its requirement
+    (``composes``), fails it (``breaks``) or cannot tell (``unsure``).
+    """
 
     chain: Chain
     method: str
     junctions: tuple[HandoffResult, ...]
-    chain_stats: ChainStats | None = None
+    whole_chain: ChainStats | None = None
+    chain_verdict: Verdict = Verdict.UNSURE
     notes: tuple[str, ...] = ()
     timings: Mapping[str, float] = field(default_factory=dict)
     env_id: str = ""
     variant: str = ""
-    start: str = ""
+    initial_states: str = ""
     episodes: int = 0
     seed: int = 0
     layout: Any = None  # the rig's StateLayout, for plots
@@ -183,8 +201,9 @@ class CheckResult:
 
     @property
     def exit_code(self) -> int:
-        """0 all compose, 1 some handoff breaks, 3 some unsure (2, bad input, is raised before a result exists)."""
-        return exit_code_for(list(self.verdicts))
+        """0: every junction composes and the whole chain meets its requirement; 1: something
+        breaks or the chain fails its requirement; 3: unsure (2, bad input, is raised before a result exists)."""
+        return exit_code_for([*self.verdicts, self.chain_verdict])
 
     @property
     def methods_used(self) -> tuple[str, ...]:
@@ -197,33 +216,30 @@ class CheckResult:
 
     # -- JSON ---------------------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
-        return _finite_or_none(
-            json.loads(
-                json.dumps(
-                    {
-                        "chain": self.chain.to_dict(),
-                        "env": self.env_id,
-                        "variant": self.variant or None,
-                        "start": self.start or None,
-                        "method": self.method,
-                        "methods_used": list(self.methods_used),
-                        "episodes": self.episodes,
-                        "seed": self.seed,
-                        "require": self.chain.require,
-                        "confidence": self.chain.confidence,
-                        "exit_code": self.exit_code,
-                        "summary": _EXIT_TEXT[self.exit_code],
-                        "handoff_count": len(self.handoffs),
-                        "junctions": [j.to_dict() for j in self.junctions],
-                        "chain_stats": None if self.chain_stats is None else self.chain_stats.to_dict(),
-                        "notes": list(self.notes),
-                        "timings_s": dict(self.timings),
-                        "caution": CAUTION,
-                    },
-                    default=_json_default,
-                )
-            )
-        )
+        """A JSON-ready value (plain types only): what ``--json`` prints and what a store may keep."""
+        c = self.chain
+        body = {
+            "schema": SCHEMA,
+            "chain": c.to_dict(),
+            "task": {"env": self.env_id, "variant": self.variant or None, "initial_states": self.initial_states or None},
+            "method": self.method,
+            "methods_used": list(self.methods_used),
+            "episodes": self.episodes,
+            "seed": self.seed,
+            "require": {"handoff": c.require_handoff, "chain": c.chain_requirement},
+            "confidence": c.confidence,
+            "exit_code": self.exit_code,
+            "summary": EXIT_TEXT[self.exit_code],
+            "handoff_count": len(self.handoffs),
+            "handoffs": [j.to_dict() for j in self.junctions],
+            "whole_chain": None if self.whole_chain is None else self.whole_chain.to_dict(),
+            "chain_verdict": self.chain_verdict.value,
+            "statistics": STATISTICS,
+            "notes": list(self.notes),
+            "timings_s": dict(self.timings),
+            "caution": CAUTION,
+        }
+        return _finite_or_none(json.loads(json.dumps(body, default=_json_default)))
 
     def to_json(self, *, indent: int | None = 2) -> str:
         return json.dumps(self.to_dict(), indent=indent, allow_nan=False)

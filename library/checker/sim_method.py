@@ -1,112 +1,160 @@
-"""Simulation method: run the whole chain in MuJoCo from the start distribution and count handoffs.
+"""Simulation method: run the chain in MuJoCo, block by block, and count who hands over.
 
-Per handoff A -> B the measured probability is P(B accepts | A stopped):
-k = episodes where A stopped and B accepted, n = episodes where A stopped.
-Timeouts of A (it hands over outside its stop region) and env terminations
-are counted separately; refused end states are the counterexamples.
+Per handoff A -> B: n = episodes where A ran, k = those where A ended by its stop
+condition (or timed out, where the chain allows it) and B's ``starts_when`` held.
+A timeout that is not allowed, or the env ending the episode, is a failed
+handoff and ends that episode's chain. Only distinct trajectories count
+(``trials.py``); verdicts follow ``decision.py``, and how many episodes run
+follows the plan (``sequential.py``: fixed for ``--method sim``, a curtailed
+zero-failure stage then the rest for ``--method auto``).
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .chain_stats import chain_stats_from_rollout
+from .chain_stats import ChainStats, chain_stats_from_rollout
 from .evidence import Evidence, Junction, counterexample_from
 from .registry import checker_method
-from .verdict import estimate
+from .sequential import PlanRun, SimPlan, auto_plan, fixed_plan, run_plan
+from .trials import trials_from_rollout
 
-__all__ = ["sim_method", "simulate_chain", "MAX_POINTS"]
+__all__ = ["sim_method", "simulate_chain", "simulation_plan", "Simulation", "MAX_POINTS"]
 
 MAX_POINTS = 2000  # end states kept per handoff for plots
 
 
-def simulate_chain(ctx: Any) -> Any:
-    """The chain's rollout for this check (run once, cached): ``episodes`` starts on ``workers`` threads."""
-    if "rollout" not in ctx.cache:
-        from ..runtime.execute import run_chain
+@dataclass(frozen=True, eq=False)
+class Simulation:
+    """One simulation check: the plan, what it decided, and every episode run (block order)."""
 
-        qpos, qvel = ctx.start_states(ctx.episodes, seed=ctx.seed)
-        ctx.cache["rollout"] = run_chain(
-            list(ctx.skills), ctx.rig, starts=(qpos, qvel), seed=ctx.seed, workers=ctx.options.workers, gamma=ctx.options.gamma,
-            progress=ctx.options.progress,
+    plan: SimPlan
+    outcome: PlanRun
+    rollout: Any  # ChainRollout of every episode run
+    stats: ChainStats
+
+
+def simulation_plan(ctx: Any) -> SimPlan:
+    chain = ctx.chain
+    if ctx.options.method == "sim":
+        return fixed_plan(ctx.episodes, confidence=chain.confidence, block_size=ctx.options.block_size)
+    require = max(chain.require_handoff, chain.chain_requirement)
+    return auto_plan(ctx.episodes, require=require, confidence=chain.confidence, block_size=ctx.options.block_size)
+
+
+def simulate_chain(ctx: Any) -> Simulation:
+    """The chain's simulation for this check (run once, cached)."""
+    if "simulation" in ctx.cache:
+        return ctx.cache["simulation"]
+    from ..runtime.execute import run_chain
+    from ..runtime.records import ChainRollout
+
+    chain = ctx.chain
+    flags = chain.may_time_out
+    parts: list[Any] = []
+
+    def run_block(first: int, stop: int) -> Any:
+        qpos, qvel = ctx.block_starts(first, stop)
+        rollout = run_chain(
+            list(ctx.skills), ctx.rig, starts=(qpos, qvel), seed=ctx.seed, workers=ctx.options.workers,
+            gamma=ctx.options.gamma, disturbances=chain.disturbances, episode_ids=np.arange(first, stop), may_time_out=flags,
         )
-    return ctx.cache["rollout"]
+        parts.append(rollout)
+        if ctx.options.progress is not None:
+            ctx.options.progress(sum(p.n_episodes for p in parts), plan.budget)
+        return trials_from_rollout(rollout, flags)
+
+    plan = simulation_plan(ctx)
+    outcome = run_plan(
+        plan, run_block, require_handoff=chain.require_handoff, require_chain=chain.chain_requirement, confidence=chain.confidence
+    )
+    rollout = ChainRollout.concatenate(parts)
+    stats = chain_stats_from_rollout(
+        rollout, dt=ctx.rig.dt, success=outcome.decision.chain, chain_ok=outcome.trials.chain, distinct=outcome.decision.distinct,
+        may_time_out=flags, stages=outcome.run, rule=plan.rule, disturbances=chain.disturbances.to_dict(),
+    )
+    ctx.cache["simulation"] = Simulation(plan, outcome, rollout, stats)
+    return ctx.cache["simulation"]
 
 
 def _take(values: dict, rows: np.ndarray) -> dict:
     return {k: np.asarray(v)[rows] for k, v in values.items() if not k.endswith("_jac")}
 
 
-def _entry(ctx: Any, j: Junction, rollout: Any) -> Evidence:
-    from ..runtime.records import EndReason
-
-    seg = rollout.segments[0]
-    b = ctx.target_skill(j)
-    n = rollout.n_episodes
-    refused = seg.reason == int(EndReason.REFUSED)
-    est = estimate(n - int(refused.sum()), n, require=ctx.chain.require, confidence=ctx.chain.confidence)
-    rows = np.flatnonzero(refused)[: ctx.options.max_counterexamples]
-    names = tuple(ctx.layout.names)
-    cex = tuple(
-        counterexample_from(b.starts_when, seg.start_state, int(r), parameters=b.parameters, names=names, source="sim", confirmed=True, note=f"episode {int(r)} start")
-        for r in rows
-    )
-    keep = np.arange(min(n, MAX_POINTS))
-    return Evidence(
-        "sim", est.verdict, f"{est.k} of {n} start states accepted", estimate=est, counterexamples=cex,
-        details={"episodes": n, "refused": int(refused.sum())},
-        points=_take(seg.start_state, keep), accepted=~refused[keep],
+def _single_start_text(sim: Simulation, happened: str) -> str:
+    n = sim.outcome.decision.episodes
+    return (
+        f"one distinct trajectory in {n} episodes (deterministic initial state and policy): {happened}; "
+        f"the verdict holds for that single start only, no bound from repetition"
     )
 
 
-def _handoff(ctx: Any, j: Junction, rollout: Any) -> Evidence:
+def _handoff_details(a_seg: Any, b_seg: Any, rows: slice, allowed: bool) -> dict[str, int | bool]:
+    """Outcome counts of A and B over the episodes ``rows`` (the stage that decided)."""
     from ..runtime.records import EndReason
 
+    a, b = a_seg.reason[rows], b_seg.reason[rows]
+    stopped = a == int(EndReason.STOPPED)
+    timed_out = a == int(EndReason.TIMED_OUT)
+    refused = b == int(EndReason.REFUSED)
+    return {
+        "source_ran": int(np.sum(np.isin(a, [int(EndReason.STOPPED), int(EndReason.TIMED_OUT), int(EndReason.ENV_ENDED)]))),
+        "stopped": int(stopped.sum()),
+        "refused_after_stop": int(np.sum(stopped & refused)),
+        "timed_out": int(timed_out.sum()),
+        "may_time_out": allowed,
+        "refused_after_timeout": int(np.sum(timed_out & refused)),
+        "env_ended": int(np.sum(a == int(EndReason.ENV_ENDED))),
+        "episodes": int(a.shape[0]),
+    }
+
+
+def _handoff_reason(j: Junction, est: Any, d: dict, stage: str, sim: Simulation) -> str:
+    if est.single_start:
+        return _single_start_text(sim, f"{j.source} {'handed over to' if est.k else 'did not hand over to'} {j.target}")
+    if est.n == 0:
+        return f"{j.source} never ran (an earlier junction failed in every episode)"
+    where = "" if len(sim.outcome.run) == 1 else f" in the {stage} stage ({d['episodes']} episodes)"
+    timeouts = f"{d['timed_out']} timed out" + (" (allowed)" if d["may_time_out"] else "")
+    distinct = "" if est.n == d["source_ran"] else f"; {est.n} distinct trajectories"
+    return (
+        f"{est.k} of {est.n} runs of {j.source} handed over to {j.target}{where} ({d['stopped']} stopped, {timeouts}, "
+        f"{d['env_ended']} env ended, {d['refused_after_stop'] + d['refused_after_timeout']} refused by {j.target}{distinct})"
+    )
+
+
+def _handoff(ctx: Any, j: Junction, sim: Simulation) -> Evidence:
+    from ..runtime.records import EndReason
+
+    rollout = sim.rollout
     a_seg, b_seg = rollout.segments[j.index - 1], rollout.segments[j.index]
     b = ctx.target_skill(j)
-    stopped = a_seg.reason == int(EndReason.STOPPED)
-    timed_out = a_seg.reason == int(EndReason.TIMED_OUT)
+    allowed = ctx.chain.may_time_out[j.index - 1]
+    est = sim.outcome.decision.junctions[j.index]
+    stage = sim.outcome.decided_in.get(str(j.index), "")
+    d = _handoff_details(a_seg, b_seg, sim.outcome.rows(stage), allowed)
+    ended = (a_seg.reason == int(EndReason.STOPPED)) | ((a_seg.reason == int(EndReason.TIMED_OUT)) if allowed else False)
     refused = b_seg.reason == int(EndReason.REFUSED)
-    accepted = stopped & ~refused
-    n, k = int(stopped.sum()), int(accepted.sum())
-    est = estimate(k, n, require=ctx.chain.require, confidence=ctx.chain.confidence)
-    bad = np.flatnonzero(stopped & refused)
     names = tuple(ctx.layout.names)
     cex = tuple(
-        counterexample_from(b.starts_when, a_seg.end_state, int(r), parameters=b.parameters, names=names, source="sim", confirmed=True, note=f"episode {int(r)}, {j.source} stopped")
-        for r in bad[: ctx.options.max_counterexamples]
+        counterexample_from(b.starts_when, a_seg.end_state, int(r), parameters=b.parameters, names=names, source="sim", confirmed=True,
+                            note=f"episode {int(rollout.episode_ids[r])}, {j.source} {'stopped' if a_seg.reason[r] == 0 else 'timed out'}")
+        for r in np.flatnonzero(ended & refused)[: ctx.options.max_counterexamples]
     )
-    ran = int(np.sum((a_seg.reason != int(EndReason.NOT_REACHED)) & (a_seg.reason != int(EndReason.REFUSED))))
-    details = {
-        "source_ran": ran,
-        "stopped": n,
-        "accepted_after_stop": k,
-        "refused_after_stop": n - k,
-        "timed_out": int(timed_out.sum()),
-        "accepted_after_timeout": int(np.sum(timed_out & ~refused)),
-        "refused_after_timeout": int(np.sum(timed_out & refused)),
-        "env_terminated": a_seg.count(EndReason.TERMINATED),
-        "episodes": rollout.n_episodes,
-    }
-    if n == 0:
-        reason = f"{j.source} never stopped by its stops_when in {ran} runs ({details['timed_out']} timed out)"
-    else:
-        reason = f"{k} of {n} stops of {j.source} accepted by {j.target}"
-    rows = np.flatnonzero(stopped)[:MAX_POINTS]
+    rows = np.flatnonzero(ended)[:MAX_POINTS]
     return Evidence(
-        "sim", est.verdict, reason, estimate=est, counterexamples=cex, details=details,
-        points=_take(a_seg.end_state, rows), accepted=accepted[rows],
+        "sim", est.verdict, _handoff_reason(j, est, d, stage, sim), estimate=est, counterexamples=cex,
+        details={**d, "decided_in_stage": stage, "episodes_run": rollout.n_episodes},
+        points=_take(a_seg.end_state, rows), accepted=(~refused)[rows],
     )
 
 
-@checker_method("sim", cost=30, summary="MuJoCo: run the chain from the start distribution, exact binomial intervals")
+@checker_method("sim", cost=30, summary="MuJoCo: run the chain in blocks of episodes, one-sided exact bounds")
 def sim_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
-    """MuJoCo: run the chain from the start distribution, exact binomial intervals."""
-    rollout = simulate_chain(ctx)
-    ctx.chain_stats = chain_stats_from_rollout(rollout, dt=ctx.rig.dt, require=ctx.chain.require, confidence=ctx.chain.confidence)
-    out: dict[int, Evidence] = {}
-    for j in junctions:
-        out[j.index] = _entry(ctx, j, rollout) if j.is_entry else _handoff(ctx, j, rollout)
-    return out
+    """MuJoCo: run the chain in blocks of episodes, one-sided exact bounds (the entry is sampled in entry.py)."""
+    sim = simulate_chain(ctx)
+    ctx.chain_stats = sim.stats
+    return {j.index: _handoff(ctx, j, sim) for j in junctions if not j.is_entry}

@@ -1,7 +1,8 @@
 """Static method (z3): can a state satisfy A's stop region and the envelope but not B's initiation set?
 
-UNSAT proves the handoff: whenever A stops (by ``stops_when``, not by timeout)
-B accepts. Derived quantities are free variables within their envelope
+UNSAT proves containment: whenever A stops (by ``stops_when``, not by timeout)
+B accepts. Containment alone never makes a handoff compose: A must also reach its
+stop region in time (liveness), which simulation or valid option models show. Derived quantities are free variables within their envelope
 (``envelope.py``), so a proof is sound; a solver model is then only a
 candidate counterexample.
 
@@ -14,10 +15,10 @@ an env-terminal state (a terminal state ends an episode before any stop is
 recorded), satisfy A's ``stops_when`` and violate B's ``starts_when`` under
 the numpy back-end. Predicates that read actuator commands (``ctrl`` sources)
 are never confirmed this way. Such a state is one A's contract allows it to
-stop in and B refuses: the contracts do not compose, and the verdict is
-``breaks``. Every other model stays a candidate; sampling decides (and a
-candidate becomes confirmed when the simulation refuses states on the same
-clause of B).
+stop in and B refuses: the contracts do not compose. It makes the handoff
+``breaks`` only when A's execution reaches such states (the simulation refuses
+stops on the same clause of B); otherwise it is a contract gap. Every other
+model stays a candidate.
 
 Timeouts are outside the proof: a skill that reaches ``max_steps`` hands
 over outside its stop region; the simulation counts how often.
@@ -329,8 +330,8 @@ class _Judge:
 
 def _timeout_note(a: Any) -> str:
     return (
-        f"{a.ref} can time out (max_steps={a.max_steps}); it then hands over outside its stop region, "
-        f"which the proof does not cover"
+        f"{a.ref} can time out (max_steps={a.max_steps}); containment says nothing about whether it stops "
+        f"in time, which only simulation or valid option models show"
     )
 
 
@@ -364,26 +365,29 @@ def _static_handoff(ctx: Any, j: Junction) -> Evidence:
         "timeout_ms": ctx.options.timeout_ms,
     }
     relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
+    # A handoff's static evidence is about containment only: it never decides a verdict alone.
     if outcome.status == "proved":
-        return Evidence("static", Verdict.COMPOSES, f"proved: {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}", details=details)
+        reason = f"containment proved: {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}"
+        return Evidence("static", Verdict.UNSURE, reason, details={**details, "containment": "proved"})
     if outcome.status == "unknown":
-        return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms", details=details)
+        reason = f"z3 could not decide containment ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms"
+        return Evidence("static", Verdict.UNSURE, reason, details={**details, "containment": "unknown"})
     confirmed, candidates = judge.confirmed, judge.candidates
     if confirmed:
         return Evidence(
             "static",
-            Verdict.BREAKS,
-            f"counterexample: a state {a.ref} may stop in (realised in MuJoCo, inside the envelope) that {b.ref} refuses",
+            Verdict.UNSURE,
+            f"containment fails: a state {a.ref} may stop in (realised in MuJoCo, inside the envelope) that {b.ref} refuses",
             counterexamples=tuple(confirmed),
             candidates=tuple(candidates),
-            details=details,
+            details={**details, "containment": "counterexample"},
         )
     return Evidence(
         "static",
         Verdict.UNSURE,
-        f"candidate counterexample{relax_text}: not realised as a physical state; needs sampling",
+        f"candidate counterexample to containment{relax_text}: not realised as a physical state",
         candidates=tuple(candidates),
-        details=details,
+        details={**details, "containment": "candidate"},
     )
 
 
@@ -464,7 +468,7 @@ def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
     envelope = physical_envelope(ctx.rig, None)
     bounds = _merge_bounds(envelope.bounds, box)
     if any(np.any(lo > hi) for lo, hi in bounds.values()):
-        return Evidence("static", Verdict.UNSURE, "the start box lies outside the physical envelope; sampling decides")
+        return Evidence("static", Verdict.UNSURE, "the initial-state box lies outside the physical envelope; sampling decides")
     start_b, const_b = bind_parameters(b.starts_when, b.parameters, set(layout.names), "_b_")
     in_box = Envelope(box, (), ())
 
@@ -484,12 +488,12 @@ def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
     details = {"relaxed": relaxed, "start_box": {k: [lo.tolist(), hi.tolist()] for k, (lo, hi) in box.items()}, "solver_calls": outcome.calls}
     relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
     if outcome.status == "proved":
-        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the start box satisfies {b.ref} starts_when{relax_text}", details=details)
+        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the initial-state box satisfies {b.ref} starts_when{relax_text}", details=details)
     if outcome.status == "unknown":
         return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'})", details=details)
     confirmed, candidates = judge.confirmed, judge.candidates
     # A start distribution is a probability: a refused start state is listed, sampling gives the verdict.
-    what = "start states inside the start box" if confirmed else "candidate start states"
+    what = "initial states inside the initial-state box" if confirmed else "candidate initial states"
     return Evidence(
         "static",
         Verdict.UNSURE,
@@ -509,9 +513,9 @@ def _question(a: Any, b: Any) -> tuple:
     return (a.ref, str(a.stops_when), params(a), repr(limits), b.ref, str(b.starts_when), params(b))
 
 
-@checker_method("static", cost=10, summary="z3: A's stop region and the physical envelope imply B's starts_when")
+@checker_method("static", cost=10, summary="z3: containment, A's stop region and the physical envelope imply B's starts_when")
 def static_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
-    """z3: A's stop region and the physical envelope imply B's starts_when."""
+    """z3: containment, A's stop region and the physical envelope imply B's starts_when."""
     out: dict[int, Evidence] = {}
     for j in junctions:
         if j.is_entry:

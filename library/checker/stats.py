@@ -7,6 +7,7 @@ e.g. 0.95; ``alpha = 1 - confidence``.
 from __future__ import annotations
 
 import math
+from typing import Callable
 
 __all__ = [
     "clopper_pearson",
@@ -15,6 +16,7 @@ __all__ = [
     "zero_failure_bound",
     "episodes_for_zero_failures",
     "episodes_to_decide",
+    "smallest_deciding",
 ]
 
 _MAX_EPISODES = 10**9
@@ -28,9 +30,10 @@ def _check(k: float, n: float, confidence: float) -> None:
 
 
 def _beta_ppf(q: float, a: float, b: float) -> float:
-    from scipy.stats import beta
+    """Quantile q of Beta(a, b): the inverse of the regularised incomplete beta function."""
+    from scipy.special import betaincinv
 
-    return float(beta.ppf(q, a, b))
+    return float(betaincinv(a, b, q))
 
 
 def lower_bound(k: float, n: float, confidence: float) -> float:
@@ -47,7 +50,7 @@ def lower_bound(k: float, n: float, confidence: float) -> float:
 def upper_bound(k: float, n: float, confidence: float) -> float:
     """One-sided exact upper bound: P(p <= bound) >= confidence (Clopper-Pearson)."""
     _check(k, n, confidence)
-    if k >= n:
+    if n == 0 or k >= n:
         return 1.0
     return _beta_ppf(confidence, k + 1.0, n - k)
 
@@ -89,20 +92,37 @@ def episodes_for_zero_failures(require: float, confidence: float) -> int:
     return n
 
 
-def _decided(rate: float, n: int, require: float, confidence: float) -> bool:
-    low, high = clopper_pearson(rate * n, n, confidence)
-    return low >= require if rate > require else high < require
+def smallest_deciding(decided: Callable[[int], bool], n: int, *, limit: int = _MAX_EPISODES) -> int | None:
+    """Smallest m >= n with ``decided(m)``, for a rule that, once true, stays true as m grows.
+
+    Doubling then bisection; None when no m up to ``limit`` decides.
+    """
+    if decided(n):
+        return n
+    hi = max(n, 1)
+    while not decided(hi):
+        hi *= 2
+        if hi > limit:
+            return None
+    lo = max(n, hi // 2)
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if decided(mid):
+            hi = mid
+        else:
+            lo = mid
+    return hi
 
 
 def episodes_to_decide(
-    k: int, n: int, *, require: float, confidence: float, limit: int = _MAX_EPISODES
+    k: int, n: int, *, require: float, confidence: float, upper_confidence: float | None = None, limit: int = _MAX_EPISODES
 ) -> int | None:
-    """Episodes to add so that, at the observed rate k/n, the two-sided interval clears ``require``.
+    """Episodes to add so that, at the observed rate k/n, a one-sided bound clears ``require``.
 
-    Solves for the smallest total m >= n with ``low(rate*m, m) >= require`` (rate above
-    ``require``) or ``high(rate*m, m) < require`` (rate below); returns ``m - n``.
-    None when the rate equals ``require``, there are no trials yet, or more than
-    ``limit`` episodes would be needed.
+    Above ``require`` the lower bound at ``confidence`` must reach it; below, the
+    upper bound at ``upper_confidence`` (default ``confidence``) must fall under it.
+    Returns ``m - n`` for the smallest total m; None when the rate equals
+    ``require``, there are no trials yet, or more than ``limit`` would be needed.
     """
     _check(k, n, confidence)
     if not 0.0 < require < 1.0:
@@ -112,19 +132,12 @@ def episodes_to_decide(
     rate = k / n
     if rate == require:
         return None
-    if _decided(rate, n, require, confidence):
-        return 0
-    hi = max(n, 1)
-    while not _decided(rate, hi, require, confidence):
-        hi *= 2
-        if hi > limit:
-            return None
-    lo = hi // 2 if hi // 2 >= n else n
-    # The bound at a fixed rate tightens monotonically with m: bisect (lo fails, hi passes).
-    while hi - lo > 1:
-        mid = (lo + hi) // 2
-        if _decided(rate, mid, require, confidence):
-            hi = mid
-        else:
-            lo = mid
-    return hi - n
+    up = confidence if upper_confidence is None else upper_confidence
+
+    def decided(m: int) -> bool:
+        if rate > require:
+            return lower_bound(rate * m, m, confidence) >= require
+        return upper_bound(rate * m, m, up) < require
+
+    m = smallest_deciding(decided, n, limit=limit)
+    return None if m is None else m - n

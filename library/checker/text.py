@@ -24,7 +24,7 @@ def table(header: list[str], rows: list[list[str]], *, right: set[int] = frozens
 
 
 def _pct(confidence: float) -> str:
-    return f"{100 * confidence:g}%"
+    return f"{100 * confidence:.4g}%"
 
 
 def _fmt(x: float | None, digits: int = 3) -> str:
@@ -36,19 +36,17 @@ def _fmt(x: float | None, digits: int = 3) -> str:
 def _row(j: Any) -> list[str]:
     est = j.estimate
     if j.decided_by == "static" and j.verdict is Verdict.COMPOSES:
-        counts, rate, interval = "-", "-", "proved"
-    elif j.decided_by == "structural":
-        counts, rate, interval = "-", "-", "mismatch"
-    elif j.decided_by == "static" and j.verdict is Verdict.BREAKS:
-        counts, rate, interval = "-", "-", "counterexample"
+        counts, rate, low, high = "-", "-", "proved", "-"
+    elif j.decided_by == "static" and j.reason.startswith("structural mismatch"):
+        counts, rate, low, high = "-", "-", "mismatch", "-"
+    elif est is not None and est.single_start:
+        counts, rate, low, high = f"{est.k}/{est.n}", _fmt(est.rate), "single start", "-"
     elif est is not None:
-        counts = f"{est.k}/{est.n}"
-        rate = _fmt(est.rate)
-        interval = f"[{est.low:.3f}, {est.high:.3f}]"
+        counts, rate, low, high = f"{est.k}/{est.n}", _fmt(est.rate), _fmt(est.low), _fmt(est.high)
     else:
-        counts, rate, interval = "-", "-", "-"
-    by = j.decided_by or "/".join(m for m in j.methods if m != "structural") or "-"
-    return [str(j.index), j.label, j.verdict.value, by, counts, rate, interval, j.timeouts]
+        counts, rate, low, high = "-", "-", "-", "-"
+    by = j.decided_by or "-"
+    return [str(j.index), j.label, j.verdict.value, by, counts, rate, low, high, j.timeouts]
 
 
 def _more(j: Any) -> str:
@@ -56,87 +54,121 @@ def _more(j: Any) -> str:
     if j.verdict is not Verdict.UNSURE:
         return ""
     if est is None:
-        return "no method measured it"
+        return ""
     if est.more_episodes is None:
         if est.n == 0:
-            return "nothing was measured (no stops)"
-        return "the observed rate equals the requirement: no number of episodes decides it"
-    return f"about {est.more_episodes} more episodes at the observed rate would decide it"
+            return "nothing was measured here"
+        return "no number of episodes at the observed rates decides it"
+    return f"about {est.more_episodes} more episodes at the observed rates would decide it (with --method sim)"
 
 
 def _wrap(text: str, indent: str, width: int) -> list[str]:
-    return textwrap.wrap(text, width=width, initial_indent=indent, subsequent_indent=indent + "  ") or [indent]
+    return textwrap.wrap(text, width=width, initial_indent=indent, subsequent_indent=" " * len(indent) + "  ") or [indent]
+
+
+def _legend(result: Any) -> str:
+    measured = [j.estimate for j in result.junctions if j.estimate is not None and not j.estimate.single_start and j.estimate.n]
+    if not measured:
+        return "lower/upper: one-sided exact bounds (none measured)"
+    lows = " / ".join(dict.fromkeys(_pct(e.low_confidence) for e in measured))
+    highs = " / ".join(dict.fromkeys(_pct(e.high_confidence) for e in measured))
+    return (
+        f"lower: one-sided {lows} bound on handing over at every junction up to this one (composes when >= "
+        f"require.handoff); upper: one-sided {highs} bound on this junction alone (breaks when < require.handoff; "
+        f"Bonferroni over {len(result.junctions)} junctions)"
+    )
+
+
+def _junction_lines(j: Any, width: int) -> list[str]:
+    out = _wrap(f"{j.index} {j.label}: {j.verdict.value}" + (f" (decided by {j.decided_by})" if j.decided_by else "") + f": {j.reason}", "", width)
+    more = _more(j)
+    if more:
+        out += _wrap(more, "    ", width)
+    for n in j.notes:
+        out += _wrap(n, "    note: ", width)
+    if j.verdict is not Verdict.COMPOSES and j.counterexamples:
+        cex = j.counterexamples
+        out.append(f"    counterexamples ({len(cex)} shown):")
+        for x in cex:
+            tag = "" if x.confirmed else " [candidate]"
+            why = "; ".join(x.violations) or "(no clause fails on this state)"
+            out += _wrap(f"{x.source} {x.note}{tag}: {why}", "      ", width)
+    return out
+
+
+def _whole_chain_lines(result: Any, width: int) -> list[str]:
+    s = result.whole_chain
+    c = result.chain
+    if s is None:
+        return _wrap(
+            f"whole chain: not simulated; meeting require.chain {c.chain_requirement:g} needs simulation "
+            f"(--method auto or sim): unsure", "", width,
+        )
+    succ = s.success
+    sec = {k: v * s.dt for k, v in s.duration.items()}
+    verdict = {"composes": "meets", "breaks": "fails", "unsure": "unsure whether it meets"}[succ.verdict.value]
+    if succ.single_start:
+        bounds = "single start, no bound"
+    else:
+        bounds = f"lower bound {succ.low:.3f} ({_pct(succ.low_confidence)}), upper bound {succ.high:.3f} ({_pct(succ.high_confidence)})"
+    stages = ", ".join(f"{k} {v}" for k, v in s.stages.items())
+    out = _wrap(
+        f"whole chain: {succ.k}/{succ.n} distinct trajectories completed = {_fmt(succ.rate)}; {bounds}; "
+        f"{verdict} require.chain {c.chain_requirement:g}",
+        "", width,
+    )
+    out += _wrap(f"episodes run: {s.episodes} ({stages}), {s.distinct_trajectories} distinct trajectories; plan: {s.rule}", "  ", width)
+    active = {k: v for k, v in s.disturbances.items() if v}
+    out += _wrap("disturbances: " + (", ".join(f"{k} {v}" for k, v in active.items()) if active else "none (noise-free but for the initial states)"), "  ", width)
+    out += _wrap(
+        f"duration mean {sec['mean']:.2f} s (p10 {sec['p10']:.2f}, p50 {sec['p50']:.2f}, p90 {sec['p90']:.2f}); return mean "
+        f"{s.ret['mean']:.3g} (std {s.ret['std']:.3g}), discounted {s.ret['discounted_mean']:.3g} at gamma {s.ret['gamma']:g}",
+        "  ", width,
+    )
+    rows = [
+        [t.ref + (" (may time out)" if t.may_time_out else ""), str(t.offered), str(t.ran), str(t.stopped), str(t.timed_out),
+         str(t.env_ended), str(t.refused), _fmt(t.duration_mean * s.dt, 2), _fmt(t.duration_p90 * s.dt, 2)]
+        for t in s.skills
+    ]
+    out += ["  " + r for r in table(["skill", "offered", "ran", "stopped", "timed out", "env ended", "refused", "mean s", "p90 s"], rows, right=set(range(1, 9)))]
+    return out
 
 
 def format_result(result: Any, *, width: int = 100) -> str:
-    """The text summary: header, table, reasons and counterexamples, chain stats, notes, caution."""
+    """The text summary: header, table, reasons and counterexamples, whole chain, notes, caution."""
+    from .result import EXIT_TEXT
+
     c = result.chain
     out: list[str] = []
     where = [result.env_id]
     if result.variant:
         where.append(f"variant {result.variant}")
-    where.append(f"start {result.start or 'rig default'}")
+    where.append(f"initial states {result.initial_states or 'robot default'}")
     out.append(f"chain {c.name} ({', '.join(where)})")
     if c.description:
         out += _wrap(c.description, "  ", width)
-    sim = f"{result.episodes} simulated episodes, seed {result.seed}" if result.episodes else "no simulation"
     out.append(
-        f"require {c.require:g} at {_pct(c.confidence)} confidence; method {result.method} "
-        f"(used: {', '.join(result.methods_used) or '-'}); {sim}"
+        f"require handoff {c.require_handoff:g}, chain {c.chain_requirement:g} at {_pct(c.confidence)} confidence; "
+        f"method {result.method} (used: {', '.join(result.methods_used) or '-'})"
     )
     if not result.handoffs:
-        out.append(
-            f"no handoff: a chain of one skill; checked only that the start distribution lies in "
-            f"{result.entry.junction.target}'s starts_when"
-        )
+        out.append(f"no handoff: a chain of one skill ({result.entry.junction.target})")
     out.append("")
-    header = ["#", "junction", "verdict", "by", "accepted", "rate", f"{_pct(c.confidence)} interval", "timeouts"]
-    out += table(header, [_row(j) for j in result.junctions], right={0, 4, 5})
+    header = ["#", "junction", "verdict", "decided by", "handed over", "rate", "lower", "upper", "timeouts"]
+    out += table(header, [_row(j) for j in result.junctions], right={0, 4, 5, 6, 7})
+    out += _wrap(_legend(result), "", width)
     out.append("")
     for j in result.junctions:
-        out += _wrap(f"{j.index} {j.label}: {j.verdict.value}" + (f" ({j.decided_by})" if j.decided_by else "") + f": {j.reason}", "", width)
-        more = _more(j)
-        if more:
-            out += _wrap(more, "    ", width)
-        for n in j.notes:
-            out += _wrap(n, "    note: ", width)
-        if j.verdict is Verdict.BREAKS or (j.verdict is Verdict.UNSURE and j.counterexamples):
-            cex = j.counterexamples
-            if cex:
-                out.append(f"    counterexamples ({len(cex)} shown):")
-                for x in cex:
-                    tag = "" if x.confirmed else " [candidate]"
-                    why = "; ".join(x.violations) or "(no clause fails on this state)"
-                    out += _wrap(f"{x.source} {x.note}{tag}: {why}", "      ", width)
-        static = j.evidence_of("static")
-        if static is not None and static.details.get("timeouts") and not j.junction.is_entry:
-            out += _wrap(f"timeouts: {static.details['timeouts']}", "    ", width)
-    s = result.chain_stats
-    if s is not None:
-        out.append("")
-        succ = s.success
-        sec = {k: v * s.dt for k, v in s.steps.items()}
-        out += _wrap(
-            f"whole chain (simulation, {s.episodes} episodes): success {succ.k}/{succ.n} = {_fmt(succ.rate)} "
-            f"[{succ.low:.3f}, {succ.high:.3f}]; duration mean {sec['mean']:.2f} s (p10 {sec['p10']:.2f}, "
-            f"p50 {sec['p50']:.2f}, p90 {sec['p90']:.2f}); return mean {s.ret['mean']:.3g} (std {s.ret['std']:.3g}), "
-            f"discounted {s.ret['discounted_mean']:.3g} at gamma {s.ret['gamma']:g}",
-            "",
-            width,
-        )
-        rows = [
-            [t.ref, str(t.offered), str(t.ran), str(t.stopped), str(t.timed_out), str(t.env_terminated), str(t.refused),
-             _fmt(t.steps_mean * s.dt, 2), _fmt(t.steps_p90 * s.dt, 2)]
-            for t in s.skills
-        ]
-        out += ["  " + r for r in table(["skill", "offered", "ran", "stopped", "timed out", "env ended", "refused", "mean s", "p90 s"], rows, right=set(range(1, 9)))]
+        out += _junction_lines(j, width)
+    out.append("")
+    out += _whole_chain_lines(result, width)
     if result.notes:
         out.append("")
         for n in result.notes:
             out += _wrap(n, "note: ", width)
     out.append("")
     code = result.exit_code
-    out.append(f"exit code {code}: " + {0: "every junction composes", 1: "some handoff breaks", 3: "some junction is unsure"}[code])
+    out.append(f"exit code {code}: {EXIT_TEXT[code]}")
     out.append("")
     out += textwrap.wrap(CAUTION, width=width)
     return "\n".join(out)

@@ -15,14 +15,19 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         "check",
         parents=[common],
         help="check handoff by handoff that a chain of skills composes (exit 0 composes, 1 breaks, 2 bad input, 3 unsure)",
+        description=(
+            "A handoff composes when the skill before it stops in time and the next one accepts that state. "
+            "Exit 0 only when every handoff composes and the whole chain meets require.chain. "
+            "Simulation results do not make a chain safe on a real machine."
+        ),
     )
     p.add_argument("chain", metavar="CHAIN.yaml")
     p.add_argument("--method", choices=["auto", "static", "model", "sim"], default="auto")
-    p.add_argument("--episodes", type=int, help="simulation episodes (default: the chain file's, else 200)")
+    p.add_argument("--episodes", type=int, help="simulation budget in episodes (default: the chain file's, else 200)")
     p.add_argument("--seed", type=int)
     p.add_argument("--workers", type=int, default=1)
     p.add_argument("--json", action="store_true")
-    p.add_argument("--report", metavar="DIR", help="write the text, JSON and PNG plots to DIR")
+    p.add_argument("--out", metavar="DIR", help="write the text, JSON and PNG plots to DIR")
     p.set_defaults(handler=_check)
 
 
@@ -31,7 +36,7 @@ def _check(args: argparse.Namespace) -> int:
     from .progress import Progress
 
     quiet = bool(getattr(args, "quiet", False) or args.json)
-    with Progress(f"simulating {Path(args.chain).name}", unit="steps", quiet=quiet) as bar:
+    with Progress(f"simulating {Path(args.chain).name}", unit="episodes", quiet=quiet) as bar:
         result = check_chain(
             args.chain,
             store=open_store(getattr(args, "store", None)),
@@ -39,13 +44,13 @@ def _check(args: argparse.Namespace) -> int:
             episodes=args.episodes,
             seed=args.seed,
             workers=args.workers,
-            out=args.report,
+            out=args.out,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:
         sys.stdout.write(result.to_json() + "\n")
     else:
         print(result.format_text())
-        if args.report:
-            print(f"\nreport written to {args.report}")
+        if args.out:
+            print(f"\nreport written to {args.out}")
     return result.exit_code

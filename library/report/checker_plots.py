@@ -197,7 +197,7 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
             ax.scatter([cx], [cy], s=40, c="black", marker="D", label=None)  # solver state, realised in MuJoCo
     ax.set_xlabel(xl)
     ax.set_ylabel(yl if y != x else "(one component)")
-    what = "start states" if handoff.junction.is_entry else f"end states of {handoff.junction.source}"
+    what = "initial states" if handoff.junction.is_entry else f"end states of {handoff.junction.source}"
     ax.set_title(f"{handoff.label}: {handoff.verdict.value}\n{what} ({source}); green: {handoff.junction.target} starts_when", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
@@ -207,26 +207,26 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
 
 def plot_timeline(result: Any, path: Path) -> Path | None:
     """Each skill's mean start time and duration (bar), p10-p90 of its duration (whisker)."""
-    stats = result.chain_stats
+    stats = result.whole_chain
     if stats is None or not stats.skills:
         return None
     fig, ax = _figure(7.0, 0.7 * len(stats.skills) + 1.6)
     dt = stats.dt
-    ends = [((t.start_mean if np.isfinite(t.start_mean) else 0.0) + t.steps_p90) * dt for t in stats.skills if t.ran and np.isfinite(t.steps_mean)]
+    ends = [((t.start_mean if np.isfinite(t.start_mean) else 0.0) + t.duration_p90) * dt for t in stats.skills if t.ran and np.isfinite(t.duration_mean)]
     right = max(ends) if ends else 1.0
     for i, t in enumerate(stats.skills):
-        if t.ran == 0 or not np.isfinite(t.steps_mean):
-            ax.text(0.01 * right, i, f"never ran: {t.refused} of {t.offered} offered starts refused", va="center", fontsize=8, color="#a42323")
+        if t.ran == 0 or not np.isfinite(t.duration_mean):
+            ax.text(0.01 * right, i, f"never ran: {t.refused} of {t.offered} offered initial states refused", va="center", fontsize=8, color="#a42323")
             continue
         start = (t.start_mean if np.isfinite(t.start_mean) else 0.0) * dt
-        ax.barh(i, t.steps_mean * dt, left=start, height=0.5, color="#2f6f5e", alpha=0.8)
-        ax.errorbar(start + t.steps_p50 * dt, i, xerr=[[max(0.0, (t.steps_p50 - t.steps_p10) * dt)], [max(0.0, (t.steps_p90 - t.steps_p50) * dt)]], fmt="|", color="black", capsize=3)
-        ax.text(start + t.steps_mean * dt, i, f"  {t.stopped}/{t.ran} stopped", va="center", fontsize=8)
+        ax.barh(i, t.duration_mean * dt, left=start, height=0.5, color="#2f6f5e", alpha=0.8)
+        ax.errorbar(start + t.duration_p50 * dt, i, xerr=[[max(0.0, (t.duration_p50 - t.duration_p10) * dt)], [max(0.0, (t.duration_p90 - t.duration_p50) * dt)]], fmt="|", color="black", capsize=3)
+        ax.text(start + t.duration_mean * dt, i, f"  {t.stopped}/{t.ran} stopped", va="center", fontsize=8)
     ax.set_yticks(range(len(stats.skills)), [t.ref for t in stats.skills], fontsize=8)
     ax.set_ylim(len(stats.skills) - 0.5, -0.5)
     ax.set_xlim(0.0, 1.45 * right)
     ax.set_xlabel("time in the chain [s] (mean start and duration; whisker: p10-p90)")
-    ax.set_title(f"{result.chain.name}: {stats.success.k}/{stats.success.n} episodes completed", fontsize=9)
+    ax.set_title(f"{result.chain.name}: {stats.success.k}/{stats.success.n} distinct trajectories completed ({stats.episodes} episodes)", fontsize=9)
     fig.tight_layout()
     fig.savefig(path)
     return path

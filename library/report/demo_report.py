@@ -36,18 +36,18 @@ def _skills_section(report: Report, store: Any) -> None:
 
 def _checks_section(report: Report, checks: list[dict[str, Any]]) -> None:
     s = report.section("chains", "Chain verdicts")
-    s.text("Each handoff is checked cheapest first: static proof with an SMT solver, then the option models, then simulation with exact (Clopper-Pearson) intervals.")
+    s.text("A handoff composes when the skill before it stops in time and the next one accepts that state. The SMT solver proves containment; simulation (one-sided exact Clopper-Pearson bounds, distinct trajectories only) shows the chain actually hands over.")
     for check in checks:
         data = check["result"]
         s.add(f"<h3>{check['name']} <small>({check['file']})</small></h3>")
         rows = [
             {
-                "handoff": f"{h['from'] or 'start'} -> {h['to']}",
+                "handoff": f"{h['from']} -> {h['to']}",
                 "verdict": h["verdict"],
                 "method": h["decided_by"],
                 "evidence": h["reason"],
             }
-            for h in data["junctions"]
+            for h in data["handoffs"]
         ]
         if rows:
             s.add(table_html(rows, [("handoff", "Handoff"), ("verdict", "Verdict"), ("method", "Decided by"), ("evidence", "Evidence")], classes={"verdict": "verdict"}))

@@ -17,6 +17,7 @@ import numpy as np
 from kinetome.envs.named_state import take_states
 from kinetome.envs.rig import Rig
 
+from .disturbances import NO_DISTURBANCES, Disturbances, DisturbanceStreams
 from .learned import StopDraws
 from .records import ChainRollout, EndReason, SegmentRecord
 from .seeding import ExplorationNoise
@@ -32,6 +33,26 @@ Progress = Callable[[int, int], None]
 
 def _needs(skill: LoadedSkill) -> tuple[str, ...]:
     return tuple(getattr(skill.controller, "needs", ()) or ())
+
+
+def _inputs(skill: LoadedSkill) -> tuple[str, ...]:
+    """Named quantities the controller reads (sensor noise applies to these)."""
+    return tuple(getattr(skill.controller, "inputs", ()) or ())
+
+
+def _hands_on(reason: np.ndarray, may_time_out: bool) -> np.ndarray:
+    """Episodes whose next skill is offered the state: the skill stopped, or timed out where allowed."""
+    ok = reason == int(EndReason.STOPPED)
+    return ok | (reason == int(EndReason.TIMED_OUT)) if may_time_out else ok
+
+
+def _timeout_flags(skills: Sequence[LoadedSkill], may_time_out: Sequence[bool] | None) -> tuple[bool, ...]:
+    if may_time_out is None:
+        return tuple(True for _ in skills)
+    flags = tuple(bool(x) for x in may_time_out)
+    if len(flags) != len(skills):
+        raise ValueError(f"may_time_out needs one flag per skill ({len(skills)}), got {len(flags)}")
+    return flags
 
 
 # limit name -> (quantity, how one state's magnitude is measured)
@@ -51,6 +72,18 @@ class _Segment:
         self.reward = np.zeros(n)
         self.discounted = np.zeros(n)
         self.peaks = {name: np.zeros(n) for name in _PEAK_MEASURES}
+        self.first_command: np.ndarray | None = None  # (n, n_act), NaN where the skill never acted
+        self.last_command: np.ndarray | None = None
+
+    def commanded(self, rows: np.ndarray, command: np.ndarray, t: int) -> None:
+        """Remember the controller's first and latest command per episode (for the switch jump)."""
+        if self.first_command is None:
+            n = self.reason.shape[0]
+            self.first_command = np.full((n, command.shape[1]), np.nan)
+            self.last_command = np.full((n, command.shape[1]), np.nan)
+        if t == 0:
+            self.first_command[rows] = command
+        self.last_command[rows] = command
 
     def observe(self, rows: np.ndarray, after: dict[str, np.ndarray]) -> None:
         """Track the largest speed/torque each episode reached (for the limits lint)."""
@@ -69,6 +102,8 @@ class _Segment:
             discounted_return=self.discounted,
             discount=np.power(gamma, self.steps.astype(np.float64)),
             peaks=self.peaks,
+            first_command=self.first_command,
+            last_command=self.last_command,
         )
 
 
@@ -89,8 +124,8 @@ def _classify(
     return terminated, stopped, timed_out
 
 
-def _stop_draws(skills: Sequence[LoadedSkill], seed: int, n: int) -> StopDraws | None:
-    return StopDraws(seed, n) if any(s.learned_stop is not None for s in skills) else None
+def _stop_draws(skills: Sequence[LoadedSkill], seed: int, ids: np.ndarray) -> StopDraws | None:
+    return StopDraws(seed, len(ids), episode_ids=ids) if any(s.learned_stop is not None for s in skills) else None
 
 
 def _run_segment(
@@ -102,6 +137,7 @@ def _run_segment(
     gamma: float,
     noise: ExplorationNoise | None,
     stop_draws: StopDraws | None,
+    streams: DisturbanceStreams | None,
     tracer: "_Tracer | None",
     index: int,
     progress: Progress | None,
@@ -119,7 +155,11 @@ def _run_segment(
         if running.size == 0:
             break
         draws = noise.draw(running) if noise is not None else None
-        action = skill.controller.act(state, np.full(running.size, t * rig.dt), noise=draws)
+        sensed = state if streams is None else streams.sense(state, running, _inputs(skill))
+        action = skill.controller.act(sensed, np.full(running.size, t * rig.dt), noise=draws)
+        seg.commanded(running, np.asarray(action, dtype=np.float64), t)
+        if streams is not None:
+            action = streams.command(action, running)
         applied = sim.step(action, running)
         after = sim.state(running, extra=needs)
         reward, _ = rig.reward(state, applied, after)
@@ -131,7 +171,7 @@ def _run_segment(
             tracer.record(sim, running, index)
         u = stop_draws.draw(running) if stop_draws is not None and skill.learned_stop is not None else None
         terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
-        seg.reason[running[terminated]] = int(EndReason.TERMINATED)
+        seg.reason[running[terminated]] = int(EndReason.ENV_ENDED)
         seg.reason[running[stopped]] = int(EndReason.STOPPED)
         seg.reason[running[timed_out]] = int(EndReason.TIMED_OUT)
         keep = ~(terminated | stopped | timed_out)
@@ -180,16 +220,31 @@ def run_chain(
     explore: bool = False,
     trace: int = 0,
     progress: Progress | None = None,
+    disturbances: Disturbances | None = None,
+    episode_ids: np.ndarray | None = None,
+    may_time_out: Sequence[bool] | None = None,
 ) -> ChainRollout:
-    """Run ``skills`` call-and-return from each start state; one batch for all episodes."""
+    """Run ``skills`` call-and-return from each start state; one batch for all episodes.
+
+    ``episode_ids`` (default 0..n-1) name each row's random streams, so a block of a
+    larger run gives the same episodes as the whole run. ``may_time_out`` (one flag
+    per skill; default: every skill may) says whether the next skill is offered the
+    state after a timeout; otherwise the episode's chain ends there.
+    ``disturbances.exploration`` has the same effect as ``explore``.
+    """
     if not skills:
         raise ValueError("a chain needs at least one skill")
     qpos0, qvel0 = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in starts)
     n = qpos0.shape[0]
+    ids = _episode_ids(episode_ids, n)
+    flags = _timeout_flags(skills, may_time_out)
+    d = disturbances or NO_DISTURBANCES
+    explore = explore or d.exploration
     sim = SimBatch(rig, n, nthread=workers)
     sim.reset(qpos0, qvel0)
-    noise = ExplorationNoise(seed, n, rig.n_act) if explore else None
-    stop_draws = _stop_draws(skills, seed, n)
+    noise = ExplorationNoise(seed, n, rig.n_act, episode_ids=ids) if explore else None
+    stop_draws = _stop_draws(skills, seed, ids)
+    streams = DisturbanceStreams(d, seed=seed, episode_ids=ids, n_act=rig.n_act) if d.active else None
     tracer = _Tracer(sim, trace) if trace > 0 else None
     offered = np.arange(n)
     records: list[SegmentRecord] = []
@@ -204,14 +259,14 @@ def run_chain(
             # progress counts steps of the longest possible chain run, across segments
             segment_progress = None if progress is None else (lambda t, _m, before=done_before: progress(before + t, longest))
             _run_segment(
-                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, tracer=tracer, index=index,
-                progress=segment_progress,
+                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, streams=streams, tracer=tracer,
+                index=index, progress=segment_progress,
             )
             done_before += int(skill.max_steps)
             if progress is not None:
                 progress(done_before, longest)
             records.append(seg.record(skill.ref, start, sim.state(), gamma))
-            offered = np.flatnonzero((seg.reason == int(EndReason.STOPPED)) | (seg.reason == int(EndReason.TIMED_OUT)))
+            offered = np.flatnonzero(_hands_on(seg.reason, flags[index]))
     qpos_trace, seg_trace = tracer.arrays(rig.model.nq) if tracer is not None else (None, None)
     return ChainRollout(
         env_id=rig.env_id,
@@ -220,8 +275,18 @@ def run_chain(
         segments=tuple(records),
         qpos_trace=qpos_trace,
         segment_of_step=seg_trace,
-        meta={"workers": workers, "explore": explore},
+        meta={"workers": workers, "explore": explore, "disturbances": d.to_dict(), "may_time_out": list(flags)},
+        episode_ids=ids,
     )
+
+
+def _episode_ids(episode_ids: np.ndarray | None, n: int) -> np.ndarray:
+    if episode_ids is None:
+        return np.arange(n)
+    ids = np.asarray(episode_ids, dtype=np.int64).reshape(-1)
+    if ids.size != n:
+        raise ValueError(f"episode_ids needs one id per start state ({n}), got {ids.size}")
+    return ids
 
 
 def run_skill(skill: LoadedSkill, rig: Rig, **kwargs: Any) -> ChainRollout:
@@ -249,6 +314,9 @@ def reference_run_chain(
     seed: int,
     gamma: float = 0.99,
     explore: bool = False,
+    disturbances: Disturbances | None = None,
+    episode_ids: np.ndarray | None = None,
+    may_time_out: Sequence[bool] | None = None,
 ) -> ChainRollout:
     """The plain loop: one RigEnv per episode, one skill step at a time.
 
@@ -258,8 +326,13 @@ def reference_run_chain(
 
     qpos0, qvel0 = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in starts)
     n = qpos0.shape[0]
-    noise = ExplorationNoise(seed, n, rig.n_act) if explore else None
-    stop_draws = _stop_draws(skills, seed, n)
+    ids = _episode_ids(episode_ids, n)
+    flags = _timeout_flags(skills, may_time_out)
+    d = disturbances or NO_DISTURBANCES
+    explore = explore or d.exploration
+    noise = ExplorationNoise(seed, n, rig.n_act, episode_ids=ids) if explore else None
+    stop_draws = _stop_draws(skills, seed, ids)
+    streams = DisturbanceStreams(d, seed=seed, episode_ids=ids, n_act=rig.n_act) if d.active else None
     segs = [_Segment(n) for _ in skills]
     starts_rows: list[list[dict]] = [[] for _ in skills]
     ends_rows: list[list[dict]] = [[] for _ in skills]
@@ -276,26 +349,31 @@ def reference_run_chain(
                 if not skill.starts_when.evaluate({**skill.parameters, **state})[0]:
                     seg.reason[i] = int(EndReason.REFUSED)
                 else:
+                    row = np.array([i])
                     for t in range(skill.max_steps):
-                        draws = noise.draw(np.array([i])) if noise is not None else None
-                        action = skill.controller.act(state, np.full(1, t * rig.dt), noise=draws)
+                        draws = noise.draw(row) if noise is not None else None
+                        sensed = state if streams is None else streams.sense(state, row, _inputs(skill))
+                        action = skill.controller.act(sensed, np.full(1, t * rig.dt), noise=draws)
+                        seg.commanded(row, np.asarray(action, dtype=np.float64), t)
+                        if streams is not None:
+                            action = streams.command(action, row)
                         _, reward, _, _, _ = env.step(action[0])
                         after = _env_state(env, skill)
                         seg.reward[i] += reward
                         seg.discounted[i] += gamma**t * reward
                         seg.steps[i] += 1
-                        seg.observe(np.array([i]), after)
-                        u = stop_draws.draw(np.array([i])) if stop_draws is not None and skill.learned_stop is not None else None
+                        seg.observe(row, after)
+                        u = stop_draws.draw(row) if stop_draws is not None and skill.learned_stop is not None else None
                         terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
                         if terminated[0] or stopped[0] or timed_out[0]:
-                            seg.reason[i] = int(EndReason.TERMINATED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
+                            seg.reason[i] = int(EndReason.ENV_ENDED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
                             break
                         state = after
             ends_rows[k].append(env.named_state())
-            go_on = go_on and seg.reason[i] in (int(EndReason.STOPPED), int(EndReason.TIMED_OUT))
+            go_on = go_on and bool(_hands_on(seg.reason[i : i + 1], flags[k])[0])
     records = []
     for k, skill in enumerate(skills):
         start = {name: np.concatenate([r[name] for r in starts_rows[k]]) for name in starts_rows[k][0]}
         end = {name: np.concatenate([r[name] for r in ends_rows[k]]) for name in ends_rows[k][0]}
         records.append(segs[k].record(skill.ref, start, end, gamma))
-    return ChainRollout(env_id=rig.env_id, seed=seed, gamma=gamma, segments=tuple(records), meta={"reference": True})
+    return ChainRollout(env_id=rig.env_id, seed=seed, gamma=gamma, segments=tuple(records), meta={"reference": True}, episode_ids=ids)

@@ -163,10 +163,11 @@ class StopDraws:
 
     _STREAM = 11  # distinct from start sampling (0) and exploration noise (7)
 
-    def __init__(self, seed: int, n_episodes: int):
+    def __init__(self, seed: int, n_episodes: int, *, episode_ids: np.ndarray | None = None):
         from .seeding import episode_rng
 
-        self._rngs = [episode_rng(seed, i, self._STREAM) for i in range(n_episodes)]
+        ids = range(n_episodes) if episode_ids is None else [int(i) for i in episode_ids]
+        self._rngs = [episode_rng(seed, i, self._STREAM) for i in ids]
 
     def draw(self, episodes: np.ndarray) -> np.ndarray:
         """(len(episodes),) uniforms in [0, 1); each advances only its own episode's stream."""

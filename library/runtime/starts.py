@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Sequence
 
 import numpy as np
 
@@ -21,8 +21,8 @@ def named_state_of_states(rig: Rig, qpos: np.ndarray, qvel: np.ndarray) -> dict[
     return sim.state()
 
 
-def sample_starts(rig: Rig, start: Any, n: int, *, seed: int) -> tuple[np.ndarray, np.ndarray]:
-    """(qpos (n, nq), qvel (n, nv)), deterministic for ``seed``."""
+def sample_starts(rig: Rig, start: Any, n: int, *, seed: int | Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
+    """(qpos (n, nq), qvel (n, nv)), deterministic for ``seed`` (an int, or a list of ints naming a stream)."""
     rng = np.random.default_rng(seed)
     if start is None:
         return rig.start(rig.model, rng, n)

@@ -35,13 +35,24 @@ def write_arm_spec(folder: Path, name: str, *, starts_when: str, stops_when: str
     return path
 
 
-def write_chain(folder: Path, name: str, steps: list[str], **fields: Any) -> Path:
-    """A chain file; ``fields`` are written as YAML scalars (strings quoted)."""
-    lines = [f"chain: {name}", f"env: {fields.pop('env', ARM)}", "steps: [" + ", ".join(steps) + "]"]
-    for key, value in fields.items():
-        lines.append(f"{key}: {value!r}" if isinstance(value, str) else f"{key}: {value}")
+def write_chain(folder: Path, name: str, skills: list[Any], *, env: str = ARM, start: Any = None, variant: str | None = None,
+                require: float | None = None, require_chain: float | None = None, **fields: Any) -> Path:
+    """A chain file; ``skills`` items are refs, spec paths or ``{"skill": ..., "may_time_out": True}``;
+    other ``fields`` are written as YAML values (strings quoted)."""
+    import yaml
+
+    task: dict[str, Any] = {"env": env}
+    if variant is not None:
+        task["variant"] = str(variant)
+    if start is not None:
+        task["initial_states"] = start if isinstance(start, dict) else str(start)
+    data: dict[str, Any] = {"name": name, "task": task, "skills": [s if isinstance(s, dict) else str(s) for s in skills]}
+    req = {k: v for k, v in (("handoff", require), ("chain", require_chain)) if v is not None}
+    if req:
+        data["require"] = req
+    data.update(fields)
     path = folder / f"{name}.yaml"
-    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    path.write_text(yaml.safe_dump(data, sort_keys=False), encoding="utf-8")
     return path
 
 
@@ -88,6 +99,6 @@ def stub_context(rig: Any, skills: list[StubSkill], *, start: Any = None, max_co
     """A CheckContext over stand-in skills (no controllers: for the static method only)."""
     from kinetome.library.checker import Chain, CheckContext, CheckOptions
 
-    chain = Chain(name="stub", env=rig.env_id, steps=tuple(s.ref for s in skills))
+    chain = Chain(name="stub", env=rig.env_id, skills=tuple(s.ref for s in skills))
     options = CheckOptions(method="static", max_counterexamples=max_counterexamples, timeout_ms=20_000)
     return CheckContext(chain, options, rig, tuple(skills), tuple(rig.env_id for _ in skills), start)

@@ -14,7 +14,7 @@ from checker_testkit import CONFIGS
 from kinetome.library.checker import Verdict, check_chain
 
 SKILLS = CONFIGS / "skills"
-HOME = CONFIGS / "starts" / "arm_home.yaml"
+HOME = CONFIGS / "initial_states" / "arm_home.yaml"
 TRAY_PD = """controller:
   kind: joint_pd
   parameters:
@@ -91,3 +91,41 @@ def test_identical_deterministic_episodes_are_one_trial(tmp_path):
     assert "single start" in h.reason
     data = result.to_dict()
     assert data["whole_chain"]["distinct_trajectories"] == 1
+
+
+def _reach_from_anywhere(folder):
+    path = folder / "reach-from-anywhere.yaml"
+    path.write_text(
+        f"name: reach-from-anywhere\nenv: kinetome/BenchArm-v0\n{TRAY_PD}starts_when: norm(qvel) < 100\n"
+        "stops_when: norm(fingertip - target) < 0.02 and norm(fingertip_vel) < 0.05\nmax_steps: 200\n",
+        encoding="utf-8",
+    )
+    return path
+
+
+def test_a_step_allowed_to_time_out_hands_over_and_one_not_allowed_breaks(tmp_path):
+    from checker_testkit import write_chain
+
+    short, anywhere = _reach(tmp_path, "reach-five-steps", 5), _reach_from_anywhere(tmp_path)
+    allowed = write_chain(tmp_path, "allowed", [{"skill": str(short), "may_time_out": True}, anywhere], start=HOME, episodes=100)
+    result = _check(allowed, method="sim")
+    h = result.handoffs[0]
+    assert h.verdict is Verdict.COMPOSES and h.evidence_of("sim").details["timed_out"] == 100
+    assert result.exit_code == 0 and "allowed" in h.timeouts
+    strict = write_chain(tmp_path, "strict", [short, anywhere], start=HOME, episodes=100)
+    result = _check(strict, method="sim")
+    assert result.handoffs[0].verdict is Verdict.BREAKS and result.exit_code == 1
+    assert result.whole_chain.skills[1].offered == 0  # a timeout that is not allowed ends the chain
+
+
+def test_disturbances_turn_one_initial_state_into_many_trials(tmp_path):
+    from checker_testkit import write_chain
+
+    skills = [SKILLS / "arm-reach-tray.yaml", SKILLS / "arm-place.yaml"]
+    exact = {"name": "home_exact", "nominal": {"pose": "home"}}
+    calm = _check(write_chain(tmp_path, "calm", skills, start=exact, episodes=30), method="sim")
+    assert calm.whole_chain.distinct_trajectories == 1 and calm.handoffs[0].estimate.single_start
+    noisy_file = write_chain(tmp_path, "noisy", skills, start=exact, episodes=30, disturbances={"exploration": True, "sensor_noise": 0.001})
+    noisy = _check(noisy_file, method="sim")
+    assert noisy.whole_chain.distinct_trajectories == 30 and not noisy.handoffs[0].estimate.single_start
+    assert noisy.to_dict()["whole_chain"]["disturbances"]["exploration"] is True

@@ -67,20 +67,22 @@ def _violations(a, b, values, envelope):
     return int(np.sum(inside & in_a & ~in_b))
 
 
+PROVED, GAP, OPEN = "proved", "counterexample", "candidate"
+
 PAIRS = [
-    # (label, A stops_when, A params, A limits, B starts_when, B params, expected verdict of the static method)
-    ("joint speeds bound the speed norm", "all(abs(qvel) <= 0.2)", {}, None, "norm(qvel) < 0.5", {}, Verdict.COMPOSES),
-    ("a raw gap is a confirmed break", "qpos[0] > 0.5", {}, None, "qpos[0] > 0.6", {}, Verdict.BREAKS),
-    ("joint limit closes the gap", "qpos[0] > 0.0", {}, None, "qpos[0] < 3.0", {}, Verdict.COMPOSES),
-    ("inside the joint range it does not", "qpos[0] > 0.0", {}, None, "qpos[0] < 2.5", {}, Verdict.BREAKS),
-    ("declared joint_speed proves it", "norm(fingertip - target) < 0.02", {}, Limits(joint_speed=10.0), "abs(qvel[0]) <= 10.0", {}, Verdict.COMPOSES),
-    ("without the limit it is open", "norm(fingertip - target) < 0.02", {}, None, "abs(qvel[0]) <= 10.0", {}, Verdict.UNSURE),
-    ("declared end_effector_speed proves it", "qpos[0] > 0.0", {}, Limits(end_effector_speed=2.0), "norm(fingertip_vel) <= 2.0", {}, Verdict.COMPOSES),
-    ("relaxed fingertip still proves", "norm(fingertip - [0.3, 0.0, 0.55]) < 0.02", {}, None, "fingertip[0] > 0.25 and fingertip[2] < 0.6", {}, Verdict.COMPOSES),
-    ("parameters are constants per skill", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.32]}, Verdict.COMPOSES),
-    ("same parameter name, far apart", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.5]}, Verdict.BREAKS),
-    ("or in the stop region", "qpos[1] > 1.0 or qpos[1] < -1.0", {}, None, "abs(qpos[1]) > 0.9", {}, Verdict.COMPOSES),
-    ("not in the initiation set", "qvel[2] > 0.3", {}, None, "not (qvel[2] < 0.1)", {}, Verdict.COMPOSES),
+    # (label, A stops_when, A params, A limits, B starts_when, B params, expected containment)
+    ("joint speeds bound the speed norm", "all(abs(qvel) <= 0.2)", {}, None, "norm(qvel) < 0.5", {}, PROVED),
+    ("a raw gap is a confirmed break", "qpos[0] > 0.5", {}, None, "qpos[0] > 0.6", {}, GAP),
+    ("joint limit closes the gap", "qpos[0] > 0.0", {}, None, "qpos[0] < 3.0", {}, PROVED),
+    ("inside the joint range it does not", "qpos[0] > 0.0", {}, None, "qpos[0] < 2.5", {}, GAP),
+    ("declared joint_speed proves it", "norm(fingertip - target) < 0.02", {}, Limits(joint_speed=10.0), "abs(qvel[0]) <= 10.0", {}, PROVED),
+    ("without the limit it is open", "norm(fingertip - target) < 0.02", {}, None, "abs(qvel[0]) <= 10.0", {}, OPEN),
+    ("declared end_effector_speed proves it", "qpos[0] > 0.0", {}, Limits(end_effector_speed=2.0), "norm(fingertip_vel) <= 2.0", {}, PROVED),
+    ("relaxed fingertip still proves", "norm(fingertip - [0.3, 0.0, 0.55]) < 0.02", {}, None, "fingertip[0] > 0.25 and fingertip[2] < 0.6", {}, PROVED),
+    ("parameters are constants per skill", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.32]}, PROVED),
+    ("same parameter name, far apart", "norm(qpos - goal) < 0.01", {"goal": [0.1, 0.2, 0.3]}, None, "norm(qpos - goal) < 0.05", {"goal": [0.1, 0.2, 0.5]}, GAP),
+    ("or in the stop region", "qpos[1] > 1.0 or qpos[1] < -1.0", {}, None, "abs(qpos[1]) > 0.9", {}, PROVED),
+    ("not in the initiation set", "qvel[2] > 0.3", {}, None, "not (qvel[2] < 0.1)", {}, PROVED),
 ]
 
 
@@ -89,13 +91,14 @@ def test_static_verdicts_and_brute_force(arm, label, a_stop, a_par, a_lim, b_sta
     a = stub_skill(arm, "a@1", stops_when=a_stop, parameters=a_par, limits=a_lim)
     b = stub_skill(arm, "b@1", starts_when=b_start, parameters=b_par)
     ev = _static(arm, a, b)
-    assert ev.verdict is expected, ev.reason
+    assert ev.verdict is Verdict.UNSURE  # containment alone never decides a handoff
+    assert ev.details["containment"] == expected, ev.reason
     envelope = physical_envelope(arm, a_lim)
     rng = np.random.default_rng(7)
-    if expected is Verdict.COMPOSES:
+    if expected == PROVED:
         assert _violations(a, b, _relaxed_samples(arm, envelope, 20_000, rng), envelope) == 0
         assert _violations(a, b, _physical_samples(arm, envelope, 2_000, rng), envelope) == 0
-    if expected is Verdict.BREAKS:
+    if expected == GAP:
         assert ev.counterexamples and all(c.confirmed for c in ev.counterexamples)
         for c in ev.counterexamples:
             state = {k: np.asarray(v, dtype=np.float64)[None] for k, v in c.state.items()}
@@ -121,13 +124,13 @@ def test_random_pairs_never_prove_a_sampled_violation(arm):
         b = stub_skill(arm, "b@1", starts_when=b_start)
         ev = _static(arm, a, b, max_counterexamples=1)
         sampled = _violations(a, b, _relaxed_samples(arm, envelope, 20_000, rng), envelope)
-        if ev.verdict is Verdict.COMPOSES:
+        if ev.details["containment"] == PROVED:
             proved += 1
             assert sampled == 0, (a_stop, b_start)
             assert _violations(a, b, _physical_samples(arm, envelope, 1_000, rng), envelope) == 0
         if sampled > 0:
             refuted += 1
-            assert ev.verdict is not Verdict.COMPOSES
+            assert ev.details["containment"] != PROVED
     assert proved >= 3 and refuted >= 3, (proved, refuted)  # the table exercises both sides
 
 
@@ -137,7 +140,7 @@ def test_relaxed_candidate_is_not_a_confirmed_break(arm):
     a = stub_skill(arm, "a@1", stops_when="abs(qpos[0]) < 0.001 and abs(qpos[1]) < 0.001 and abs(qpos[2]) < 0.001")
     b = stub_skill(arm, "b@1", starts_when="fingertip[2] > 0.35")
     ev = _static(arm, a, b)
-    assert ev.verdict is Verdict.UNSURE
+    assert ev.details["containment"] == OPEN
     assert ev.candidates and not ev.counterexamples
     assert all(not c.confirmed for c in ev.candidates)
     assert "fingertip" in ev.details["relaxed"]
@@ -147,7 +150,7 @@ def test_alias_of_raw_entries_is_used(walker):
     """torso_pitch reads qpos[2]: the proof needs the equality the envelope adds."""
     a = stub_skill(walker, "a@1", stops_when="qpos[2] > 0.1 and qpos[2] < 0.2")
     b = stub_skill(walker, "b@1", starts_when="torso_pitch > 0.05 and abs(torso_vel[0] - qvel[0]) < 1e-9")
-    assert _static(walker, a, b).verdict is Verdict.COMPOSES
+    assert _static(walker, a, b).details["containment"] == PROVED
 
 
 def test_terminal_states_do_not_confirm(walker):
@@ -155,14 +158,15 @@ def test_terminal_states_do_not_confirm(walker):
     a = stub_skill(walker, "a@1", stops_when="qpos[0] > 1.0")
     b = stub_skill(walker, "b@1", starts_when="abs(torso_pitch) < 0.9")
     ev = _static(walker, a, b)
-    assert ev.verdict is Verdict.UNSURE  # every violating pitch (>= 0.9) is terminal: candidates only
+    assert ev.details["containment"] == OPEN  # every violating pitch (>= 0.9) is terminal: candidates only
     assert ev.candidates and not ev.counterexamples
 
 
-def test_timeouts_are_reported_outside_the_proof(arm):
+def test_timeouts_are_outside_containment(arm):
     a = stub_skill(arm, "a@1", stops_when="all(abs(qvel) <= 0.2)")
     b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5")
     ev = _static(arm, a, b)
+    assert ev.details["containment"] == PROVED and not ev.decided  # liveness is not part of the proof
     assert "can time out" in ev.details["timeouts"]
 
 
@@ -193,9 +197,9 @@ def test_entry_is_proved_over_the_start_box(arm):
     start = load_start(CONFIGS / "initial_states" / "arm_home.yaml")
     b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5 and qpos[0] > 0.04")
     ctx = stub_context(arm, [b], start=start)
-    ev = static_method(ctx, [Junction(0, "start", b.ref)])[0]
+    ev = static_method(ctx, [Junction(0, "initial states", b.ref)])[0]
     assert ev.verdict is Verdict.COMPOSES
     # A box partly outside B: listed start states, verdict left to sampling.
     b2 = stub_skill(arm, "b@1", starts_when="qpos[0] > 0.07")
-    ev2 = static_method(stub_context(arm, [b2], start=start), [Junction(0, "start", b2.ref)])[0]
+    ev2 = static_method(stub_context(arm, [b2], start=start), [Junction(0, "initial states", b2.ref)])[0]
     assert ev2.verdict is Verdict.UNSURE and ev2.counterexamples and ev2.counterexamples[0].confirmed

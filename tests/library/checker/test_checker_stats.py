@@ -84,11 +84,15 @@ def test_episodes_to_decide_is_the_smallest_that_decides(k, n, require):
     assert more is not None and more >= 0
     rate = k / n
     m = n + more
-    low, high = clopper_pearson(rate * m, m, 0.95)
-    assert (low >= require) if rate > require else (high < require)
+
+    def decided(total):
+        if rate > require:
+            return lower_bound(rate * total, total, 0.95) >= require
+        return upper_bound(rate * total, total, 0.95) < require
+
+    assert decided(m)
     if more > 0:
-        low1, high1 = clopper_pearson(rate * (m - 1), m - 1, 0.95)
-        assert not ((low1 >= require) if rate > require else (high1 < require))
+        assert not decided(m - 1)
 
 
 def test_episodes_to_decide_undecidable_cases():

@@ -1,11 +1,11 @@
-"""Verdict rule from counts (composes / breaks / unsure) and the exit code of a whole check."""
+"""Verdict rule from counts (composes / breaks / unsure, one-sided bounds) and the exit code of a whole check."""
 
 from __future__ import annotations
 
 import pytest
 
-from kinetome.library.checker import Verdict, estimate, exit_code_for
-from kinetome.library.checker.stats import clopper_pearson
+from kinetome.library.checker import Verdict, estimate, exit_code_for, single_start_estimate
+from kinetome.library.checker.stats import clopper_pearson, lower_bound
 
 C, B, U = Verdict.COMPOSES, Verdict.BREAKS, Verdict.UNSURE
 
@@ -13,37 +13,64 @@ C, B, U = Verdict.COMPOSES, Verdict.BREAKS, Verdict.UNSURE
 @pytest.mark.parametrize(
     "k, n, require, expected",
     [
-        (200, 200, 0.95, C),  # low = 0.025^(1/200) = 0.9817 >= 0.95
-        (72, 72, 0.95, C),  # 72 clean episodes just clear 0.95 two-sided: 0.025^(1/72) = 0.95005
-        (71, 71, 0.95, U),  # 0.025^(1/71) = 0.9494 < 0.95
-        (59, 59, 0.95, U),  # enough one-sided, not for the two-sided interval the verdict uses
+        (200, 200, 0.95, C),  # one-sided low = 0.05^(1/200) = 0.9851 >= 0.95
+        (59, 59, 0.95, C),  # 59 clean episodes clear 0.95 one-sided: 0.05^(1/59) = 0.95050
+        (58, 58, 0.95, U),  # 0.05^(1/58) = 0.94966 < 0.95
         (0, 200, 0.95, B),
-        (140, 200, 0.95, B),  # high = 0.762
-        (190, 200, 0.95, U),  # interval [0.910, 0.976] straddles 0.95
+        (140, 200, 0.95, B),  # high = 0.755
+        (190, 200, 0.95, U),  # bounds 0.917 and 0.973 straddle 0.95
         (990, 1000, 0.95, C),
         (5, 10, 0.5, U),
         (0, 0, 0.95, U),  # nothing observed
         (1, 3, 0.99, B),
     ],
 )
-def test_verdict_from_counts(k, n, require, expected):
+def test_verdict_from_counts_one_sided(k, n, require, expected):
     est = estimate(k, n, require=require, confidence=0.95)
     assert est.verdict is expected
-    low, high = clopper_pearson(k, n, 0.95)
-    assert (est.low, est.high) == (low, high)
+    # Each bound is one-sided at 95%, i.e. one end of the two-sided 90% Clopper-Pearson interval.
+    if n:
+        low, high = clopper_pearson(k, n, 0.90)
+        assert est.low == pytest.approx(low, abs=1e-12) and est.high == pytest.approx(high, abs=1e-12)
     if expected is U and n:
         assert est.more_episodes is None or est.more_episodes > 0
     else:
         assert est.more_episodes is None
 
 
+def test_upper_bound_uses_its_own_confidence():
+    # Bonferroni across 3 handoffs: breaks needs the upper bound at 1 - 0.05/3.
+    loose = estimate(180, 200, require=0.95, confidence=0.95)
+    strict = estimate(180, 200, require=0.95, confidence=0.95, upper_confidence=1 - 0.05 / 3)
+    assert strict.high > loose.high
+    assert strict.high_confidence == pytest.approx(1 - 0.05 / 3)
+    edge = estimate(184, 200, require=0.95, confidence=0.95)  # high 0.948 at 95%
+    edge_corrected = estimate(184, 200, require=0.95, confidence=0.95, upper_confidence=1 - 0.05 / 3)  # 0.956
+    assert edge.verdict is B and edge_corrected.verdict is U
+
+
+def test_lower_bound_from_prefix_counts():
+    # 60 of 60 runs of A handed over, but only 60 of 100 episodes got that far: the claim
+    # rests on 60/100 through this junction, far below 0.95.
+    est = estimate(60, 60, require=0.95, confidence=0.95, low_from=(60, 100))
+    assert est.verdict is U and est.low < 0.7 and est.low_from == (60, 100)
+    assert estimate(60, 60, require=0.95, confidence=0.95).verdict is C
+
+
 def test_unsure_says_how_many_more_episodes_decide():
-    est = estimate(95, 100, require=0.9, confidence=0.95)  # interval [0.887, 0.984]
+    est = estimate(95, 100, require=0.9, confidence=0.95)  # low 0.9 one-sided: 0.898
     assert est.verdict is U
     assert est.more_episodes is not None and est.more_episodes > 0
     m = est.n + est.more_episodes
-    # At the observed rate 0.95 with m episodes the lower end clears 0.9.
-    assert clopper_pearson(0.95 * m, m, 0.95)[0] >= 0.9
+    # At the observed rate 0.95 with m episodes the one-sided lower bound clears 0.9.
+    assert lower_bound(0.95 * m, m, 0.95) >= 0.9
+    assert lower_bound(0.95 * (m - 1), m - 1, 0.95) < 0.9
+
+
+def test_single_start_claims_no_bound():
+    est = single_start_estimate(True, require=0.95, confidence=0.95, upper_confidence=0.98)
+    assert est.verdict is C and est.single_start and est.n == 1
+    assert single_start_estimate(False, require=0.95, confidence=0.95, upper_confidence=0.98).verdict is B
 
 
 @pytest.mark.parametrize(

@@ -84,9 +84,18 @@ def test_check_exit_codes(store, capsys, chain, expected) -> None:
 
 def test_check_bad_input_exit_2(store, tmp_path, capsys) -> None:
     bad = tmp_path / "bad.yaml"
-    bad.write_text("chain: x\nenv: kinetome/BenchArm-v0\nsteps: [arm-lift, arm-teleport]\n")
+    bad.write_text("name: x\ntask: {env: kinetome/BenchArm-v0}\nskills: [arm-lift, arm-teleport]\n")
     assert main(["--store", store, "check", str(bad)]) == 2
-    assert "arm-teleport" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "bad.yaml:3: skills[1]:" in err and "arm-teleport" in err
+
+
+def test_check_json_and_out_folder(store, tmp_path, capsys) -> None:
+    out = tmp_path / "check"
+    code = main(["--store", store, "check", str(CONFIGS / "chains" / "arm-place-release.yaml"), "--episodes", "80", "--json", "--out", str(out)])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 1 and data["exit_code"] == 1 and data["schema"] == "kinetome.check/1"
+    assert "ISO 12100" in data["caution"] and (out / "result.json").is_file() and (out / "summary.txt").is_file()
 
 
 def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
