@@ -66,6 +66,6 @@ def test_demo_register_and_check_without_any_gl(tmp_path: Path) -> None:
     registered = _kinetome(tmp_path, "register", *skills, "--store", str(store))
     assert _gl_modules(registered) == []
     chain = ROOT / "configs" / "chains" / "arm-lift-reach-place.yaml"
-    checked = _kinetome(tmp_path, "check", str(chain), "--store", str(out / "store"), "--episodes", "20")
+    checked = _kinetome(tmp_path, "check", str(chain), "--store", str(out / "store"), "--episodes", "60")  # 59 clean episodes decide 0.95
     assert _gl_modules(checked) == []
     assert "composes" in checked.stdout

@@ -49,7 +49,7 @@ def _propagate(ctx: Any, j: Junction, rng: np.random.Generator) -> tuple[dict, s
         skill = ctx.skills[i]
         models = skill_models(ctx, i)
         if models is None or models.end_state is None:
-            return {}, f"{skill.ref} has no end-state model attached (fit with `kinetome fit-models {skill.ref}`)"
+            return {}, f"{skill.ref} has no end-state model attached (fit with `kinetome fit {skill.ref}`)"
         missing = [q for q in models.features if q not in state]
         if missing:
             return {}, f"{skill.ref}'s models read {missing}, which the previous end-state model does not predict"
