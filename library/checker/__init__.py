@@ -13,7 +13,7 @@ from .check import check_chain, run_check
 from .decision import Decision, bonferroni_confidence, decide
 from .context import CheckContext, CheckOptions, prepare_context
 from .envelope import Envelope, physical_envelope
-from .evidence import Counterexample, Evidence, Junction
+from .evidence import Counterexample, Evidence, Handoff
 from .registry import AUTO, checker_method, get_method, method_names, methods
 from .result import SCHEMA, CheckResult, HandoffResult
 from .sequential import SimPlan, Stage, auto_plan, fixed_plan, run_plan
@@ -55,7 +55,7 @@ __all__ = [
     "single_start_estimate",
     "ChainStats",
     "SkillTiming",
-    "Junction",
+    "Handoff",
     "Evidence",
     "Counterexample",
     "Envelope",

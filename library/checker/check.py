@@ -1,4 +1,4 @@
-"""Check a chain: structural checks, then the methods cheapest first, then one verdict per junction.
+"""Check a chain: structural checks, then the methods cheapest first, then one verdict per handoff.
 
 A handoff A -> B composes when A ends by its stop condition in time (liveness)
 and B's ``starts_when`` holds there (containment). The static method can prove
@@ -80,11 +80,11 @@ def _decided(evidence: list[Evidence]) -> bool:
 
 
 def _gather(ctx: CheckContext, timings: dict[str, float]) -> dict[int, list[Evidence]]:
-    """Every method's evidence per junction. Simulation runs unless every handoff is already decided."""
-    junctions = ctx.junctions()
-    entry, handoffs = junctions[0], junctions[1:]
-    found: dict[int, list[Evidence]] = {j.index: [] for j in junctions}
-    for idx, ev in _timed(timings, "structural", structural_check, ctx, junctions).items():
+    """Every method's evidence per handoff. Simulation runs unless every handoff is already decided."""
+    checked = ctx.all_handoffs()
+    entry, handoffs = checked[0], checked[1:]
+    found: dict[int, list[Evidence]] = {j.index: [] for j in checked}
+    for idx, ev in _timed(timings, "structural", structural_check, ctx, checked).items():
         found[idx].append(ev)
     broken = any(_decided(evs) for evs in found.values())
     sampled = False
@@ -100,7 +100,7 @@ def _gather(ctx: CheckContext, timings: dict[str, float]) -> dict[int, list[Evid
                 continue  # cheaper evidence decided every handoff and the whole chain
             targets = handoffs  # one simulation serves every handoff and the whole chain
         else:
-            targets = [j for j in (junctions if name == "static" else handoffs) if not _decided(found[j.index])]
+            targets = [j for j in (checked if name == "static" else handoffs) if not _decided(found[j.index])]
             if not targets:
                 continue
         for idx, ev in _timed(timings, name, get_method(name).fn, ctx, targets).items():
@@ -114,7 +114,7 @@ def run_check(ctx: CheckContext) -> CheckResult:
     """Run the plan on a prepared context and assemble the result."""
     timings: dict[str, float] = {}
     found = _gather(ctx, timings)
-    results = [combine_handoff(ctx, j, found[j.index]) for j in ctx.junctions()]
+    results = [combine_handoff(ctx, j, found[j.index]) for j in ctx.all_handoffs()]
     chain = ctx.chain
     start = ""
     if ctx.start is not None:
@@ -124,7 +124,7 @@ def run_check(ctx: CheckContext) -> CheckResult:
     return CheckResult(
         chain=chain,
         method=ctx.options.method,
-        junctions=tuple(results),
+        all_handoffs=tuple(results),
         whole_chain=stats,
         chain_verdict=whole_chain_verdict(stats),
         notes=tuple(dict.fromkeys(ctx.notes)),

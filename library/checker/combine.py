@@ -1,4 +1,4 @@
-"""One verdict per junction from every method's evidence, and the whole chain's requirement verdict.
+"""One verdict per handoff from every method's evidence, and the whole chain's requirement verdict.
 
 Precedence for a handoff A -> B:
 1. a structural mismatch breaks it (``decided_by: static``);
@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from .evidence import Counterexample, Evidence, Junction
+from .evidence import Counterexample, Evidence, Handoff
 from .result import HandoffResult
 from .verdict import Verdict
 
@@ -61,7 +61,7 @@ def _entry(evidence: list[Evidence]) -> tuple[Verdict, str | None, str]:
     return Verdict.UNSURE, None, "no method could examine it"
 
 
-def _handoff(ctx: Any, j: Junction, evidence: list[Evidence], notes: list[str]) -> tuple[Verdict, str | None, str]:
+def _handoff(ctx: Any, j: Handoff, evidence: list[Evidence], notes: list[str]) -> tuple[Verdict, str | None, str]:
     static, sim, model = _first(evidence, "static"), _first(evidence, "sim"), _first(evidence, "model")
     containment = (static.details.get("containment") if static is not None else None) or "not examined"
     if sim is not None:
@@ -92,8 +92,8 @@ def _handoff(ctx: Any, j: Junction, evidence: list[Evidence], notes: list[str]) 
     return Verdict.UNSURE, None, "; ".join(parts + [liveness])
 
 
-def combine_handoff(ctx: Any, j: Junction, evidence: list[Evidence]) -> HandoffResult:
-    """The verdict of junction ``j`` from its evidence, following the precedence in the module doc."""
+def combine_handoff(ctx: Any, j: Handoff, evidence: list[Evidence]) -> HandoffResult:
+    """The verdict of handoff ``j`` from its evidence, following the precedence in the module doc."""
     notes: list[str] = []
     structural = _first(evidence, "structural")
     sim = _first(evidence, "sim")
@@ -106,6 +106,6 @@ def combine_handoff(ctx: Any, j: Junction, evidence: list[Evidence]) -> HandoffR
         verdict, by, reason = _handoff(ctx, j, evidence, notes)
     b = ctx.target_skill(j)
     return HandoffResult(
-        junction=j, verdict=verdict, decided_by=by, reason=reason, evidence=tuple(evidence),
+        handoff=j, verdict=verdict, decided_by=by, reason=reason, evidence=tuple(evidence),
         starts_when=b.starts_when, parameters=dict(b.parameters), notes=tuple(notes),
     )

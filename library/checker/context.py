@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import InvalidInputError, KinetomeError, Problem
 from .chain import Chain, skill_is_spec_file
-from .evidence import Junction
+from .evidence import Handoff
 from .sequential import DEFAULT_BLOCK
 
 __all__ = ["CheckOptions", "CheckContext", "prepare_context"]
@@ -98,16 +98,16 @@ class CheckContext:
     def layout(self) -> Any:
         return self.rig.layout
 
-    def junctions(self) -> list[Junction]:
+    def all_handoffs(self) -> list[Handoff]:
         refs = [s.ref for s in self.skills]
-        out = [Junction(0, "initial states", refs[0])]
-        out += [Junction(j, refs[j - 1], refs[j]) for j in range(1, len(refs))]
+        out = [Handoff(0, "initial states", refs[0])]
+        out += [Handoff(j, refs[j - 1], refs[j]) for j in range(1, len(refs))]
         return out
 
-    def source_skill(self, j: Junction) -> Any:
+    def source_skill(self, j: Handoff) -> Any:
         return None if j.is_entry else self.skills[j.index - 1]
 
-    def target_skill(self, j: Junction) -> Any:
+    def target_skill(self, j: Handoff) -> Any:
         return self.skills[j.index]
 
     def named_state(self, qpos: np.ndarray, qvel: np.ndarray, *, chunk: int = 256) -> dict[str, np.ndarray]:

@@ -1,4 +1,4 @@
-"""Verdicts for every junction and for the whole chain, from per-episode outcomes (pure).
+"""Verdicts for every handoff and for the whole chain, from per-episode outcomes (pure).
 
 The rules (stated in library/checker/README.md):
 
@@ -6,15 +6,15 @@ The rules (stated in library/checker/README.md):
   One distinct trajectory is one trial: the verdict holds for that single start,
   and no bound is claimed from repetition.
 - ``composes``: a one-sided lower bound at ``confidence`` on the probability of
-  handing over at every junction up to and including this one (k' of all n
+  handing over at every handoff (entry included) up to and including this one (k' of all n
   episodes) reaches ``require.handoff``. That probability is a product of the
-  junctions' own success probabilities, each at most 1, so it bounds each of them;
-  and because the events are nested (through junction j implies through j-1),
+  checked' own success probabilities, each at most 1, so it bounds each of them;
+  and because the events are nested (through handoff j implies through j-1),
   all the claims together err with probability at most 1 - confidence: no
   correction across handoffs is needed.
-- ``breaks``: the one-sided upper bound on the junction's own success probability
+- ``breaks``: the one-sided upper bound on the handoff's own success probability
   (k of the n episodes that reached it) at confidence 1 - alpha/m is below the
-  requirement, m = number of junctions (Bonferroni, Dunn 1961): all breaks claims
+  requirement, m = number of checked (Bonferroni, Dunn 1961): all breaks claims
   together err with probability at most alpha.
 - The whole chain meets ``require.chain`` when its one-sided lower bound reaches
   it, and fails it when its one-sided upper bound is below it.
@@ -39,9 +39,9 @@ def bonferroni_confidence(confidence: float, m: int) -> float:
 
 @dataclass(frozen=True)
 class Decision:
-    """Estimates per junction (entry first) and for the whole chain, over the distinct trajectories."""
+    """Estimates per handoff (entry first) and for the whole chain, over the distinct trajectories."""
 
-    junctions: tuple[Estimate, ...]
+    all_handoffs: tuple[Estimate, ...]
     chain: Estimate
     episodes: int
     distinct: int
@@ -84,7 +84,7 @@ def decide(
     t = trials.take(rows)
     if t.n == 1:
         d = _single(t, require_handoff=require_handoff, require_chain=require_chain, confidence=low_conf, upper=upper)
-        return Decision(d.junctions, d.chain, trials.n, 1)
+        return Decision(d.all_handoffs, d.chain, trials.n, 1)
     prefix = t.prefix()
     out = []
     for j in range(t.m):

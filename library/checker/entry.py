@@ -4,7 +4,7 @@ Initial states are drawn from the chain's initial-state distribution and their
 named state is computed by MuJoCo (reset, write, forward; no stepping), so this
 costs almost nothing. It belongs to the ``sim`` method (``decided_by: sim``).
 The static method proves the entry instead when the distribution is a box over
-raw state. The upper bound is Bonferroni-corrected over the chain's junctions,
+raw state. The upper bound is Bonferroni-corrected over the chain's checked,
 like the handoffs' (``decision.py``).
 """
 
@@ -15,13 +15,13 @@ from typing import Any
 import numpy as np
 
 from .decision import bonferroni_confidence
-from .evidence import Evidence, Junction, counterexample_from
+from .evidence import Evidence, Handoff, counterexample_from
 from .verdict import estimate
 
 __all__ = ["sample_entry"]
 
 
-def sample_entry(ctx: Any, j: Junction) -> Evidence:
+def sample_entry(ctx: Any, j: Handoff) -> Evidence:
     """k of n sampled initial states accepted by the first skill's starts_when."""
     b = ctx.target_skill(j)
     chain = ctx.chain

@@ -1,4 +1,4 @@
-"""What one method found about one junction: a verdict or none, why, counts, counterexample states."""
+"""What one method found about one handoff: a verdict or none, why, counts, counterexample states."""
 
 from __future__ import annotations
 
@@ -9,11 +9,11 @@ import numpy as np
 
 from .verdict import Estimate, Verdict
 
-__all__ = ["Junction", "Counterexample", "Evidence", "counterexample_from"]
+__all__ = ["Handoff", "Counterexample", "Evidence", "counterexample_from"]
 
 
 @dataclass(frozen=True)
-class Junction:
+class Handoff:
     """Where the checker looks: ``index`` 0 is the entry (initial states -> first skill);
     ``index`` j >= 1 is the handoff from skill j-1 to skill j.
     """
@@ -100,7 +100,7 @@ def counterexample_from(
 
 @dataclass(frozen=True, eq=False)
 class Evidence:
-    """One method's finding on one junction.
+    """One method's finding on one handoff.
 
     ``verdict`` is UNSURE when the method did not decide. ``estimate`` holds
     counts and the exact interval (sampling methods). ``candidates`` are solver

@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from .evidence import Evidence, Junction, counterexample_from
+from .evidence import Evidence, Handoff, counterexample_from
 from .registry import checker_method
 from .verdict import Verdict, estimate
 
@@ -40,7 +40,7 @@ def skill_models(ctx: Any, index: int) -> Any:
     return ctx.cache[key]
 
 
-def _propagate(ctx: Any, j: Junction, rng: np.random.Generator) -> tuple[dict, str | None]:
+def _propagate(ctx: Any, j: Handoff, rng: np.random.Generator) -> tuple[dict, str | None]:
     """End states of step j-1 conditioned on stopping, reached through the chain; or why not."""
     n = ctx.options.model_samples
     qpos, qvel = ctx.start_states(n, seed=(ctx.seed, 7919))
@@ -69,10 +69,10 @@ def _propagate(ctx: Any, j: Junction, rng: np.random.Generator) -> tuple[dict, s
 
 
 @checker_method("model", cost=20, summary="option models: sampled end states of A tested against B's starts_when")
-def model_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
+def model_method(ctx: Any, checked: list[Handoff]) -> dict[int, Evidence]:
     """Option models: sampled end states of A tested against B's starts_when."""
     out: dict[int, Evidence] = {}
-    for j in junctions:
+    for j in checked:
         if j.is_entry:
             continue
         a_models = skill_models(ctx, j.index - 1)

@@ -1,8 +1,8 @@
 """The table of checker methods; a method joins it with ``@checker_method(name)``.
 
-A method is ``fn(ctx, junctions) -> {junction index: Evidence}``: it gets the
-junctions still undecided and returns evidence for those it could examine
-(a junction it cannot examine, e.g. no option models attached, is left out).
+A method is ``fn(ctx, checked) -> {handoff index: Evidence}``: it gets the
+checked still undecided and returns evidence for those it could examine
+(a handoff it cannot examine, e.g. no option models attached, is left out).
 Methods run cheapest first, in the order of their ``cost``.
 """
 

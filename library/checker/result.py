@@ -1,4 +1,4 @@
-"""The outcome of a chain check: per-junction verdicts with evidence, whole-chain stats, text and JSON."""
+"""The outcome of a chain check: per-handoff verdicts with evidence, whole-chain stats, text and JSON."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import numpy as np
 from ..safety import CAUTION
 from .chain import Chain
 from .chain_stats import ChainStats
-from .evidence import Counterexample, Evidence, Junction
+from .evidence import Counterexample, Evidence, Handoff
 from .verdict import Estimate, Verdict, exit_code_for
 
 __all__ = ["HandoffResult", "CheckResult", "SCHEMA", "EXIT_TEXT"]
@@ -23,18 +23,18 @@ EXIT_TEXT = {
     1: "a handoff breaks or the whole chain fails its requirement",
     3: "unsure: more evidence is needed",
 }
-_PREFERRED = ("sim", "model")  # which estimate to show for an undecided junction
+_PREFERRED = ("sim", "model")  # which estimate to show for an undecided handoff
 
 
 @dataclass(frozen=True, eq=False)
 class HandoffResult:
-    """Verdict on one junction (the entry, or a handoff A -> B) and the evidence behind it.
+    """Verdict on the entry or on one handoff A -> B and the evidence behind it.
 
     ``decided_by`` names the method whose evidence gave the verdict (None when
     unsure). ``starts_when``/``parameters`` are B's, kept for plots.
     """
 
-    junction: Junction
+    handoff: Handoff
     verdict: Verdict
     decided_by: str | None
     reason: str
@@ -45,11 +45,11 @@ class HandoffResult:
 
     @property
     def index(self) -> int:
-        return self.junction.index
+        return self.handoff.index
 
     @property
     def label(self) -> str:
-        return self.junction.label
+        return self.handoff.label
 
     def evidence_of(self, method: str) -> Evidence | None:
         for ev in self.evidence:
@@ -95,7 +95,7 @@ class HandoffResult:
         if sim is not None and "timed_out" in sim.details:
             d = sim.details
             return f"{d['timed_out']}/{d['source_ran']}" + (" allowed" if d.get("may_time_out") else "")
-        return "-" if self.junction.is_entry else "not measured"
+        return "-" if self.handoff.is_entry else "not measured"
 
     @property
     def points(self) -> tuple[Mapping[str, np.ndarray] | None, np.ndarray | None, str]:
@@ -115,10 +115,10 @@ class HandoffResult:
         est = self.estimate
         return {
             "index": self.index,
-            "kind": "entry" if self.junction.is_entry else "handoff",
+            "kind": "entry" if self.handoff.is_entry else "handoff",
             "single_start": bool(est is not None and est.single_start),
-            "from": self.junction.source,
-            "to": self.junction.target,
+            "from": self.handoff.source,
+            "to": self.handoff.target,
             "verdict": self.verdict.value,
             "decided_by": self.decided_by,
             "reason": self.reason,
@@ -133,8 +133,8 @@ class HandoffResult:
 
 STATISTICS = {
     "composes": "one-sided exact (Clopper-Pearson) lower bound, at the chain's confidence, on handing over at every "
-    "junction up to this one; it bounds each junction's own probability, and the nested claims need no correction",
-    "breaks": "one-sided exact upper bound on the junction's own probability at 1 - alpha/m (Bonferroni over the m junctions)",
+    "handoff up to this one; it bounds each handoff's own probability, and the nested claims need no correction",
+    "breaks": "one-sided exact upper bound on the handoff's own probability at 1 - alpha/m (Bonferroni over the m handoffs, entry included)",
     "whole_chain": "one-sided exact bounds at the chain's confidence against require.chain",
     "trials": "only distinct trajectories count; one distinct trajectory is one trial (a single-start verdict, no bound)",
 }
@@ -162,7 +162,7 @@ def _finite_or_none(x: Any) -> Any:
 
 @dataclass(frozen=True, eq=False)
 class CheckResult:
-    """Everything a chain check found. ``junctions[0]`` is the entry; the rest are the handoffs.
+    """Everything a chain check found. ``checked[0]`` is the entry; the rest are the handoffs.
 
     ``whole_chain`` holds the simulation's whole-chain numbers (None without a
     simulation) and ``chain_verdict`` whether the chain meets its requirement
@@ -171,7 +171,7 @@ class CheckResult:
 
     chain: Chain
     method: str
-    junctions: tuple[HandoffResult, ...]
+    all_handoffs: tuple[HandoffResult, ...]
     whole_chain: ChainStats | None = None
     chain_verdict: Verdict = Verdict.UNSURE
     notes: tuple[str, ...] = ()
@@ -184,31 +184,31 @@ class CheckResult:
     layout: Any = None  # the rig's StateLayout, for plots
 
     def __post_init__(self) -> None:
-        if not self.junctions or not self.junctions[0].junction.is_entry:
-            raise ValueError("a check result needs the entry junction first")
+        if not self.all_handoffs or not self.all_handoffs[0].handoff.is_entry:
+            raise ValueError("a check result needs the entry first")
 
     @property
     def entry(self) -> HandoffResult:
-        return self.junctions[0]
+        return self.all_handoffs[0]
 
     @property
     def handoffs(self) -> tuple[HandoffResult, ...]:
-        return self.junctions[1:]
+        return self.all_handoffs[1:]
 
     @property
     def verdicts(self) -> tuple[Verdict, ...]:
-        return tuple(j.verdict for j in self.junctions)
+        return tuple(j.verdict for j in self.all_handoffs)
 
     @property
     def exit_code(self) -> int:
-        """0: every junction composes and the whole chain meets its requirement; 1: something
+        """0: every handoff composes and the whole chain meets its requirement; 1: something
         breaks or the chain fails its requirement; 3: unsure (2, bad input, is raised before a result exists)."""
         return exit_code_for([*self.verdicts, self.chain_verdict])
 
     @property
     def methods_used(self) -> tuple[str, ...]:
         seen: list[str] = []
-        for j in self.junctions:
+        for j in self.all_handoffs:
             for m in j.methods:
                 if m not in seen:
                     seen.append(m)
@@ -231,7 +231,7 @@ class CheckResult:
             "exit_code": self.exit_code,
             "summary": EXIT_TEXT[self.exit_code],
             "handoff_count": len(self.handoffs),
-            "handoffs": [j.to_dict() for j in self.junctions],
+            "handoffs": [j.to_dict() for j in self.all_handoffs],
             "whole_chain": None if self.whole_chain is None else self.whole_chain.to_dict(),
             "chain_verdict": self.chain_verdict.value,
             "statistics": STATISTICS,

@@ -8,9 +8,9 @@ Stopping rules look at results only at block boundaries, in block order.
 - ``auto_plan`` (``--method auto``): a fixed-n zero-failure stage with curtailment,
   then, if something is still open, a second stage on fresh episodes.
   Stage 1 runs n0 episodes, the fewest whose exact one-sided zero-failure bound
-  reaches the requirement (59 for 0.95 at 95% confidence). A junction (or the whole
+  reaches the requirement (59 for 0.95 at 95% confidence). A handoff (or the whole
   chain) composes in stage 1 when every episode handed over through it. Stage 1
-  stops at the first block after which no junction and not the whole chain can still
+  stops at the first block after which no handoff and not the whole chain can still
   pass that test (curtailment: the stage-1 claims are the ones n0 episodes would
   give). Stage 2 runs the rest of the budget (N - n0 fresh episodes) and decides
   what stage 1 left open; its lower bounds use alpha2 = (alpha - r^n0) / (1 - r^n0),
@@ -99,7 +99,7 @@ class PlanRun:
     decision: Decision
     trials: Trials
     run: dict[str, int] = field(default_factory=dict)
-    decided_in: dict[str, str] = field(default_factory=dict)  # junction index or "chain" -> stage label
+    decided_in: dict[str, str] = field(default_factory=dict)  # handoff index or "chain" -> stage label
     curtailed: bool = False
 
     def rows(self, label: str) -> slice:
@@ -121,7 +121,7 @@ def _still_open(t: Trials) -> bool:
 
 
 def _zero_failure_claims(t: Trials, n0: int, *, confidence: float, require: float, require_chain: float) -> tuple[list[bool], bool]:
-    """Per junction and for the chain: handed over in every one of n0 distinct episodes, and the bound reaches it."""
+    """Per handoff and for the chain: handed over in every one of n0 distinct episodes, and the bound reaches it."""
     d = distinct_rows(t.signature).size
     enough = t.n == n0 and d == n0
     clean = np.all(t.prefix(), axis=0) if t.n else np.zeros(t.m, dtype=bool)
@@ -164,13 +164,13 @@ def run_plan(
     assert t2 is not None
     runs[second.label] = t2.n
     d2 = decide(t2, composes_confidence=second.composes_confidence, **kw)
-    junctions: list[Estimate] = []
+    checked: list[Estimate] = []
     where: dict[str, str] = {}
     for j in range(t1.m):
-        take_first = per[j] and d1.junctions[j].verdict is Verdict.COMPOSES
-        junctions.append(d1.junctions[j] if take_first else d2.junctions[j])
+        take_first = per[j] and d1.all_handoffs[j].verdict is Verdict.COMPOSES
+        checked.append(d1.all_handoffs[j] if take_first else d2.all_handoffs[j])
         where[str(j)] = first.label if take_first else second.label
     chain_first = chain_ok and d1.chain.verdict is Verdict.COMPOSES
     where["chain"] = first.label if chain_first else second.label
-    merged = Decision(tuple(junctions), d1.chain if chain_first else d2.chain, t1.n + t2.n, d1.distinct + d2.distinct)
+    merged = Decision(tuple(checked), d1.chain if chain_first else d2.chain, t1.n + t2.n, d1.distinct + d2.distinct)
     return PlanRun(merged, Trials.concatenate([t1, t2]), runs, where, curtailed)

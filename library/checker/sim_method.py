@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 
 from .chain_stats import ChainStats, chain_stats_from_rollout
-from .evidence import Evidence, Junction, counterexample_from
+from .evidence import Evidence, Handoff, counterexample_from
 from .registry import checker_method
 from .sequential import PlanRun, SimPlan, auto_plan, fixed_plan, run_plan
 from .trials import trials_from_rollout
@@ -112,11 +112,11 @@ def _handoff_details(a_seg: Any, b_seg: Any, rows: slice, allowed: bool) -> dict
     }
 
 
-def _handoff_reason(j: Junction, est: Any, d: dict, stage: str, sim: Simulation) -> str:
+def _handoff_reason(j: Handoff, est: Any, d: dict, stage: str, sim: Simulation) -> str:
     if est.single_start:
         return _single_start_text(sim, f"{j.source} {'handed over to' if est.k else 'did not hand over to'} {j.target}")
     if est.n == 0:
-        return f"{j.source} never ran (an earlier junction failed in every episode)"
+        return f"{j.source} never ran (an earlier handoff failed in every episode)"
     where = "" if len(sim.outcome.run) == 1 else f" in the {stage} stage ({d['episodes']} episodes)"
     timeouts = f"{d['timed_out']} timed out" + (" (allowed)" if d["may_time_out"] else "")
     distinct = "" if est.n == d["source_ran"] else f"; {est.n} distinct trajectories"
@@ -126,14 +126,14 @@ def _handoff_reason(j: Junction, est: Any, d: dict, stage: str, sim: Simulation)
     )
 
 
-def _handoff(ctx: Any, j: Junction, sim: Simulation) -> Evidence:
+def _handoff(ctx: Any, j: Handoff, sim: Simulation) -> Evidence:
     from ..runtime.records import EndReason
 
     rollout = sim.rollout
     a_seg, b_seg = rollout.segments[j.index - 1], rollout.segments[j.index]
     b = ctx.target_skill(j)
     allowed = ctx.chain.may_time_out[j.index - 1]
-    est = sim.outcome.decision.junctions[j.index]
+    est = sim.outcome.decision.all_handoffs[j.index]
     stage = sim.outcome.decided_in.get(str(j.index), "")
     d = _handoff_details(a_seg, b_seg, sim.outcome.rows(stage), allowed)
     ended = (a_seg.reason == int(EndReason.STOPPED)) | ((a_seg.reason == int(EndReason.TIMED_OUT)) if allowed else False)
@@ -153,8 +153,8 @@ def _handoff(ctx: Any, j: Junction, sim: Simulation) -> Evidence:
 
 
 @checker_method("sim", cost=30, summary="MuJoCo: run the chain in blocks of episodes, one-sided exact bounds")
-def sim_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
+def sim_method(ctx: Any, checked: list[Handoff]) -> dict[int, Evidence]:
     """MuJoCo: run the chain in blocks of episodes, one-sided exact bounds (the entry is sampled in entry.py)."""
     sim = simulate_chain(ctx)
     ctx.chain_stats = sim.stats
-    return {j.index: _handoff(ctx, j, sim) for j in junctions if not j.is_entry}
+    return {j.index: _handoff(ctx, j, sim) for j in checked if not j.is_entry}

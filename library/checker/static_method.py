@@ -32,7 +32,7 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from .envelope import Envelope, physical_envelope, raw_names, relaxed_names
-from .evidence import Counterexample, Evidence, Junction, counterexample_from
+from .evidence import Counterexample, Evidence, Handoff, counterexample_from
 from .registry import checker_method
 from .verdict import Verdict
 
@@ -335,7 +335,7 @@ def _timeout_note(a: Any) -> str:
     )
 
 
-def _static_handoff(ctx: Any, j: Junction) -> Evidence:
+def _static_handoff(ctx: Any, j: Handoff) -> Evidence:
     a, b = ctx.source_skill(j), ctx.target_skill(j)
     layout = ctx.layout
     state = set(layout.names)
@@ -459,7 +459,7 @@ def _merge_bounds(a: Mapping, b: Mapping) -> dict:
     return out
 
 
-def _static_entry(ctx: Any, j: Junction) -> Evidence | None:
+def _static_entry(ctx: Any, j: Handoff) -> Evidence | None:
     box = start_box(ctx.start, ctx.rig)
     if box is None:
         return None
@@ -514,10 +514,10 @@ def _question(a: Any, b: Any) -> tuple:
 
 
 @checker_method("static", cost=10, summary="z3: containment, A's stop region and the physical envelope imply B's starts_when")
-def static_method(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
+def static_method(ctx: Any, checked: list[Handoff]) -> dict[int, Evidence]:
     """z3: containment, A's stop region and the physical envelope imply B's starts_when."""
     out: dict[int, Evidence] = {}
-    for j in junctions:
+    for j in checked:
         if j.is_entry:
             ev = _static_entry(ctx, j)
         else:

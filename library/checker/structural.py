@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from .evidence import Evidence, Junction
+from .evidence import Evidence, Handoff
 from .verdict import Verdict
 
 __all__ = ["structural_check", "skill_rig"]
@@ -58,11 +58,11 @@ def _skill_problems(ctx: Any, index: int) -> list[str]:
     return out
 
 
-def structural_check(ctx: Any, junctions: list[Junction]) -> dict[int, Evidence]:
-    """Per junction: ``breaks`` with the reasons when the two sides do not fit, else undecided."""
+def structural_check(ctx: Any, checked: list[Handoff]) -> dict[int, Evidence]:
+    """Per handoff: ``breaks`` with the reasons when the two sides do not fit, else undecided."""
     per_skill = {i: _skill_problems(ctx, i) for i in range(len(ctx.skills))}
     out: dict[int, Evidence] = {}
-    for j in junctions:
+    for j in checked:
         problems = list(per_skill[j.index])
         if not j.is_entry:
             a = ctx.skill_envs[j.index - 1]

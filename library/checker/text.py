@@ -67,19 +67,19 @@ def _wrap(text: str, indent: str, width: int) -> list[str]:
 
 
 def _legend(result: Any) -> str:
-    measured = [j.estimate for j in result.junctions if j.estimate is not None and not j.estimate.single_start and j.estimate.n]
+    measured = [j.estimate for j in result.all_handoffs if j.estimate is not None and not j.estimate.single_start and j.estimate.n]
     if not measured:
         return "lower/upper: one-sided exact bounds (none measured)"
     lows = " / ".join(dict.fromkeys(_pct(e.low_confidence) for e in measured))
     highs = " / ".join(dict.fromkeys(_pct(e.high_confidence) for e in measured))
     return (
-        f"lower: one-sided {lows} bound on handing over at every junction up to this one (composes when >= "
-        f"require.handoff); upper: one-sided {highs} bound on this junction alone (breaks when < require.handoff; "
-        f"Bonferroni over {len(result.junctions)} junctions)"
+        f"lower: one-sided {lows} bound on handing over at every handoff up to this one, entry included (composes when >= "
+        f"require.handoff); upper: one-sided {highs} bound on this handoff alone (breaks when < require.handoff; "
+        f"Bonferroni over the entry and {len(result.handoffs)} handoff{'' if len(result.handoffs) == 1 else 's'})"
     )
 
 
-def _junction_lines(j: Any, width: int) -> list[str]:
+def _handoff_lines(j: Any, width: int) -> list[str]:
     out = _wrap(f"{j.index} {j.label}: {j.verdict.value}" + (f" (decided by {j.decided_by})" if j.decided_by else "") + f": {j.reason}", "", width)
     more = _more(j)
     if more:
@@ -152,14 +152,14 @@ def format_result(result: Any, *, width: int = 100) -> str:
         f"method {result.method} (used: {', '.join(result.methods_used) or '-'})"
     )
     if not result.handoffs:
-        out.append(f"no handoff: a chain of one skill ({result.entry.junction.target})")
+        out.append(f"no handoff: a chain of one skill ({result.entry.handoff.target})")
     out.append("")
-    header = ["#", "junction", "verdict", "decided by", "handed over", "rate", "lower", "upper", "timeouts"]
-    out += table(header, [_row(j) for j in result.junctions], right={0, 4, 5, 6, 7})
+    header = ["#", "handoff", "verdict", "decided by", "handed over", "rate", "lower", "upper", "timeouts"]
+    out += table(header, [_row(j) for j in result.all_handoffs], right={0, 4, 5, 6, 7})
     out += _wrap(_legend(result), "", width)
     out.append("")
-    for j in result.junctions:
-        out += _junction_lines(j, width)
+    for j in result.all_handoffs:
+        out += _handoff_lines(j, width)
     out.append("")
     out += _whole_chain_lines(result, width)
     if result.notes:

@@ -1,13 +1,13 @@
-"""What each simulated episode says about each junction, and how many distinct trajectories there are.
+"""What each simulated episode says about each handoff, and how many distinct trajectories there are.
 
-Pure numpy. Junction 0 is the entry (initial state -> first skill); junction j >= 1
+Pure numpy. Index 0 is the entry (initial state -> first skill); index j >= 1
 is the handoff from skill j-1 (A) to skill j (B). Per episode:
 
-- ``reached[:, j]``: the junction was tried (entry: always; handoff: A ran);
+- ``reached[:, j]``: the handoff was tried (entry: always; handoff: A ran);
 - ``handed[:, j]``: it handed over (entry: the first skill accepted; handoff: A
   ended by its stop condition, or timed out where the chain allows it, and B's
   ``starts_when`` held there);
-- ``chain``: the whole chain succeeded (every junction handed over and the last
+- ``chain``: the whole chain succeeded (every handoff handed over and the last
   skill stopped, or timed out where allowed);
 - ``signature``: the episode's handoff states (initial state and every skill's
   end state) on a grid of ``TRAJECTORY_TOLERANCE``: episodes with equal
@@ -44,7 +44,7 @@ class Trials:
         return int(self.handed.shape[1])
 
     def prefix(self) -> np.ndarray:
-        """(n, m) bool: the episode handed over at every junction up to and including j."""
+        """(n, m) bool: the episode handed over at every handoff (entry included) up to and including j."""
         return np.logical_and.accumulate(self.handed, axis=1) if self.n else self.handed.copy()
 
     def take(self, rows: np.ndarray) -> "Trials":

@@ -1,6 +1,6 @@
 """Report of a chain check: the text summary, the JSON, and PNG plots (matplotlib, Agg canvas).
 
-Per junction: the end states of A (start states for the entry) projected on the
+Per handoff: the end states of A (start states for the entry) projected on the
 two state components that matter most for B's ``starts_when``, with that set's
 boundary drawn (B's predicate evaluated on a grid over the two components, the
 others fixed at their median, contoured where it flips). Per chain: a timeline
@@ -175,7 +175,7 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
     fig, ax = _figure()
     X, Y, inside = boundary_grid(pred, handoff.parameters, points, x, y, accepted=accepted)
     if not np.any(inside):
-        ax.text(0.02, 0.02, f"{handoff.junction.target} starts_when holds nowhere in this plane\n(other components at their median)",
+        ax.text(0.02, 0.02, f"{handoff.handoff.target} starts_when holds nowhere in this plane\n(other components at their median)",
                 transform=ax.transAxes, fontsize=8, color="#a42323")
     if np.any(inside) and not np.all(inside):
         ax.contourf(X, Y, inside.astype(float), levels=[0.5, 1.5], colors=["#d8efe0"])
@@ -197,8 +197,8 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
             ax.scatter([cx], [cy], s=40, c="black", marker="D", label=None)  # solver state, realised in MuJoCo
     ax.set_xlabel(xl)
     ax.set_ylabel(yl if y != x else "(one component)")
-    what = "initial states" if handoff.junction.is_entry else f"end states of {handoff.junction.source}"
-    ax.set_title(f"{handoff.label}: {handoff.verdict.value}\n{what} ({source}); green: {handoff.junction.target} starts_when", fontsize=9)
+    what = "initial states" if handoff.handoff.is_entry else f"end states of {handoff.handoff.source}"
+    ax.set_title(f"{handoff.label}: {handoff.verdict.value}\n{what} ({source}); green: {handoff.handoff.target} starts_when", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
     fig.savefig(path)
@@ -245,12 +245,12 @@ def write_report(result: Any, directory: str | Path) -> dict[str, Path]:
     written["summary"] = out / "summary.txt"
     (out / "result.json").write_text(result.to_json() + "\n", encoding="utf-8")
     written["json"] = out / "result.json"
-    for h in result.junctions:
-        kind = "entry" if h.junction.is_entry else "handoff"
-        name = f"{kind}_{h.index}_{_slug(h.junction.source)}_to_{_slug(h.junction.target)}.png"
+    for h in result.all_handoffs:
+        kind = "entry" if h.handoff.is_entry else "handoff"
+        name = f"{kind}_{h.index}_{_slug(h.handoff.source)}_to_{_slug(h.handoff.target)}.png"
         png = plot_handoff(h, result.layout, out / name)
         if png is not None:
-            written[f"junction_{h.index}"] = png
+            written[f"handoff_{h.index}"] = png
     png = plot_timeline(result, out / "timeline.png")
     if png is not None:
         written["timeline"] = png

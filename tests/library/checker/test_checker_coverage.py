@@ -43,7 +43,7 @@ def test_bounds_cover_the_closed_form_handoff_probability(tmp_path, p):
     covered, widths, cp_widths = 0, [], []
     for r in range(R):
         block = trials.take(np.arange(r * N, (r + 1) * N))
-        handoff = decide(block, require_handoff=0.95, require_chain=0.95, confidence=0.95).junctions[1]
+        handoff = decide(block, require_handoff=0.95, require_chain=0.95, confidence=0.95).all_handoffs[1]
         assert handoff.n == N and handoff.high_confidence == pytest.approx(0.975)
         covered += handoff.low <= p <= handoff.high
         widths.append(handoff.high - handoff.low)

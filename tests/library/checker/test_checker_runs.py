@@ -58,9 +58,9 @@ def test_repeated_skill_a_b_a(tmp_path):
     skills = [str(SKILLS / "arm-reach-tray.yaml"), str(SKILLS / "arm-place.yaml"), str(SKILLS / "arm-reach-tray.yaml")]
     path = write_chain(tmp_path, "there-and-back", skills, start=HOME, episodes=80)
     result = check_chain(path, method="sim")
-    labels = [j.label for j in result.junctions]
+    labels = [j.label for j in result.all_handoffs]
     assert labels == ["initial states -> arm-reach-tray.yaml", "arm-reach-tray.yaml -> arm-place.yaml", "arm-place.yaml -> arm-reach-tray.yaml"]
-    last = result.junctions[2]
+    last = result.all_handoffs[2]
     assert last.estimate.n == 80 and result.whole_chain.skills[2].offered == 80
     # 80 clean handoffs: one-sided lower bound 0.05^(1/80) = 0.963 >= 0.95 decides it.
     if last.estimate.k == 80:
@@ -69,7 +69,7 @@ def test_repeated_skill_a_b_a(tmp_path):
     # In auto mode the static method cannot link arm-place (fingertip speed) to arm-reach-tray
     # (joint speed) and asks the solver once per distinct pair.
     auto = check_chain(path)
-    assert auto.junctions[2].evidence_of("static").details["containment"] == "candidate"
+    assert auto.all_handoffs[2].evidence_of("static").details["containment"] == "candidate"
 
 
 def test_near_boundary_handoff_inside_a_larger_independent_simulation(tmp_path):
@@ -190,3 +190,29 @@ def test_result_json_and_report_folder(tmp_path):
     summary = (tmp_path / "report" / "summary.txt").read_text()
     assert "Caution: kinetome's results, from simulation and from the solver alike" in " ".join(summary.split())
     assert json.loads((tmp_path / "report" / "result.json").read_text())["chain"]["name"] == "report"
+
+
+@pytest.mark.slow
+def test_readme_walkthrough_after_a_retrain_agrees_with_simulation(tmp_path):
+    """README steps 2 and 3: retrain arm-reach-tray for the heavy payload (the README's command),
+    then check the shipped chains and an unpinned one; auto and sim agree in direction, and the
+    unpinned chain, which now runs arm-reach-tray@2, breaks on its timeouts."""
+    from kinetome.library.api import register_skill, retrain
+    from kinetome.library.store import Store
+
+    demo_store = Store(tmp_path / "store")
+    for spec in sorted(SKILLS.glob("*.yaml")):
+        register_skill(spec, store=demo_store)
+    retrain("arm-reach-tray", store=demo_store, variant=CONFIGS / "variants" / "heavy_payload.yaml",
+            start=CONFIGS / "starts" / "arm_clearance.yaml", config=CONFIGS / "training" / "arm_heavy_payload.yaml",
+            out_dir=tmp_path / "retrain")
+    unpinned = tmp_path / "unpinned.yaml"
+    unpinned.write_text((CONFIGS / "chains" / "arm-lift-reach-place.yaml").read_text().replace("arm-reach-tray@1", "arm-reach-tray")
+                        .replace("../starts/", str(CONFIGS / "starts") + "/"))
+    for path in [*sorted((CONFIGS / "chains").glob("arm-*.yaml")), unpinned]:
+        auto = check_chain(path, store=demo_store)
+        sim = check_chain(path, store=demo_store, method="sim")
+        assert auto.exit_code == sim.exit_code and [h.verdict for h in auto.handoffs] == [h.verdict for h in sim.handoffs], path.name
+    late = auto.handoffs[1]
+    assert late.label == "arm-reach-tray@2 -> arm-place@1" and late.verdict is Verdict.BREAKS
+    assert late.evidence_of("sim").details["timed_out"] == late.evidence_of("sim").details["source_ran"] > 0

@@ -52,13 +52,13 @@ def test_auto_plan_stages_and_alpha_spending():
 @pytest.mark.parametrize("plan", [auto_plan(200, require=0.95, confidence=0.95, block_size=10), fixed_plan(200, confidence=0.95, block_size=10)], ids=["auto", "fixed"])
 def test_false_composes_at_the_stop_stays_below_alpha(plan):
     # True rate just below the requirement: every composes is wrong. Peeking after every block.
-    wrong = sum(_run(plan, 0.949, s).decision.junctions[1].verdict is Verdict.COMPOSES for s in range(REPS))
+    wrong = sum(_run(plan, 0.949, s).decision.all_handoffs[1].verdict is Verdict.COMPOSES for s in range(REPS))
     assert wrong / REPS <= ALPHA + 0.01, wrong / REPS
 
 
 def test_false_breaks_at_the_stop_stays_below_alpha():
     plan = auto_plan(200, require=0.95, confidence=0.95, block_size=10)
-    wrong = sum(_run(plan, 0.951, s).decision.junctions[1].verdict is Verdict.BREAKS for s in range(REPS))
+    wrong = sum(_run(plan, 0.951, s).decision.all_handoffs[1].verdict is Verdict.BREAKS for s in range(REPS))
     assert wrong / REPS <= ALPHA + 0.01, wrong / REPS
 
 
@@ -80,21 +80,21 @@ def test_naive_peeking_would_not_keep_alpha():
 def test_clean_chain_stops_after_the_zero_failure_stage():
     run = _run(auto_plan(200, require=0.95, confidence=0.95, block_size=10), 1.0, 0)
     assert run.run == {"zero-failure": 59} and run.trials.n == 59
-    assert run.decision.junctions[1].verdict is Verdict.COMPOSES and run.decision.chain.verdict is Verdict.COMPOSES
-    assert run.decision.junctions[1].low == pytest.approx(0.05 ** (1 / 59))
+    assert run.decision.all_handoffs[1].verdict is Verdict.COMPOSES and run.decision.chain.verdict is Verdict.COMPOSES
+    assert run.decision.all_handoffs[1].low == pytest.approx(0.05 ** (1 / 59))
 
 
 def test_failing_chain_curtails_stage_one_at_the_first_block():
     run = _run(auto_plan(200, require=0.95, confidence=0.95, block_size=10), 0.0, 0)
     assert run.curtailed and run.run == {"zero-failure": 10, "second": 141}
-    assert run.decision.junctions[1].verdict is Verdict.BREAKS and run.decided_in["1"] == "second"
+    assert run.decision.all_handoffs[1].verdict is Verdict.BREAKS and run.decided_in["1"] == "second"
 
 
 def test_identical_episodes_are_one_trial():
     run = _run(fixed_plan(200, confidence=0.95), 1.0, 0, identical=True)
     d = run.decision
     assert d.episodes == 200 and d.distinct == 1 and d.single_start
-    assert d.junctions[1].n == 1 and d.junctions[1].single_start and d.junctions[1].verdict is Verdict.COMPOSES
+    assert d.all_handoffs[1].n == 1 and d.all_handoffs[1].single_start and d.all_handoffs[1].verdict is Verdict.COMPOSES
 
 
 def test_results_do_not_depend_on_the_worker_count(tmp_path):

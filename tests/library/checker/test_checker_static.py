@@ -14,7 +14,7 @@ import pytest
 from checker_testkit import ARM, WALKER, CONFIGS, Limits, stub_context, stub_skill
 
 from kinetome.envs import make_rig
-from kinetome.library.checker import Junction, Verdict
+from kinetome.library.checker import Handoff, Verdict
 from kinetome.library.checker.envelope import physical_envelope
 from kinetome.library.checker.static_method import start_box, static_method
 
@@ -31,7 +31,7 @@ def walker():
 
 def _static(rig, a, b, **kw):
     ctx = stub_context(rig, [a, b], **kw)
-    return static_method(ctx, [Junction(1, a.ref, b.ref)])[1]
+    return static_method(ctx, [Handoff(1, a.ref, b.ref)])[1]
 
 
 def _relaxed_samples(rig, envelope, n, rng):
@@ -197,9 +197,9 @@ def test_entry_is_proved_over_the_start_box(arm):
     start = load_start(CONFIGS / "initial_states" / "arm_home.yaml")
     b = stub_skill(arm, "b@1", starts_when="norm(qvel) < 0.5 and qpos[0] > 0.04")
     ctx = stub_context(arm, [b], start=start)
-    ev = static_method(ctx, [Junction(0, "initial states", b.ref)])[0]
+    ev = static_method(ctx, [Handoff(0, "initial states", b.ref)])[0]
     assert ev.verdict is Verdict.COMPOSES
     # A box partly outside B: listed start states, verdict left to sampling.
     b2 = stub_skill(arm, "b@1", starts_when="qpos[0] > 0.07")
-    ev2 = static_method(stub_context(arm, [b2], start=start), [Junction(0, "initial states", b2.ref)])[0]
+    ev2 = static_method(stub_context(arm, [b2], start=start), [Handoff(0, "initial states", b2.ref)])[0]
     assert ev2.verdict is Verdict.UNSURE and ev2.counterexamples and ev2.counterexamples[0].confirmed

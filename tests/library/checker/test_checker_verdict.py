@@ -51,7 +51,7 @@ def test_upper_bound_uses_its_own_confidence():
 
 def test_lower_bound_from_prefix_counts():
     # 60 of 60 runs of A handed over, but only 60 of 100 episodes got that far: the claim
-    # rests on 60/100 through this junction, far below 0.95.
+    # rests on 60/100 through this handoff, far below 0.95.
     est = estimate(60, 60, require=0.95, confidence=0.95, low_from=(60, 100))
     assert est.verdict is U and est.low < 0.7 and est.low_from == (60, 100)
     assert estimate(60, 60, require=0.95, confidence=0.95).verdict is C
