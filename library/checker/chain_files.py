@@ -53,20 +53,27 @@ def _env_problems(doc: YamlDocument, where: tuple, what: str, path: Path, exc: E
     return [doc.problem(where, f"{what} {path} is invalid: {item}", f"fix {path.name} or point {label} at another file") for item in lines]
 
 
+def _existing(doc: YamlDocument, base: Path, raw: str, where: tuple, what: str, folder: str) -> tuple[Path, list[Problem]]:
+    """The file a chain field names, resolved against the chain's folder, or why it cannot be read."""
+    path = _relative(base, raw)
+    if path.is_file():
+        return path, []
+    looked = "" if Path(raw).is_absolute() else f" (looked at {path})"
+    return path, [doc.problem(where, f"{what} {raw!r} cannot be read: file not found{looked}", close_files(path, folder))]
+
+
 def _variant(doc: YamlDocument, base: Path, raw: Any) -> tuple[Path | None, list[Problem]]:
     from kinetome.envs import EnvConfigError
+    from kinetome.envs.variants import load_variant
 
     where = ("task", "variant")
     if raw is None:
         return None, []
     if not isinstance(raw, str) or not raw.strip():
         return None, [doc.problem(where, f"must be a path to a variant file, got {raw!r}", "write e.g. ../variants/heavy_payload.yaml")]
-    variant = _relative(base, raw)
-    if not variant.is_file():
-        looked = "" if Path(raw).is_absolute() else f" (looked at {variant})"
-        return variant, [doc.problem(where, f"variant file {raw!r} not found{looked}", close_files(variant, "variants"))]
-    from kinetome.envs.variants import load_variant
-
+    variant, problems = _existing(doc, base, raw, where, "variant file", "variants")
+    if problems:
+        return variant, problems
     try:
         load_variant(variant)
     except (EnvConfigError, OSError, ValueError) as exc:
@@ -89,10 +96,9 @@ def _initial_states(doc: YamlDocument, base: Path, raw: Any) -> tuple[Any, list[
         return dict(raw), []
     if not isinstance(raw, str) or not raw.strip():
         return None, [doc.problem(where, f"must be a path to an initial-states file or a mapping, got {raw!r}", "write e.g. ../initial_states/arm_home.yaml")]
-    path = _relative(base, raw)
-    if not path.is_file():
-        looked = "" if Path(raw).is_absolute() else f" (looked at {path})"
-        return path, [doc.problem(where, f"initial states {raw!r} cannot be read: file not found{looked}", close_files(path, "initial_states"))]
+    path, problems = _existing(doc, base, raw, where, "initial states", "initial_states")
+    if problems:
+        return path, problems
     try:
         load_start(path)
     except (EnvConfigError, OSError, ValueError, UnicodeDecodeError) as exc:

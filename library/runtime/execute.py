@@ -10,6 +10,7 @@ through ``RigEnv`` and must give identical records.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
 import numpy as np
@@ -232,19 +233,11 @@ def run_chain(
     state after a timeout; otherwise the episode's chain ends there.
     ``disturbances.exploration`` has the same effect as ``explore``.
     """
-    if not skills:
-        raise ValueError("a chain needs at least one skill")
     qpos0, qvel0 = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in starts)
     n = qpos0.shape[0]
-    ids = _episode_ids(episode_ids, n)
-    flags = _timeout_flags(skills, may_time_out)
-    d = disturbances or NO_DISTURBANCES
-    explore = explore or d.exploration
+    r = _setup(skills, rig, n, seed=seed, explore=explore, disturbances=disturbances, episode_ids=episode_ids, may_time_out=may_time_out)
     sim = SimBatch(rig, n, nthread=workers)
     sim.reset(qpos0, qvel0)
-    noise = ExplorationNoise(seed, n, rig.n_act, episode_ids=ids) if explore else None
-    stop_draws = _stop_draws(skills, seed, ids)
-    streams = DisturbanceStreams(d, seed=seed, episode_ids=ids, n_act=rig.n_act) if d.active else None
     tracer = _Tracer(sim, trace) if trace > 0 else None
     offered = np.arange(n)
     records: list[SegmentRecord] = []
@@ -259,14 +252,14 @@ def run_chain(
             # progress counts steps of the longest possible chain run, across segments
             segment_progress = None if progress is None else (lambda t, _m, before=done_before: progress(before + t, longest))
             _run_segment(
-                skill, sim, offered, seg, gamma=gamma, noise=noise, stop_draws=stop_draws, streams=streams, tracer=tracer,
+                skill, sim, offered, seg, gamma=gamma, noise=r.noise, stop_draws=r.stop_draws, streams=r.streams, tracer=tracer,
                 index=index, progress=segment_progress,
             )
             done_before += int(skill.max_steps)
             if progress is not None:
                 progress(done_before, longest)
             records.append(seg.record(skill.ref, start, sim.state(), gamma))
-            offered = np.flatnonzero(_hands_on(seg.reason, flags[index]))
+            offered = np.flatnonzero(_hands_on(seg.reason, r.flags[index]))
     qpos_trace, seg_trace = tracer.arrays(rig.model.nq) if tracer is not None else (None, None)
     return ChainRollout(
         env_id=rig.env_id,
@@ -275,8 +268,36 @@ def run_chain(
         segments=tuple(records),
         qpos_trace=qpos_trace,
         segment_of_step=seg_trace,
-        meta={"workers": workers, "explore": explore, "disturbances": d.to_dict(), "may_time_out": list(flags)},
-        episode_ids=ids,
+        meta={"workers": workers, "explore": r.explore, "disturbances": r.disturbances.to_dict(), "may_time_out": list(r.flags)},
+        episode_ids=r.ids,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class _Streams:
+    """Everything random or per-episode in one run: ids, timeout flags, noise, stop draws, disturbances."""
+
+    ids: np.ndarray
+    flags: tuple[bool, ...]
+    disturbances: Disturbances
+    explore: bool
+    noise: ExplorationNoise | None
+    stop_draws: StopDraws | None
+    streams: DisturbanceStreams | None
+
+
+def _setup(skills: Sequence[LoadedSkill], rig: Rig, n: int, *, seed: int, explore: bool, disturbances: Disturbances | None,
+           episode_ids: np.ndarray | None, may_time_out: Sequence[bool] | None) -> _Streams:
+    if not skills:
+        raise ValueError("a chain needs at least one skill")
+    ids = _episode_ids(episode_ids, n)
+    d = disturbances or NO_DISTURBANCES
+    explore = explore or d.exploration
+    return _Streams(
+        ids, _timeout_flags(skills, may_time_out), d, explore,
+        ExplorationNoise(seed, n, rig.n_act, episode_ids=ids) if explore else None,
+        _stop_draws(skills, seed, ids),
+        DisturbanceStreams(d, seed=seed, episode_ids=ids, n_act=rig.n_act) if d.active else None,
     )
 
 
@@ -306,6 +327,30 @@ def _env_state(env: Any, skill: LoadedSkill) -> dict[str, np.ndarray]:
     return state
 
 
+def _reference_skill(env: Any, skill: LoadedSkill, seg: _Segment, i: int, state: dict, r: _Streams, *, gamma: float) -> None:
+    """One skill's turn in episode ``i`` of the plain loop, from the accepted state ``state``."""
+    rig, row = env.rig, np.array([i])
+    for t in range(skill.max_steps):
+        draws = r.noise.draw(row) if r.noise is not None else None
+        sensed = state if r.streams is None else r.streams.sense(state, row, _inputs(skill))
+        action = skill.controller.act(sensed, np.full(1, t * rig.dt), noise=draws)
+        seg.commanded(row, np.asarray(action, dtype=np.float64), t)
+        if r.streams is not None:
+            action = r.streams.command(action, row)
+        _, reward, _, _, _ = env.step(action[0])
+        after = _env_state(env, skill)
+        seg.reward[i] += reward
+        seg.discounted[i] += gamma**t * reward
+        seg.steps[i] += 1
+        seg.observe(row, after)
+        u = r.stop_draws.draw(row) if r.stop_draws is not None and skill.learned_stop is not None else None
+        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
+        if terminated[0] or stopped[0] or timed_out[0]:
+            seg.reason[i] = int(EndReason.ENV_ENDED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
+            return
+        state = after
+
+
 def reference_run_chain(
     skills: Sequence[LoadedSkill],
     rig: Rig,
@@ -326,13 +371,7 @@ def reference_run_chain(
 
     qpos0, qvel0 = (np.atleast_2d(np.asarray(a, dtype=np.float64)) for a in starts)
     n = qpos0.shape[0]
-    ids = _episode_ids(episode_ids, n)
-    flags = _timeout_flags(skills, may_time_out)
-    d = disturbances or NO_DISTURBANCES
-    explore = explore or d.exploration
-    noise = ExplorationNoise(seed, n, rig.n_act, episode_ids=ids) if explore else None
-    stop_draws = _stop_draws(skills, seed, ids)
-    streams = DisturbanceStreams(d, seed=seed, episode_ids=ids, n_act=rig.n_act) if d.active else None
+    r = _setup(skills, rig, n, seed=seed, explore=explore, disturbances=disturbances, episode_ids=episode_ids, may_time_out=may_time_out)
     segs = [_Segment(n) for _ in skills]
     starts_rows: list[list[dict]] = [[] for _ in skills]
     ends_rows: list[list[dict]] = [[] for _ in skills]
@@ -349,31 +388,12 @@ def reference_run_chain(
                 if not skill.starts_when.evaluate({**skill.parameters, **state})[0]:
                     seg.reason[i] = int(EndReason.REFUSED)
                 else:
-                    row = np.array([i])
-                    for t in range(skill.max_steps):
-                        draws = noise.draw(row) if noise is not None else None
-                        sensed = state if streams is None else streams.sense(state, row, _inputs(skill))
-                        action = skill.controller.act(sensed, np.full(1, t * rig.dt), noise=draws)
-                        seg.commanded(row, np.asarray(action, dtype=np.float64), t)
-                        if streams is not None:
-                            action = streams.command(action, row)
-                        _, reward, _, _, _ = env.step(action[0])
-                        after = _env_state(env, skill)
-                        seg.reward[i] += reward
-                        seg.discounted[i] += gamma**t * reward
-                        seg.steps[i] += 1
-                        seg.observe(row, after)
-                        u = stop_draws.draw(row) if stop_draws is not None and skill.learned_stop is not None else None
-                        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
-                        if terminated[0] or stopped[0] or timed_out[0]:
-                            seg.reason[i] = int(EndReason.ENV_ENDED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
-                            break
-                        state = after
+                    _reference_skill(env, skill, seg, i, state, r, gamma=gamma)
             ends_rows[k].append(env.named_state())
-            go_on = go_on and bool(_hands_on(seg.reason[i : i + 1], flags[k])[0])
+            go_on = go_on and bool(_hands_on(seg.reason[i : i + 1], r.flags[k])[0])
     records = []
     for k, skill in enumerate(skills):
         start = {name: np.concatenate([r[name] for r in starts_rows[k]]) for name in starts_rows[k][0]}
         end = {name: np.concatenate([r[name] for r in ends_rows[k]]) for name in ends_rows[k][0]}
         records.append(segs[k].record(skill.ref, start, end, gamma))
-    return ChainRollout(env_id=rig.env_id, seed=seed, gamma=gamma, segments=tuple(records), meta={"reference": True}, episode_ids=ids)
+    return ChainRollout(env_id=rig.env_id, seed=seed, gamma=gamma, segments=tuple(records), meta={"reference": True}, episode_ids=r.ids)

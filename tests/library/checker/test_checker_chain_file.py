@@ -117,7 +117,7 @@ BAD = [
     ("missing version", lambda t: t.replace("arm-reach-tray@1", "arm-reach-tray@7"), ["skills[0]: arm-reach-tray@7 does not exist; arm-reach-tray has versions 1"]),
     ("bad may_time_out", lambda t: t.replace("may_time_out: true", "may_time_out: sometimes"), ["skills[1].may_time_out: must be true or false, got 'sometimes'"]),
     ("item without skill", lambda t: t.replace("{skill: arm-place, may_time_out: true}", "{may_time_out: true}"), ["skills[1]: a mapping item needs 'skill'"]),
-    ("unknown variant", lambda t: t.replace("  env: kinetome/BenchArm-v0\n", "  env: kinetome/BenchArm-v0\n  variant: ../variants/heavy_paylod.yaml\n"), ["chain.yaml:5: task.variant: variant file '../variants/heavy_paylod.yaml' not found"]),
+    ("unknown variant", lambda t: t.replace("  env: kinetome/BenchArm-v0\n", "  env: kinetome/BenchArm-v0\n  variant: ../variants/heavy_paylod.yaml\n"), ["chain.yaml:5: task.variant: variant file '../variants/heavy_paylod.yaml' cannot be read: file not found"]),
     ("unreadable initial states", lambda t: t.replace("{start}", "nowhere/home.yaml"), ["chain.yaml:5: task.initial_states: initial states 'nowhere/home.yaml' cannot be read: file not found"]),
     ("invalid initial states", lambda t: t.replace("{start}", "broken_start.yaml"), ["chain.yaml:5: task.initial_states: initial states", "is invalid", "noise"]),
     ("require above 1", lambda t: t.replace("handoff: 0.9", "handoff: 1.5"), ["chain.yaml:7: require.handoff: must be a number strictly between 0 and 1, got 1.5"]),

@@ -9,19 +9,12 @@ from __future__ import annotations
 
 import warnings
 
-from checker_testkit import CONFIGS
+from checker_testkit import CONFIGS, write_arm_spec
 
 from kinetome.library.checker import Verdict, check_chain
 
 SKILLS = CONFIGS / "skills"
 HOME = CONFIGS / "initial_states" / "arm_home.yaml"
-TRAY_PD = """controller:
-  kind: joint_pd
-  parameters:
-    setpoint: [1.4436, -1.5135, -1.3895]
-    kp: [30.0, 20.0, 6.0]
-    kd: [3.0, 2.0, 0.3]
-"""
 
 
 def _old_chain(folder, name, steps, *, start=HOME, episodes=100):
@@ -35,15 +28,12 @@ def _old_chain(folder, name, steps, *, start=HOME, episodes=100):
     return path
 
 
+REACHED = "norm(fingertip - target) < 0.02 and norm(fingertip_vel) < 0.05"
+
+
 def _reach(folder, name, max_steps):
-    """arm-reach-tray's controller and contract with its own step cap."""
-    path = folder / f"{name}.yaml"
-    path.write_text(
-        f"name: {name}\nenv: kinetome/BenchArm-v0\n{TRAY_PD}starts_when: norm(qvel) < 0.5\n"
-        f"stops_when: norm(fingertip - target) < 0.02 and norm(fingertip_vel) < 0.05\nmax_steps: {max_steps}\n",
-        encoding="utf-8",
-    )
-    return path
+    """A PD skill to the tray with arm-reach-tray's contract and its own step cap."""
+    return write_arm_spec(folder, name, starts_when="norm(qvel) < 0.5", stops_when=REACHED, max_steps=max_steps)
 
 
 def _check(path, **kw):
@@ -94,13 +84,7 @@ def test_identical_deterministic_episodes_are_one_trial(tmp_path):
 
 
 def _reach_from_anywhere(folder):
-    path = folder / "reach-from-anywhere.yaml"
-    path.write_text(
-        f"name: reach-from-anywhere\nenv: kinetome/BenchArm-v0\n{TRAY_PD}starts_when: norm(qvel) < 100\n"
-        "stops_when: norm(fingertip - target) < 0.02 and norm(fingertip_vel) < 0.05\nmax_steps: 200\n",
-        encoding="utf-8",
-    )
-    return path
+    return write_arm_spec(folder, "reach-from-anywhere", starts_when="norm(qvel) < 100", stops_when=REACHED, max_steps=200)
 
 
 def test_a_step_allowed_to_time_out_hands_over_and_one_not_allowed_breaks(tmp_path):
