@@ -15,6 +15,7 @@ import time
 from pathlib import Path
 from typing import Any
 
+from ..safety import caution_for
 from .chain import Chain, load_chain
 from .combine import combine_handoff, whole_chain_verdict
 from .context import CheckContext, CheckOptions, prepare_context
@@ -135,4 +136,5 @@ def run_check(ctx: CheckContext) -> CheckResult:
         episodes=0 if stats is None else stats.episodes,
         seed=ctx.seed,
         layout=ctx.rig.layout,
+        caution=caution_for(ctx.rig),
     )

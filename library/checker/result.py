@@ -182,6 +182,7 @@ class CheckResult:
     episodes: int = 0
     seed: int = 0
     layout: Any = None  # the rig's StateLayout, for plots
+    caution: str = CAUTION  # safety.caution_for(the chain's robot)
 
     def __post_init__(self) -> None:
         if not self.all_handoffs or not self.all_handoffs[0].handoff.is_entry:
@@ -237,7 +238,7 @@ class CheckResult:
             "statistics": STATISTICS,
             "notes": list(self.notes),
             "timings_s": dict(self.timings),
-            "caution": CAUTION,
+            "caution": self.caution,
         }
         return _finite_or_none(json.loads(json.dumps(body, default=_json_default)))
 

@@ -31,6 +31,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
+from ..safety import PROOF_SCOPE
 from .envelope import Envelope, physical_envelope, raw_names, relaxed_names
 from .evidence import Counterexample, Evidence, Handoff, counterexample_from
 from .registry import checker_method
@@ -367,7 +368,10 @@ def _static_handoff(ctx: Any, j: Handoff) -> Evidence:
     relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
     # A handoff's static evidence is about containment only: it never decides a verdict alone.
     if outcome.status == "proved":
-        reason = f"containment proved: {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}"
+        reason = (
+            f"containment proved ({PROOF_SCOPE}): {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}; "
+            f"premises: {'; '.join(envelope.assumptions)}"
+        )
         return Evidence("static", Verdict.UNSURE, reason, details={**details, "containment": "proved"})
     if outcome.status == "unknown":
         reason = f"z3 could not decide containment ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms"
@@ -488,7 +492,8 @@ def _static_entry(ctx: Any, j: Handoff) -> Evidence | None:
     details = {"relaxed": relaxed, "start_box": {k: [lo.tolist(), hi.tolist()] for k, (lo, hi) in box.items()}, "solver_calls": outcome.calls}
     relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
     if outcome.status == "proved":
-        return Evidence("static", Verdict.COMPOSES, f"proved: every state of the initial-state box satisfies {b.ref} starts_when{relax_text}", details=details)
+        reason = f"proved ({PROOF_SCOPE}): every state of the initial-state box satisfies {b.ref} starts_when{relax_text}"
+        return Evidence("static", Verdict.COMPOSES, reason, details=details)
     if outcome.status == "unknown":
         return Evidence("static", Verdict.UNSURE, f"z3 could not decide ({outcome.reason or 'unknown'})", details=details)
     confirmed, candidates = judge.confirmed, judge.candidates

@@ -6,7 +6,6 @@ import math
 import textwrap
 from typing import Any
 
-from ..safety import CAUTION
 from .verdict import Verdict
 
 __all__ = ["format_result", "table"]
@@ -170,5 +169,5 @@ def format_result(result: Any, *, width: int = 100) -> str:
     code = result.exit_code
     out.append(f"exit code {code}: {EXIT_TEXT[code]}")
     out.append("")
-    out += textwrap.wrap(CAUTION, width=width)
+    out += textwrap.wrap(result.caution, width=width)
     return "\n".join(out)

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 import sys
+from pathlib import Path
 from typing import Any
 
 __all__ = ["add_parsers"]
@@ -21,12 +21,16 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
             "Simulation results do not make a chain safe on a real machine."
         ),
     )
-    p.add_argument("chain", metavar="CHAIN.yaml")
-    p.add_argument("--method", choices=["auto", "static", "model", "sim"], default="auto")
+    p.add_argument("chain", metavar="CHAIN.yaml", help="the chain file (name, task, skills, require, ...)")
+    p.add_argument(
+        "--method", choices=["auto", "static", "model", "sim"], default="auto",
+        help="auto (default): prove containment, then simulate as few episodes as decide; static: the solver only "
+        "(never shows liveness); model: option models only; sim: a fixed number of simulated episodes",
+    )
     p.add_argument("--episodes", type=int, help="simulation budget in episodes (default: the chain file's, else 200)")
-    p.add_argument("--seed", type=int)
-    p.add_argument("--workers", type=int, default=1)
-    p.add_argument("--json", action="store_true")
+    p.add_argument("--seed", type=int, help="seed of the initial states and every random draw (default: the chain file's, else 0)")
+    p.add_argument("--workers", type=int, default=1, help="MuJoCo threads per block of episodes (results do not depend on it)")
+    p.add_argument("--json", action="store_true", help="print the result as JSON (schema kinetome.check/1)")
     p.add_argument("--out", metavar="DIR", help="write the text, JSON and PNG plots to DIR")
     p.set_defaults(handler=_check)
 

@@ -155,6 +155,14 @@ def _figure(width: float = 6.4, height: float = 4.8) -> tuple[Any, Any]:
     return fig, fig.add_subplot(1, 1, 1)
 
 
+def _save(fig: Any, path: Path) -> None:
+    """Save with the caution footer on the image and in the PNG's text chunk."""
+    from ..safety import CAUTION_FOOTER
+
+    fig.text(0.5, 0.005, CAUTION_FOOTER, ha="center", va="bottom", fontsize=6, color="0.3")
+    fig.savefig(path, metadata={"Caution": CAUTION_FOOTER})
+
+
 def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
     """Scatter of A's end states (accepted / refused by B) over B's starts_when boundary; None without points."""
     points, accepted, source = handoff.points
@@ -201,7 +209,7 @@ def plot_handoff(handoff: Any, layout: Any, path: Path) -> Path | None:
     ax.set_title(f"{handoff.label}: {handoff.verdict.value}\n{what} ({source}); green: {handoff.handoff.target} starts_when", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
-    fig.savefig(path)
+    _save(fig, path)
     return path
 
 
@@ -228,7 +236,7 @@ def plot_timeline(result: Any, path: Path) -> Path | None:
     ax.set_xlabel("time in the chain [s] (mean start and duration; whisker: p10-p90)")
     ax.set_title(f"{result.chain.name}: {stats.success.k}/{stats.success.n} distinct trajectories completed ({stats.episodes} episodes)", fontsize=9)
     fig.tight_layout()
-    fig.savefig(path)
+    _save(fig, path)
     return path
 
 
