@@ -23,7 +23,7 @@ def old_spelling_table() -> tuple[Any, ...]:
         Renamed("start", "task.initial_states"),
         Renamed("steps", "skills"),
         Renamed(
-            "require", "require", convert=lambda p: {"handoff": p}, when=lambda v: not isinstance(v, Mapping),
+            "require", "require", convert=lambda p: {"handoff": p}, when=lambda v: isinstance(v, (int, float)) and not isinstance(v, bool),
             hint="it meant each handoff's requirement: write require: {handoff: P}",
         ),
     )

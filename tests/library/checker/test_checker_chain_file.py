@@ -13,7 +13,7 @@ from kinetome.library.errors import InvalidInputError
 
 @pytest.fixture(scope="module")
 def store(tmp_path_factory):
-    from kinetome.library.api import register_skill
+    from kinetome.library.api import register as register_skill
     from kinetome.library.store import Store
 
     s = Store(tmp_path_factory.mktemp("store"))
@@ -122,7 +122,7 @@ BAD = [
     ("invalid initial states", lambda t: t.replace("{start}", "broken_start.yaml"), ["chain.yaml:5: task.initial_states: initial states", "is invalid", "noise"]),
     ("require above 1", lambda t: t.replace("handoff: 0.9", "handoff: 1.5"), ["chain.yaml:7: require.handoff: must be a number strictly between 0 and 1, got 1.5"]),
     ("chain requirement 0", lambda t: t.replace("chain: 0.8", "chain: 0"), ["chain.yaml:7: require.chain: must be a number strictly between 0 and 1, got 0"]),
-    ("require not a mapping", lambda t: t.replace("require: {handoff: 0.9, chain: 0.8}", "require: [0.9]"), ["require.handoff: must be a number strictly between 0 and 1, got [0.9]"]),
+    ("require not a mapping", lambda t: t.replace("require: {handoff: 0.9, chain: 0.8}", "require: [0.9]"), ["chain.yaml:7: require: must be a mapping of handoff, chain, got [0.9]"]),
     ("unknown require key", lambda t: t.replace("chain: 0.8", "chian: 0.8"), ["require.chian: unknown field", "did you mean 'chain'?"]),
     ("confidence 0", lambda t: t.replace("confidence: 0.99", "confidence: 0"), ["chain.yaml:8: confidence: must be a number strictly between 0 and 1, got 0"]),
     ("require not a number", lambda t: t.replace("handoff: 0.9", "handoff: high"), ["require.handoff: must be a number strictly between 0 and 1, got 'high'"]),

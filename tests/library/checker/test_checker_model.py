@@ -12,7 +12,8 @@ from kinetome.library.checker import Verdict, check_chain
 def fitted(tmp_path_factory):
     """A store with reach-tray, place and release; models fitted for the first two (60 episodes each)."""
     from kinetome.envs.starts import start_from_mapping
-    from kinetome.library.api import MODEL_KIND, load, register_skill
+    from kinetome.library.api import MODEL_KIND, load
+    from kinetome.library.api import register as register_skill
     from kinetome.library.store import Store
     from kinetome.library.tasks import load_start_file, task_rig
     from kinetome.trainers.fitting import collect_and_fit

@@ -19,7 +19,7 @@ WIDE = str(CONFIGS / "initial_states" / "arm_home_wide.yaml")
 
 @pytest.fixture(scope="module")
 def demo_store(tmp_path_factory):
-    from kinetome.library.api import register_skill
+    from kinetome.library.api import register as register_skill
     from kinetome.library.store import Store
 
     s = Store(tmp_path_factory.mktemp("demo-store"))
@@ -195,21 +195,21 @@ def test_result_json_and_report_folder(tmp_path):
 @pytest.mark.slow
 def test_readme_walkthrough_after_a_retrain_agrees_with_simulation(tmp_path):
     """README steps 2 and 3: retrain arm-reach-tray for the heavy payload (the README's command),
-    then check the shipped chains and an unpinned one; auto and sim agree in direction, and the
-    unpinned chain, which now runs arm-reach-tray@2, breaks on its timeouts."""
-    from kinetome.library.api import register_skill, retrain
+    then check the shipped chains and one with arm-reach-tray@2 on the nominal arm; auto and sim
+    agree in direction, and the @2 chain breaks on its timeouts."""
+    from kinetome.library.api import register as register_skill, retrain
     from kinetome.library.store import Store
 
     demo_store = Store(tmp_path / "store")
     for spec in sorted(SKILLS.glob("*.yaml")):
         register_skill(spec, store=demo_store)
     retrain("arm-reach-tray", store=demo_store, variant=CONFIGS / "variants" / "heavy_payload.yaml",
-            start=CONFIGS / "starts" / "arm_clearance.yaml", config=CONFIGS / "training" / "arm_heavy_payload.yaml",
+            start=CONFIGS / "initial_states" / "arm_clearance.yaml", config=CONFIGS / "training" / "arm_heavy_payload.yaml",
             out_dir=tmp_path / "retrain")
-    unpinned = tmp_path / "unpinned.yaml"
-    unpinned.write_text((CONFIGS / "chains" / "arm-lift-reach-place.yaml").read_text().replace("arm-reach-tray@1", "arm-reach-tray")
-                        .replace("../starts/", str(CONFIGS / "starts") + "/"))
-    for path in [*sorted((CONFIGS / "chains").glob("arm-*.yaml")), unpinned]:
+    child = tmp_path / "child.yaml"
+    child.write_text((CONFIGS / "chains" / "arm-lift-reach-place.yaml").read_text().replace("arm-reach-tray@1", "arm-reach-tray@2")
+                     .replace("../initial_states/", str(CONFIGS / "initial_states") + "/"))
+    for path in [*sorted((CONFIGS / "chains").glob("arm-*.yaml")), child]:
         auto = check_chain(path, store=demo_store)
         sim = check_chain(path, store=demo_store, method="sim")
         assert auto.exit_code == sim.exit_code and [h.verdict for h in auto.handoffs] == [h.verdict for h in sim.handoffs], path.name
