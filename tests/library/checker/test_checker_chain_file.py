@@ -51,9 +51,9 @@ def _write(tmp_path, text, name="chain.yaml"):
 def test_good_chain_loads_with_paths_relative_to_the_file(tmp_path, store):
     from kinetome.library.runtime.disturbances import Disturbances
 
-    (tmp_path / "starts").mkdir()
+    (tmp_path / "initial_states").mkdir()
     (tmp_path / "initial_states" / "home.yaml").write_text((CONFIGS / "initial_states" / "arm_home.yaml").read_text())
-    chain = load_chain(_write(tmp_path, GOOD.format(start="starts/home.yaml")), store=store)
+    chain = load_chain(_write(tmp_path, GOOD.format(start="initial_states/home.yaml")), store=store)
     assert chain.name == "arm-demo"
     assert chain.skills == ("arm-reach-tray@1", "arm-place")
     assert chain.may_time_out == (False, True)

@@ -31,7 +31,7 @@ def fitted(tmp_path_factory):
     chain = folder / "chain.yaml"
     chain.write_text(
         "name: with-models\ntask:\n  env: kinetome/BenchArm-v0\n"
-        f"  initial_states: {CONFIGS / 'starts' / 'arm_home.yaml'}\n"
+        f"  initial_states: {CONFIGS / 'initial_states' / 'arm_home.yaml'}\n"
         "skills: [arm-reach-tray@1, arm-place@1, arm-release@1]\nepisodes: 80\n"
     )
     return store, chain
@@ -61,7 +61,7 @@ def test_missing_models_leave_the_handoff_to_simulation(fitted, tmp_path):
     chain = tmp_path / "release-first.yaml"
     chain.write_text(
         "name: no-models\ntask:\n  env: kinetome/BenchArm-v0\n"
-        f"  initial_states: {CONFIGS / 'starts' / 'arm_home.yaml'}\n"
+        f"  initial_states: {CONFIGS / 'initial_states' / 'arm_home.yaml'}\n"
         "skills: [arm-release@1, arm-reach-tray@1]\nepisodes: 20\n"
     )
     result = check_chain(chain, store=store, method="model")
