@@ -54,22 +54,22 @@ def controller_kinds() -> list[str]:
 
 def kind_class(kind: str, *, where: str = "controller") -> "type[Controller]":
     """The class registered as ``kind``; an unknown kind names the close match and the known kinds."""
-    if isinstance(kind, str) and kind not in _KINDS and kind in _BUILTIN:
-        importlib.import_module(f"{__package__}.{_BUILTIN[kind]}")
-    try:
-        return _KINDS[kind]
-    except (KeyError, TypeError):
-        raise _unknown(kind, where) from None
+    return _lookup(_KINDS, kind, "", where)
 
 
 def kind_declaration(kind: str, *, where: str = "controller") -> "type[ControllerKind]":
     """What ``kind`` declares (settings, parameters, inputs), loaded without torch for built-in kinds."""
-    if isinstance(kind, str) and kind in _KINDS:
+    if isinstance(kind, str) and kind in _KINDS:  # the torch class, when loaded, declares the same
         return _KINDS[kind]
-    if isinstance(kind, str) and kind not in _DECLARED and kind in _BUILTIN:
-        importlib.import_module(f"{__package__}.kinds.{_BUILTIN[kind]}")
+    return _lookup(_DECLARED, kind, "kinds.", where)
+
+
+def _lookup(table: dict[str, type], kind: Any, package: str, where: str) -> type:
+    """``table[kind]``, importing the built-in module ``<package><module>`` first when needed."""
+    if isinstance(kind, str) and kind not in table and kind in _BUILTIN:
+        importlib.import_module(f"{__package__}.{package}{_BUILTIN[kind]}")
     try:
-        return _DECLARED[kind]
+        return table[kind]
     except (KeyError, TypeError):
         raise _unknown(kind, where) from None
 
