@@ -263,36 +263,35 @@ def retrain(
     out: str | Path | None = None,
     resume: bool = False,
     refit_episodes: int = 200,
+    promotion_episodes: int | None = None,
     progress: Any = None,
     on_run: Any = None,
 ) -> dict[str, Any]:
-    """Retrain a stored skill on a task variant and store the child version with its evidence.
+    """Retrain a stored skill on a task variant and store the child version with its record.
 
-    Output goes to ``out``, else to a new ``kinetome-retrain/<name>-<N>/<variant>/run-<K>``
-    (``resume`` without ``out`` continues the newest interrupted run of this parent,
-    variant and store; see ``retrain_runs``). ``on_run(run, budget_note)`` is called
-    once the folder is chosen, before training.
-
-    Measures the parent on the variant, trains, measures again, registers
-    ``name@N+1`` (reason ``retrained``, method ``retrain``; lineage: parent,
-    variant {file, name, digest}, config, seed, env steps, before/after
-    metrics, learning curve) and refits its option models on the variant.
+    A bare ``ref`` is the current version for the variant (else for nominal). The child
+    ``name@N`` (reason ``retrained``, method ``retrain``) holds the variant and initial-states
+    files, the config, seed, code and software versions (``record.json``) and its
+    evaluation (``evaluation.json``). It becomes current for the variant, and for nominal,
+    only where it is non-inferior to the parent on fresh episodes (``lineage.promotion``);
+    the result on the parent's own task is always reported. Its option models are then
+    refitted on the variant.
     """
     from kinetome.trainers.curves import save_curves
-    from kinetome.trainers.retrain import refuse_deliberation_cost, retrain_skill
+    from kinetome.trainers.retrain import refuse_deliberation_cost
 
+    from .lineage.promotion import DEFAULT_EPISODES
+    from .lineage.retraining import TaskFiles, apply_promotion, parent_task_of, run_retrain
     from .retrain_runs import explicit_run, find_run_to_resume, mark_finished, new_run
-    from .runtime.skill import PARAMS_FILE, SPEC_FILE
     from .safety import caution_for
-    from .spec import canonical_json, skill_to_document
-    from .stored_meta import current_meta, variant_record
-    from .initial_states import initial_states_for
+    from .stored_meta import current_meta
     from .tasks import load_variant_file, task_rig
 
     cfg = _train_config(config, {"env_step_budget": env_step_budget, "deliberation_cost": deliberation_cost})
     refuse_deliberation_cost(cfg, "--deliberation-cost" if deliberation_cost else f"{config}: deliberation_cost")
-    parent = load(ref, store=store)
     task_variant = load_variant_file(variant)
+    parent_version = store.get(resolve(ref, store=store, variant=task_variant))
+    parent = load(parent_version.ref, store=store)
     rig = task_rig(parent.skill.env, task_variant)
     if out is not None:
         run = explicit_run(out, resume=resume)
@@ -303,38 +302,18 @@ def retrain(
     folder = run.folder
     if on_run is not None:
         on_run(run, _budget_note(cfg))
-    result = retrain_skill(
-        parent,
-        rig,
-        cfg,
-        start=initial_states_for(parent.skill, initial_states),
-        seed=seed,
-        workers=workers,
-        progress=progress,
-        checkpoint_dir=run.checkpoint_dir,
-        resume=run.resumed,
-        from_scratch=from_scratch,
+    draft = run_retrain(
+        parent, parent_version.identity, task=TaskFiles.from_paths(variant, initial_states), config=cfg, seed=seed,
+        workdir=folder, checkpoint_dir=run.checkpoint_dir, resume=run.resumed,
+        parent_task=parent_task_of(store, parent_version, folder / "parent-task"), from_scratch=from_scratch,
+        workers=workers, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES,
     )
+    result = draft.result
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
-    files = {
-        SPEC_FILE: canonical_json(skill_to_document(parent.skill)),
-        PARAMS_FILE: result.parameters_bytes,
-        "normaliser.safetensors": result.normaliser,
-        "curve.csv": result.curve_csv().encode("utf-8"),
-    }
-    meta = current_meta({
-        **result.metadata(),
-        "method": "retrain",
-        "description": parent.skill.description,
-        "env": parent.skill.env,
-        "kind": parent.skill.controller.kind,
-        "variant": variant_record(variant, task_variant),
-        "initial_states": None if initial_states is None else str(initial_states),
-        "metrics_before": result.before.as_dict(),
-        "metrics_after": result.after.as_dict(),
-    })
-    added = store.add(parent.skill.name, files, parent=parent.ref, reason="retrained", meta=meta)
+    meta = current_meta(draft.meta)
+    added = store.add(parent.skill.name, draft.files, parent=parent.ref, reason="retrained", meta=meta)
     child = added.version.ref
+    current_for = apply_promotion(store, child, draft.promotion) if added.is_new else store.current_tasks(child)
     mark_finished(run, child)
     fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, workers=workers) if refit_episodes else None
     return tagged("retrain", {
@@ -348,6 +327,8 @@ def retrain(
         "wall_time_s": result.wall_time,
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),
+        "promotion": draft.promotion,
+        "current_for": current_for,
         "models": fitted,
         "lineage": [v.ref for v in store.lineage(child)],
         "caution": caution_for(rig),

@@ -165,7 +165,7 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
     )
     bar.close()
     b, a = result["before"], result["after"]
-    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {success_text(b)} -> {success_text(a)}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}; lineage {' <- '.join(result['lineage'])}")
+    log.step(f"retrained {result['parent']} -> {result['child']} on heavy_payload: success {success_text(b)} -> {success_text(a)}, return {b['mean_return']:.2f} -> {a['mean_return']:.2f}; lineage {' <- '.join(result['lineage'])}; current for {', '.join(result['current_for']) or 'no task'}")
     return result
 
 

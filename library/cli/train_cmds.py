@@ -25,7 +25,11 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         "retrain",
         parents=[common],
         help="retrain a stored skill on a task variant; stores a child version",
-        description="Measure the skill on the variant, train, measure again and store the result as a child version with its lineage. " + _caution(),
+        description=(
+            "Measure the skill on the variant, train, measure again and store the result as a child version with its "
+            "lineage. The child becomes current for the variant, and for nominal, only where it is non-inferior to "
+            "its parent on fresh episodes; its result on the parent's own task is always shown. " + _caution()
+        ),
     )
     p.add_argument("ref", metavar="NAME[@N]", help="the version to start from (a name means its current version)")
     add_task_options(p, variant_required=True)
@@ -39,6 +43,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
     p.add_argument("--out", metavar="DIR", help="folder for the curve and checkpoints (default: a new ./kinetome-retrain/NAME-N/VARIANT/run-K per run)")
     p.add_argument("--resume", action="store_true", help="continue an interrupted run: the one in --out, else the newest unfinished run of this skill, variant and store (named before training)")
+    p.add_argument("--promotion-episodes", type=int, metavar="N", help="fresh episodes per version and task for the promotion test (default 400)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_retrain)
 
@@ -96,6 +101,7 @@ def _retrain(args: argparse.Namespace) -> int:
         initial_states=args.initial_states,
         out=args.out,
         resume=args.resume,
+        promotion_episodes=args.promotion_episodes,
         progress=on_update,
         on_run=_say_run if not args.json else None,
     )
@@ -105,12 +111,23 @@ def _retrain(args: argparse.Namespace) -> int:
         return 0
     print(f"{result['parent']} -> {result['child']} on {result['variant']} ({result['env_steps']} env steps, {result['wall_time_s']:.1f} s)")
     print_table([_metrics_row("before", result["before"]), _metrics_row("after", result["after"])], [("when", ""), ("success", "SUCCESS"), ("return", "MEAN RETURN"), ("duration", "MEAN DURATION (STEPS)")])
+    _print_promotion(result)
     print(f"lineage   {' <- '.join(result['lineage'])}")
     print(f"curve     {result['curve_csv']}  {result['curve_png']}")
     if result["models"]:
         print(f"models    {result['models']['model_ref']}")
     print(result["caution"])
     return 0
+
+
+def _print_promotion(result: dict[str, Any]) -> None:
+    """The promotion test on every task it ran on, and what became current."""
+    from ..lineage.view import promotion_rows
+
+    p = result["promotion"]
+    print(f"\nfresh episodes ({p['episodes']} per version and task; current only if non-inferior, margin {p['margin']}, one-sided alpha {p['alpha']})")
+    print_table(promotion_rows(p), [("task", "TASK"), ("roles", "ROLE"), ("parent", result["parent"]), ("child", result["child"]), ("bound", "LOWER BOUND"), ("verdict", "VERDICT")])
+    print(f"current   {result['child']} is current for {', '.join(result['current_for'])}" if result["current_for"] else f"current   {result['child']} is current for no task; promote it by hand with kinetome promote {result['child']} --task TASK")
 
 
 def _train(args: argparse.Namespace) -> int:
@@ -126,7 +143,7 @@ def _train(args: argparse.Namespace) -> int:
     print(f"  stop rate            {result['stop_rate']:.4f} per step")
     print(f"  mean skill duration  {result['mean_skill_duration']:.1f} steps")
     print(f"  mean return          {result['mean_return']:.3f}")
-    print(f"  children             {', '.join(result['children'])}")
+    print(f"  children             {', '.join(result['children'])} (current for no task: compare them, then kinetome promote NAME@N --task TASK)")
     print(f"  curve                {result['curve_csv']}  {result['curve_png']}")
     print(result["caution"])
     return 0

@@ -10,7 +10,7 @@ from kinetome.library.lineage.roles import EVALUATION_FILE, RECORD_FILE
 from kinetome.library.store.names import NOMINAL_TASK
 from kinetome.library.stored_meta import current_meta, success_text
 
-__all__ = ["counts_text", "read_json_file", "made_for", "method_of", "result_on_task", "why_current", "lineage_view"]
+__all__ = ["promotion_rows", "counts_text", "read_json_file", "made_for", "method_of", "result_on_task", "why_current", "lineage_view"]
 
 
 def counts_text(counts: dict[str, Any] | None) -> str | None:
@@ -58,6 +58,27 @@ def result_on_task(store: Any, version: Any) -> str | None:
             if "trained" in row.get("roles", []):
                 return counts_text(row.get("child"))
     return success_text(current_meta(version.meta).get("metrics_after"))
+
+
+def promotion_rows(promotion: dict[str, Any]) -> list[dict[str, Any]]:
+    """One table row per task of a promotion test: counts, bound and verdict."""
+    rows = []
+    for row in promotion["tasks"]:
+        if row["non_inferior"]:
+            verdict = "non-inferior" + (": current" if row["task"] in promotion["current_for"] else " (report only)")
+        else:
+            verdict = "not shown non-inferior" + (": regression" if row["difference"] < 0 else "")
+        rows.append(
+            {
+                "task": row["task"],
+                "roles": ", ".join(row["roles"]),
+                "parent": counts_text(row["parent"]),
+                "child": counts_text(row["child"]),
+                "bound": f"{row['lower_bound']:+.3f}",
+                "verdict": verdict,
+            }
+        )
+    return rows
 
 
 def why_current(entry: Any) -> str:

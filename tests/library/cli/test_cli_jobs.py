@@ -115,7 +115,11 @@ def test_retrain_stores_child_with_lineage(store, tmp_path, capsys) -> None:
     assert r["schema"] == "kinetome.retrain/1" and r["is_new"] and r["env_steps"] == 8192 and "ISO 12100" in r["caution"]
     assert r["after"]["successes"] == round(r["after"]["success_rate"] * r["after"]["episodes"])
     assert meta["variant"]["name"] == "heavy_payload" and meta["seed"] == 0 and meta["env_steps"] == 8192 and meta["method"] == "retrain"
-    assert {"metrics_before", "metrics_after", "config"} <= set(meta)
+    assert {"metrics_before", "metrics_after"} <= set(meta)
+    # the config, seed, task files and software versions are files of the version (covered by its identity)
+    assert {"record.json", "evaluation.json", "variant.yaml", "initial_states.yaml"} <= {f["role"] for f in view["files"]}
+    assert {row["task"] for row in r["promotion"]["tasks"]} == {"heavy_payload", "nominal"}
+    assert set(r["current_for"]) <= {"heavy_payload", "nominal"} and view["current_for"] == sorted(r["current_for"])
     assert view["models"], "the child's option models are refitted on the variant"
 
 
