@@ -20,7 +20,7 @@ from kinetome.library.lineage.promotion import (
 ROOT = Path(__file__).resolve().parents[3]
 REACH = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
 HEAVY = ROOT / "configs" / "variants" / "heavy_payload.yaml"
-HOME = ROOT / "configs" / "starts" / "arm_home.yaml"
+HOME = ROOT / "configs" / "initial_states" / "arm_home.yaml"
 
 
 @pytest.mark.parametrize("x, n", [(0, 10), (3, 10), (10, 10), (56, 70), (199, 200)])

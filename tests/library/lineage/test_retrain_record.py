@@ -17,7 +17,7 @@ from kinetome.library.store import export_bundle
 ROOT = Path(__file__).resolve().parents[3]
 REACH = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
 HEAVY = ROOT / "configs" / "variants" / "heavy_payload.yaml"
-HOME = ROOT / "configs" / "starts" / "arm_home.yaml"
+HOME = ROOT / "configs" / "initial_states" / "arm_home.yaml"
 
 # A tiny budget: one update of 2048 samples is enough to change the parameters.
 QUICK = """\
