@@ -16,7 +16,7 @@ import uuid
 from pathlib import Path
 
 from kinetome.library.errors import StoreIntegrityError
-from kinetome.library.store.identity import artifact_digest, lookup_key, version_identity
+from kinetome.library.store.identity import artifact_digest, content_key, lookup_key, version_identity
 from kinetome.library.store.legacy import model_task_and_settings, reason_and_origin
 from kinetome.library.store.metadata import canonical_json
 
@@ -87,7 +87,7 @@ def _migrate_models(conn: sqlite3.Connection, identities: dict[int, str]) -> Non
             "INSERT INTO artifacts (version_id, kind, revision, computed_on, task, settings, software, meta, lookup_key,"
             " digest, content_key, origin, created_at) VALUES (?, ?, ?, ?, ?, ?, '{}', ?, ?, ?, ?, NULL, ?)",
             (vid, kind, revision, canonical_json(computed_on), canonical_json(task), canonical_json(settings), meta,
-             lookup_key(kind, computed_on, task, settings), digest, _content_key(digests), created_at),
+             lookup_key(kind, computed_on, task, settings), digest, content_key(digests), created_at),
         )
         conn.executemany(
             "INSERT INTO artifact_files (artifact_id, role, digest, size) VALUES (?, ?, ?, ?)",
@@ -95,12 +95,6 @@ def _migrate_models(conn: sqlite3.Connection, identities: dict[int, str]) -> Non
         )
     conn.execute("DROP TABLE model_files")
     conn.execute("DROP TABLE models")
-
-
-def _content_key(digests: dict[str, str]) -> str:
-    from kinetome.library.store.identity import content_key
-
-    return content_key(digests)
 
 
 def _schema_statement(prefix: str) -> str:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import difflib
-import json
 import os
 from collections.abc import Mapping
 from pathlib import Path

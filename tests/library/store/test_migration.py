@@ -148,14 +148,3 @@ def test_reason_and_origin_follow_earlier_imports_back():
     }
     assert reason_and_origin("imported", meta) == ("retrained", {"store": None, "ref": "reach@2", "created_at": "t-a"})
     assert reason_and_origin("registered", {}) == ("registered", None)
-
-
-def test_a_store_from_a_newer_kinetome_is_refused(tmp_path):
-    Store(tmp_path / "s").close()
-    conn = sqlite3.connect(tmp_path / "s" / "index.sqlite")
-    conn.execute("PRAGMA user_version = 3")
-    conn.close()
-    from kinetome.library.errors import StoreIntegrityError
-
-    with pytest.raises(StoreIntegrityError, match=r"has index schema 3, newer than this kinetome understands \(2\)"):
-        Store(tmp_path / "s")
