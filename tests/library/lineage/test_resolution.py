@@ -37,13 +37,13 @@ def test_a_rig_resolves_a_bare_name_through_its_variant(store):
 
 
 def test_a_chain_may_pin_a_version_by_identity(store, tmp_path):
-    from kinetome.library.checker.chain import parse_chain_text, resolve_steps
+    from kinetome.library.checker.chain import parse_chain_text, resolve_skills
 
     identity = store.get("arm-reach-tray@2").identity
-    text = f"chain: pinned\nenv: kinetome/BenchArm-v0\nsteps: [arm-reach-tray@id:{identity[:16]}]\n"
+    text = f"name: pinned\ntask:\n  env: kinetome/BenchArm-v0\nskills: [arm-reach-tray@id:{identity[:16]}]\n"
     chain = parse_chain_text(text, base=tmp_path, store=store)
-    resolve_steps(chain, store)
-    assert store.get(chain.steps[0]).ref == "arm-reach-tray@2"
+    resolve_skills(chain, store)
+    assert store.get(chain.skills[0]).ref == "arm-reach-tray@2"
     from kinetome.library.errors import InvalidInputError
 
     missing = text.replace(identity[:16], "0" * 16)
