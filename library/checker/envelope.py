@@ -4,7 +4,7 @@ What the static method may assume about any state A can end in:
 
 - every quantity lies within its layout ``low``/``high`` (joint limits, velocity
   envelopes, workspace boxes the env declares);
-- A's declared limits hold (they are promises the limits lint checks in
+- A's declared limits hold (they are promises `kinetome run` reports on in
   simulation): ``joint_speed`` bounds |qvel| of actuated joints, ``torque``
   bounds |torque|, ``end_effector_speed`` bounds norm(fingertip_vel);
 - quantities read from the same qpos/qvel entry are equal (``torso_pitch ==

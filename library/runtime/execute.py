@@ -87,7 +87,7 @@ class _Segment:
         self.last_command[rows] = command
 
     def observe(self, rows: np.ndarray, after: dict[str, np.ndarray]) -> None:
-        """Track the largest speed/torque each episode reached (for the limits lint)."""
+        """Track the largest speed/torque each episode reached (for the declared-limits report of `kinetome run`)."""
         for name, (quantity, measure) in _PEAK_MEASURES.items():
             if quantity in after:
                 self.peaks[name][rows] = np.maximum(self.peaks[name][rows], measure(after[quantity]))

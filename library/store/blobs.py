@@ -9,6 +9,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from kinetome.library.errors import StoreIntegrityError
+from kinetome.library.fault_points import fault_point
 from kinetome.library.file_modes import apply_umask
 
 __all__ = ["BlobDir", "sha256_bytes", "hash_file"]
@@ -82,6 +83,7 @@ class BlobDir:
                 f.write(data)
                 f.flush()
                 os.fsync(f.fileno())
+            fault_point("store.blob-before-rename")  # temp file written and fsynced, not yet in place
             self._place(Path(tmp_name), digest)
         except BaseException:
             Path(tmp_name).unlink(missing_ok=True)

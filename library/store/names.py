@@ -46,7 +46,7 @@ _NAME_RULE = (
 def _suggest_name(text: str) -> str:
     """A valid name close to ``text``, for the fix part of an error."""
     cleaned = re.sub(r"[^a-z0-9_-]+", "-", text.strip().lower()).strip("-_")[:64].strip("-_")
-    return cleaned if cleaned else "reacher-v1"
+    return cleaned if cleaned else "arm-reach"
 
 
 def validate_name(name: object, *, what: str = "skill name") -> str:

@@ -8,6 +8,7 @@ from collections.abc import Mapping
 from pathlib import Path
 
 from kinetome.library.errors import InvalidInputError, NotFoundError, StoreIntegrityError
+from kinetome.library.fault_points import fault_point
 from kinetome.library.store import index
 from kinetome.library.store.blobs import BlobDir
 from kinetome.library.store.identity import version_identity
@@ -217,12 +218,14 @@ class Store(CurrentMethods, ArtifactMethods):
     # -- adding ------------------------------------------------------------------------
 
     def _store_files(self, payload: dict[str, bytes]) -> tuple[FileEntry, ...]:
-        return tuple(FileEntry(role, self._blobs.put(data), len(data)) for role, data in sorted(payload.items()))
+        entries = tuple(FileEntry(role, self._blobs.put(data), len(data)) for role, data in sorted(payload.items()))
+        fault_point("store.blobs-written")  # blobs in place, no index row yet
+        return entries
 
     def _insert(self, conn, name: str, entries: tuple[FileEntry, ...], parent_id: int | None, reason: str, meta_json: str) -> int:
         parent_identity = None if parent_id is None else self._load_id(parent_id).identity
         digests = {e.role: e.digest for e in entries}
-        return index.insert_version(
+        row_id = index.insert_version(
             conn,
             name=name,
             files=entries,
@@ -233,6 +236,8 @@ class Store(CurrentMethods, ArtifactMethods):
             meta_json=meta_json,
             created_at=index.utc_now(),
         )
+        fault_point("store.version-row-uncommitted")  # row written inside the open transaction
+        return row_id
 
     def add(
         self,

@@ -35,14 +35,38 @@ def test_the_table_covers_every_shipped_variant():
     assert set(APPLIES) == {p.stem for p in VARIANTS.glob("*.yaml")}
 
 
+# The warnings check_env gives on our envs, each deliberate (gymnasium 1.4's texts):
+# observations are unbounded (velocities, contact forces), and actions are joint
+# torques in N m, not a normalised [-1, 1] range. Any other warning fails the test.
+EXPECTED_WARNINGS = (
+    "A Box observation space maximum value is infinity",
+    "A Box observation space minimum value is -infinity",
+    "For Box action spaces, we recommend using a symmetric and normalized space",
+)
+
+
 def _check(env_id, **kwargs):
     env = gym.make(env_id, **kwargs)
-    with warnings.catch_warnings():
-        # check_env warns (does not fail) about unbounded Box observations and
-        # non-normalised torque ranges; both are deliberate here.
-        warnings.simplefilter("ignore", UserWarning)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         check_env(env.unwrapped, skip_render_check=kwargs.get("render_mode") is None)
+    assert_expected_warnings([str(w.message) for w in caught])
     return env
+
+
+def assert_expected_warnings(messages: list[str], expected: tuple[str, ...] = EXPECTED_WARNINGS) -> None:
+    """Every expected warning was given, and nothing else."""
+    unexpected = [m for m in messages if not any(e in m for e in expected)]
+    missing = [e for e in expected if not any(e in m for m in messages)]
+    assert unexpected == [] and missing == [], (unexpected, missing)
+
+
+def test_the_warning_check_can_fail():
+    assert_expected_warnings([f"WARN: {e}." for e in EXPECTED_WARNINGS])
+    with pytest.raises(AssertionError):
+        assert_expected_warnings([f"WARN: {e}." for e in EXPECTED_WARNINGS] + ["WARN: obs is not within the observation space"])
+    with pytest.raises(AssertionError):
+        assert_expected_warnings([f"WARN: {e}." for e in EXPECTED_WARNINGS[:2]])
 
 
 @pytest.mark.parametrize("env_id", OWN)

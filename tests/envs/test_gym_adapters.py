@@ -376,12 +376,29 @@ def test_readme_layout_tables_are_current(env_id):
     assert layout_table(env_id) in readme, f"regenerate the {env_id} table in envs/adapters/README.md with layout_table"
 
 
+# check_env's warnings on the adapters (gymnasium 1.4's texts), each expected: unbounded
+# observation boxes (as on gymnasium's own MuJoCo envs), a RigEnv built directly has no
+# spec to test other render modes with, and two envs keep gymnasium's unnormalised
+# action ranges. Any other warning fails.
+_ADAPTER_WARNINGS = (
+    "A Box observation space maximum value is infinity",
+    "A Box observation space minimum value is -infinity",
+    "Not able to test alternative render modes due to the environment not having a spec",
+)
+_UNNORMALISED_ACTIONS = {"InvertedPendulum-v5", "Pusher-v5"}
+
+
 @pytest.mark.parametrize("env_id", IDS)
 def test_check_env_passes(env_id):
-    with warnings.catch_warnings():
-        # The checker warns about unbounded observation boxes, as it does for gymnasium's own MuJoCo envs.
-        warnings.simplefilter("ignore")
+    from tests.envs.test_env_checker import assert_expected_warnings  # noqa: PLC0415  (one checker of warning sets)
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         check_env(RigEnv(_rig(env_id)))
+    messages = [str(w.message) for w in caught]
+    if env_id.split("/")[-1] in _UNNORMALISED_ACTIONS:
+        messages = [m for m in messages if "For Box action spaces, we recommend" not in m]
+    assert_expected_warnings(messages, _ADAPTER_WARNINGS)
 
 
 # -- healthy ranges against gymnasium's is_healthy ------------------------------------------------

@@ -23,7 +23,7 @@ STAMP = "2024-01-01T00:00:00Z"
 def test_discounted_return_convention_identity() -> None:
     # Convention: k >= 1 steps, rewards r at steps 0..k-1:
     # sum_t gamma^t r = r (1 - gamma^k)/(1 - gamma), and for k ~ Geometric(b)
-    # E[...] = r / (1 - gamma (1 - b)) (option models, Sutton, Precup & Singh 1999).
+    # E[...] = r / (1 - gamma (1 - b)) (option models, Sutton, Precup & Singh 1999, from memory).
     gamma, b, r = 0.99, 0.1, 2.0
     for k in (1, 2, 7, 50):
         explicit = sum(gamma**t * r for t in range(k))

@@ -86,7 +86,7 @@ def test_chain_prediction_matches_simulation(arm) -> None:
     # The prediction and the simulation use the same starts, so the gap is model error
     # (fit on ~650 turns per skill) plus outcome sampling. Measured over three seed pairs
     # the gaps were <= 3.4% (steps), <= 2.3% (return), <= 0.034 (acceptance, success);
-    # the tolerances below are ~1.7x the worst of those (engineering margin, not a bound).
+    # the tolerances below are ~1.7x the worst of those (engineering margin, not a bound: common practice).
     assert pred.steps.mean == pytest.approx(sim_steps.mean(), rel=0.06)
     assert pred.discounted_return.mean == pytest.approx(sim_return.mean(), rel=0.04)
     assert pred.handoffs[0].accepted == pytest.approx(sim_accept.mean(), abs=0.06)

@@ -90,7 +90,7 @@ def test_lstd_random_walk_matches_exact_option_models(cap: int | None) -> None:
     # Tabular (one-hot) features: LSTD is the certainty-equivalence solution, so it
     # converges to the exact option models. Measured over 20 seeds at 3000 episodes, the
     # per-cell relative sd was <= 2.6% (uncapped) and <= 4.6% (capped, fewer transitions);
-    # at 8000 episodes that is <= 1.6% / 2.8%, so the 8% tolerance is ~3 sd at worst.
+    # at 8000 episodes that is <= 1.6% / 2.8%, so the 8% tolerance is ~3 sd at worst (common practice).
     # cap = 3 cuts every turn after 3 steps (truncated, bootstrapped): TD still
     # recovers the uncapped option, which Monte Carlo regression on capped turns cannot.
     gamma = 0.9

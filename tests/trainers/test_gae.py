@@ -1,4 +1,4 @@
-"""GAE against its two limiting definitions (Schulman, Moritz, Levine, Jordan & Abbeel 2016)."""
+"""GAE against its two limiting definitions (Schulman, Moritz, Levine, Jordan & Abbeel 2016; equation numbers from memory)."""
 
 import numpy as np
 import pytest
@@ -35,7 +35,7 @@ def _monte_carlo(rewards, dones, last, gamma):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_lambda_one_is_monte_carlo_return_minus_baseline(seed):
-    # Schulman et al. 2016, eq. 18: GAE(gamma, 1) = sum_l gamma^l r_{t+l} - V(s_t)
+    # Schulman et al. 2016, eq. 18 (from memory): GAE(gamma, 1) = sum_l gamma^l r_{t+l} - V(s_t)
     rewards, values, dones, last = _rollout(seed)
     adv, ret = gae(rewards, values, dones, last, gamma=0.97, lambda_=1.0)
     mc = _monte_carlo(rewards, dones, last, 0.97)
@@ -45,7 +45,7 @@ def test_lambda_one_is_monte_carlo_return_minus_baseline(seed):
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_lambda_zero_is_one_step_td_error(seed):
-    # Schulman et al. 2016, eq. 17: GAE(gamma, 0) = r_t + gamma V(s_{t+1}) - V(s_t)
+    # Schulman et al. 2016, eq. 17 (from memory): GAE(gamma, 0) = r_t + gamma V(s_{t+1}) - V(s_t)
     rewards, values, dones, last = _rollout(seed)
     adv, _ = gae(rewards, values, dones, last, gamma=0.9, lambda_=0.0)
     next_values = np.concatenate([values[1:], last[None]], axis=0)
@@ -54,7 +54,7 @@ def test_lambda_zero_is_one_step_td_error(seed):
 
 
 def test_general_lambda_is_discounted_sum_of_td_errors():
-    # Schulman et al. 2016, eq. 16: A_t = sum_l (gamma lambda)^l delta_{t+l}, cut at episode ends
+    # Schulman et al. 2016, eq. 16 (from memory): A_t = sum_l (gamma lambda)^l delta_{t+l}, cut at episode ends
     rewards, values, dones, last = _rollout(7)
     gamma, lambda_ = 0.95, 0.8
     adv, _ = gae(rewards, values, dones, last, gamma=gamma, lambda_=lambda_)

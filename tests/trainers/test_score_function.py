@@ -1,4 +1,4 @@
-"""Score-function gradient on a one-step Gaussian bandit vs. its closed form (Williams 1992)."""
+"""Score-function gradient on a one-step Gaussian bandit vs. its closed form (Williams 1992, from memory)."""
 
 import math
 
@@ -27,7 +27,7 @@ def test_gaussian_bandit_gradient_matches_closed_form(mu0, sigma, c):
     g_mu, g_log_sigma = score_function_gradient(log_prob, a, r, [mu, log_sigma], baseline=float(r.mean()))
     exact_mu = -2.0 * (mu0 - c)
     exact_log_sigma = -2.0 * sigma**2  # chain rule: dE/dlog sigma = sigma dE/dsigma
-    # Tolerance: 5 standard errors of the sample mean, measured from the per-sample terms
+    # Tolerance: 5 standard errors of the sample mean (common practice), measured from the per-sample terms
     # (r - b)(a - mu)/sigma^2 and (r - b)((a - mu)^2/sigma^2 - 1); a false alarm has odds ~ 1e-6.
     with torch.no_grad():
         z = (a - mu0) / sigma

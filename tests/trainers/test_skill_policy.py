@@ -35,7 +35,7 @@ def test_sampling_frequencies_match_probabilities():
     q = np.tile([[0.0, 1.0, 0.5]], (20000, 1))
     picks = choose_skills(q, np.ones_like(q, bool), epsilon=0.3, rng=rng)
     freq = np.bincount(picks, minlength=3) / picks.size
-    # binomial std at n = 20000 is below 0.004; 4 std tolerance
+    # binomial std at n = 20000 is below 0.004; 4 std tolerance (common practice)
     np.testing.assert_allclose(freq, [0.1, 0.8, 0.1], atol=0.016)
 
 

@@ -1,4 +1,4 @@
-"""Clipped surrogate objective (Schulman et al. 2017, eq. 7) and the value loss."""
+"""Clipped surrogate objective (Schulman et al. 2017, eq. 7, from memory) and the value loss."""
 
 import math
 
@@ -38,7 +38,7 @@ def test_clipping_removes_gradient_beyond_the_trust_region():
 @pytest.mark.parametrize(
     "ratio, adv, loss, grad",
     [
-        # Schulman et al. 2017, eq. 7 and Figure 1: min(r A, clip(r, 1 - e, 1 + e) A), e = 0.2
+        # Schulman et al. 2017, eq. 7 and Figure 1 (from memory): min(r A, clip(r, 1 - e, 1 + e) A), e = 0.2
         (1.5, 1.0, -1.2, 0.0),  # upper side, A > 0: clipped at 1 + e, no gradient
         (1.5, -1.0, 1.5, 1.5),  # upper side, A < 0: the unclipped term is smaller, gradient -A r
         (0.5, -1.0, 0.8, 0.0),  # lower side, A < 0: clipped at 1 - e, no gradient

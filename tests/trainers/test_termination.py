@@ -1,4 +1,4 @@
-"""Termination objective with deliberation cost (Harb, Bacon, Klissarov & Precup, AAAI 2018)."""
+"""Termination objective with deliberation cost (Harb, Bacon, Klissarov & Precup, AAAI 2018, from memory)."""
 
 import numpy as np
 import pytest
@@ -27,7 +27,7 @@ def test_disadvantage_beyond_the_margin_makes_the_skill_stop():
 
 
 def test_gradient_is_dbeta_times_advantage_plus_eta():
-    # d/dlogit [sigmoid(x) (A + eta)] = sigmoid(x)(1 - sigmoid(x)) (A + eta), Harb et al. 2018 eq. for the termination gradient
+    # d/dlogit [sigmoid(x) (A + eta)] = sigmoid(x)(1 - sigmoid(x)) (A + eta), Harb et al. 2018, the termination gradient (from memory)
     logit = torch.tensor([0.3], requires_grad=True)
     termination_loss(torch.sigmoid(logit), torch.tensor([0.2]), eta=0.05).backward()
     s = float(torch.sigmoid(torch.tensor(0.3)))

@@ -1,4 +1,4 @@
-"""Options mode: policy over skills, learned terminations and the deliberation cost (Harb et al. 2018)."""
+"""Options mode: policy over skills, learned terminations and the deliberation cost (Harb et al. 2018, from memory)."""
 
 import numpy as np
 import pytest

@@ -130,30 +130,55 @@ def test_read_commands_do_not_import_heavy_libraries(tmp_path, capsys, command) 
     assert "HEAVY [] 0" in out, out
 
 
-def test_killed_add_leaves_no_partial_version(tmp_path) -> None:
-    """`kinetome add` killed with SIGKILL at random moments, 30 times; the store stays whole."""
+FAULT_POINTS = ("store.blob-before-rename", "store.blobs-written", "store.version-row-uncommitted")
+
+
+@pytest.mark.parametrize("point", FAULT_POINTS)
+def test_killed_register_leaves_no_partial_version(tmp_path, point) -> None:
+    """`kinetome register` killed with SIGKILL inside the write (at an armed fault point); the store stays whole."""
+    from kinetome.library.fault_points import FAULT_POINT_ENV
+
     store = tmp_path / "store"
     env = {**os.environ, "KINETOME_STORE": str(store)}
     exe = [sys.executable, "-m", "kinetome.library.cli.main"]
-    subprocess.run([*exe, "register", str(REACH)], env=env, check=True, capture_output=True)  # warm caches
-    rng = np.random.default_rng(2026)
-    killed = 0
-    for i in range(30):
-        proc = subprocess.Popen([*exe, "register", str(_spec_variant(tmp_path, i))], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        time.sleep(float(rng.uniform(0.05, 0.8)))  # seeded: spans import, validation and the write (register takes ~0.7 s)
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGKILL)
-            killed += 1
-        proc.wait()
-    assert killed >= 5, "the kills must land while add is running"
+    subprocess.run([*exe, "register", str(REACH)], env=env, check=True, capture_output=True)
+    ready = tmp_path / "ready"
+    armed = {**env, FAULT_POINT_ENV: f"{point}@{ready}"}
+    proc = subprocess.Popen([*exe, "register", str(_spec_variant(tmp_path, 1))], env=armed, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 120
+    while not ready.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    assert ready.read_text() == point, "the write must reach the armed point"
+    assert proc.poll() is None, "the process waits at the point to be killed"
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
     verify = subprocess.run([*exe, "verify"], env=env, capture_output=True, text=True)
     assert verify.returncode == 0, verify.stdout + verify.stderr
-    rows = json.loads(subprocess.run([*exe, "lineage", "arm-reach-tray", "--json"], env=env, capture_output=True, text=True, check=True).stdout)["versions"]
-    numbers = [int(r["ref"].split("@")[1]) for r in rows]
-    assert numbers == list(range(1, len(numbers) + 1))  # gap-free
-    for r in rows:  # every visible version is complete and readable
-        shown = subprocess.run([*exe, "show", r["ref"], "--json"], env=env, capture_output=True, text=True)
+    assert _lineage_refs(exe, env) == ["arm-reach-tray@1"]  # nothing half-written is visible
+    # the same register, not armed, completes and takes the next number
+    done = subprocess.run([*exe, "register", str(_spec_variant(tmp_path, 1)), "--json"], env=env, capture_output=True, text=True, check=True)
+    assert json.loads(done.stdout)["versions"][0]["is_new"]
+    refs = _lineage_refs(exe, env)
+    assert refs == ["arm-reach-tray@1", "arm-reach-tray@2"]
+    for ref in refs:  # every visible version is complete and readable
+        shown = subprocess.run([*exe, "show", ref, "--json"], env=env, capture_output=True, text=True)
         assert shown.returncode == 0 and json.loads(shown.stdout)["parameters"]
+
+
+def _lineage_refs(exe: list[str], env: dict[str, str]) -> list[str]:
+    out = subprocess.run([*exe, "lineage", "arm-reach-tray", "--json"], env=env, capture_output=True, text=True, check=True).stdout
+    return [v["ref"] for v in json.loads(out)["versions"]]
+
+
+def test_unarmed_fault_points_do_nothing(monkeypatch, tmp_path) -> None:
+    from kinetome.library.fault_points import FAULT_POINT_ENV, fault_point
+
+    monkeypatch.setenv(FAULT_POINT_ENV, f"another.point@{tmp_path / 'ready'}")
+    started = time.monotonic()
+    fault_point("store.blobs-written")
+    monkeypatch.delenv(FAULT_POINT_ENV)
+    fault_point("store.blobs-written")
+    assert time.monotonic() - started < 1.0 and not (tmp_path / "ready").exists()
 
 
 @pytest.mark.parametrize(

@@ -48,7 +48,7 @@ def test_exploration_noise_has_the_declared_std():
     z = (a - mean) / np.array([0.05, 0.1])
     # Means sit >= 10 std inside the limits, so clipping never acts. With n = 20000
     # standard-normal draws the sample mean has std 1/sqrt(n) = 0.007 and the sample
-    # std has std ~ 1/sqrt(2n) = 0.005; tolerances of 0.03 are over 4 standard errors.
+    # std has std ~ 1/sqrt(2n) = 0.005; tolerances of 0.03 are over 4 standard errors (a 4-sigma margin: common practice).
     assert np.all(np.abs(z.mean(axis=0)) < 0.03)
     assert np.all(np.abs(z.std(axis=0) - 1.0) < 0.03)
     # Reference: scipy.stats.kstest against the standard normal (p > 0.001: a

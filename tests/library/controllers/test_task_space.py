@@ -123,7 +123,7 @@ def test_mj_jac_site_equals_finite_differences_and_planar_formula(rig, seed):
 
     # Reference: planar serial-arm Jacobian, with theta_k = q1 + ... + qk,
     # dx/dq_j = -sum_{k>=j} l_k sin theta_k, dy/dq_j = sum_{k>=j} l_k cos theta_k
-    # (any robotics textbook, e.g. Siciliano et al., Robotics: Modelling,
+    # (any robotics textbook, e.g., from memory, Siciliano et al., Robotics: Modelling,
     # Planning and Control, ch. 3).
     theta = np.cumsum(q0)
     analytic = np.zeros((3, 3))

@@ -26,7 +26,7 @@ def _two_skills(p_stop_b: float = 1.0):
 
 def test_deterministic_linear_chain_matches_closed_form() -> None:
     # Closed form for deterministic end states x2 = M1 x + c1 and constant durations
-    # k1, k2 (option-model composition, Sutton, Precup & Singh 1999):
+    # k1, k2 (option-model composition, Sutton, Precup & Singh 1999, from memory):
     # steps = k1 + k2, return = R1(x) + gamma^k1 R2(x2), end discount = gamma^(k1+k2).
     a, b = _two_skills()
     x = np.array([[0.1, 0.2], [-1.0, 2.0], [3.0, -0.5]])
@@ -92,7 +92,7 @@ def test_timed_out_turns_hand_over_from_their_own_end_states() -> None:
 def test_handoff_acceptance_matches_gaussian_probability() -> None:
     # End state of a = start + N(0, 0.5^2) noise (a pool of 20,000 Gaussian residuals);
     # the next skill accepts x[0] > 0, so P(accept | x) = Phi(x0 / 0.5) (scipy.stats.norm).
-    # 20,000 particles: MC sd ~0.0035, pool error ~0.0035; tolerance 0.02 is > 4 sd.
+    # 20,000 particles: MC sd ~0.0035, pool error ~0.0035; tolerance 0.02 is > 4 sd (common practice).
     rng = np.random.default_rng(7)
     pool = rng.normal(0.0, 0.5, size=(20_000, 2))
     a = linear_models(ref="a@1", gamma=GAMMA, steps=5, reward_w=np.zeros(2), reward_b=1.0, end_m=np.eye(2), residuals=pool)

@@ -121,7 +121,7 @@ def test_r2_is_undefined_for_a_constant_target() -> None:
 
 
 def test_log_loss_and_brier_by_their_definitions() -> None:
-    # Log loss: mean -log p(true class); Brier (1950): mean over rows of sum_k (p_k - y_k)^2.
+    # Log loss: mean -log p(true class); Brier (1950, from memory): mean over rows of sum_k (p_k - y_k)^2.
     probs = np.array([[0.8, 0.2], [0.3, 0.7], [0.5, 0.5]])
     labels = np.array([0, 0, 1])
     err = classification_errors(labels, probs, (0, 1), baseline=np.array([0.5, 0.5]))
@@ -134,7 +134,7 @@ def test_log_loss_and_brier_by_their_definitions() -> None:
 
 
 def test_conformal_offsets_use_finite_sample_ranks() -> None:
-    # Split conformal (Lei et al. 2018): ranks floor((n+1) a/2) and ceil((n+1)(1-a/2)).
+    # Split conformal (Lei et al. 2018, from memory): ranks floor((n+1) a/2) and ceil((n+1)(1-a/2)).
     res = np.arange(1.0, 20.0)[:, None]  # n = 19
     lo, hi = conformal_offsets(res, 0.9)  # ranks 1 and 19
     assert (lo[0], hi[0]) == (1.0, 19.0)
@@ -147,7 +147,7 @@ def test_conformal_offsets_use_finite_sample_ranks() -> None:
 
 
 def test_conformal_intervals_cover_exchangeable_draws() -> None:
-    # Guarantee (Lei et al. 2018): P(new draw inside) >= level for exchangeable draws.
+    # Guarantee (Lei et al. 2018, from memory): P(new draw inside) >= level for exchangeable draws.
     # Averaged over 400 seeded pools of n = 39 the coverage estimate has sd ~0.0015,
     # and the exact value for continuous draws is (hi_rank - lo_rank)/(n+1) = 0.9.
     rng = np.random.default_rng(3)

@@ -7,6 +7,7 @@ import sys
 
 import numpy as np
 import pytest
+import z3
 
 from kinetome.library.predicates import (
     BoolOp,
@@ -20,7 +21,6 @@ from kinetome.library.predicates import (
 )
 from kinetome.library.predicates.smt import ImplicationResult, SmtContext, check_implication, to_z3
 
-z3 = pytest.importorskip("z3")
 
 SH = {"a": (), "b": (), "v": (2,), "c": (2,)}
 C = np.array([0.2, -0.1])

@@ -108,11 +108,11 @@ def test_confined_mode_stops_only_inside_stops_when(rig):
 
 def test_constant_beta_gives_geometric_durations(rig):
     # Stopping with probability b each step gives turn lengths ~ Geometric(b), mean 1/b
-    # (the constant-termination option model of Sutton, Precup & Singh 1999).
+    # (the constant-termination option model of Sutton, Precup & Singh 1999; from memory).
     b = 0.2
     skill = dataclasses.replace(loaded_reach(rig, gain=0.0, max_steps=200), learned_stop=_stop("learned", float(np.log(b / (1 - b)))))
     seg = _run(rig, skill, n=2000, seed=11)
-    # standard error of the mean: sqrt(1 - b) / b / sqrt(2000) = 0.1; allow 4 of them
+    # standard error of the mean: sqrt(1 - b) / b / sqrt(2000) = 0.1; allow 4 of them (common practice)
     assert abs(seg.steps.mean() - 1 / b) < 0.4
 
 
