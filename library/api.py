@@ -407,6 +407,8 @@ def check_chain(
     workers: int = 1,
     out: str | Path | None = None,
     progress: Any = None,
+    fail_on_gaps: bool = False,
+    fail_on_limits: bool = False,
 ) -> Any:
     """Check a chain file handoff by handoff; with ``out``, write the report folder there.
     ``progress(done, total)`` follows the simulation (episodes), when one runs.
@@ -418,7 +420,8 @@ def check_chain(
     """
     from .checker import check_chain as _check
 
-    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress)
+    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress,
+                    fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits)
     if out is not None:
         from .report.checker_plots import write_report
 

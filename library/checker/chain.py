@@ -40,7 +40,8 @@ __all__ = [
 
 DEFAULT_EPISODES = 200
 DEFAULT_REQUIRE = 0.95
-CHAIN_FIELDS = ("name", "description", "task", "skills", "require", "confidence", "episodes", "seed", "disturbances")
+CHAIN_FIELDS = ("name", "description", "task", "skills", "require", "confidence", "episodes", "seed", "disturbances", "handoff_limits")
+HANDOFF_LIMIT_FIELDS = ("command_jump",)
 TASK_FIELDS = ("env", "variant", "initial_states")
 REQUIRE_FIELDS = ("handoff", "chain")
 DISTURBANCE_FIELDS = ("exploration", "sensor_noise", "action_delay_steps", "gain_spread")
@@ -90,6 +91,7 @@ class Chain:
     episodes: int = DEFAULT_EPISODES
     seed: int = 0
     disturbances: Disturbances = NO_DISTURBANCES
+    command_jump: float | None = None  # handoff_limits.command_jump: largest allowed jump in command at a switch
     source: str = field(default="<chain>", compare=False)
     lines: Mapping[str, int] = field(default_factory=dict, compare=False, repr=False)
 
@@ -135,6 +137,7 @@ class Chain:
             "episodes": self.episodes,
             "seed": self.seed,
             "disturbances": self.disturbances.to_dict(),
+            "handoff_limits": {"command_jump": self.command_jump},
             "source": self.source,
         }
 
@@ -171,6 +174,9 @@ def _value_problems(c: Chain) -> list[Problem]:
         out.append(c.problem("episodes", f"must be a whole number >= 1, got {c.episodes!r}", _FIXES["episodes"]))
     if not _is_count(c.seed, 0):
         out.append(c.problem("seed", f"must be a whole number >= 0, got {c.seed!r}", _FIXES["seed"]))
+    jump = c.command_jump
+    if jump is not None and (isinstance(jump, bool) or not isinstance(jump, (int, float)) or not math.isfinite(jump) or jump <= 0):
+        out.append(c.problem("handoff_limits.command_jump", f"must be a number > 0 (in the actuators' command units), got {jump!r}", "write e.g. command_jump: 2.0"))
     if not isinstance(c.description, str):
         out.append(c.problem("description", f"must be text, got {type(c.description).__name__}", "quote it"))
     return out
@@ -277,6 +283,7 @@ def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: A
     problems += file_problems
     handoff, whole = _require(doc, data, problems)
     disturbances = _disturbances(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems)
+    handoff_limits = _mapping(doc, data, "handoff_limits", HANDOFF_LIMIT_FIELDS, problems)
     fields = dict(
         name=data.get("name", ""),
         env=task.get("env", ""),
@@ -291,6 +298,7 @@ def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: A
         episodes=data.get("episodes", DEFAULT_EPISODES),
         seed=data.get("seed", 0),
         disturbances=disturbances,
+        command_jump=handoff_limits.get("command_jump"),
         source=doc.source,
         lines=_field_lines(doc),
     )

@@ -42,6 +42,8 @@ def check_chain(
     model_samples: int = 2000,
     block_size: int | None = None,
     progress: Any = None,
+    fail_on_gaps: bool = False,
+    fail_on_limits: bool = False,
 ) -> CheckResult:
     """Check that a chain composes. ``chain`` is a Chain or the path of a chain file.
 
@@ -50,11 +52,13 @@ def check_chain(
     meets its requirement), 1 (something breaks or fails) or 3 (unsure).
     ``episodes``/``seed`` override the chain file's values.
     ``progress(done, total)`` follows the simulation in episodes, when one runs.
+    ``fail_on_gaps`` / ``fail_on_limits``: see ``CheckOptions``.
     """
     extra = {} if block_size is None else {"block_size": block_size}
     options = CheckOptions(
         method=method, episodes=episodes, seed=seed, workers=workers, gamma=gamma,
-        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress, **extra,
+        timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress,
+        fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits, **extra,
     )
     if not isinstance(chain, Chain):
         chain = load_chain(chain, store=store)

@@ -7,6 +7,10 @@ Precedence for a handoff A -> B:
    refused A's stops on the same clause of B) breaks an otherwise unsure handoff;
 3. without it, option models valid for this task decide when they can;
 4. otherwise ``unsure``: a containment proof alone never makes a handoff compose.
+A realised solver state that A's execution never reached is a *contract gap*: a note
+with the state, the clause and a fix, and ``breaks`` only with ``fail_on_gaps``.
+With ``fail_on_limits``, a declared limit of A exceeded in simulation, or a command
+jump at the switch above ``handoff_limits.command_jump``, breaks the handoff.
 The entry composes by a static proof over the initial-state box, or by sampling.
 """
 
@@ -14,7 +18,11 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
+
+from ..safety import PROOF_SCOPE
 from .evidence import Counterexample, Evidence, Handoff
+from .premises import PremiseCheck, check_premises
 from .result import HandoffResult
 from .verdict import Verdict
 
@@ -61,40 +69,112 @@ def _entry(evidence: list[Evidence]) -> tuple[Verdict, str | None, str]:
     return Verdict.UNSURE, None, "no method could examine it"
 
 
-def _handoff(ctx: Any, j: Handoff, evidence: list[Evidence], notes: list[str]) -> tuple[Verdict, str | None, str]:
-    static, sim, model = _first(evidence, "static"), _first(evidence, "sim"), _first(evidence, "model")
+def _stop_states(ctx: Any, j: Handoff) -> dict[str, np.ndarray] | None:
+    """A's end states where it stopped, in this check's simulation (None: no simulation ran)."""
+    from ..runtime.records import EndReason
+
+    sim = ctx.cache.get("simulation")
+    if sim is None:
+        return None
+    seg = sim.rollout.segments[j.index - 1]
+    rows = np.flatnonzero(seg.reason == int(EndReason.STOPPED))
+    return {k: np.asarray(v)[rows] for k, v in seg.end_state.items() if not k.endswith("_jac")}
+
+
+def _premise_notes(ctx: Any, j: Handoff, static: Evidence | None, notes: list[str]) -> tuple[list[PremiseCheck], bool]:
+    """Check a containment proof's premises on the simulation; (checks, whether the proof stands)."""
+    if static is None or static.details.get("containment") != "proved":
+        return [], False
+    checks = check_premises(static.premises, _stop_states(ctx, j))
+    used = "; ".join(c.text() for c in checks) or f"no premise ({j.source}'s stops_when alone implies {j.target}'s starts_when)"
+    notes.append(f"containment proof ({PROOF_SCOPE}) used: {used}")
+    void = [c for c in checks if c.status == "exceeded"]
+    for c in void:
+        notes.append(f"proof void: {c.label} is exceeded in this chain's simulation (worst {c.worst})")
+    return checks, not void and all(c.status != "unchecked" for c in checks)
+
+
+def _gaps(ctx: Any, j: Handoff, static: Evidence, reached: bool | None) -> list[dict[str, Any]]:
+    """Realised solver states A may stop in that B refuses, each with its clause and a fix."""
+    out = []
+    for c in (x for x in static.counterexamples if x.confirmed):
+        clause = c.clauses[0]["clause"] if c.clauses else "?"
+        out.append({
+            "state": dict(c.state),
+            "violation": "; ".join(c.violations),
+            "clause": clause,
+            "reached": reached,
+            "fix": f"tighten {j.source}'s stops_when (e.g. add `{clause}`) or loosen {j.target}'s starts_when",
+        })
+    return out[: ctx.options.max_counterexamples]
+
+
+def _gap_note(j: Handoff, gaps: list[dict[str, Any]], simulated: bool) -> str:
+    where = "never reached it in this chain's simulation" if simulated else "may or may not reach it (no simulation ran)"
+    first = gaps[0]
+    return (
+        f"contract gap: {len(gaps)} state(s) {j.source} may stop in that {j.target} refuses, realised in MuJoCo; "
+        f"{j.source}'s execution {where}. First: {first['violation']}. Fix: {first['fix']}"
+    )
+
+
+def _limit_failure(ctx: Any, sim: Evidence) -> str | None:
+    """Why --fail-on-limits breaks this handoff, or None."""
+    over = [f"{x['limit']} reached {x['worst']:.4g} {x['unit']} (declared {x['declared']:g})" for x in sim.details.get("limits", []) if x["exceeded"]]
+    jump, bound = sim.details.get("command_jump"), ctx.chain.command_jump
+    if jump is not None and bound is not None and jump["max"] > bound:
+        over.append(f"the command jumps by up to {jump['max']:.4g} at the switch (handoff_limits.command_jump {bound:g})")
+    return "; ".join(over) or None
+
+
+def _with_sim(ctx: Any, j: Handoff, static: Evidence | None, sim: Evidence, notes: list[str], gaps: list) -> tuple[Verdict, str | None, str]:
     containment = (static.details.get("containment") if static is not None else None) or "not examined"
-    if sim is not None:
-        reached = reached_clauses(sim)
-        static_reached = static is not None and any(
-            {cl["clause"] for cl in c.clauses} & reached for c in static.counterexamples if c.confirmed
+    reached = reached_clauses(sim)
+    static_reached = static is not None and any({cl["clause"] for cl in c.clauses} & reached for c in static.counterexamples if c.confirmed)
+    if containment == "proved" and sim.counterexamples and not any(n.startswith("proof void") for n in notes):
+        notes.append(
+            f"containment was proved under the physical envelope and declared limits, yet {j.target} refused "
+            f"{len(sim.counterexamples)}+ handovers: a state left that envelope (check joint limits and the declared limits)"
         )
-        if containment == "proved" and sim.counterexamples:
-            notes.append(
-                f"containment was proved under the physical envelope and declared limits, yet {j.target} refused "
-                f"{len(sim.counterexamples)}+ handovers: a state left that envelope (check joint limits and the declared limits)"
-            )
-        if sim.verdict is Verdict.UNSURE and static_reached:
-            return Verdict.BREAKS, "static", (
-                f"containment fails and {j.source}'s execution reaches the refused region "
-                f"(the simulation refused its stops on the same clause); {sim.reason}"
-            )
-        if containment == "counterexample" and not static_reached:
-            notes.append(
-                f"contract gap: the solver found a state {j.source} may stop in that {j.target} refuses, "
-                f"but {j.source}'s execution never reached it in this simulation"
-            )
-        return sim.verdict, ("sim" if sim.decided else None), sim.reason
-    if model is not None and model.decided:
-        return model.verdict, "model", model.reason
-    parts = [e.reason for e in (static, model) if e is not None]
-    liveness = f"liveness of {j.source} needs simulation or option models valid for this task"
-    return Verdict.UNSURE, None, "; ".join(parts + [liveness])
+    if containment == "counterexample" and not static_reached:
+        gaps += _gaps(ctx, j, static, False)
+        notes.append(_gap_note(j, gaps, True))
+    failure = _limit_failure(ctx, sim) if ctx.options.fail_on_limits else None
+    if failure and sim.verdict is not Verdict.BREAKS:
+        return Verdict.BREAKS, "sim", f"limits at the handoff (--fail-on-limits): {failure}; {sim.reason}"
+    if sim.verdict is Verdict.UNSURE and static_reached:
+        return Verdict.BREAKS, "static", (
+            f"containment fails and {j.source}'s execution reaches the refused region "
+            f"(the simulation refused its stops on the same clause); {sim.reason}"
+        )
+    return sim.verdict, ("sim" if sim.decided else None), sim.reason
+
+
+def _handoff(ctx: Any, j: Handoff, evidence: list[Evidence], notes: list[str], gaps: list) -> tuple[Verdict, str | None, str]:
+    static, sim, model = _first(evidence, "static"), _first(evidence, "sim"), _first(evidence, "model")
+    if sim is not None:
+        verdict, by, reason = _with_sim(ctx, j, static, sim, notes, gaps)
+    elif model is not None and model.decided:
+        verdict, by, reason = model.verdict, "model", model.reason
+    else:
+        if static is not None and static.details.get("containment") == "counterexample":
+            gaps += _gaps(ctx, j, static, None)
+            notes.append(_gap_note(j, gaps, False))
+        parts = [e.reason for e in (static, model) if e is not None]
+        liveness = f"liveness of {j.source} needs simulation or option models valid for this task"
+        verdict, by, reason = Verdict.UNSURE, None, "; ".join(parts + [liveness])
+    if gaps and ctx.options.fail_on_gaps and verdict is not Verdict.BREAKS:
+        return Verdict.BREAKS, "static", f"contract gap (--fail-on-gaps): {gaps[0]['violation']}; fix: {gaps[0]['fix']}"
+    return verdict, by, reason
 
 
 def combine_handoff(ctx: Any, j: Handoff, evidence: list[Evidence]) -> HandoffResult:
     """The verdict of handoff ``j`` from its evidence, following the precedence in the module doc."""
     notes: list[str] = []
+    gaps: list[dict[str, Any]] = []
+    checks: list[PremiseCheck] = []
+    if not j.is_entry:
+        checks, _ = _premise_notes(ctx, j, _first(evidence, "static"), notes)
     structural = _first(evidence, "structural")
     sim = _first(evidence, "sim")
     evidence = [_promote(e, reached_clauses(sim)) if e.method == "static" and not j.is_entry else e for e in evidence]
@@ -103,9 +183,10 @@ def combine_handoff(ctx: Any, j: Handoff, evidence: list[Evidence]) -> HandoffRe
     elif j.is_entry:
         verdict, by, reason = _entry(evidence)
     else:
-        verdict, by, reason = _handoff(ctx, j, evidence, notes)
+        verdict, by, reason = _handoff(ctx, j, evidence, notes, gaps)
     b = ctx.target_skill(j)
     return HandoffResult(
         handoff=j, verdict=verdict, decided_by=by, reason=reason, evidence=tuple(evidence),
-        starts_when=b.starts_when, parameters=dict(b.parameters), notes=tuple(notes),
+        starts_when=b.starts_when, parameters=dict(b.parameters), notes=tuple(notes), premise_checks=tuple(checks),
+        gaps=tuple(gaps),
     )

@@ -20,6 +20,9 @@ __all__ = ["CheckOptions", "CheckContext", "prepare_context"]
 class CheckOptions:
     """How to check. ``episodes``/``seed`` default to the chain file's values.
 
+    ``fail_on_gaps``: contract gaps (states A may stop in that B refuses, never reached in
+    simulation) break the handoff. ``fail_on_limits``: a declared limit of A exceeded in
+    simulation, or a command jump at the switch above ``handoff_limits.command_jump``, breaks it.
     ``start_samples``: initial states drawn to test the entry; ``model_samples``:
     particles for the model method; ``timeout_ms``: per z3 query; ``block_size``:
     episodes per simulation block (results do not depend on it for ``--method sim``
@@ -36,6 +39,8 @@ class CheckOptions:
     model_samples: int = 2000
     max_counterexamples: int = 5
     block_size: int = DEFAULT_BLOCK
+    fail_on_gaps: bool = False  # a contract gap breaks its handoff
+    fail_on_limits: bool = False  # a declared limit exceeded, or a command jump over the chain's bound, breaks it
     progress: Any = field(default=None, compare=False)  # progress(done, total) in episodes while simulating
 
     def __post_init__(self) -> None:

@@ -118,6 +118,7 @@ class Evidence:
     details: Mapping[str, Any] = field(default_factory=dict)
     points: Mapping[str, np.ndarray] | None = None
     accepted: np.ndarray | None = None
+    premises: tuple[Any, ...] = ()  # envelope.Premise objects a static proof used (not serialised)
 
     @property
     def decided(self) -> bool:

@@ -42,6 +42,8 @@ class HandoffResult:
     starts_when: Any = None
     parameters: Mapping[str, np.ndarray] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    premise_checks: tuple[Any, ...] = ()  # premises.PremiseCheck of a containment proof
+    gaps: tuple[Mapping[str, Any], ...] = ()  # contract gaps: state, violation, clause, reached, fix
 
     @property
     def index(self) -> int:
@@ -128,6 +130,8 @@ class HandoffResult:
             "evidence": [ev.to_dict() for ev in self.evidence],
             "starts_when": None if self.starts_when is None else str(self.starts_when),
             "notes": list(self.notes),
+            "proof_premises": [c.to_dict() for c in self.premise_checks],
+            "contract_gaps": [dict(g) for g in self.gaps],
         }
 
 

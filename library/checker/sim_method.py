@@ -126,6 +126,30 @@ def _handoff_reason(j: Handoff, est: Any, d: dict, stage: str, sim: Simulation) 
     )
 
 
+_LIMIT_UNITS = {"joint_speed": "rad/s", "end_effector_speed": "m/s", "torque": "N m"}
+
+
+def handoff_feel(a: Any, a_seg: Any, b_seg: Any, ran: np.ndarray) -> dict[str, Any]:
+    """What the next skill feels: A's worst value against each of its declared limits (episodes
+    where A ran) and the jump in commanded action at the switch (episodes where B acted)."""
+    limits = []
+    declared = getattr(a.skill, "limits", None)
+    for name, unit in _LIMIT_UNITS.items():
+        bound = getattr(declared, name, None) if declared is not None else None
+        peaks = a_seg.peaks.get(name)
+        if bound is None or peaks is None or not np.any(ran):
+            continue
+        worst = float(np.max(peaks[ran]))
+        limits.append({"limit": name, "declared": float(bound), "worst": worst, "unit": unit, "exceeded": worst > bound + 1e-9, "episodes": int(ran.sum())})
+    jump = None
+    if a_seg.last_command is not None and b_seg.first_command is not None:
+        both = np.all(np.isfinite(a_seg.last_command), axis=1) & np.all(np.isfinite(b_seg.first_command), axis=1)
+        if np.any(both):
+            size = np.max(np.abs(b_seg.first_command[both] - a_seg.last_command[both]), axis=1)
+            jump = {"max": float(size.max()), "p95": float(np.quantile(size, 0.95)), "switches": int(both.sum())}
+    return {"limits": limits, "command_jump": jump}
+
+
 def _handoff(ctx: Any, j: Handoff, sim: Simulation) -> Evidence:
     from ..runtime.records import EndReason
 
@@ -147,7 +171,8 @@ def _handoff(ctx: Any, j: Handoff, sim: Simulation) -> Evidence:
     rows = np.flatnonzero(ended)[:MAX_POINTS]
     return Evidence(
         "sim", est.verdict, _handoff_reason(j, est, d, stage, sim), estimate=est, counterexamples=cex,
-        details={**d, "decided_in_stage": stage, "episodes_run": rollout.n_episodes},
+        details={**d, "decided_in_stage": stage, "episodes_run": rollout.n_episodes,
+                 **handoff_feel(ctx.source_skill(j), a_seg, b_seg, np.isin(a_seg.reason, [0, 1, 2]))},
         points=_take(a_seg.end_state, rows), accepted=(~refused)[rows],
     )
 

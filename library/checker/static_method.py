@@ -32,7 +32,8 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from ..safety import PROOF_SCOPE
-from .envelope import Envelope, physical_envelope, raw_names, relaxed_names
+from .envelope import ASSUMED, Envelope, Premise, physical_envelope, raw_names, relaxed_names
+from .premises import premises_used
 from .evidence import Counterexample, Evidence, Handoff, counterexample_from
 from .registry import checker_method
 from .verdict import Verdict
@@ -340,19 +341,14 @@ def _static_handoff(ctx: Any, j: Handoff) -> Evidence:
     a, b = ctx.source_skill(j), ctx.target_skill(j)
     layout = ctx.layout
     state = set(layout.names)
-    envelope = physical_envelope(ctx.rig, a.skill.limits)
+    envelope = physical_envelope(ctx.rig, a.skill.limits, owner=a.ref)
     stop_a, const_a = bind_parameters(a.stops_when, a.parameters, state, "_a_")
     start_b, const_b = bind_parameters(b.starts_when, b.parameters, state, "_b_")
     judge = _Judge(ctx, a=a, b=b, envelope=envelope)
+    constants = {**const_a, **const_b}
     outcome = prove_handoff(
-        [stop_a, *envelope.premises],
-        start_b,
-        layout=layout,
-        constants={**const_a, **const_b},
-        bounds=envelope.bounds,
-        timeout_ms=ctx.options.timeout_ms,
-        max_models=max(1, ctx.options.max_counterexamples),
-        judge=judge,
+        [stop_a, *envelope.premises], start_b, layout=layout, constants=constants, bounds=envelope.bounds,
+        timeout_ms=ctx.options.timeout_ms, max_models=max(1, ctx.options.max_counterexamples), judge=judge,
     )
     used = set(a.stops_when.names) | set(b.starts_when.names)
     for p in envelope.premises:
@@ -360,7 +356,7 @@ def _static_handoff(ctx: Any, j: Handoff) -> Evidence:
     relaxed = relaxed_names(ctx.rig, used & state)
     details = {
         "relaxed": relaxed,
-        "assumptions": list(envelope.assumptions),
+        "envelope": list(envelope.assumptions),
         "timeouts": _timeout_note(a),
         "solver_calls": outcome.calls,
         "timeout_ms": ctx.options.timeout_ms,
@@ -368,30 +364,30 @@ def _static_handoff(ctx: Any, j: Handoff) -> Evidence:
     relax_text = f" (relaxed: {', '.join(relaxed)})" if relaxed else ""
     # A handoff's static evidence is about containment only: it never decides a verdict alone.
     if outcome.status == "proved":
+        declare = {n: s for n, s in layout.shapes().items() if n in ("qpos", "qvel")}
+        core = premises_used(stop_a, start_b, envelope.items, declare=declare, constants=constants, timeout_ms=ctx.options.timeout_ms)
+        core = list(envelope.items) if core is None else core  # z3 gave no core: every premise counts
+        listed = "; ".join(f"{p.label} [{p.kind}]" for p in core) or "none (the predicates alone)"
         reason = (
-            f"containment proved ({PROOF_SCOPE}): {a.ref} stops_when and the envelope imply {b.ref} starts_when{relax_text}; "
-            f"premises: {'; '.join(envelope.assumptions)}"
+            f"containment proved ({PROOF_SCOPE}): {a.ref} stops_when implies {b.ref} starts_when{relax_text}; "
+            f"premises used: {listed}"
         )
-        return Evidence("static", Verdict.UNSURE, reason, details={**details, "containment": "proved"})
+        details = {**details, "containment": "proved", "premises": [{"label": p.label, "kind": p.kind} for p in core]}
+        return Evidence("static", Verdict.UNSURE, reason, details=details, premises=tuple(core))
     if outcome.status == "unknown":
         reason = f"z3 could not decide containment ({outcome.reason or 'unknown'}) within {ctx.options.timeout_ms} ms"
         return Evidence("static", Verdict.UNSURE, reason, details={**details, "containment": "unknown"})
     confirmed, candidates = judge.confirmed, judge.candidates
     if confirmed:
         return Evidence(
-            "static",
-            Verdict.UNSURE,
+            "static", Verdict.UNSURE,
             f"containment fails: a state {a.ref} may stop in (realised in MuJoCo, inside the envelope) that {b.ref} refuses",
-            counterexamples=tuple(confirmed),
-            candidates=tuple(candidates),
-            details={**details, "containment": "counterexample"},
+            counterexamples=tuple(confirmed), candidates=tuple(candidates), details={**details, "containment": "counterexample"},
         )
     return Evidence(
-        "static",
-        Verdict.UNSURE,
+        "static", Verdict.UNSURE,
         f"candidate counterexample to containment{relax_text}: not realised as a physical state",
-        candidates=tuple(candidates),
-        details={**details, "containment": "candidate"},
+        candidates=tuple(candidates), details={**details, "containment": "candidate"},
     )
 
 
@@ -474,7 +470,7 @@ def _static_entry(ctx: Any, j: Handoff) -> Evidence | None:
     if any(np.any(lo > hi) for lo, hi in bounds.values()):
         return Evidence("static", Verdict.UNSURE, "the initial-state box lies outside the physical envelope; sampling decides")
     start_b, const_b = bind_parameters(b.starts_when, b.parameters, set(layout.names), "_b_")
-    in_box = Envelope(box, (), ())
+    in_box = Envelope((Premise("initial-state box", ASSUMED, box),))
 
     def accept_start(values: Mapping[str, np.ndarray]) -> bool:
         ok = bool(in_box.contains(values)[0])

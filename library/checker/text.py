@@ -78,11 +78,27 @@ def _legend(result: Any) -> str:
     )
 
 
+def _feel(j: Any) -> str:
+    """A's worst values against its declared limits and the command jump at the switch."""
+    sim = j.evidence_of("sim")
+    if sim is None or j.handoff.is_entry:
+        return ""
+    parts = [f"{x['limit']} worst {x['worst']:.3g} of declared {x['declared']:g} {x['unit']}" + (" (EXCEEDED)" if x["exceeded"] else "")
+             for x in sim.details.get("limits", [])]
+    jump = sim.details.get("command_jump")
+    if jump is not None:
+        parts.append(f"command jump at the switch max {jump['max']:.3g}, p95 {jump['p95']:.3g} over {jump['switches']} switches")
+    return ("at the handoff: " + "; ".join(parts)) if parts else ""
+
+
 def _handoff_lines(j: Any, width: int) -> list[str]:
     out = _wrap(f"{j.index} {j.label}: {j.verdict.value}" + (f" (decided by {j.decided_by})" if j.decided_by else "") + f": {j.reason}", "", width)
     more = _more(j)
     if more:
         out += _wrap(more, "    ", width)
+    feel = _feel(j)
+    if feel:
+        out += _wrap(feel, "    ", width)
     for n in j.notes:
         out += _wrap(n, "    note: ", width)
     if j.verdict is not Verdict.COMPOSES and j.counterexamples:

@@ -32,6 +32,10 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--workers", type=int, default=1, help="MuJoCo threads per block of episodes (results do not depend on it)")
     p.add_argument("--json", action="store_true", help="print the result as JSON (schema kinetome.check/1)")
     p.add_argument("--out", metavar="DIR", help="write the text, JSON and PNG plots to DIR")
+    p.add_argument("--fail-on-gaps", action="store_true",
+                   help="a contract gap (a state A may stop in that B refuses, even if never reached) breaks its handoff")
+    p.add_argument("--fail-on-limits", action="store_true",
+                   help="a declared limit exceeded in simulation, or a command jump above handoff_limits.command_jump, breaks its handoff")
     p.set_defaults(handler=_check)
 
 
@@ -49,6 +53,8 @@ def _check(args: argparse.Namespace) -> int:
             seed=args.seed,
             workers=args.workers,
             out=args.out,
+            fail_on_gaps=args.fail_on_gaps,
+            fail_on_limits=args.fail_on_limits,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:
