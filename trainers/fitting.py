@@ -30,6 +30,7 @@ from kinetome.library.option_models import (
     REWARD_OUTPUTS,
     DurationModel,
     EndStateModel,
+    HeldOutEpisodes,
     ModelsMeta,
     OptionModels,
     RewardModel,
@@ -37,6 +38,7 @@ from kinetome.library.option_models import (
     component_names,
     default_quantities,
     envelope_arrays,
+    fit_support,
     flatten_states,
     interval_coverage,
     regression_errors,
@@ -256,7 +258,9 @@ def fit_option_models(
         features=features, end_quantities=end_quantities, variant=v_name, variant_digest=v_digest,
         seed=int(seed), holdout=float(holdout), notes=tuple(notes),
     )
-    return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"])
+    support = fit_support(starts_tr, _take(starts_all, test), features)
+    held_out = HeldOutEpisodes.take(starts_all, ends_all, reasons, test, features, end_quantities)
+    return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"], support, held_out)
 
 
 def _segment(rollout: Any, segment_index: int, gamma: float | None, *, holdout: float, expansion: str) -> tuple[Any, float]:

@@ -12,8 +12,13 @@ from .features import EXPANSIONS, FeatureMap, component_names, default_quantitie
 from .heads import LinearHead, SoftmaxHead
 from .metrics import classification_errors, interval_coverage, regression_errors
 from .reward import REWARD_OUTPUTS, RewardModel
+from .support import SUPPORT_EPS, HeldOutEpisodes, SupportModel, fit_support
 
 __all__ = [
+    "SupportModel",
+    "HeldOutEpisodes",
+    "fit_support",
+    "SUPPORT_EPS",
     "OptionModels",
     "ModelsMeta",
     "OUTCOME_KEYS",

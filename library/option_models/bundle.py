@@ -11,6 +11,7 @@ from .duration import DurationModel
 from .end_state import END_STATE_OUTCOMES, EndStateModel
 from .reward import RewardModel
 from .serial import FORMAT, file_error
+from .support import HeldOutEpisodes, SupportModel
 
 
 __all__ = ["OptionModels", "ModelsMeta", "OUTCOME_KEYS"]
@@ -87,7 +88,9 @@ class OptionModels:
 
     ``end_state`` models where stopped turns end, ``end_state_timed_out``
     where timed-out turns end (the runtime hands over after both); either is
-    None when too few episodes ended that way to fit it.
+    None when too few episodes ended that way to fit it. ``support`` and
+    ``held_out`` (support.py) say where the models may be asked and keep the
+    held-out episodes; models fitted before they existed have None.
     """
 
     duration: DurationModel
@@ -95,6 +98,8 @@ class OptionModels:
     end_state: EndStateModel | None
     meta: ModelsMeta
     end_state_timed_out: EndStateModel | None = None
+    support: SupportModel | None = None  # where the models may be asked (None: fitted before support tests)
+    held_out: HeldOutEpisodes | None = None  # the held-out split, to measure the models' error on a question
 
     def end_states(self) -> dict[str, EndStateModel]:
         """outcome -> end-state model, for the outcomes that have one."""
@@ -169,12 +174,16 @@ class OptionModels:
             "kind": "option_models",
             "meta": self.meta.to_json(),
             "end_states": sorted(self.end_states()),
+            "parts": [name for name in ("support", "held_out") if getattr(self, name) is not None],
         }
         files = {"models.json": (json.dumps(header, sort_keys=True, indent=2, allow_nan=False) + "\n").encode()}
         files.update(self.duration.to_files())
         files.update(self.reward.to_files())
         for model in self.end_states().values():
             files.update(model.to_files())
+        for part in (self.support, self.held_out):
+            if part is not None:
+                files.update(part.to_files())
         return files
 
     @classmethod
@@ -197,8 +206,12 @@ class OptionModels:
             raise file_error("models.json", "end_states", f"must list outcomes among {sorted(END_STATE_OUTCOMES)}, got {outcomes!r}")
         ends = {o: EndStateModel.from_files(files, o) for o in outcomes}
         try:
+            parts = header.get("parts", [])
+            support = SupportModel.from_files(files) if "support" in parts else None
+            held_out = HeldOutEpisodes.from_files(files) if "held_out" in parts else None
             return cls(
-                DurationModel.from_files(files), RewardModel.from_files(files), ends.get("stopped"), meta, ends.get("timed_out")
+                DurationModel.from_files(files), RewardModel.from_files(files), ends.get("stopped"), meta, ends.get("timed_out"),
+                support, held_out,
             )
         except ValueError as exc:
             raise file_error("models.json", "", f"models do not fit together: {exc}", "pass files from one export") from None

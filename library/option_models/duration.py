@@ -60,13 +60,31 @@ class DurationModel:
         if unknown:
             raise ValueError(f"duration outcome classes must be among {sorted(OUTCOME_LABELS)}, got {unknown}")
 
+    def unseen_floor(self) -> float:
+        """The probability an outcome never seen in training gets: the exact one-sided 95% upper
+        bound after n training episodes without it, 1 - 0.05^(1/n) (about 3/n). Fitted models
+        record n; a hand-built model without it gets 0."""
+        n = int(self.errors.get("n_train") or 0)
+        return 1.0 - 0.05 ** (1.0 / n) if n > 0 else 0.0
+
+    def outcome_probabilities(self, x: np.ndarray) -> dict[str, np.ndarray]:
+        """p_stopped, p_timed_out, p_env_ended from features ``x``; outcomes the classifier never saw
+        in training get ``unseen_floor()`` each (never zero by construction), the seen ones share the rest."""
+        unseen = [label for label, code in OUTCOME_CODES.items() if code not in self.outcome.classes]
+        floor = min(self.unseen_floor(), 1.0 / max(1, len(OUTCOME_CODES)))
+        keep = 1.0 - floor * len(unseen)
+        out = {}
+        for label, code in OUTCOME_CODES.items():
+            p = self.outcome.probability(x, code)
+            out[f"p_{label}"] = np.full(x.shape[0], floor) if label in unseen else keep * p
+        return out
+
     def predict(self, start_states: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
         """name -> (B,): DURATION_OUTPUTS, handoff_discount, p_stopped, p_timed_out, p_env_ended."""
         x = self.features(start_states)
         heads = self.head(x)
         out = {name: heads[:, i] for i, name in enumerate(DURATION_OUTPUTS)}
-        for label, code in OUTCOME_CODES.items():
-            out[f"p_{label}"] = self.outcome.probability(x, code)
+        out.update(self.outcome_probabilities(x))
         # E[gamma^k 1{A}] can exceed neither E[gamma^k] nor P(A).
         out["stop_discount"] = np.minimum(out["stop_discount"], np.minimum(out["discount"], out["p_stopped"]))
         out["timeout_discount"] = np.minimum(out["timeout_discount"], np.minimum(out["discount"], out["p_timed_out"]))
@@ -80,7 +98,7 @@ class DurationModel:
         return self.head(self.features(start_states))[:, 1]
 
     def timeout_probability(self, start_states: Mapping[str, np.ndarray]) -> np.ndarray:
-        return self.outcome.probability(self.features(start_states), OUTCOME_CODES["timed_out"])
+        return self.outcome_probabilities(self.features(start_states))["p_timed_out"]
 
     def to_files(self) -> dict[str, bytes]:
         meta = {
