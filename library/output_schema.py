@@ -18,6 +18,7 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "diff": 1,
     "verify": 1,
     "import": 1,
+    "promote": 1,
     "run": 1,
     "fit": 1,
     "retrain": 1,

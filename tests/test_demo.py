@@ -56,3 +56,11 @@ def test_report_renders_in_headless_chromium(demo: Path) -> None:
     assert dom.count("<img") >= 5
     pixels = np.asarray(Image.open(shot).convert("L"), dtype=np.float64)
     assert pixels.std() > 10  # text, tables and images were painted, not a blank page
+
+
+def test_demo_json_has_a_schema_a_caution_and_the_vocabulary(demo: Path) -> None:
+    from tests.test_vocabulary import old_json_keys
+
+    summary = json.loads((demo / "demo.json").read_text())
+    assert summary["schema"] == "kinetome.demo/1" and "ISO 12100" in summary["caution"]
+    assert old_json_keys(summary) == []
