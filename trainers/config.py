@@ -18,7 +18,7 @@ from typing import Any
 
 from kinetome.library.errors import InvalidInputError, Problem
 from kinetome.library.renamed_keys import TRAIN_RENAMES, rename_document, rename_keys
-from kinetome.library.runtime.learned import CLOCK_INPUTS
+from kinetome.library.runtime.learned import CLOCK_INPUTS, STOP_MODES
 
 __all__ = [
     "TrainConfig",
@@ -33,13 +33,7 @@ __all__ = [
     "config_from_stored",
 ]
 
-# How a skill's stop probability beta(s, w) relates to its stops_when predicate:
-#   registered: beta = 1 where stops_when holds, 0 elsewhere (nothing learned; the stored behaviour)
-#   hard:       beta = 1 where stops_when holds, a learned sigmoid elsewhere (may stop early)
-#   confined:   a learned sigmoid where stops_when holds, 0 elsewhere (may run past its stop)
-#   learned:    a learned sigmoid everywhere
-# Every mode also stops a skill after max_steps.
-STOP_MODES = ("registered", "hard", "confined", "learned")
+# How a stop head relates to stops_when: see kinetome.library.runtime.learned (the runtime runs the same rule).
 
 @dataclass(frozen=True)
 class TrainConfig:

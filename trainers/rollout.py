@@ -29,7 +29,7 @@ from kinetome.library.errors import TrainingError
 from .config import TrainConfig
 from .normaliser import ObservationNormaliser, ReturnNormaliser, RunningMoments
 from .samples import EpisodeStats, Rollout, RolloutBuffer, StepEnd
-from kinetome.library.runtime.learned import clock_features, phase_angles
+from kinetome.library.runtime.learned import clock_features, phase_angles, stop_rule
 
 from .skill_policy import NO_SKILL, choose_skills, skill_values
 from .starts import StartSampler
@@ -43,22 +43,6 @@ _Clock = tuple[np.ndarray, np.ndarray, np.ndarray]  # (episode step, running ski
 
 def _flatten(state: dict[str, np.ndarray], names: Sequence[str], ids: np.ndarray) -> np.ndarray:
     return np.concatenate([state[n][ids].reshape(ids.size, -1) for n in names], axis=1)
-
-
-def _stop_rule(mode: str, stops: np.ndarray, timeout: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(forced, learnable): stops that end a skill regardless of beta, and where beta decides (``STOP_MODES``)."""
-    forced = timeout.copy()
-    if mode in ("registered", "hard"):
-        forced |= stops
-    if mode == "learned":
-        learnable = np.ones(len(stops), dtype=bool)
-    elif mode == "hard":
-        learnable = ~stops
-    elif mode == "confined":
-        learnable = stops
-    else:
-        learnable = np.zeros(len(stops), dtype=bool)
-    return forced, learnable & ~forced
 
 
 def arrival_value(q_w: np.ndarray, v: np.ndarray, stop_probability: np.ndarray) -> np.ndarray:
@@ -325,7 +309,7 @@ class Collector:
         """
         feats_after = self.features(after, self._clock(skill=w))
         q_after = self.q_values(feats_after)
-        forced, learnable = _stop_rule(self.config.stop_mode, stops, timeout)
+        forced, learnable = stop_rule(self.config.stop_mode, stops, timeout)
         beta, learned_stop = self._learned_stops(feats_after, w, learnable)
         available = self.available(after)
         stopped = (forced | learned_stop) & ~(terminated | over_limit)
