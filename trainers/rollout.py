@@ -306,6 +306,9 @@ class Collector:
         """Options mode: forced and learned stops, the next skill where one stopped, switch cost, termination targets.
 
         Where a skill stopped and no skill's starts_when holds, the episode ends there with a refusal.
+        Where its stops_when forced a skill to stop and the choice falls on that skill again, the option
+        goes on: no switch, no cost, its clock and duration keep running (a timeout or a learned stop
+        always ends the option).
         """
         feats_after = self.features(after, self._clock(skill=w))
         q_after = self.q_values(feats_after)
@@ -323,14 +326,16 @@ class Collector:
         if "time_remaining" in self.config.critic_inputs:  # the time limit is part of the task
             terminal, truncated = terminal | truncated, np.zeros(self.n, dtype=bool)
         ep_end = terminal | truncated
-        switched = stopped & ~refused
+        # the same skill chosen again after a forced stop by its stops_when is not a new option
+        goes_on = stopped & ~timeout & ~learned_stop & (next_skill == w)
+        switched = stopped & ~refused & ~goes_on
         v_after = skill_values(q_after, available, epsilon=self.epsilon)
         q_w = q_after[np.arange(self.n), w]
         stop_probability = np.where(forced, 1.0, np.where(learnable, beta, 0.0))
         return StepEnd(
             terminal=terminal,
             truncated=truncated,
-            skill_ends=forced | learned_stop | ep_end,
+            skill_ends=((forced | learned_stop) & ~goes_on) | ep_end,
             switched=switched,
             learned_stop=learned_stop,
             reward=reward - self.config.deliberation_cost * switched,

@@ -39,10 +39,11 @@ def test_learned_stops_by_beta_alone():
 
 
 def test_hard_always_stops_where_stops_when_holds():
-    # stops_when always true, beta ~ 0 (logit -20): every step is a forced stop, none learned
-    st = _stats("hard", "norm(qpos) < 5", -20.0)
+    # stops_when always true, beta ~ 0 (logit -20): every step is a forced stop, none learned; choosing the
+    # same skill again goes on with the same option, so options end only at switches and timeouts
+    st = _stats("hard", "norm(qpos) < 5", -20.0, max_steps=12)
     assert st.learned_terminations == 0
-    assert np.mean(st.skill_durations) == pytest.approx(1.0)
+    assert np.mean(st.skill_durations) > 2.0 and max(st.skill_durations) == 12
 
 
 def test_hard_with_low_beta_runs_until_timeout_outside_stops_when():

@@ -96,7 +96,7 @@ def test_a_stop_with_no_skill_available_ends_the_episode_with_a_refusal(rig):
     trainer = OptionCriticTrainer(skills, rig, quick_config(env_step_budget=16 * 32, stop_mode="registered"), episode_per_skill=False)
     trainer.collector.start()
     trainer.collector.collect()
-    assert trainer.collector.stats.refusals == 0 and trainer.collector.stats.terminations > 0
+    assert trainer.collector.stats.refusals == 0 and trainer.collector.stats.returns == []  # no episode ended
 
 
 def test_train_skills_rejects_bad_sets(rig):
@@ -139,3 +139,32 @@ def test_truncated_episodes_bootstrap_with_the_value_on_arrival(rig, stop_text, 
     else:
         np.testing.assert_allclose(boot, np.where(rollout.skill[truncated] == 0, 10.0, -10.0), rtol=0, atol=1e-12)
     np.testing.assert_array_equal(rollout.rewards[~truncated], 1.0)
+
+
+def test_choosing_the_same_skill_after_a_forced_stop_goes_on_with_the_same_option(rig):
+    # stops_when holds everywhere (a skill whose stop region holds at rest): registered mode forces a stop
+    # every step. Choosing the same skill again is not a new option: no switch cost, its clock keeps running.
+    import dataclasses
+
+    from kinetome.library.predicates import parse_predicate
+
+    flat_reward = dataclasses.replace(rig, reward=lambda before, action, after: (np.ones(len(after["qpos"])), {}))
+    skills = []
+    for name in ("a", "b"):
+        s = reach_skill(flat_reward, gain=1.0, max_steps=500)
+        s.name, s.starts_when = name, None
+        s.stops_when = parse_predicate("norm(qpos) < 5", rig.layout.shapes())
+        skills.append(s)
+    cfg = quick_config(env_step_budget=16 * 32, stop_mode="registered", scale_rewards=False, max_episode_steps=1000,
+                       skill_epsilon=0.3, deliberation_cost=0.5)
+    trainer = OptionCriticTrainer(skills, flat_reward, cfg, episode_per_skill=False)
+    trainer.collector.start()
+    r = trainer.collector.collect()
+    changed = r.skill[1:] != r.skill[:-1]
+    assert changed.any() and (~changed).any()
+    np.testing.assert_array_equal(r.rewards[:-1], np.where(changed, 0.5, 1.0))  # eta only where the skill changed
+    dt = rig.dt
+    np.testing.assert_allclose(r.skill_time[1:][~changed], r.skill_time[:-1][~changed] + dt)  # the clock runs on
+    np.testing.assert_array_equal(r.skill_time[1:][changed], 0.0)
+    # durations: runs of one skill, not single steps
+    assert np.mean(trainer.collector.stats.skill_durations) > 2.0
