@@ -305,16 +305,18 @@ class Collector:
     def _end_of_options_step(self, after, w, reward, stops, terminated, timeout, over_limit) -> StepEnd:
         """Options mode: forced and learned stops, the next skill where one stopped, switch cost, termination targets.
 
-        Where a skill stopped and no skill's starts_when holds, the episode ends there with a refusal.
+        Where a skill stopped and no skill's starts_when holds, the episode ends there with a refusal;
+        a learned stop is only possible where some skill could take over.
         Where its stops_when forced a skill to stop and the choice falls on that skill again, the option
         goes on: no switch, no cost, its clock and duration keep running (a timeout or a learned stop
         always ends the option).
         """
         feats_after = self.features(after, self._clock(skill=w))
         q_after = self.q_values(feats_after)
-        forced, learnable = stop_rule(self.config.stop_mode, stops, timeout)
-        beta, learned_stop = self._learned_stops(feats_after, w, learnable)
         available = self.available(after)
+        forced, learnable = stop_rule(self.config.stop_mode, stops, timeout)
+        learnable &= available.any(axis=1)  # a learned stop needs a skill to switch to
+        beta, learned_stop = self._learned_stops(feats_after, w, learnable)
         stopped = (forced | learned_stop) & ~(terminated | over_limit)
         next_skill = w.copy()
         sw = np.flatnonzero(stopped)
