@@ -32,6 +32,7 @@ __all__ = [
     "stop_rule",
     "FeatureScaler",
     "TanhNet",
+    "TrainedFeatures",
     "LearnedStop",
     "Chooser",
     "StopDraws",
@@ -174,14 +175,38 @@ class StopDraws:
         return np.array([self._rngs[int(i)].random() for i in episodes], dtype=np.float64)
 
 
-def _features(rig: Any, scaler: FeatureScaler, state: Mapping[str, np.ndarray], width: int) -> np.ndarray:
-    obs = np.asarray(rig.observe(state), dtype=np.float64)
-    if obs.shape[1] != width:
-        raise ValueError(
-            f"features must have {width} entries (the training env's observation), got {obs.shape[1]} from {rig.env_id}; "
-            "run the version on the env it was trained on"
-        )
-    return scaler(obs)
+@dataclass(frozen=True, eq=False)
+class TrainedFeatures:
+    """The trainer's network inputs: standardised ``rig.observe(state)``, then the clock inputs it used."""
+
+    scaler: FeatureScaler
+    inputs: tuple[str, ...] = ()  # CLOCK_INPUTS used in training
+    limit: int = 1  # the episode step limit time_remaining counted against
+
+    def __call__(self, rig: Any, state: Mapping[str, np.ndarray], width: int, *, episode_step: np.ndarray | None = None,
+                 phase: np.ndarray | None = None) -> np.ndarray:
+        obs = np.asarray(rig.observe(state), dtype=np.float64)
+        n_clock = clock_features(self.inputs, episode_step=np.zeros(1), limit=1, phase=np.zeros(1)).shape[1]
+        if obs.shape[1] + n_clock != width:
+            raise ValueError(
+                f"features must have {width - n_clock} observation entries (the training env's), got {obs.shape[1]} "
+                f"from {rig.env_id}; run the version on the env it was trained on"
+            )
+        x = self.scaler(obs)
+        if not self.inputs:
+            return x
+        n = obs.shape[0]
+        step = np.zeros(n) if episode_step is None else np.asarray(episode_step, dtype=np.float64)
+        angle = np.zeros(n) if phase is None else np.asarray(phase, dtype=np.float64)
+        return np.concatenate([x, clock_features(self.inputs, episode_step=step, limit=self.limit, phase=angle)], axis=1)
+
+    def describe(self) -> dict[str, Any]:
+        return {"critic_inputs": list(self.inputs), "episode_limit": int(self.limit)}
+
+    @classmethod
+    def from_files(cls, doc: Mapping[str, Any], normaliser: bytes) -> "TrainedFeatures":
+        inputs = tuple(str(x) for x in doc.get("critic_inputs", ()))
+        return cls(FeatureScaler.from_tensors(_load_tensors(normaliser)), inputs, int(doc.get("episode_limit", 1)))
 
 
 def _load_tensors(data: bytes) -> dict[str, np.ndarray]:
@@ -197,7 +222,7 @@ class LearnedStop:
     mode: str
     index: int
     net: TanhNet
-    scaler: FeatureScaler
+    features: TrainedFeatures
 
     def __post_init__(self) -> None:
         if self.mode not in STOP_MODES or self.mode == "registered":
@@ -210,9 +235,11 @@ class LearnedStop:
         """True when every stop lies inside stops_when (confined): static proofs then cover all stopped turns."""
         return self.mode == "confined"
 
-    def probability(self, rig: Any, state: Mapping[str, np.ndarray]) -> np.ndarray:
-        """beta(s), (B,): the probability that the skill stops in each state."""
-        logits = self.net(_features(rig, self.scaler, state, self.net.n_in))[:, self.index]
+    def probability(self, rig: Any, state: Mapping[str, np.ndarray], *, episode_step: np.ndarray | None = None,
+                    phase: np.ndarray | None = None) -> np.ndarray:
+        """beta(s), (B,): the probability that the skill stops in each state (clock inputs as trained)."""
+        x = self.features(rig, state, self.net.n_in, episode_step=episode_step, phase=phase)
+        logits = self.net(x)[:, self.index]
         return 1.0 / (1.0 + np.exp(-logits))
 
     def decide(self, stops: np.ndarray, timeout: np.ndarray, beta: np.ndarray, u: np.ndarray) -> np.ndarray:
@@ -230,15 +257,14 @@ class LearnedStop:
         return f"learned stop ({self.mode}): {text}"
 
     def to_json(self) -> bytes:
-        return json.dumps({"schema": "kinetome.learned-stop/1", "mode": self.mode, "index": self.index}, sort_keys=True).encode()
+        doc = {"schema": "kinetome.learned-stop/1", "mode": self.mode, "index": self.index, **self.features.describe()}
+        return json.dumps(doc, sort_keys=True).encode()
 
     @classmethod
     def from_files(cls, stop_json: bytes, heads: bytes, normaliser: bytes) -> "LearnedStop":
-        doc = json.loads(stop_json.decode("utf-8"))
-        if not isinstance(doc, dict) or doc.get("schema") != "kinetome.learned-stop/1":
-            raise ValueError(f"{LEARNED_STOP_FILE} must have schema kinetome.learned-stop/1, got {doc!r:.80}")
+        doc = _document(stop_json, "kinetome.learned-stop/1", LEARNED_STOP_FILE)
         return cls(str(doc["mode"]), int(doc["index"]), TanhNet.from_tensors(_load_tensors(heads), "heads"),
-                   FeatureScaler.from_tensors(_load_tensors(normaliser)))
+                   TrainedFeatures.from_files(doc, normaliser))
 
 
 @dataclass(frozen=True, eq=False)
@@ -247,30 +273,37 @@ class Chooser:
 
     skill_refs: tuple[str, ...]
     net: TanhNet
-    scaler: FeatureScaler
+    features: TrainedFeatures
 
     def __post_init__(self) -> None:
         if len(self.skill_refs) != self.net.n_out:
             raise ValueError(f"chooser must name {self.net.n_out} skills (one per critic output), got {len(self.skill_refs)}")
 
-    def values(self, rig: Any, state: Mapping[str, np.ndarray]) -> np.ndarray:
+    def values(self, rig: Any, state: Mapping[str, np.ndarray], *, episode_step: np.ndarray | None = None,
+               phase: np.ndarray | None = None) -> np.ndarray:
         """Q(s, w) for every skill, (B, n_skills)."""
-        return self.net(_features(rig, self.scaler, state, self.net.n_in))
+        return self.net(self.features(rig, state, self.net.n_in, episode_step=episode_step, phase=phase))
 
-    def choose(self, rig: Any, state: Mapping[str, np.ndarray], available: np.ndarray) -> np.ndarray:
+    def choose(self, rig: Any, state: Mapping[str, np.ndarray], available: np.ndarray, **clock: Any) -> np.ndarray:
         """(B,) int64: the available skill with the highest Q (first on ties), -1 where none is available."""
         available = np.asarray(available, dtype=bool)
-        q = np.where(available, self.values(rig, state), -np.inf)
+        q = np.where(available, self.values(rig, state, **clock), -np.inf)
         return np.where(available.any(axis=1), np.argmax(q, axis=1), -1).astype(np.int64)
 
-    def to_files(self, network: bytes, normaliser: bytes) -> dict[str, bytes]:
-        doc = {"schema": "kinetome.chooser/1", "skills": list(self.skill_refs)}
-        return {CHOOSER_FILE: json.dumps(doc, sort_keys=True).encode(), CHOOSER_NET_FILE: network, NORMALISER_FILE: normaliser}
+    def to_json(self) -> bytes:
+        doc = {"schema": "kinetome.chooser/1", "skills": list(self.skill_refs), **self.features.describe()}
+        return json.dumps(doc, sort_keys=True).encode()
 
     @classmethod
     def from_files(cls, files: Mapping[str, bytes]) -> "Chooser":
-        doc = json.loads(files[CHOOSER_FILE].decode("utf-8"))
-        if not isinstance(doc, dict) or doc.get("schema") != "kinetome.chooser/1":
-            raise ValueError(f"{CHOOSER_FILE} must have schema kinetome.chooser/1, got {doc!r:.80}")
+        """From the files of a ``CHOOSER_KIND`` model: ``chooser.json``, the critic and the normaliser."""
+        doc = _document(files[CHOOSER_FILE], "kinetome.chooser/1", CHOOSER_FILE)
         return cls(tuple(str(s) for s in doc["skills"]), TanhNet.from_tensors(_load_tensors(files[CHOOSER_NET_FILE]), "critic"),
-                   FeatureScaler.from_tensors(_load_tensors(files[NORMALISER_FILE])))
+                   TrainedFeatures.from_files(doc, files[NORMALISER_FILE]))
+
+
+def _document(data: bytes, schema: str, role: str) -> dict[str, Any]:
+    doc = json.loads(data.decode("utf-8"))
+    if not isinstance(doc, dict) or doc.get("schema") != schema:
+        raise ValueError(f"{role} must have schema {schema}, got {doc!r:.80}")
+    return doc

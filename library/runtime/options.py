@@ -20,7 +20,7 @@ import numpy as np
 
 from kinetome.envs.named_state import take_states
 
-from .learned import Chooser, StopDraws, stop_rule
+from .learned import Chooser, StopDraws, phase_angles, stop_rule
 from .seeding import ExplorationNoise
 from .sim import SimBatch
 from .skill import LoadedSkill
@@ -83,6 +83,7 @@ class _Episodes:
         self.current = np.full(n, _NONE, dtype=np.int64)  # running skill; -1: choose one
         self.pending = np.full(n, _NONE, dtype=np.int64)  # skill stopped by a forced stop, turn not yet closed
         self.clock = np.zeros(n, dtype=np.int64)  # steps of the current turn
+        self.last = np.zeros(n, dtype=np.int64)  # the skill that ran last
         self.returns = np.zeros(n)
         self.discounted = np.zeros(n)
         self.steps = np.zeros(n, dtype=np.int64)
@@ -123,7 +124,9 @@ def _choose(skills: Sequence[LoadedSkill], chooser: Chooser, sim: SimBatch, ep: 
         return
     state = sim.state(need, extra=extra)
     available = np.stack([s.starts_when.evaluate({**s.parameters, **state}) for s in skills], axis=1)
-    choice = chooser.choose(sim.rig, state, available)
+    # clock inputs as in training: steps so far, and the phase of the skill that ran last at its clock
+    phase = phase_angles([s.controller for s in skills], ep.last[need], ep.clock[need] * sim.rig.dt)
+    choice = chooser.choose(sim.rig, state, available, episode_step=ep.steps[need], phase=phase)
     ep.finish(need[choice < 0], "refused")
     ids, choice = need[choice >= 0], choice[choice >= 0]
     same = choice == ep.pending[ids]  # the same skill right after a forced stop: its turn goes on
@@ -146,20 +149,28 @@ def _act(skills, sim: SimBatch, ep: _Episodes, ids: np.ndarray, state: dict, noi
 
 
 def _end_turns(skills, sim: SimBatch, ep: _Episodes, ids: np.ndarray, after: dict, draws: StopDraws | None) -> None:
-    """Close the turns that stopped or timed out after this step; forced stops wait for the next choice."""
+    """Close the turns that stopped or timed out after this step; forced stops wait for the next choice.
+
+    As in training, a learned stop is only possible where some skill could take over.
+    """
+    could_switch = np.zeros(ids.size, dtype=bool)
+    for skill in skills:
+        could_switch |= skill.starts_when.evaluate({**skill.parameters, **after})
     for k, skill in enumerate(skills):
         rows = np.flatnonzero(ep.current[ids] == k)
         if rows.size == 0:
             continue
         sub, run = take_states(after, rows), ids[rows]
+        ep.last[run] = k
         holds = skill.stops_when.evaluate({**skill.parameters, **sub})
         timeout = ep.clock[run] >= skill.max_steps
         mode = "registered" if skill.learned_stop is None else skill.learned_stop.mode
         by_rule, learnable = stop_rule(mode, holds, np.zeros(rows.size, dtype=bool))
         learned = np.zeros(rows.size, dtype=bool)
         if skill.learned_stop is not None:
-            beta = skill.learned_stop.probability(sim.rig, sub)
-            learned = learnable & ~timeout & (draws.draw(run) < beta)
+            phase = phase_angles([skill.controller], np.zeros(rows.size, dtype=np.int64), ep.clock[run] * sim.rig.dt)
+            beta = skill.learned_stop.probability(sim.rig, sub, episode_step=ep.steps[run], phase=phase)
+            learned = learnable & could_switch[rows] & ~timeout & (draws.draw(run) < beta)
         timeout &= ~by_rule
         ep.close(run[learned], np.full(int(learned.sum()), k), True)
         ep.close(run[timeout], np.full(int(timeout.sum()), k), False)

@@ -10,7 +10,7 @@ import torch
 from safetensors.numpy import save
 
 from kinetome.library.runtime.execute import reference_run_chain, run_chain, run_skill
-from kinetome.library.runtime.learned import STOP_MODES, FeatureScaler, LearnedStop, TanhNet, stop_rule
+from kinetome.library.runtime.learned import STOP_MODES, FeatureScaler, LearnedStop, TanhNet, TrainedFeatures, stop_rule
 from kinetome.library.runtime.records import EndReason
 from kinetome.library.runtime.starts import sample_starts
 from tests.trainers.pointmass import loaded_reach, make_pointmass
@@ -66,7 +66,7 @@ def test_stored_network_and_scaler_match_the_trainers_torch_versions():
 def _stop(mode: str, logit: float, n_features: int = 4, n_skills: int = 1, index: int = 0) -> LearnedStop:
     """A stop head with a constant probability sigmoid(logit) in every state."""
     net = TanhNet((np.zeros((n_skills, n_features)),), (np.full(n_skills, logit),))
-    return LearnedStop(mode, index, net, FeatureScaler(np.zeros(n_features), np.ones(n_features)))
+    return LearnedStop(mode, index, net, TrainedFeatures(FeatureScaler(np.zeros(n_features), np.ones(n_features))))
 
 
 def _run(rig, skill, n=24, seed=3, **kw):
