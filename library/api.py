@@ -151,6 +151,51 @@ def run(
     return tagged("run", summary)
 
 
+@renamed_arguments({"start": "initial_states"})
+def run_chooser(
+    ref: str,
+    *,
+    store: Any,
+    variant: str | Path | None = None,
+    initial_states: str | Path | None = None,
+    episodes: int = 100,
+    seed: int = 0,
+    workers: int = 1,
+    progress: Any = None,
+) -> dict[str, Any]:
+    """Run the skills trained together with ``ref`` under their chooser (the policy over skills) and summarise."""
+    from .runtime.files import CHOOSER_KIND
+    from .runtime.learned import Chooser
+    from .runtime.options import run_options
+    from .safety import caution_for
+    from .tasks import load_start_file, load_variant_file, task_rig
+
+    if episodes < 1:
+        from .errors import InvalidInputError
+
+        raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
+    from .errors import NotFoundError
+
+    try:
+        model = store.get_model(ref, CHOOSER_KIND)
+    except NotFoundError:
+        raise NotFoundError(
+            f"{ref} must have been trained together with other skills (`kinetome train`) to run under a chooser, "
+            "got a version without one; run it alone without --chooser"
+        ) from None
+    chooser = Chooser.from_files({role: store.read_model(model, role) for role in model.roles})
+    first = load(chooser.skill_refs[0], store=store)
+    rig = task_rig(first.skill.env, load_variant_file(variant))
+    skills = [load(r, store=store, rig=rig) for r in chooser.skill_refs]
+    qpos, qvel = sample_initial_states(rig, load_start_file(initial_states), episodes, seed=seed)
+    out = run_options(skills, chooser, rig, starts=(qpos, qvel), seed=seed, workers=workers,
+                      episode_steps=chooser.features.limit or None, progress=progress)
+    summary = out.summary()
+    summary.update(chooser=model.ref, variant=None if variant is None else str(variant), caution=caution_for(rig),
+                   stops={s.ref: "stops_when" if s.learned_stop is None else s.learned_stop.describe() for s in skills})
+    return tagged("run-chooser", summary)
+
+
 MODEL_KIND = "option-models"
 
 
@@ -346,6 +391,7 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     from kinetome.trainers.train_set import train_skills
 
     from .errors import InvalidInputError
+    from .runtime.files import CHOOSER_KIND
     from .safety import caution_for
     from .stored_meta import current_meta, variant_record
 
@@ -364,7 +410,9 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=folder / "checkpoints")
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"train {Path(config_path).stem}")
     shared = current_meta({**result.metadata(), "method": "train", "variant": variant_record(task.variant, variant), "initial_states": task.initial_states, "trained_with": list(loaded.skills)})
-    children = [_store_trained(store, s, result, shared) for s in skills]
+    children = [_store_trained(store, s, result, shared, index) for index, s in enumerate(skills)]
+    chooser_refs = [store.attach_model(child, CHOOSER_KIND, result.chooser_files(children), {"skills": children}).ref
+                    for child in children]
     return tagged("train", {
         "skills": list(result.skill_refs),
         "children": children,
@@ -375,23 +423,24 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
         "env_steps": result.steps,
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),
+        "stop_mode": cfg.stop_mode,
+        "chooser": chooser_refs[0],
         "caution": caution_for(rig),
     })
 
 
-def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any]) -> str:
-    """Store one skill refined by ``train`` as a child version; returns its ref."""
+def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any], index: int) -> str:
+    """Store skill ``index`` refined by ``train`` as a child version (with its learned stop, if any); returns its ref."""
+    from .runtime.files import NORMALISER_FILE
     from .runtime.skill import PARAMS_FILE, SPEC_FILE
     from .spec import canonical_json, skill_to_document
 
     files = {
         SPEC_FILE: canonical_json(skill_to_document(skill.skill)),
         PARAMS_FILE: result.parameters_bytes[skill.ref],
-        "normaliser.safetensors": result.normaliser,
-        "critic.safetensors": result.critic,
+        NORMALISER_FILE: result.normaliser,
+        **result.stop_files(index),  # the learned stop this version runs with (stop modes other than registered)
     }
-    if result.terminations is not None:
-        files["terminations.safetensors"] = result.terminations
     meta = {**shared, "description": skill.skill.description, "env": skill.skill.env, "kind": skill.skill.controller.kind}
     return store.add(skill.skill.name, files, parent=skill.ref, reason="retrained", meta=meta).version.ref
 

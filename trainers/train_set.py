@@ -54,7 +54,28 @@ class TrainSetResult:
     config: TrainConfig
     completed: bool
     wall_time: float
+    episode_limit: int = 0  # steps an episode lasted at most (the clock inputs count against it)
     TITLE = "options {self.skill_refs}"
+
+    def stop_files(self, index: int) -> dict[str, bytes]:
+        """The files that make skill ``index`` run its learned stop as trained (none in ``registered`` mode)."""
+        from kinetome.library.runtime.files import LEARNED_STOP_FILE, STOP_HEADS_FILE
+        from kinetome.library.runtime.learned import learned_stop_json
+
+        if self.terminations is None:
+            return {}
+        doc = learned_stop_json(self.config.stop_mode, index, self.config.critic_inputs, self.episode_limit)
+        return {LEARNED_STOP_FILE: doc, STOP_HEADS_FILE: self.terminations}
+
+    def chooser_files(self, refs: list[str]) -> dict[str, bytes]:
+        """The policy over skills as a runnable chooser over the stored ``refs`` (in training order)."""
+        from kinetome.library.runtime.files import CHOOSER_FILE, CHOOSER_NET_FILE, NORMALISER_FILE
+        from kinetome.library.runtime.learned import chooser_json
+
+        if len(refs) != len(self.skill_refs):
+            raise ValueError(f"refs must name the {len(self.skill_refs)} trained skills in order, got {refs}")
+        doc = chooser_json(refs, self.config.critic_inputs, self.episode_limit)
+        return {CHOOSER_FILE: doc, CHOOSER_NET_FILE: self.critic, NORMALISER_FILE: self.normaliser}
 
     def curve_csv(self) -> str:
         return curve_csv(self.curve)
@@ -174,6 +195,7 @@ def train_trainables(
         config=config,
         completed=outcome.completed,
         wall_time=time.perf_counter() - t0,
+        episode_limit=int(config.max_episode_steps or rig.max_episode_steps),
     )
 
 

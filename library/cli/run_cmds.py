@@ -28,6 +28,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--episodes", type=int, default=100, help="episodes to run (default 100)")
     p.add_argument("--seed", type=int, default=0, help="seed of the initial states and exploration (default 0)")
     p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--chooser", action="store_true",
+                   help="run the skills trained together with NAME@N (kinetome train) under their trained policy over skills")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_run)
 
@@ -55,6 +57,8 @@ def _store(args: argparse.Namespace) -> Any:
 def _run(args: argparse.Namespace) -> int:
     from ..api import run
 
+    if args.chooser:
+        return _run_chooser(args)
     bar = Progress(f"run {args.ref} ({args.episodes} episodes)", unit="steps", quiet=_quiet(args))
     summary = run(
         args.ref,
@@ -71,6 +75,29 @@ def _run(args: argparse.Namespace) -> int:
         print_json(summary)
         return 0
     print(format_run(summary))
+    return 0
+
+
+def _run_chooser(args: argparse.Namespace) -> int:
+    from ..api import run_chooser
+
+    with Progress(f"run {args.ref} under its chooser ({args.episodes} episodes)", unit="steps", quiet=_quiet(args)) as bar:
+        summary = run_chooser(
+            args.ref, store=_store(args), variant=args.variant, initial_states=args.initial_states, episodes=args.episodes,
+            seed=args.seed, workers=args.workers, progress=lambda done, total: bar.update(done, total=total),
+        )
+    if args.json:
+        print_json(summary)
+        return 0
+    print(f"{summary['chooser']}: {', '.join(summary['skills'])} on {summary['env']}" + (f" with variant {summary['variant']}" if summary["variant"] else ""))
+    r, d = summary["return"], summary["duration"]
+    print(f"  return    mean {r['mean']:.3f}  std {r['std']:.3f}  discounted (gamma {r['gamma']}) {r['discounted_mean']:.3f}")
+    print(f"  duration  mean {d['mean']:.1f} steps  max {d['max']}")
+    print(f"  turns     {summary['turns_per_episode']:.2f} per episode, mean {summary['turn_duration_mean']:.1f} steps")
+    print("  outcomes  " + ", ".join(f"{k} {v}" for k, v in summary["outcomes"].items() if v))
+    print_table([{"skill": ref, "share": share, "stop": summary["stops"][ref]} for ref, share in summary["skill_share"].items()],
+                [("skill", "SKILL"), ("share", "SHARE OF STEPS"), ("stop", "STOPS BY")])
+    print(summary["caution"])
     return 0
 
 

@@ -35,6 +35,8 @@ __all__ = [
     "TrainedFeatures",
     "LearnedStop",
     "Chooser",
+    "learned_stop_json",
+    "chooser_json",
     "StopDraws",
 ]
 
@@ -181,7 +183,7 @@ class TrainedFeatures:
 
     scaler: FeatureScaler
     inputs: tuple[str, ...] = ()  # CLOCK_INPUTS used in training
-    limit: int = 1  # the episode step limit time_remaining counted against
+    limit: int = 0  # the training's episode step limit (time_remaining counts against it); 0: not recorded
 
     def __call__(self, rig: Any, state: Mapping[str, np.ndarray], width: int, *, episode_step: np.ndarray | None = None,
                  phase: np.ndarray | None = None) -> np.ndarray:
@@ -200,13 +202,10 @@ class TrainedFeatures:
         angle = np.zeros(n) if phase is None else np.asarray(phase, dtype=np.float64)
         return np.concatenate([x, clock_features(self.inputs, episode_step=step, limit=self.limit, phase=angle)], axis=1)
 
-    def describe(self) -> dict[str, Any]:
-        return {"critic_inputs": list(self.inputs), "episode_limit": int(self.limit)}
-
     @classmethod
     def from_files(cls, doc: Mapping[str, Any], normaliser: bytes) -> "TrainedFeatures":
         inputs = tuple(str(x) for x in doc.get("critic_inputs", ()))
-        return cls(FeatureScaler.from_tensors(_load_tensors(normaliser)), inputs, int(doc.get("episode_limit", 1)))
+        return cls(FeatureScaler.from_tensors(_load_tensors(normaliser)), inputs, int(doc.get("episode_limit", 0)))
 
 
 def _load_tensors(data: bytes) -> dict[str, np.ndarray]:
@@ -257,8 +256,7 @@ class LearnedStop:
         return f"learned stop ({self.mode}): {text}"
 
     def to_json(self) -> bytes:
-        doc = {"schema": "kinetome.learned-stop/1", "mode": self.mode, "index": self.index, **self.features.describe()}
-        return json.dumps(doc, sort_keys=True).encode()
+        return learned_stop_json(self.mode, self.index, self.features.inputs, self.features.limit)
 
     @classmethod
     def from_files(cls, stop_json: bytes, heads: bytes, normaliser: bytes) -> "LearnedStop":
@@ -291,8 +289,7 @@ class Chooser:
         return np.where(available.any(axis=1), np.argmax(q, axis=1), -1).astype(np.int64)
 
     def to_json(self) -> bytes:
-        doc = {"schema": "kinetome.chooser/1", "skills": list(self.skill_refs), **self.features.describe()}
-        return json.dumps(doc, sort_keys=True).encode()
+        return chooser_json(self.skill_refs, self.features.inputs, self.features.limit)
 
     @classmethod
     def from_files(cls, files: Mapping[str, bytes]) -> "Chooser":
@@ -300,6 +297,18 @@ class Chooser:
         doc = _document(files[CHOOSER_FILE], "kinetome.chooser/1", CHOOSER_FILE)
         return cls(tuple(str(s) for s in doc["skills"]), TanhNet.from_tensors(_load_tensors(files[CHOOSER_NET_FILE]), "critic"),
                    TrainedFeatures.from_files(doc, files[NORMALISER_FILE]))
+
+
+def learned_stop_json(mode: str, index: int, inputs: tuple[str, ...], limit: int) -> bytes:
+    """``learned_stop.json``: the stop mode, which head is this skill's, and the clock inputs it was trained with."""
+    doc = {"schema": "kinetome.learned-stop/1", "mode": mode, "index": int(index), "critic_inputs": list(inputs), "episode_limit": int(limit)}
+    return json.dumps(doc, sort_keys=True).encode()
+
+
+def chooser_json(refs: Any, inputs: tuple[str, ...], limit: int) -> bytes:
+    """``chooser.json``: the stored skills in critic order and the clock inputs the critic was trained with."""
+    doc = {"schema": "kinetome.chooser/1", "skills": list(refs), "critic_inputs": list(inputs), "episode_limit": int(limit)}
+    return json.dumps(doc, sort_keys=True).encode()
 
 
 def _document(data: bytes, schema: str, role: str) -> dict[str, Any]:

@@ -27,7 +27,7 @@ from .skill import LoadedSkill
 
 __all__ = ["OptionsRollout", "run_options", "EPISODE_ENDS"]
 
-EPISODE_ENDS = ("env_ended", "timed_out", "refused")
+EPISODE_ENDS = ("env_ended", "timed_out", "refused")  # how an episode ended (the vocabulary's outcomes)
 _NONE = -1
 
 
@@ -68,7 +68,7 @@ class OptionsRollout:
             "return": {"mean": float(np.mean(self.returns)), "std": float(np.std(self.returns)),
                        "discounted_mean": float(np.mean(self.discounted_returns)), "gamma": self.gamma},
             "duration": {"mean": float(np.mean(self.steps)), "max": int(np.max(self.steps))},
-            "ended": {label: int(np.sum(self.ended == i)) for i, label in enumerate(EPISODE_ENDS)},
+            "outcomes": {label: int(np.sum(self.ended == i)) for i, label in enumerate(EPISODE_ENDS)},
             "turns_per_episode": float(self.turn_steps.size / n) if n else float("nan"),
             "turn_duration_mean": float(np.mean(self.turn_steps)) if self.turn_steps.size else float("nan"),
             "skill_share": {ref: float(s / total) if total else 0.0 for ref, s in zip(self.skill_refs, self.skill_steps.sum(axis=0))},

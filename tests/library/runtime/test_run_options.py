@@ -53,7 +53,7 @@ def test_greedy_choice_timeouts_and_the_episode_limit(rig):
         assert out.turn_steps[out.turn_episode == e].tolist() == [15, 15, 10]
     assert not out.turn_stopped.any()
     s = out.summary()
-    assert s["skill_share"] == {"s0": 0.0, "s1": 1.0} and s["ended"]["timed_out"] == 8
+    assert s["skill_share"] == {"s0": 0.0, "s1": 1.0} and s["outcomes"]["timed_out"] == 8
 
 
 def test_unavailable_skills_are_skipped_and_no_available_skill_is_a_refusal(rig):
