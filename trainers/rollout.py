@@ -332,6 +332,9 @@ class Collector:
         goes_on = stopped & ~timeout & ~learned_stop & (next_skill == w)
         switched = stopped & ~refused & ~goes_on
         v_after = skill_values(q_after, available, epsilon=self.epsilon)
+        # the stop decision compares with the best skill that could take over: exploration in the choice
+        # (epsilon) is not part of what switching is worth
+        v_best = skill_values(q_after, available, epsilon=0.0)
         q_w = q_after[np.arange(self.n), w]
         stop_probability = np.where(forced, 1.0, np.where(learnable, beta, 0.0))
         return StepEnd(
@@ -342,7 +345,7 @@ class Collector:
             learned_stop=learned_stop,
             reward=reward - self.config.deliberation_cost * switched,
             term_weight=(learnable & ~ep_end).astype(np.float64),
-            term_advantage=q_w - v_after,
+            term_advantage=q_w - v_best,
             feats_after=feats_after,
             bootstrap=arrival_value(q_w, v_after, stop_probability),
             next_skill=next_skill,

@@ -168,3 +168,24 @@ def test_choosing_the_same_skill_after_a_forced_stop_goes_on_with_the_same_optio
     np.testing.assert_array_equal(r.skill_time[1:][changed], 0.0)
     # durations: runs of one skill, not single steps
     assert np.mean(trainer.collector.stats.skill_durations) > 2.0
+
+
+def test_stop_advantage_compares_with_the_best_skill_that_could_take_over(rig):
+    # Critic fixed at Q(a) = 10, Q(b) = -10: A(s', w) = Q(s', w) - max Q(s', .) is 0 for a and -20 for b. Against
+    # the epsilon-greedy value (0.95 * 10 + 0.05 * 0 = 9.5) a would get +0.5 and every greedy skill would be
+    # pushed to run on even with no deliberation cost; the choice's exploration is not what a switch is worth.
+    skills = []
+    for name in ("a", "b"):
+        s = reach_skill(rig, gain=1.0)
+        s.name, s.starts_when, s.stops_when = name, None, None
+        skills.append(s)
+    cfg = quick_config(env_step_budget=16 * 32, stop_mode="learned", skill_epsilon=0.3)
+    trainer = OptionCriticTrainer(skills, rig, cfg, episode_per_skill=False)
+    with torch.no_grad():
+        trainer.critic.net[-1].weight.zero_()
+        trainer.critic.net[-1].bias.copy_(torch.tensor([10.0, -10.0], dtype=torch.float64))
+    trainer.collector.start()
+    r = trainer.collector.collect()
+    assert set(np.unique(r.skill)) == {0, 1}
+    np.testing.assert_array_equal(r.term_advantage[r.skill == 0], 0.0)
+    np.testing.assert_array_equal(r.term_advantage[r.skill == 1], -20.0)
