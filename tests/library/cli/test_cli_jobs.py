@@ -156,15 +156,15 @@ def test_train_options_stores_children_and_reports_durations(store, tmp_path, ca
         code, view = _json(capsys, "--store", store, "show", child, "--json")
         assert view["reason"] == "retrained" and view["parent"].split("@")[0] == child.split("@")[0]
         assert view["meta"]["method"] == "train" and view["meta"]["variant"] is None and "stop_rate" in view["meta"]
-    # trained in "hard" mode: each child runs its own learned stop, and the policy over skills runs as a chooser
+    # trained in "learned" stop mode: each child runs its own learned stop, and the policy over skills runs as a chooser
     from kinetome.library.api import load
 
     loaded = [load(child, store=open_store(store)) for child in r["children"]]
-    assert [s.learned_stop.mode for s in loaded] == ["hard"] * 3 and [s.learned_stop.index for s in loaded] == [0, 1, 2]
+    assert [s.learned_stop.mode for s in loaded] == ["learned"] * 3 and [s.learned_stop.index for s in loaded] == [0, 1, 2]
     code, run = _json(capsys, "--store", store, "run", r["children"][1], "--chooser", "--episodes", "6", "--json")
     assert code == 0 and run["schema"] == "kinetome.run-chooser/1" and run["skills"] == r["children"]
     assert run["chooser"] == r["chooser"].replace(r["children"][0], r["children"][1]) and run["episodes"] == 6
-    assert sum(run["outcomes"].values()) == 6 and "learned stop (hard)" in run["stops"][r["children"][0]]
+    assert sum(run["outcomes"].values()) == 6 and "learned stop (learned)" in run["stops"][r["children"][0]]
     code = main(["--store", store, "run", r["children"][0], "--chooser", "--episodes", "4"])
     out = capsys.readouterr().out
     assert code == 0 and "SHARE OF STEPS" in out and "ISO 12100" in " ".join(out.split())
