@@ -113,7 +113,15 @@ def test_mlp_initialisation_is_deterministic_per_seed():
     init = init_weights(6, (64, 64), 2, 4)
     assert np.array_equal(a["w1"], init["w1"])
     assert a["w0"].shape == (64, 6) and a["w2"].shape == (2, 64) and a["b2"].shape == (2,)
-    assert np.all(np.abs(a["w0"]) <= 1 / math.sqrt(6))
+    # orthogonal by default: orthonormal columns/rows times sqrt(2) in hidden layers, 0.01 in the last
+    # (the defining property of torch.nn.init.orthogonal_; gains as common practice for the clipped objective)
+    np.testing.assert_allclose(a["w0"].T @ a["w0"], 2.0 * np.eye(6), atol=1e-12)
+    np.testing.assert_allclose(a["w1"] @ a["w1"].T, 2.0 * np.eye(64), atol=1e-12)
+    np.testing.assert_allclose(a["w2"] @ a["w2"].T, 1e-4 * np.eye(2), atol=1e-15)
+    u = build_controller("mlp", TINY, settings={"init_seed": 4, "init": "uniform"}).parameter_values()
+    assert np.all(np.abs(u["w0"]) <= 1 / math.sqrt(6)) and not np.allclose(u["w0"].T @ u["w0"], 2.0 * np.eye(6), atol=0.1)
+    with pytest.raises(Exception, match="init"):
+        build_controller("mlp", TINY, settings={"init": "xavier"})
     # Small last layer: the initial mean sits near the middle of the action range.
     out = build_controller("mlp", TINY, settings={"init_seed": 4}).mean(tiny_states(30, seed=1), np.zeros(30)).detach().numpy()
     assert np.all(np.abs(out - TINY.action_mid) < 0.1 * TINY.action_half_range)
@@ -189,7 +197,7 @@ def test_declarations_depend_on_options_and_context():
 
 def test_options_are_resolved_and_read_only():
     c = build_controller("mlp", TINY, settings={"hidden": [3]})
-    assert dict(c.settings) == {"inputs": ("qpos", "qvel"), "hidden": (3,), "activation": "tanh", "init_seed": 0}
+    assert dict(c.settings) == {"inputs": ("qpos", "qvel"), "hidden": (3,), "activation": "tanh", "init_seed": 0, "init": "orthogonal"}
     with pytest.raises(TypeError):
         c.settings["hidden"] = (4,)  # type: ignore[index]
 
