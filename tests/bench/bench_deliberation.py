@@ -5,7 +5,7 @@ once per (eta, seed), then measures with action noise off and greedy choice
 (stop heads stay stochastic): mean skill duration (a skill's turn runs from
 its selection to its own stop or a switch; choosing it again after a forced
 stop continues it), stop rate and mean return. Reports per eta the mean and
-95% t-interval over seeds, a one-sided Kendall trend test of duration on eta,
+95% t-interval over seeds, Page's trend test of duration on eta (seeds as blocks),
 and whether each eta's mean return stays within the band (default 10%) of
 eta 0. Writes ``runs.csv`` (one row per run; finished runs are skipped on a
 rerun), ``table.md`` and ``deliberation.png`` to ``--out``.
@@ -62,11 +62,15 @@ def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> t
         table.append({"eta": eta, "seeds": len(d), "duration": d.mean(), "low": d.mean() - half, "high": d.mean() + half,
                       "return": ret.mean(), "return_low": ret.min(), "return_high": ret.max(),
                       "within_band": bool(abs(ret.mean() - base) <= band * abs(base))})
-    # Trend: Kendall's tau of duration on eta over all runs, one-sided (scipy.stats.kendalltau)
-    x = [r["eta"] for r in rows]
-    y = [r["mean_skill_duration"] for r in rows]
-    tau = stats.kendalltau(x, y, alternative="greater")
-    return table, {"tau": float(tau.statistic), "p": float(tau.pvalue), "runs": len(rows)}
+    # Trend: seeds are blocks fixed in advance, etas the ordered treatments: Page's L test for a rising
+    # duration (Page 1963; scipy.stats.page_trend_test), plus Kendall's tau over all runs for reference.
+    seeds = sorted({int(r["seed"]) for r in rows})
+    grid = {(r["eta"], int(r["seed"])): r["mean_skill_duration"] for r in rows}
+    blocks = [[grid[(eta, s)] for eta in etas] for s in seeds if all((eta, s) in grid for eta in etas)]
+    page = stats.page_trend_test(blocks) if len(blocks) >= 2 and len(etas) >= 3 else None
+    tau = stats.kendalltau([r["eta"] for r in rows], [r["mean_skill_duration"] for r in rows], alternative="greater")
+    return table, {"L": float(page.statistic) if page else float("nan"), "p": float(page.pvalue) if page else float("nan"),
+                   "tau": float(tau.statistic), "p_tau": float(tau.pvalue), "seeds": len(blocks), "runs": len(rows)}
 
 
 def markdown(table: list[dict], trend: dict, band: float) -> str:
@@ -75,8 +79,9 @@ def markdown(table: list[dict], trend: dict, band: float) -> str:
     for t in table:
         lines.append(f"| {t['eta']:g} | {t['seeds']} | {t['duration']:.1f} ({t['low']:.1f} to {t['high']:.1f}) | "
                      f"{t['return']:.1f} ({t['return_low']:.1f} to {t['return_high']:.1f}) | {'yes' if t['within_band'] else 'NO'} |")
-    lines.append(f"\nTrend (Kendall's tau of duration on eta, one-sided, {trend['runs']} runs): "
-                 f"tau = {trend['tau']:.2f}, p = {trend['p']:.2g}")
+    lines.append(f"\nTrend in duration (Page's L test, {trend['seeds']} seeds as blocks, etas in order): "
+                 f"L = {trend['L']:.1f}, p = {trend['p']:.2g}; Kendall's tau over {trend['runs']} runs: "
+                 f"tau = {trend['tau']:.2f}, p = {trend['p_tau']:.2g} (one-sided)")
     return "\n".join(lines) + "\n"
 
 
