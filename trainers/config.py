@@ -52,6 +52,8 @@ class TrainConfig:
     ``time_remaining`` (the time limit becomes part of the task, so reaching
     it ends an episode without a bootstrap; Pardo, Tavakoli, Levdik & Kormushev
     2018) and ``phase`` (sin and cos of the running oscillator's phase).
+    ``search_*`` set the parameter search (``trainers.search``, CMA-ES), which
+    spends the same ``env_step_budget``.
     """
 
     env_step_budget: int = 100_000
@@ -82,6 +84,9 @@ class TrainConfig:
     skill_epsilon: float = 0.05
     success_bonus: float = 0.0
     max_episode_steps: int | None = None  # default: the rig's max_episode_steps
+    search_population: int | None = None  # parameter search: candidates per generation (None: 4 + 3 ln d)
+    search_step_size: float = 0.05  # parameter search: initial step, as a fraction of each parameter's bound range
+    search_episodes: int = 8  # parameter search: episodes per candidate (the same start states for all)
     eval_episodes: int = 32
     eval_every: int = 0  # updates between evaluations (0 = only before and after)
     checkpoint_every: int = 10
@@ -145,6 +150,12 @@ def _validate(c: TrainConfig) -> list[str]:
         nonneg_int(name)
     if c.max_episode_steps is not None:
         positive_int("max_episode_steps")
+    if c.search_population is not None:
+        positive_int("search_population")
+        if isinstance(c.search_population, int) and c.search_population < 2:
+            out.append(f"search_population must be at least 2, got {c.search_population!r}")
+    positive_int("search_episodes")
+    number("search_step_size", 0.0, 1.0, open_low=True)
     number("learning_rate", 0.0, 1.0, open_low=True)
     number("stop_lr", 0.0, 1.0, open_low=True)
     number("gamma", 0.0, 1.0)
