@@ -19,7 +19,7 @@ from kinetome.envs.named_state import take_states
 from kinetome.envs.rig import Rig
 
 from .disturbances import NO_DISTURBANCES, Disturbances, DisturbanceStreams
-from .learned import StopDraws
+from .learned import StopDraws, phase_angles
 from .records import ChainRollout, EndReason, SegmentRecord
 from .seeding import ExplorationNoise
 from .sim import SimBatch, _qpos_of
@@ -109,17 +109,21 @@ class _Segment:
 
 
 def _classify(
-    skill: LoadedSkill, rig: Rig, after: dict, t_next: int, u: np.ndarray | None = None
+    skill: LoadedSkill, rig: Rig, after: dict, t_next: int, u: np.ndarray | None = None, episode_step: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(terminated, stopped, timed_out) masks after a step; terminated wins over stopped, stopped over timed out.
 
-    A skill with a learned stop stops as its stop mode says, deciding with the uniform draws ``u``.
+    A skill with a learned stop stops as its stop mode says, deciding with the uniform draws ``u``
+    (``episode_step``: steps since the episode began, for a stop head trained with the time remaining).
     """
     terminated = np.asarray(rig.terminated(after), dtype=bool)
     stopped = skill.stops_when.evaluate({**skill.parameters, **after})
     if skill.learned_stop is not None:
-        timeout = np.full(len(stopped), t_next >= skill.max_steps)
-        stopped = skill.learned_stop.decide(stopped, timeout, skill.learned_stop.probability(rig, after), u)
+        n = len(stopped)
+        timeout = np.full(n, t_next >= skill.max_steps)
+        phase = phase_angles([skill.controller], np.zeros(n, dtype=np.int64), np.full(n, t_next * rig.dt))
+        beta = skill.learned_stop.probability(rig, after, episode_step=episode_step, phase=phase)
+        stopped = skill.learned_stop.decide(stopped, timeout, beta, u)
     stopped = stopped & ~terminated
     timed_out = ~terminated & ~stopped & (t_next >= skill.max_steps)
     return terminated, stopped, timed_out
@@ -142,7 +146,9 @@ def _run_segment(
     tracer: "_Tracer | None",
     index: int,
     progress: Progress | None,
+    offset: np.ndarray | None = None,
 ) -> None:
+    """Run ``skill`` from the episodes ``offered`` (``offset``: steps each episode ran before this skill)."""
     rig = sim.rig
     needs = _needs(skill)
     if offered.size == 0:
@@ -171,7 +177,8 @@ def _run_segment(
         if tracer is not None:
             tracer.record(sim, running, index)
         u = stop_draws.draw(running) if stop_draws is not None and skill.learned_stop is not None else None
-        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
+        steps = None if offset is None else offset[running] + t + 1
+        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u, steps)
         seg.reason[running[terminated]] = int(EndReason.ENV_ENDED)
         seg.reason[running[stopped]] = int(EndReason.STOPPED)
         seg.reason[running[timed_out]] = int(EndReason.TIMED_OUT)
@@ -253,7 +260,7 @@ def run_chain(
             segment_progress = None if progress is None else (lambda t, _m, before=done_before: progress(before + t, longest))
             _run_segment(
                 skill, sim, offered, seg, gamma=gamma, noise=r.noise, stop_draws=r.stop_draws, streams=r.streams, tracer=tracer,
-                index=index, progress=segment_progress,
+                index=index, progress=segment_progress, offset=np.sum([rec.steps for rec in records], axis=0) if records else np.zeros(n, dtype=np.int64),
             )
             done_before += int(skill.max_steps)
             if progress is not None:
@@ -327,8 +334,9 @@ def _env_state(env: Any, skill: LoadedSkill) -> dict[str, np.ndarray]:
     return state
 
 
-def _reference_skill(env: Any, skill: LoadedSkill, seg: _Segment, i: int, state: dict, r: _Streams, *, gamma: float) -> None:
-    """One skill's turn in episode ``i`` of the plain loop, from the accepted state ``state``."""
+def _reference_skill(env: Any, skill: LoadedSkill, seg: _Segment, i: int, state: dict, r: _Streams, *, gamma: float,
+                     before: int = 0) -> None:
+    """One skill's turn in episode ``i`` of the plain loop, from the accepted state ``state`` (``before``: steps run so far)."""
     rig, row = env.rig, np.array([i])
     for t in range(skill.max_steps):
         draws = r.noise.draw(row) if r.noise is not None else None
@@ -344,7 +352,7 @@ def _reference_skill(env: Any, skill: LoadedSkill, seg: _Segment, i: int, state:
         seg.steps[i] += 1
         seg.observe(row, after)
         u = r.stop_draws.draw(row) if r.stop_draws is not None and skill.learned_stop is not None else None
-        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u)
+        terminated, stopped, timed_out = _classify(skill, rig, after, t + 1, u, np.array([before + t + 1]))
         if terminated[0] or stopped[0] or timed_out[0]:
             seg.reason[i] = int(EndReason.ENV_ENDED if terminated[0] else EndReason.STOPPED if stopped[0] else EndReason.TIMED_OUT)
             return
@@ -388,7 +396,8 @@ def reference_run_chain(
                 if not skill.starts_when.evaluate({**skill.parameters, **state})[0]:
                     seg.reason[i] = int(EndReason.REFUSED)
                 else:
-                    _reference_skill(env, skill, seg, i, state, r, gamma=gamma)
+                    before = sum(int(segs[j].steps[i]) for j in range(k))
+                    _reference_skill(env, skill, seg, i, state, r, gamma=gamma, before=before)
             ends_rows[k].append(env.named_state())
             go_on = go_on and bool(_hands_on(seg.reason[i : i + 1], r.flags[k])[0])
     records = []

@@ -146,3 +146,18 @@ def test_learned_stop_files_round_trip_and_bad_files_are_refused():
         _stop("hard", 0.0, index=3)
     with pytest.raises(ValueError, match="hard, confined or learned"):
         _stop("registered", 0.0)
+
+
+def test_a_stop_head_trained_with_the_time_remaining_sees_the_chain_clock(rig):
+    # A head that reads only the time-remaining input r (logit 2950 - 6000 r: beta ~ 0 at episode step 30,
+    # ~ 1 from step 31 of the 60-step limit), counted from the start of the chain, batched and reference alike.
+    net = TanhNet((np.array([[0.0, 0.0, 0.0, 0.0, -6000.0]]),), (np.array([2950.0]),))
+    stop = LearnedStop("learned", 0, net, TrainedFeatures(FeatureScaler(np.zeros(4), np.ones(4)), ("time_remaining",), 60))
+    first = loaded_reach(rig, gain=1.0, max_steps=20)  # times out after 20 steps
+    second = dataclasses.replace(loaded_reach(rig, gain=1.0, max_steps=40), learned_stop=stop)
+    starts = sample_starts(rig, None, 6, seed=1)
+    out = run_chain([first, second], rig, starts=starts, seed=1)
+    ref = reference_run_chain([first, second], rig, starts=starts, seed=1)
+    assert np.all(out.segments[0].steps == 20)
+    np.testing.assert_array_equal(out.segments[1].steps, 11)  # stops at episode step 31, the first past 30
+    np.testing.assert_array_equal(ref.segments[1].steps, out.segments[1].steps)
