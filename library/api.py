@@ -311,8 +311,13 @@ def retrain(
     promotion_episodes: int | None = None,
     progress: Any = None,
     on_run: Any = None,
+    method: str = "auto",
 ) -> dict[str, Any]:
     """Retrain a stored skill on a task variant and store the child version with its record.
+
+    ``method``: ``actor-critic``, ``search`` (CMA-ES over the skill's bounded parameters) or
+    ``auto`` (search for the kinds in ``trainers.retrain.SEARCH_BY_DEFAULT``, else the actor-critic);
+    the output and the lineage (``trainer``) say which one ran.
 
     A bare ``ref`` is the current version for the variant (else for nominal). The child
     ``name@N`` (reason ``retrained``, method ``retrain``) holds the variant and initial-states
@@ -323,7 +328,7 @@ def retrain(
     refitted on the variant.
     """
     from kinetome.trainers.curves import save_curves
-    from kinetome.trainers.retrain import refuse_deliberation_cost
+    from kinetome.trainers.retrain import choose_method, refuse_deliberation_cost
 
     from .lineage.promotion import DEFAULT_EPISODES
     from .lineage.retraining import TaskFiles, apply_promotion, parent_task_of, run_retrain
@@ -337,6 +342,7 @@ def retrain(
     task_variant = load_variant_file(variant)
     parent_version = store.get(resolve(ref, store=store, variant=task_variant))
     parent = load(parent_version.ref, store=store)
+    chosen = choose_method(parent.skill.controller.kind, method)
     rig = task_rig(parent.skill.env, task_variant)
     if out is not None:
         run = explicit_run(out, resume=resume)
@@ -351,7 +357,7 @@ def retrain(
         parent, parent_version.identity, task=TaskFiles.from_paths(variant, initial_states), config=cfg, seed=seed,
         workdir=folder, checkpoint_dir=run.checkpoint_dir, resume=run.resumed,
         parent_task=parent_task_of(store, parent_version, folder / "parent-task"), from_scratch=from_scratch,
-        workers=workers, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES,
+        workers=workers, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES, method=chosen,
     )
     result = draft.result
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
@@ -369,6 +375,8 @@ def retrain(
         "before": meta["metrics_before"],
         "after": meta["metrics_after"],
         "env_steps": result.steps,
+        "trainer": meta["trainer"],
+        "method_choice": f"default for {parent.skill.controller.kind} skills" if method == "auto" else "chosen with --method",
         "wall_time_s": result.wall_time,
         "curve_csv": str(csv_path),
         "curve_png": str(png_path),

@@ -194,6 +194,11 @@ class OptionCriticTrainer:
         if loaded is None:
             return False
         tensors, meta = loaded
+        if "method" in meta:  # a parameter search's checkpoint
+            raise TrainingError(
+                f"checkpoint in {self.checkpoint_dir} was made by the {meta['method']} parameter search, got a resume with the "
+                "actor-critic; resume with --method search, or start over in a new folder"
+            )
         mine = self.config.as_dict()
         theirs = config_from_stored(meta["config"], source=str(self.checkpoint_dir)).as_dict()
         changed = sorted(k for k in mine if k not in _RESUMABLE_CHANGES and theirs.get(k) != mine[k])

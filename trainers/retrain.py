@@ -16,10 +16,19 @@ from .curves import curve_csv
 from .evaluate import SkillMetrics, evaluate_skill
 from .normaliser import save_normalisers
 from .option_critic import OptionCriticTrainer
+from .search import ParameterSearch
 from .progress import ProgressFn
 from .trainable import trainable_from_loaded
 
-__all__ = ["RetrainResult", "retrain_skill", "reinitialise_controller", "refuse_deliberation_cost"]
+__all__ = ["RetrainResult", "retrain_skill", "reinitialise_controller", "refuse_deliberation_cost", "choose_method",
+           "METHODS", "SEARCH_BY_DEFAULT"]
+
+# How retrain refines a skill: the clipped-surrogate actor-critic (per-step action noise) or a
+# search of the skill's bounded parameters (CMA-ES, trainers/search.py).
+METHODS = ("actor-critic", "search")
+# Kinds retrained by search unless --method says otherwise: where it beat the actor-critic on our
+# benchmarks (README, "Parameter search": the oscillator gait on the waxed floor).
+SEARCH_BY_DEFAULT = frozenset({"cpg"})
 
 
 @dataclass(frozen=True, eq=False)
@@ -37,7 +46,7 @@ class RetrainResult:
     skill_ref: str
     parameters: dict[str, np.ndarray]
     parameters_bytes: bytes
-    normaliser: bytes
+    normaliser: bytes | None  # None for the parameter search (it keeps no normalisers)
     curve: list[dict[str, Any]]
     before: SkillMetrics
     after: SkillMetrics
@@ -49,6 +58,7 @@ class RetrainResult:
     completed: bool
     wall_time: float
     variant: str | None = None
+    method: str = "actor-critic"  # one of METHODS
     TITLE = "retraining {self.skill_ref}"
 
     @property
@@ -71,6 +81,7 @@ class RetrainResult:
             "variant": self.variant,
             "seed": self.seed,
             "from_scratch": self.from_scratch,
+            "trainer": "cma-es" if self.method == "search" else "actor-critic",  # how the child was refined
             "steps": self.steps,
             "updates": self.updates,
             "completed": self.completed,
@@ -110,6 +121,18 @@ def refuse_deliberation_cost(config: TrainConfig, where: str = "deliberation_cos
         )
 
 
+def choose_method(kind: str, requested: str = "auto") -> str:
+    """The retrain method for a controller kind: ``requested`` unless it is ``auto``, else search for
+    ``SEARCH_BY_DEFAULT`` kinds and the actor-critic for the rest."""
+    from kinetome.library.errors import InvalidInputError
+
+    if requested == "auto":
+        return "search" if kind in SEARCH_BY_DEFAULT else "actor-critic"
+    if requested not in METHODS:
+        raise InvalidInputError(f"--method must be auto or one of {', '.join(METHODS)}, got {requested!r}")
+    return requested
+
+
 def retrain_skill(
     skill: Any,
     rig: Any,
@@ -122,6 +145,7 @@ def retrain_skill(
     checkpoint_dir: str | Path | None = None,
     resume: bool = False,
     from_scratch: bool = False,
+    method: str = "actor-critic",
 ) -> RetrainResult:
     """Refine ``skill`` (a ``LoadedSkill``) on ``rig``; the given skill is not modified.
 
@@ -130,8 +154,11 @@ def retrain_skill(
     ``config.success_bonus``), env termination, or ``max_steps`` (truncated).
     Parameters named by the predicates stay fixed. ``seed`` overrides
     ``config.seed``; evaluation uses the same seed before and after.
+    ``method``: ``actor-critic`` or ``search`` (CMA-ES over the bounded
+    parameters, same budget, objective, checkpoints and progress rows).
     """
     refuse_deliberation_cost(config)
+    method = choose_method(skill.controller.kind, method)
     t0 = time.perf_counter()
     config = dataclasses.replace(config, seed=int(seed))
     work, trainable = _working_copy(skill, from_scratch=from_scratch)
@@ -144,12 +171,18 @@ def retrain_skill(
         return {"eval_success_rate": m.success_rate, "eval_return": m.mean_return}
 
     before = measure(skill)
-    trainer = OptionCriticTrainer(
-        [trainable], rig, config, start=start, episode_per_skill=True, workers=workers,
-        checkpoint_dir=checkpoint_dir, progress=progress, evaluate=evaluate,
-    )
-    outcome = trainer.run(resume=resume)
-    return _result(skill, work, rig, config, outcome, before=before, after=measure(work), from_scratch=from_scratch, t0=t0)
+    if method == "search":
+        search = ParameterSearch(work, rig, config, start=start, frozen=trainable.frozen, workers=workers,
+                                 checkpoint_dir=checkpoint_dir, progress=progress, evaluate=evaluate)
+        outcome = search.run(resume=resume)
+    else:
+        trainer = OptionCriticTrainer(
+            [trainable], rig, config, start=start, episode_per_skill=True, workers=workers,
+            checkpoint_dir=checkpoint_dir, progress=progress, evaluate=evaluate,
+        )
+        outcome = trainer.run(resume=resume)
+    return _result(skill, work, rig, config, outcome, before=before, after=measure(work), from_scratch=from_scratch, t0=t0,
+                   method=method)
 
 
 def _working_copy(skill: Any, *, from_scratch: bool) -> tuple[Any, Any]:
@@ -164,24 +197,26 @@ def _working_copy(skill: Any, *, from_scratch: bool) -> tuple[Any, Any]:
 
 
 def _result(skill: Any, work: Any, rig: Any, config: TrainConfig, outcome: Any, *, before: SkillMetrics,
-            after: SkillMetrics, from_scratch: bool, t0: float) -> RetrainResult:
+            after: SkillMetrics, from_scratch: bool, t0: float, method: str) -> RetrainResult:
     from kinetome.library.controllers import save_parameters
 
     variant = getattr(rig, "variant", None)
+    searched = method == "search"
     return RetrainResult(
         skill_ref=skill.ref,
         parameters=work.controller.parameter_values(),
         parameters_bytes=save_parameters(work.controller),
-        normaliser=save_normalisers(None, outcome.obs_norm, outcome.ret_norm),
+        normaliser=None if searched else save_normalisers(None, outcome.obs_norm, outcome.ret_norm),
         curve=list(outcome.rows),
         before=before,
         after=after,
         steps=outcome.steps,
-        updates=outcome.updates,
+        updates=outcome.generations if searched else outcome.updates,
         config=config,
         seed=config.seed,
         from_scratch=from_scratch,
         completed=outcome.completed,
         wall_time=time.perf_counter() - t0,
         variant=getattr(variant, "name", None) if variant is not None else None,
+        method=method,
     )

@@ -208,6 +208,11 @@ class ParameterSearch:
         if loaded is None:
             return None
         tensors, meta = loaded
+        if meta.get("method") != METHOD:
+            raise TrainingError(
+                f"checkpoint in {self.checkpoint_dir} was made by the actor-critic, got a resume with the {METHOD} search; "
+                "resume with --method actor-critic, or start over in a new folder"
+            )
         theirs = config_from_stored(meta["config"], source=str(self.checkpoint_dir)).as_dict()
         mine = self.config.as_dict()
         changed = sorted(k for k in mine if k not in _RESUMABLE_CHANGES and theirs.get(k) != mine[k])

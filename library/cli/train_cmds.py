@@ -37,6 +37,9 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     add_old_option(p, "--steps", "--budget", dest="env_step_budget", type=int)
     p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA",
                    help="refused unless 0: retraining runs one skill with no switches (options mode, `kinetome train`, charges it)")
+    p.add_argument("--method", choices=("auto", "actor-critic", "search"), default="auto",
+                   help="how to refine the skill: the actor-critic, or a search of its bounded parameters (CMA-ES); "
+                        "auto (default) searches oscillator (cpg) skills and uses the actor-critic for the rest")
     p.add_argument("--seed", type=int, default=0, help="training and measurement seed (default 0)")
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
     p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
@@ -104,6 +107,7 @@ def _retrain(args: argparse.Namespace) -> int:
         promotion_episodes=args.promotion_episodes,
         progress=on_update,
         on_run=_say_run if not args.json else None,
+        method=args.method,
     )
     bar.close()
     if args.json:
@@ -112,6 +116,7 @@ def _retrain(args: argparse.Namespace) -> int:
     print(f"{result['parent']} -> {result['child']} on {result['variant']} ({result['env_steps']} env steps, {result['wall_time_s']:.1f} s)")
     print_table([_metrics_row("before", result["before"]), _metrics_row("after", result["after"])], [("when", ""), ("success", "SUCCESS"), ("return", "MEAN RETURN"), ("duration", "MEAN DURATION (STEPS)")])
     _print_promotion(result)
+    print(f"trainer   {result['trainer']} ({result['method_choice']})")
     print(f"lineage   {' <- '.join(result['lineage'])}")
     print(f"curve     {result['curve_csv']}  {result['curve_png']}")
     if result["models"]:

@@ -120,9 +120,11 @@ def run_retrain(
     resume: bool = False,
     progress: Any = None,
     promotion_episodes: int = DEFAULT_EPISODES,
+    method: str = "actor-critic",
 ) -> ChildDraft:
     """Train ``parent`` (a LoadedSkill) on ``task``, test the child against it on fresh episodes,
-    and build the child's files. ``parent_task``: the parent's own task (a TaskVariant, None: nominal)."""
+    and build the child's files. ``parent_task``: the parent's own task (a TaskVariant, None: nominal).
+    ``method``: ``actor-critic`` or ``search`` (see ``trainers.retrain.METHODS``)."""
     from kinetome.trainers.retrain import retrain_skill
 
     from kinetome.library.initial_states import skill_initial_states
@@ -139,7 +141,7 @@ def run_retrain(
     rig = task_rig(parent.skill.env, variant)
     result = retrain_skill(
         parent, rig, config, start=states, seed=seed, workers=workers, progress=progress,
-        checkpoint_dir=checkpoint_dir or workdir / "checkpoints", resume=resume, from_scratch=from_scratch,
+        checkpoint_dir=checkpoint_dir or workdir / "checkpoints", resume=resume, from_scratch=from_scratch, method=method,
     )
     promotion = compare_on_tasks(
         parent, result.parameters, trained_variant=variant, parent_task=parent_task,
@@ -151,7 +153,7 @@ def run_retrain(
     files = {
         SPEC_FILE: spec_json(skill_to_document(parent.skill)),
         PARAMS_FILE: result.parameters_bytes,
-        "normaliser.safetensors": result.normaliser,
+        **({} if result.normaliser is None else {"normaliser.safetensors": result.normaliser}),  # a search keeps none
         "curve.csv": _stored_curve(result.curve),
         VARIANT_FILE: task.variant,
         RECORD_FILE: _json_bytes(record),
@@ -161,6 +163,7 @@ def run_retrain(
         files[INITIAL_STATES_FILE] = task.initial_states
     meta = {
         "method": "retrain",
+        "trainer": result.metadata()["trainer"],  # actor-critic or cma-es
         "description": parent.skill.description,
         "env": parent.skill.env,
         "kind": parent.skill.controller.kind,

@@ -203,3 +203,31 @@ def test_retrain_refuses_a_deliberation_cost(store, tmp_path, capsys, how) -> No
     assert ("--deliberation-cost" in err) == (how == "flag")
     after = [v.ref for v in open_store(store).history("arm-lift")]
     assert after == before and not (tmp_path / "rt").exists()
+
+
+@pytest.mark.parametrize("method, trainer, choice", [("auto", "cma-es", "default for cpg skills")])
+def test_retrain_chooses_the_method_by_kind_and_says_which(store, tmp_path, capsys, method, trainer, choice) -> None:
+    # (--method actor-critic on the same skill: choose_method below; the PD skill above runs the actor-critic)
+    config = tmp_path / "walker.yaml"
+    text = (CONFIGS / "training" / "walker_low_friction.yaml").read_text()
+    config.write_text(text + "\nsearch_population: 4\nsearch_episodes: 2\n")
+    code, r = _json(
+        capsys, "--store", store, "retrain", "walker-walk", "--variant", str(CONFIGS / "variants" / "low_friction.yaml"),
+        "--config", str(config), "--budget", "2048", "--method", method, "--out", str(tmp_path / method), "--json",
+    )
+    assert code == 0 and r["trainer"] == trainer and r["method_choice"] == choice
+    code, view = _json(capsys, "--store", store, "show", r["child"], "--json")
+    assert view["meta"]["trainer"] == trainer and view["meta"]["method"] == "retrain"
+    roles = {f["role"] for f in view["files"]}
+    assert ("normaliser.safetensors" in roles) == (trainer == "actor-critic")  # the search keeps no normalisers
+
+
+def test_retrain_of_a_pd_skill_defaults_to_the_actor_critic() -> None:
+    from kinetome.trainers.retrain import choose_method
+
+    assert choose_method("joint_pd") == "actor-critic" and choose_method("cpg") == "search"
+    assert choose_method("joint_pd", "search") == "search"
+    from kinetome.library.errors import InvalidInputError
+
+    with pytest.raises(InvalidInputError, match="--method must be auto or one of actor-critic, search"):
+        choose_method("cpg", "evolution")
