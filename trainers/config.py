@@ -173,17 +173,25 @@ def _validate(c: TrainConfig) -> list[str]:
     for name in ("standardise_advantages", "standardise_observations", "scale_rewards"):
         if not isinstance(getattr(c, name), bool):
             out.append(f"{name} must be true or false, got {getattr(c, name)!r}")
-    for name in ("critic_hidden", "stop_hidden"):
-        v = getattr(c, name)
-        if not isinstance(v, tuple) or not all(isinstance(h, int) and not isinstance(h, bool) and h >= 1 for h in v):
-            out.append(f"{name} must be a list of positive layer widths, got {v!r}")
-    if not isinstance(c.critic_inputs, tuple) or not all(x in CLOCK_INPUTS for x in c.critic_inputs) or len(set(c.critic_inputs)) != len(c.critic_inputs):
-        out.append(f"critic_inputs must be a list of distinct names among {', '.join(CLOCK_INPUTS)}, got {c.critic_inputs!r}")
+    out += _list_problems(c)
     if c.stop_mode not in STOP_MODES:
         out.append(f"stop_mode must be one of {', '.join(STOP_MODES)}, got {c.stop_mode!r}")
     if c.learning_rate_schedule not in ("constant", "linear"):
         out.append(f"learning_rate_schedule must be constant or linear, got {c.learning_rate_schedule!r}")
     return [_file_spelling(line) for line in out]
+
+
+def _list_problems(c: TrainConfig) -> list[str]:
+    """Problems of the list settings: layer widths and critic inputs."""
+    out = []
+    for name in ("critic_hidden", "stop_hidden"):
+        v = getattr(c, name)
+        if not isinstance(v, tuple) or not all(isinstance(h, int) and not isinstance(h, bool) and h >= 1 for h in v):
+            out.append(f"{name} must be a list of positive layer widths, got {v!r}")
+    v = c.critic_inputs
+    if not isinstance(v, tuple) or not all(x in CLOCK_INPUTS for x in v) or len(set(v)) != len(v):
+        out.append(f"critic_inputs must be a list of distinct names among {', '.join(CLOCK_INPUTS)}, got {v!r}")
+    return out
 
 
 def _file_spelling(message: str) -> str:

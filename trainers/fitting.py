@@ -236,9 +236,7 @@ def fit_option_models(
     rng = np.random.default_rng([seed, 0xF17])
     tr_local, te_local = _split(ran.size, holdout, seed)
     train, test = ran[tr_local], ran[te_local]
-    bad = [q for q in features if not np.all(np.isfinite(np.asarray(starts_all[q], dtype=np.float64)[ran]))]
-    if bad:
-        raise _bad(f"start states must be finite, got NaN/Inf in {bad}; check the rig's sensors or leave them out of features")
+    _check_finite_starts(starts_all, features, ran)
     starts_tr = _take(starts_all, train)
     fmap = fit_feature_map(starts_tr, features, expansion=expansion, rng=rng)
     x_tr, x_te = fmap(starts_tr), fmap(_take(starts_all, test))
@@ -261,6 +259,12 @@ def fit_option_models(
     support = fit_support(starts_tr, _take(starts_all, test), features)
     held_out = HeldOutEpisodes.take(starts_all, ends_all, reasons, test, features, end_quantities)
     return OptionModels(duration, reward, end_models["stopped"], meta, end_models["timed_out"], support, held_out)
+
+
+def _check_finite_starts(starts: Mapping[str, np.ndarray], features: Sequence[str], ran: np.ndarray) -> None:
+    bad = [q for q in features if not np.all(np.isfinite(np.asarray(starts[q], dtype=np.float64)[ran]))]
+    if bad:
+        raise _bad(f"start states must be finite, got NaN/Inf in {bad}; check the rig's sensors or leave them out of features")
 
 
 def _segment(rollout: Any, segment_index: int, gamma: float | None, *, holdout: float, expansion: str) -> tuple[Any, float]:
