@@ -113,6 +113,13 @@ def sample_initial_states(rig: Any, initial_states: Any, n: int, *, seed: int) -
     return _sample(rig, initial_states, n, seed=seed)
 
 
+def _check_episodes(episodes: int) -> None:
+    if episodes < 1:
+        from .errors import InvalidInputError
+
+        raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
+
+
 @renamed_arguments({"start": "initial_states"})
 def run(
     ref: str,
@@ -133,10 +140,7 @@ def run(
     from .initial_states import initial_states_for
     from .tasks import load_variant_file, task_rig
 
-    if episodes < 1:
-        from .errors import InvalidInputError
-
-        raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
+    _check_episodes(episodes)
     task_variant = load_variant_file(variant)
     loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
     rig = task_rig(loaded.skill.env, task_variant)
@@ -170,10 +174,7 @@ def run_chooser(
     from .safety import caution_for
     from .tasks import load_start_file, load_variant_file, task_rig
 
-    if episodes < 1:
-        from .errors import InvalidInputError
-
-        raise InvalidInputError(f"--episodes must be >= 1, got {episodes}")
+    _check_episodes(episodes)
     from .errors import NotFoundError
 
     try:

@@ -15,15 +15,35 @@ def rig():
     return make_pointmass(max_episode_steps=60)
 
 
-def _twin_skills(rig):
-    # Two equally good reach controllers that may start and stop anywhere: switching gains
-    # nothing, so only the deliberation cost separates continuing from switching.
+def _twin_skills(rig, *, gain=3.0, stop_text=None, max_steps=60):
+    """Two reach controllers "a" and "b" that may start anywhere and stop by ``stop_text`` (never when None).
+
+    With the defaults they are equally good: switching gains nothing, so only the deliberation
+    cost separates continuing from switching.
+    """
+    from kinetome.library.predicates import parse_predicate
+
     skills = []
     for name in ("a", "b"):
-        s = reach_skill(rig, gain=3.0)
-        s.name, s.starts_when, s.stops_when = name, None, None
+        s = reach_skill(rig, gain=gain, max_steps=max_steps)
+        s.name, s.starts_when = name, None
+        s.stops_when = None if stop_text is None else parse_predicate(stop_text, rig.layout.shapes())
         skills.append(s)
     return skills
+
+
+def _reward_one(rig):
+    """The point mass with reward 1 on every step."""
+    import dataclasses
+
+    return dataclasses.replace(rig, reward=lambda before, action, after: (np.ones(len(after["qpos"])), {}))
+
+
+def _fix_critic(trainer, q):
+    """Make the critic's Q(s, w) the constant ``q[w]`` in every state."""
+    with torch.no_grad():
+        trainer.critic.net[-1].weight.zero_()
+        trainer.critic.net[-1].bias.copy_(torch.tensor(q, dtype=torch.float64))
 
 
 def _duration(rig, eta, seed):
@@ -112,23 +132,11 @@ def test_truncated_episodes_bootstrap_with_the_value_on_arrival(rig, stop_text, 
     # Critic fixed at Q(s, a) = 10, Q(s, b) = -10 and reward 1 per step. At the episode limit the
     # running skill either must stop (stops_when holds, registered mode: beta = 1, so
     # U(s', w) = V(s') = 0.95 * 10 + 0.05 * (10 - 10) / 2 = 9.5) or goes on (beta = 0: U = Q(s', w)).
-    import dataclasses
-
-    from kinetome.library.predicates import parse_predicate
-
-    flat_reward = dataclasses.replace(rig, reward=lambda before, action, after: (np.ones(len(after["qpos"])), {}))
-    skills = []
-    for name in ("a", "b"):
-        s = reach_skill(flat_reward, gain=1.0)
-        s.name, s.starts_when = name, None
-        s.stops_when = parse_predicate(stop_text, rig.layout.shapes())
-        skills.append(s)
+    flat_reward = _reward_one(rig)
     cfg = quick_config(env_step_budget=16 * 32, stop_mode="registered", scale_rewards=False, max_episode_steps=20,
                        skill_epsilon=0.05, gamma=0.9)
-    trainer = OptionCriticTrainer(skills, flat_reward, cfg, episode_per_skill=False)
-    with torch.no_grad():
-        trainer.critic.net[-1].weight.zero_()
-        trainer.critic.net[-1].bias.copy_(torch.tensor([10.0, -10.0], dtype=torch.float64))
+    trainer = OptionCriticTrainer(_twin_skills(flat_reward, gain=1.0, stop_text=stop_text), flat_reward, cfg, episode_per_skill=False)
+    _fix_critic(trainer, [10.0, -10.0])
     trainer.collector.start()
     rollout = trainer.collector.collect()
     truncated = rollout.dones  # nothing ends an episode here but the limit
@@ -144,17 +152,8 @@ def test_truncated_episodes_bootstrap_with_the_value_on_arrival(rig, stop_text, 
 def test_choosing_the_same_skill_after_a_forced_stop_goes_on_with_the_same_option(rig):
     # stops_when holds everywhere (a skill whose stop region holds at rest): registered mode forces a stop
     # every step. Choosing the same skill again is not a new option: no switch cost, its clock keeps running.
-    import dataclasses
-
-    from kinetome.library.predicates import parse_predicate
-
-    flat_reward = dataclasses.replace(rig, reward=lambda before, action, after: (np.ones(len(after["qpos"])), {}))
-    skills = []
-    for name in ("a", "b"):
-        s = reach_skill(flat_reward, gain=1.0, max_steps=500)
-        s.name, s.starts_when = name, None
-        s.stops_when = parse_predicate("norm(qpos) < 5", rig.layout.shapes())
-        skills.append(s)
+    flat_reward = _reward_one(rig)
+    skills = _twin_skills(flat_reward, gain=1.0, stop_text="norm(qpos) < 5", max_steps=500)
     cfg = quick_config(env_step_budget=16 * 32, stop_mode="registered", scale_rewards=False, max_episode_steps=1000,
                        skill_epsilon=0.3, deliberation_cost=0.5)
     trainer = OptionCriticTrainer(skills, flat_reward, cfg, episode_per_skill=False)
@@ -174,16 +173,9 @@ def test_stop_advantage_compares_with_the_best_skill_that_could_take_over(rig):
     # Critic fixed at Q(a) = 10, Q(b) = -10: A(s', w) = Q(s', w) - max Q(s', .) is 0 for a and -20 for b. Against
     # the epsilon-greedy value (0.95 * 10 + 0.05 * 0 = 9.5) a would get +0.5 and every greedy skill would be
     # pushed to run on even with no deliberation cost; the choice's exploration is not what a switch is worth.
-    skills = []
-    for name in ("a", "b"):
-        s = reach_skill(rig, gain=1.0)
-        s.name, s.starts_when, s.stops_when = name, None, None
-        skills.append(s)
     cfg = quick_config(env_step_budget=16 * 32, stop_mode="learned", skill_epsilon=0.3)
-    trainer = OptionCriticTrainer(skills, rig, cfg, episode_per_skill=False)
-    with torch.no_grad():
-        trainer.critic.net[-1].weight.zero_()
-        trainer.critic.net[-1].bias.copy_(torch.tensor([10.0, -10.0], dtype=torch.float64))
+    trainer = OptionCriticTrainer(_twin_skills(rig, gain=1.0), rig, cfg, episode_per_skill=False)
+    _fix_critic(trainer, [10.0, -10.0])
     trainer.collector.start()
     r = trainer.collector.collect()
     assert set(np.unique(r.skill)) == {0, 1}
