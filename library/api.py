@@ -24,6 +24,8 @@ __all__ = [
     "register",
     "load",
     "load_models",
+    "attach_models",
+    "model_task",
     "run",
     "fit",
     "retrain",
@@ -200,6 +202,23 @@ def run_chooser(
 MODEL_KIND = "option-models"
 
 
+def model_task(rig: Any) -> dict[str, Any]:
+    """The task option models are fitted on and may be used for: env, variant name and digest."""
+    variant = rig.variant
+    return {"env": rig.env_id, "variant": getattr(variant, "name", "nominal"), "variant_digest": getattr(variant, "digest", "")}
+
+
+def attach_models(store: Any, ref: str, models: Any, *, rig: Any, settings: dict[str, Any], meta: dict[str, Any]) -> Any:
+    """Attach fitted option models to version ``ref`` with their provenance: the task (env, variant
+    digest), the version's content identity (the artifact's ``computed_on``), the fitting settings and
+    the software versions (MuJoCo, gymnasium, numpy, torch...)."""
+    from .provenance import software_versions
+
+    return store.attach_artifact(
+        ref, MODEL_KIND, models.to_files(), task=model_task(rig), settings=settings, software=software_versions(), meta=meta
+    )
+
+
 @renamed_arguments({"start": "initial_states"})
 def fit(
     ref: str,
@@ -229,7 +248,8 @@ def fit(
     models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=initial_states_for(loaded.skill, initial_states), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
-    record = store.attach_model(loaded.ref, MODEL_KIND, models.to_files(), meta=meta)
+    settings = {"episodes": episodes, "seed": seed, "initial_states": None if initial_states is None else str(initial_states)}
+    record = attach_models(store, loaded.ref, models, rig=rig, settings=settings, meta=meta)
     return tagged("fit", {"skill": loaded.ref, "model_ref": record.ref, "episodes": episodes, "errors": errors})
 
 

@@ -92,7 +92,7 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
 
     from kinetome.trainers.fitting import fit_option_models
 
-    from .api import MODEL_KIND
+    from .api import attach_models
     from .errors import InvalidInputError
     from .model_headlines import headlines
     from .runtime.execute import run_chain
@@ -118,7 +118,10 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
                 fitted[skill.ref] = {"skipped": f"{ran} episodes reached it in {path.name}: {str(exc).splitlines()[0]}"}
                 continue
             summary = models.summary()
-            record = store.attach_model(skill.ref, MODEL_KIND, models.to_files(), meta={"errors": summary, "episodes": ran, "chain": path.name, "seed": settings.seed, "env": rig.env_id})
+            record = attach_models(
+                store, skill.ref, models, rig=rig, settings={"chain": path.name, "episodes": settings.fit_episodes, "seed": settings.seed},
+                meta={"errors": summary, "episodes": ran, "chain": path.name, "seed": settings.seed, "env": rig.env_id},
+            )
             fitted[skill.ref] = {"model": record.ref, "episodes": ran, "chain": path.name, "headlines": headlines(summary)}
     log.step(f"fitted option models for {sum('model' in v for v in fitted.values())} skills from chain rollouts")
     return fitted

@@ -29,9 +29,12 @@ from .verdict import Verdict
 __all__ = ["combine_handoff", "whole_chain_verdict", "reached_clauses"]
 
 
-def whole_chain_verdict(stats: Any) -> Verdict:
-    """Whole chain meets (composes) / fails (breaks) its requirement; unsure without a simulation."""
-    return Verdict.UNSURE if stats is None else stats.success.verdict
+def whole_chain_verdict(stats: Any, model_chain: Any = None) -> Verdict:
+    """Whole chain meets (composes) / fails (breaks) its requirement: from the simulation, else from
+    option models valid for this task; unsure with neither."""
+    if stats is not None:
+        return stats.success.verdict
+    return Verdict.UNSURE if model_chain is None else model_chain.verdict
 
 
 def reached_clauses(sim: Evidence | None) -> set[str]:

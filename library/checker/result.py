@@ -178,6 +178,7 @@ class CheckResult:
     all_handoffs: tuple[HandoffResult, ...]
     whole_chain: ChainStats | None = None
     chain_verdict: Verdict = Verdict.UNSURE
+    model_chain: Estimate | None = None  # whole-chain success from option models, when no simulation ran
     notes: tuple[str, ...] = ()
     timings: Mapping[str, float] = field(default_factory=dict)
     env_id: str = ""
@@ -239,6 +240,7 @@ class CheckResult:
             "handoffs": [j.to_dict() for j in self.all_handoffs],
             "whole_chain": None if self.whole_chain is None else self.whole_chain.to_dict(),
             "chain_verdict": self.chain_verdict.value,
+            "model_chain": None if self.model_chain is None else self.model_chain.to_dict(),
             "statistics": STATISTICS,
             "notes": list(self.notes),
             "timings_s": dict(self.timings),

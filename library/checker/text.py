@@ -114,6 +114,13 @@ def _handoff_lines(j: Any, width: int) -> list[str]:
 def _whole_chain_lines(result: Any, width: int) -> list[str]:
     s = result.whole_chain
     c = result.chain
+    if s is None and result.model_chain is not None:
+        m = result.model_chain
+        verdict = {"composes": "meets", "breaks": "fails", "unsure": "unsure whether it meets"}[m.verdict.value]
+        return _wrap(
+            f"whole chain (option models, not simulated): {m.k}/{m.n} particles completed; lower bound {m.low:.3f}, upper "
+            f"bound {m.high:.3f} (held-out model error included); {verdict} require.chain {c.chain_requirement:g}", "", width,
+        )
     if s is None:
         return _wrap(
             f"whole chain: not simulated; meeting require.chain {c.chain_requirement:g} needs simulation "
