@@ -3,8 +3,8 @@
 A handoff A -> B composes when A ends by its stop condition in time (liveness)
 and B's ``starts_when`` holds there (containment). The static method can prove
 containment only; liveness needs simulation (or option models valid for this
-task). So ``auto`` runs static, then the models, then simulation unless every
-handoff was already decided; how many episodes it runs follows ``sequential.py``.
+task). So ``auto`` runs static, then the models, then simulation; how many
+episodes it runs follows ``sequential.py``.
 The entry (initial states -> first skill) is proved statically when the initial
 states form a box over raw state, else measured on sampled initial states.
 """
@@ -85,7 +85,8 @@ def _decided(evidence: list[Evidence]) -> bool:
 
 
 def _gather(ctx: CheckContext, timings: dict[str, float]) -> dict[int, list[Evidence]]:
-    """Every method's evidence per handoff. Simulation runs unless every handoff is already decided."""
+    """Every method's evidence per handoff (in auto mode the simulation always runs: liveness and the
+    whole chain need it; only a structurally broken chain skips it)."""
     checked = ctx.all_handoffs()
     entry, handoffs = checked[0], checked[1:]
     found: dict[int, list[Evidence]] = {j.index: [] for j in checked}
@@ -101,8 +102,6 @@ def _gather(ctx: CheckContext, timings: dict[str, float]) -> dict[int, list[Evid
             if broken:
                 ctx.notes.append("simulation skipped: the chain is structurally broken (see the mismatch above)")
                 continue
-            if ctx.options.method == AUTO and ctx.chain_stats is not None and all(_decided(found[j.index]) for j in handoffs):
-                continue  # cheaper evidence decided every handoff and the whole chain
             targets = handoffs  # one simulation serves every handoff and the whole chain
         else:
             targets = [j for j in (checked if name == "static" else handoffs) if not _decided(found[j.index])]
