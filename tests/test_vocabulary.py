@@ -65,11 +65,6 @@ JSON_KEYS: dict[str, set[str]] = {
 YAML_KEYS: set[str] = {"steps", "start", "junction", "options", *JSON_KEYS["training-config keys"]}
 YAML_PATHS: set[str] = {"chain", "task.notes", "task.skills", "task.start"}  # `chain` as the file's name key
 
-# Pending: checker issue. Old spellings the checker's own files and outputs may still carry
-# until the checker engineer's vocabulary work lands; they remove entries when done. The
-# allowance is scoped to the `check` command's outputs and configs/chains/ only.
-PENDING_CHECKER: dict[str, set[str]] = {"json_keys": set(), "yaml_keys": set(), "help": set()}
-
 
 def _keys(data: Any, path: str = "") -> Iterator[tuple[str, str]]:
     """(key, dotted path) of every mapping key in ``data``, at any depth."""
@@ -138,8 +133,7 @@ def test_every_help_text_uses_the_vocabulary() -> None:
     assert not {"add", "history"} & set(commands)
     problems = {"kinetome": old_help_words(parser.format_help())}
     for name, sub in commands.items():
-        allowed = PENDING_CHECKER["help"] if name == "check" else set()
-        problems[name] = old_help_words(sub.format_help(), allowed=allowed)
+        problems[name] = old_help_words(sub.format_help())
     assert {k: v for k, v in problems.items() if v} == {}
 
 
@@ -161,8 +155,7 @@ SHIPPED_YAML = sorted(CONFIGS.rglob("*.yaml"))
 @pytest.mark.parametrize("path", SHIPPED_YAML, ids=[str(p.relative_to(CONFIGS)) for p in SHIPPED_YAML])
 def test_shipped_yaml_uses_the_vocabulary(path: Path) -> None:
     data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    allowed = PENDING_CHECKER["yaml_keys"] if path.parent.name == "chains" else set()
-    assert old_yaml_keys(data, allowed=allowed) == []
+    assert old_yaml_keys(data) == []
 
 
 # -- keys of every --json output ------------------------------------------------------
@@ -230,8 +223,7 @@ COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "sho
 def test_every_json_output_has_a_schema_and_the_vocabulary(json_outputs, command) -> None:
     data = json_outputs[command]
     assert isinstance(data, dict) and re.fullmatch(rf"kinetome\.{command}/\d+", data.get("schema", "")), data.get("schema")
-    allowed = PENDING_CHECKER["json_keys"] if command == "check" else set()
-    assert old_json_keys(data, allowed=allowed) == []
+    assert old_json_keys(data) == []
 
 
 @pytest.mark.parametrize("command", ["run", "retrain", "train", "check"])
