@@ -39,11 +39,12 @@ __all__ = [
 ]
 
 
-def open_store(root: str | Path | None = None, *, create: bool = True) -> Any:
-    """The store at ``root``, else $KINETOME_STORE, else the user data dir."""
-    from .store import Store, resolve_store_root
+def open_store(root: str | Path | None = None, *, blobs: str | Path | None = None, create: bool = True) -> Any:
+    """The store at ``root`` (a folder or a postgresql:// URL), else $KINETOME_STORE, else the user
+    data dir; its blobs at ``blobs``, else $KINETOME_BLOBS, else where the store recorded them."""
+    from .store import Store, resolve_blobs, resolve_store_root
 
-    return Store(resolve_store_root(None if root is None else str(root)), create=create)
+    return Store(resolve_store_root(None if root is None else str(root)), blobs=resolve_blobs(blobs), create=create)
 
 
 def version_files(loaded: Any) -> dict[str, bytes]:
@@ -368,9 +369,9 @@ def retrain(
     if out is not None:
         run = explicit_run(out, resume=resume)
     elif resume:
-        run = find_run_to_resume(parent.ref, variant, store_root=store.root)
+        run = find_run_to_resume(parent.ref, variant, store_root=store.location)
     else:
-        run = new_run(parent.ref, variant, store_root=store.root, seed=seed)
+        run = new_run(parent.ref, variant, store_root=store.location, seed=seed)
     folder = run.folder
     if on_run is not None:
         on_run(run, _budget_note(cfg))

@@ -206,7 +206,7 @@ def run_demo(
     out.mkdir(parents=True, exist_ok=True)
     store = open_store(store_dir if store_dir is not None else out / "store")
     configs = configs_dir()
-    log.step(f"kinetome demo ({'quick' if quick else 'full'}): store {store.root}, output {out}")
+    log.step(f"kinetome demo ({'quick' if quick else 'full'}): store {store.location}, output {out}")
     registered = _register(store, configs, log)
     fitted = _fit_from_chains(store, configs, settings, log)
     checks = _check_chains(store, configs, out, settings, log)
@@ -217,7 +217,7 @@ def run_demo(
         "caution": CAUTION,
         "quick": quick,
         "seconds": round(time.monotonic() - log.started, 1),
-        "store": str(store.root),
+        "store": store.location,
         "registered": registered,
         "models": fitted,
         "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],

@@ -15,6 +15,7 @@ __all__ = [
     "InvalidSpecError",
     "NotFoundError",
     "StoreIntegrityError",
+    "StoreUnavailableError",
     "BundleError",
     "TrainingError",
 ]
@@ -70,6 +71,12 @@ class NotFoundError(KinetomeError):
 
 class StoreIntegrityError(KinetomeError):
     """Stored content no longer matches its digest, or the index is damaged."""
+
+    exit_code = 1
+
+
+class StoreUnavailableError(KinetomeError):
+    """The store's database server or blob storage cannot be reached (nothing was changed)."""
 
     exit_code = 1
 

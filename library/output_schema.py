@@ -19,6 +19,7 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "verify": 1,
     "import": 1,
     "promote": 1,
+    "copy-store": 1,
     "run": 1,
     "run-chooser": 1,
     "fit": 1,

@@ -45,7 +45,8 @@ def _runs_folder(parent_ref: str, variant: str | Path, root: Path) -> Path:
 
 
 def _identity(parent_ref: str, variant: str | Path, store_root: Any) -> dict[str, str]:
-    return {"parent": parent_ref, "variant": str(Path(str(variant)).resolve()), "store": str(Path(str(store_root)).resolve())}
+    store = str(store_root) if "://" in str(store_root) else str(Path(str(store_root)).resolve())  # a folder or a database URL
+    return {"parent": parent_ref, "variant": str(Path(str(variant)).resolve()), "store": store}
 
 
 def new_run(parent_ref: str, variant: str | Path, *, store_root: Any, seed: int, root: Path = DEFAULT_ROOT) -> RetrainRun:

@@ -47,7 +47,7 @@ def _check(args: argparse.Namespace) -> int:
     with Progress(f"simulating {Path(args.chain).name}", unit="episodes", quiet=quiet) as bar:
         result = check_chain(
             args.chain,
-            store=open_store(getattr(args, "store", None)),
+            store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)),
             method=args.method,
             episodes=args.episodes,
             seed=args.seed,

@@ -19,10 +19,21 @@ from .output import print_error
 __all__ = ["main", "build_parser", "common_options"]
 
 
+STORE_HELP = (
+    "skill store: a folder, or a postgresql:// URL for a shared store (no password in it: use ~/.pgpass "
+    "or a service file) (default: $KINETOME_STORE, else the user data dir)"
+)
+BLOBS_HELP = (
+    "where the store keeps its files: a folder (shared by every machine) or s3://bucket/prefix; "
+    "needed when creating a store on a database server (default: $KINETOME_BLOBS, else what the store recorded)"
+)
+
+
 def common_options() -> argparse.ArgumentParser:
-    """--store, --debug and --quiet, accepted after the command name too."""
+    """--store, --blobs, --debug and --quiet, accepted after the command name too."""
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("--store", metavar="DIR", default=argparse.SUPPRESS, help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
+    common.add_argument("--store", metavar="STORE", default=argparse.SUPPRESS, help=STORE_HELP)
+    common.add_argument("--blobs", metavar="BLOBS", default=argparse.SUPPRESS, help=BLOBS_HELP)
     common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks on errors")
     common.add_argument(
         "--quiet", action="store_true", default=argparse.SUPPRESS,
@@ -51,7 +62,8 @@ def _version() -> str:
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="kinetome", description=_DESCRIPTION)
     parser.add_argument("--version", action="version", version=f"kinetome {_version()}", help="print the installed version and exit")
-    parser.add_argument("--store", metavar="DIR", help="skill store folder (default: $KINETOME_STORE, else the user data dir)")
+    parser.add_argument("--store", metavar="STORE", help=STORE_HELP)
+    parser.add_argument("--blobs", metavar="BLOBS", help=BLOBS_HELP)
     parser.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bar or progress lines on long commands")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", help="one of the commands below; kinetome COMMAND --help lists its options")

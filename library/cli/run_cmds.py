@@ -51,7 +51,7 @@ def _quiet(args: argparse.Namespace) -> bool:
 def _store(args: argparse.Namespace) -> Any:
     from ..api import open_store
 
-    return open_store(getattr(args, "store", None))
+    return open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None))
 
 
 def _run(args: argparse.Namespace) -> int:

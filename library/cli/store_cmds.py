@@ -1,4 +1,4 @@
-"""Store commands: register, list, show, lineage, diff, note, verify, export, import."""
+"""Store commands: register, list, show, lineage, diff, note, verify, export, import, copy-store."""
 
 from __future__ import annotations
 
@@ -15,9 +15,9 @@ JSON_HELP = "print machine-readable JSON (with a schema field) instead of text"
 
 
 def _open_store(args: argparse.Namespace, *, create: bool = True):
-    from ..store import Store, resolve_store_root
+    from ..api import open_store
 
-    return Store(resolve_store_root(getattr(args, "store", None)), create=create)
+    return open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None), create=create)
 
 
 def _register_parser(p: argparse.ArgumentParser, handler: Any) -> None:
@@ -28,6 +28,7 @@ def _register_parser(p: argparse.ArgumentParser, handler: Any) -> None:
 
 def _lineage_parser(p: argparse.ArgumentParser, handler: Any) -> None:
     p.add_argument("name", metavar="NAME", help="skill name (every version of it is listed)")
+    p.add_argument("--log", action="store_true", help="also list the audit log of the skill: who registered, retrained, promoted, rolled back or imported what, and when")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=handler)
 
@@ -80,6 +81,16 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--renumber", action="store_true", help="store versions whose number is taken here under the next free number (identity and origin stay)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_import)
+
+    p = sub.add_parser(
+        "copy-store", parents=[common], help="copy the whole store (--store/--blobs) into another, empty store",
+        description="Copy every version, file, artifact, note, current version and audit entry of the store named by "
+        "--store/--blobs into an empty store, e.g. from a folder to a PostgreSQL database and back; both are verified after.",
+    )
+    p.add_argument("target", metavar="TARGET", help="the empty store to fill: a folder or a postgresql:// URL (no password in it)")
+    p.add_argument("--target-blobs", metavar="BLOBS", help="where TARGET keeps its files: a folder or s3://bucket/prefix (needed for a new postgresql:// store)")
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
+    p.set_defaults(handler=_copy_store)
 
 
 def _caution() -> str:
@@ -142,7 +153,7 @@ def _list(args: argparse.Namespace) -> int:
     if args.json:
         print_json(tagged("list", {"skills": rows}))
     elif not rows:
-        print(f"no skills in {store.root}; register one with: kinetome register SPEC.yaml")
+        print(f"no skills in {store.location}; register one with: kinetome register SPEC.yaml")
     else:
         table = [{**r, "updated_at": _when(r["updated_at"]), "description": r["description"][:60]} for r in rows]
         print_table(table, [("name", "NAME"), ("current", "CURRENT"), ("newest", "NEWEST"), ("versions", "VERSIONS"), ("env", "ENV"), ("updated_at", "UPDATED (UTC)"), ("description", "DESCRIPTION")])
@@ -282,6 +293,8 @@ def _lineage(args: argparse.Namespace) -> int:
     store = _open_store(args)
     view = lineage_view(store, args.name)
     if args.json:
+        if getattr(args, "log", False):
+            view["log"] = _log_entries(store, args.name)
         print_json(tagged("lineage", view))
         return 0
     rows = [
@@ -295,8 +308,38 @@ def _lineage(args: argparse.Namespace) -> int:
     else:
         print(f"  none set: unpinned references resolve to the newest version; set one with kinetome promote {args.name}@N")
     if len(view["changes"]) > len(view["current"]):
-        print(f"\n{len(view['changes'])} changes of current versions; see them with --json (changes)")
+        print(f"\n{len(view['changes'])} changes of current versions; see them with --json (changes) or --log")
+    if getattr(args, "log", False):
+        _print_log(store, args.name)
     return 0
+
+
+def _log_entries(store: Any, name: str) -> list[dict[str, Any]]:
+    return [e.to_dict() for e in store.audit_log(name)]
+
+
+def _print_log(store: Any, name: str) -> None:
+    entries = _log_entries(store, name)
+    print("\naudit log")
+    if not entries:
+        print("  empty: nothing was recorded for this skill (stores made before the audit log start it empty)")
+        return
+    rows = [{**e, "created_at": _when(e["created_at"]), "detail": _log_detail(e["detail"])} for e in entries]
+    print_table(rows, [("seq", "#"), ("created_at", "WHEN (UTC)"), ("actor", "WHO"), ("action", "ACTION"), ("subject", "WHAT"), ("detail", "DETAIL")])
+
+
+def _log_detail(detail: dict[str, Any]) -> str:
+    parts = []
+    if detail.get("parent"):
+        parts.append(f"parent {detail['parent']}")
+    if detail.get("from"):
+        parts.append(f"was {detail['from']}")
+    if detail.get("reason") and "task" in detail:
+        parts.append(f"why {detail['reason']}")
+    origin = detail.get("origin") or {}
+    if origin.get("ref"):
+        parts.append(f"from {origin['ref']} in {detail.get('bundle')}")
+    return "; ".join(parts)
 
 
 def _history_old_name(args: argparse.Namespace) -> int:
@@ -383,6 +426,27 @@ def _import(args: argparse.Namespace) -> int:
     if notice:
         print(f"Notice from the bundle: {notice}")
     return 0
+
+
+def _copy_store(args: argparse.Namespace) -> int:
+    from ..store import Store, copy_store, resolve_store_root
+
+    source = _open_store(args, create=False)
+    target = Store(resolve_store_root(args.target), blobs=args.target_blobs)
+    report = copy_store(source, target)
+    if args.json:
+        print_json(tagged("copy-store", report.to_dict()))
+        return 0 if report.ok else 1
+    print(
+        f"copied {report.versions} versions, {report.artifacts} artifact revisions, {report.blobs} blobs "
+        f"({report.bytes} bytes) and {report.audit_entries} audit entries from {report.source} to {report.target} "
+        f"(blobs at {target.blobs_location})"
+    )
+    for what, r in (("source", report.source_report), ("copy", report.target_report)):
+        print(f"{what}: " + r.lines()[-1])
+        for line in r.lines()[:-1]:
+            print(f"  {line}")
+    return 0 if report.ok else 1
 
 
 def _bundle_notice(path: str) -> str | None:

@@ -93,7 +93,7 @@ def _retrain(args: argparse.Namespace) -> int:
     bar, on_update = _bar(f"retrain {args.ref}", args)
     result = retrain(
         args.ref,
-        store=open_store(getattr(args, "store", None)),
+        store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)),
         variant=args.variant,
         env_step_budget=args.env_step_budget,
         deliberation_cost=args.deliberation_cost,
@@ -139,7 +139,7 @@ def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
 
     bar, on_update = _bar(f"train {args.config}", args)
-    result = train(args.config, store=open_store(getattr(args, "store", None)), seed=args.seed, workers=args.workers, out=args.out, progress=on_update)
+    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=args.workers, out=args.out, progress=on_update)
     bar.close()
     if args.json:
         print_json(result)

@@ -32,9 +32,10 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
 
 
 def _promote(args: argparse.Namespace) -> int:
-    from ..store import Store, parse_pin, resolve_store_root
+    from ..api import open_store
+    from ..store import parse_pin
 
-    store = Store(resolve_store_root(getattr(args, "store", None)), create=False)
+    store = open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None), create=False)
     before = store.currents(parse_pin(args.ref).name).get(args.task)
     entry = store.promote(args.ref, task=args.task, evidence={"note": args.note} if args.note else None)
     if args.json:

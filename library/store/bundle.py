@@ -10,6 +10,7 @@ one transaction. Imported versions keep their identity, number and origin.
 from __future__ import annotations
 
 import io
+import json
 import os
 import re
 import shutil
@@ -21,7 +22,7 @@ from pathlib import Path
 
 from kinetome.library.errors import BundleError, InvalidInputError
 from kinetome.library.file_modes import apply_umask
-from kinetome.library.store import index
+from kinetome.library.store import audit, index
 from kinetome.library.store.bundle_tar import (
     ArchiveReader,
     GzipSink,
@@ -46,7 +47,6 @@ from kinetome.library.store.manifest import (
 )
 from kinetome.library.store.metadata import canonical_json, canonical_meta
 from kinetome.library.store.records import ImportReport
-from kinetome.library.store.schema import write_transaction
 from kinetome.library.store.store import Store
 
 __all__ = [
@@ -294,7 +294,7 @@ def _conflict(store: Store, bv, row: int) -> BundleError:
 
 def _plan(store: Store, manifest: Manifest, renumber: bool) -> list[_Step]:
     """Which bundle versions exist here (by identity) and the number each new one gets."""
-    conn = store._conn
+    conn = store._index
     steps: list[_Step] = []
     planned: set[tuple[str, int]] = set()
     in_bundle = {(v.name, v.number) for v in manifest.versions}
@@ -321,8 +321,8 @@ def _origin(manifest: Manifest, thing) -> str:
     return canonical_json(origin)
 
 
-def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step]) -> tuple[dict[str, int], list[int]]:
-    conn = store._conn
+def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step], source: str) -> tuple[dict[str, int], list[int]]:
+    conn = store._index
     rows: dict[str, int] = {}
     added: list[int] = []
     for step in steps:
@@ -332,10 +332,15 @@ def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step]) -> tu
             parent_id = rows.get(bv.parent) if bv.parent in rows else None
             if parent_id is None and bv.parent_identity is not None:
                 parent_id = index.find_by_identity(conn, bv.parent_identity)
+            now, origin = index.utc_now(), _origin(manifest, bv)
             row = index.insert_version(
                 conn, name=bv.name, number=step.number, files=bv.files, parent_id=parent_id,
                 parent_identity=bv.parent_identity, reason=bv.reason, identity=bv.identity,
-                origin_json=_origin(manifest, bv), meta_json=canonical_meta(bv.meta), created_at=index.utc_now(),
+                origin_json=origin, meta_json=canonical_meta(bv.meta), created_at=now,
+            )
+            audit.append_entry(
+                conn, "imported", name=bv.name, subject=f"{bv.name}@{step.number}", created_at=now,
+                detail={"identity": bv.identity, "reason": bv.reason, "origin": json.loads(origin), "bundle": source},
             )
             for text, created_at in bv.notes:
                 index.insert_note(conn, row, text, created_at)
@@ -345,7 +350,7 @@ def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step]) -> tu
 
 
 def _insert_artifacts(store: Store, manifest: Manifest, rows: dict[str, int]) -> None:
-    conn = store._conn
+    conn = store._index
     for ba in sorted(manifest.artifacts, key=lambda a: (a.owner, a.kind, a.revision)):
         row = rows[ba.owner]
         if index.find_artifact_by_content(conn, row, ba.kind, files_key="", lookup="", digest=ba.digest) is not None:
@@ -363,7 +368,7 @@ def _insert_artifacts(store: Store, manifest: Manifest, rows: dict[str, int]) ->
 
 def _set_currents(store: Store, manifest: Manifest, rows: dict[str, int]) -> list[str]:
     """Tasks the bundle's versions were current for become current here where nothing is current yet."""
-    conn = store._conn
+    conn = store._index
     done = []
     for bv in manifest.versions:
         for task in bv.current_for:
@@ -377,12 +382,12 @@ def _set_currents(store: Store, manifest: Manifest, rows: dict[str, int]) -> lis
     return done
 
 
-def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]], renumber: bool) -> tuple:
+def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]], renumber: bool, source: str) -> tuple:
     _plan(store, manifest, renumber)  # refuse conflicts before any blob is written
     for digest, (path, _) in staged.items():
         store._blobs.adopt(path, digest)
-    with write_transaction(store._conn):
-        rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber))
+    with store._index.write_transaction():
+        rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber), source)
         _insert_artifacts(store, manifest, rows)
         currents = _set_currents(store, manifest, rows)
     return rows, added, currents
@@ -404,12 +409,11 @@ def import_bundle(
     source = Path(path).expanduser()
     if not source.is_file():
         raise BundleError(f"bundle {source} must be an existing file, got a missing path; check the path")
-    store._blobs.create()
-    staging = Path(tempfile.mkdtemp(prefix="import-", dir=store._blobs.tmp))
+    staging = Path(tempfile.mkdtemp(prefix="import-", dir=store._blobs.staging_dir()))
     try:
         archive = _read_archive(source, staging, _Limits(max_member_bytes, max_total_bytes, max_members))
         manifest, warnings = _check_archive(source, archive)
-        rows, added, currents = _commit(store, manifest, archive.staged, renumber)
+        rows, added, currents = _commit(store, manifest, archive.staged, renumber, source.name)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return ImportReport(

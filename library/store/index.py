@@ -1,20 +1,23 @@
-"""SQL on the index: versions, current versions, artifacts, notes (the only module with SQL
-for a live store; no blob I/O here). Another index backend provides these functions."""
+"""SQL on the index: versions, current versions, artifacts, notes (no blob I/O here).
+
+Written once for both index backends (``?`` placeholders, SQL that SQLite and PostgreSQL
+read alike); ``conn`` is an ``IndexBackend``. The audit log has its own module, ``audit.py``."""
 
 from __future__ import annotations
 
 import json
-import sqlite3
 from collections.abc import Iterable
 from datetime import datetime, timezone
 
 from kinetome.library.store.identity import content_key
+from kinetome.library.store.index_backend import IndexBackend
 from kinetome.library.store.records import ArtifactRecord, CurrentEntry, FileEntry, Note, VersionRecord
 
 __all__ = [
     "utc_now",
     "content_key",
     "store_info",
+    "set_store_info",
     "version_id",
     "numbers_of",
     "all_names",
@@ -52,64 +55,70 @@ def utc_now() -> str:
     return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
-def store_info(conn: sqlite3.Connection, key: str) -> str | None:
+def store_info(conn: IndexBackend, key: str) -> str | None:
     row = conn.execute("SELECT value FROM store_info WHERE key = ?", (key,)).fetchone()
     return None if row is None else str(row[0])
+
+
+def set_store_info(conn: IndexBackend, key: str, value: str) -> None:
+    conn.execute(
+        "INSERT INTO store_info (key, value) VALUES (?, ?) ON CONFLICT (key) DO UPDATE SET value = excluded.value", (key, value)
+    )
 
 
 # -- versions --------------------------------------------------------------------------
 
 
-def version_id(conn: sqlite3.Connection, name: str, number: int) -> int | None:
+def version_id(conn: IndexBackend, name: str, number: int) -> int | None:
     row = conn.execute("SELECT id FROM versions WHERE name = ? AND number = ?", (name, number)).fetchone()
     return None if row is None else int(row[0])
 
 
-def numbers_of(conn: sqlite3.Connection, name: str) -> list[int]:
+def numbers_of(conn: IndexBackend, name: str) -> list[int]:
     return [int(r[0]) for r in conn.execute("SELECT number FROM versions WHERE name = ? ORDER BY number", (name,))]
 
 
-def all_names(conn: sqlite3.Connection) -> list[str]:
+def all_names(conn: IndexBackend) -> list[str]:
     return [r[0] for r in conn.execute("SELECT DISTINCT name FROM versions ORDER BY name")]
 
 
-def find_by_content(conn: sqlite3.Connection, name: str, key: str) -> int | None:
+def find_by_content(conn: IndexBackend, name: str, key: str) -> int | None:
     row = conn.execute(
         "SELECT id FROM versions WHERE name = ? AND content_key = ? ORDER BY number LIMIT 1", (name, key)
     ).fetchone()
     return None if row is None else int(row[0])
 
 
-def find_by_identity(conn: sqlite3.Connection, identity: str) -> int | None:
+def find_by_identity(conn: IndexBackend, identity: str) -> int | None:
     row = conn.execute("SELECT id FROM versions WHERE identity = ?", (identity,)).fetchone()
     return None if row is None else int(row[0])
 
 
-def find_by_identity_prefix(conn: sqlite3.Connection, name: str, prefix: str) -> list[int]:
+def find_by_identity_prefix(conn: IndexBackend, name: str, prefix: str) -> list[int]:
     rows = conn.execute(
-        "SELECT id FROM versions WHERE name = ? AND substr(identity, 1, ?) = ? ORDER BY number", (name, len(prefix), prefix)
+        "SELECT id FROM versions WHERE name = ? AND identity LIKE ? ORDER BY number", (name, prefix + "%")
     )
     return [int(r[0]) for r in rows]
 
 
-def latest_row(conn: sqlite3.Connection, name: str) -> int | None:
+def latest_row(conn: IndexBackend, name: str) -> int | None:
     row = conn.execute("SELECT id FROM versions WHERE name = ? ORDER BY number DESC LIMIT 1", (name,)).fetchone()
     return None if row is None else int(row[0])
 
 
-def parent_row(conn: sqlite3.Connection, row_id: int) -> int | None:
+def parent_row(conn: IndexBackend, row_id: int) -> int | None:
     row = conn.execute("SELECT parent_id FROM versions WHERE id = ?", (row_id,)).fetchone()
     return None if row is None or row[0] is None else int(row[0])
 
 
-def insert_blobs(conn: sqlite3.Connection, entries: Iterable[FileEntry]) -> None:
+def insert_blobs(conn: IndexBackend, entries: Iterable[FileEntry]) -> None:
     conn.executemany(
-        "INSERT OR IGNORE INTO blobs (digest, size) VALUES (?, ?)", [(e.digest, e.size) for e in entries]
+        "INSERT INTO blobs (digest, size) VALUES (?, ?) ON CONFLICT DO NOTHING", [(e.digest, e.size) for e in entries]
     )
 
 
 def insert_version(
-    conn: sqlite3.Connection,
+    conn: IndexBackend,
     *,
     name: str,
     files: tuple[FileEntry, ...],
@@ -127,7 +136,7 @@ def insert_version(
         (latest,) = conn.execute("SELECT COALESCE(MAX(number), 0) FROM versions WHERE name = ?", (name,)).fetchone()
         number = int(latest) + 1
     insert_blobs(conn, files)
-    cur = conn.execute(
+    vid = conn.insert(
         "INSERT INTO versions (name, number, parent_id, parent_identity, reason, identity, origin, meta, content_key, created_at)"
         " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (
@@ -143,7 +152,6 @@ def insert_version(
             created_at,
         ),
     )
-    vid = int(cur.lastrowid)
     conn.executemany(
         "INSERT INTO version_files (version_id, role, digest, size) VALUES (?, ?, ?, ?)",
         [(vid, e.role, e.digest, e.size) for e in files],
@@ -151,7 +159,7 @@ def insert_version(
     return vid
 
 
-def _files_by_owner(conn: sqlite3.Connection, table: str, owner_col: str, ids: list[int]) -> dict[int, list[FileEntry]]:
+def _files_by_owner(conn: IndexBackend, table: str, owner_col: str, ids: list[int]) -> dict[int, list[FileEntry]]:
     out: dict[int, list[FileEntry]] = {i: [] for i in ids}
     for start in range(0, len(ids), 500):
         chunk = ids[start : start + 500]
@@ -165,41 +173,41 @@ def _files_by_owner(conn: sqlite3.Connection, table: str, owner_col: str, ids: l
 
 
 def load_versions(
-    conn: sqlite3.Connection, where: str, params: tuple = (), order: str = "v.name, v.number"
+    conn: IndexBackend, where: str, params: tuple = (), order: str = "v.name, v.number"
 ) -> list[tuple[int, VersionRecord]]:
     """(row id, record) of the versions matching ``where`` (an SQL condition on alias ``v``)."""
     rows = conn.execute(f"{_VERSION_SELECT} WHERE {where} ORDER BY {order}", params).fetchall()
-    files = _files_by_owner(conn, "version_files", "version_id", [int(r["id"]) for r in rows])
+    files = _files_by_owner(conn, "version_files", "version_id", [int(r[0]) for r in rows])
     out = []
-    for r in rows:
-        parent = None if r["parent_name"] is None else f"{r['parent_name']}@{r['parent_number']}"
+    for vid, name, number, reason, meta, created_at, identity, parent_identity, origin, parent_name, parent_number in rows:
         record = VersionRecord(
-            name=r["name"],
-            number=int(r["number"]),
-            files=tuple(files[int(r["id"])]),
-            parent=parent,
-            reason=r["reason"],
-            meta_json=r["meta"],
-            created_at=r["created_at"],
-            identity=r["identity"],
-            parent_identity=r["parent_identity"],
-            origin_json=r["origin"],
+            name=name,
+            number=int(number),
+            files=tuple(files[int(vid)]),
+            parent=None if parent_name is None else f"{parent_name}@{parent_number}",
+            reason=reason,
+            meta_json=meta,
+            created_at=created_at,
+            identity=identity,
+            parent_identity=parent_identity,
+            origin_json=origin,
         )
-        out.append((int(r["id"]), record))
+        out.append((int(vid), record))
     return out
 
 
-def skill_summaries(conn: sqlite3.Connection) -> list[tuple]:
+def skill_summaries(conn: IndexBackend) -> list[tuple]:
     """(name, newest number, count, newest created_at, description, env, nominal current number) per skill.
 
     description/env come from the newest version whose meta holds them as text.
     """
+    description, env = conn.json_text("d.meta", "description"), conn.json_text("e.meta", "env")
     return conn.execute(
         "SELECT v.name, v.number, c.n, v.created_at,"
-        " (SELECT json_extract(d.meta, '$.description') FROM versions d WHERE d.name = v.name"
-        "   AND json_type(d.meta, '$.description') = 'text' ORDER BY d.number DESC LIMIT 1),"
-        " (SELECT json_extract(e.meta, '$.env') FROM versions e WHERE e.name = v.name"
-        "   AND json_type(e.meta, '$.env') = 'text' ORDER BY e.number DESC LIMIT 1),"
+        f" (SELECT {description} FROM versions d WHERE d.name = v.name"
+        f"   AND {description} IS NOT NULL ORDER BY d.number DESC LIMIT 1),"
+        f" (SELECT {env} FROM versions e WHERE e.name = v.name"
+        f"   AND {env} IS NOT NULL ORDER BY e.number DESC LIMIT 1),"
         " (SELECT cv.number FROM currents k JOIN versions cv ON cv.id = k.version_id"
         "   WHERE k.name = v.name AND k.task = 'nominal' ORDER BY k.id DESC LIMIT 1)"
         " FROM versions v"
@@ -216,12 +224,12 @@ _CURRENT_SELECT = (
 )
 
 
-def _current(row: sqlite3.Row) -> CurrentEntry:
+def _current(row: tuple) -> CurrentEntry:
     return CurrentEntry(row[0], row[1], row[2], row[3], row[4], row[5])
 
 
 def insert_current(
-    conn: sqlite3.Connection, *, name: str, task: str, version_row: int, reason: str, evidence_json: str, created_at: str
+    conn: IndexBackend, *, name: str, task: str, version_row: int, reason: str, evidence_json: str, created_at: str
 ) -> None:
     conn.execute(
         "INSERT INTO currents (name, task, version_id, reason, evidence, created_at) VALUES (?, ?, ?, ?, ?, ?)",
@@ -229,7 +237,7 @@ def insert_current(
     )
 
 
-def current_row(conn: sqlite3.Connection, name: str, task: str) -> int | None:
+def current_row(conn: IndexBackend, name: str, task: str) -> int | None:
     """Row id of the current version of ``name`` for ``task`` (None: never set)."""
     row = conn.execute(
         "SELECT version_id FROM currents WHERE name = ? AND task = ? ORDER BY id DESC LIMIT 1", (name, task)
@@ -237,7 +245,7 @@ def current_row(conn: sqlite3.Connection, name: str, task: str) -> int | None:
     return None if row is None else int(row[0])
 
 
-def load_currents(conn: sqlite3.Connection, name: str) -> list[CurrentEntry]:
+def load_currents(conn: IndexBackend, name: str) -> list[CurrentEntry]:
     """The latest entry per task, sorted by task."""
     rows = conn.execute(
         f"{_CURRENT_SELECT} WHERE k.id IN (SELECT MAX(id) FROM currents WHERE name = ? GROUP BY task) ORDER BY k.task",
@@ -246,11 +254,11 @@ def load_currents(conn: sqlite3.Connection, name: str) -> list[CurrentEntry]:
     return [_current(r) for r in rows]
 
 
-def load_current_history(conn: sqlite3.Connection, name: str) -> list[CurrentEntry]:
+def load_current_history(conn: IndexBackend, name: str) -> list[CurrentEntry]:
     return [_current(r) for r in conn.execute(f"{_CURRENT_SELECT} WHERE k.name = ? ORDER BY k.id", (name,))]
 
 
-def current_tasks(conn: sqlite3.Connection, version_row: int) -> list[str]:
+def current_tasks(conn: IndexBackend, version_row: int) -> list[str]:
     """Tasks for which the version is current now, sorted."""
     rows = conn.execute(
         "SELECT task FROM currents WHERE id IN (SELECT MAX(id) FROM currents"
@@ -264,7 +272,7 @@ def current_tasks(conn: sqlite3.Connection, version_row: int) -> list[str]:
 
 
 def insert_artifact(
-    conn: sqlite3.Connection,
+    conn: IndexBackend,
     *,
     version_row: int,
     kind: str,
@@ -287,7 +295,7 @@ def insert_artifact(
         ).fetchone()
         revision = int(latest) + 1
     insert_blobs(conn, files)
-    cur = conn.execute(
+    aid = conn.insert(
         "INSERT INTO artifacts (version_id, kind, revision, computed_on, task, settings, software, meta,"
         " lookup_key, digest, content_key, origin, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (
@@ -295,7 +303,6 @@ def insert_artifact(
             lookup, digest, content_key({e.role: e.digest for e in files}), origin_json, created_at,
         ),
     )
-    aid = int(cur.lastrowid)
     conn.executemany(
         "INSERT INTO artifact_files (artifact_id, role, digest, size) VALUES (?, ?, ?, ?)",
         [(aid, e.role, e.digest, e.size) for e in files],
@@ -304,7 +311,7 @@ def insert_artifact(
 
 
 def find_artifact_by_content(
-    conn: sqlite3.Connection, version_row: int, kind: str, *, files_key: str, lookup: str, digest: str | None = None
+    conn: IndexBackend, version_row: int, kind: str, *, files_key: str, lookup: str, digest: str | None = None
 ) -> int | None:
     """The latest revision of ``kind`` if it has the same files and lookup key (or, given ``digest``,
     any revision with that digest)."""
@@ -321,7 +328,7 @@ def find_artifact_by_content(
     return int(row[0]) if row is not None and (row[1], row[2]) == (files_key, lookup) else None
 
 
-def find_artifacts_by_key(conn: sqlite3.Connection, kind: str, lookup: str) -> list[int]:
+def find_artifacts_by_key(conn: IndexBackend, kind: str, lookup: str) -> list[int]:
     """Artifact row ids of ``kind`` with this lookup key, newest first."""
     rows = conn.execute(
         "SELECT id FROM artifacts WHERE kind = ? AND lookup_key = ? ORDER BY id DESC", (kind, lookup)
@@ -329,7 +336,7 @@ def find_artifacts_by_key(conn: sqlite3.Connection, kind: str, lookup: str) -> l
     return [int(r[0]) for r in rows]
 
 
-def load_artifacts(conn: sqlite3.Connection, where: str, params: tuple = ()) -> list[ArtifactRecord]:
+def load_artifacts(conn: IndexBackend, where: str, params: tuple = ()) -> list[ArtifactRecord]:
     """Artifact revisions matching ``where`` (SQL on alias ``a``; version alias ``v``)."""
     rows = conn.execute(
         "SELECT a.id, a.kind, a.revision, a.meta, a.created_at, a.computed_on, a.task, a.settings, a.software,"
@@ -338,33 +345,33 @@ def load_artifacts(conn: sqlite3.Connection, where: str, params: tuple = ()) -> 
         " ORDER BY v.name, v.number, a.kind, a.revision",
         params,
     ).fetchall()
-    files = _files_by_owner(conn, "artifact_files", "artifact_id", [int(r["id"]) for r in rows])
+    files = _files_by_owner(conn, "artifact_files", "artifact_id", [int(r[0]) for r in rows])
     return [
         ArtifactRecord(
-            version=f"{r['name']}@{r['number']}",
-            kind=r["kind"],
-            revision=int(r["revision"]),
-            files=tuple(files[int(r["id"])]),
-            meta_json=r["meta"],
-            created_at=r["created_at"],
-            computed_on=tuple(json.loads(r["computed_on"])),
-            task_json=r["task"],
-            settings_json=r["settings"],
-            software_json=r["software"],
-            digest=r["digest"],
-            origin_json=r["origin"],
+            version=f"{name}@{number}",
+            kind=kind,
+            revision=int(revision),
+            files=tuple(files[int(aid)]),
+            meta_json=meta,
+            created_at=created_at,
+            computed_on=tuple(json.loads(computed_on)),
+            task_json=task,
+            settings_json=settings,
+            software_json=software,
+            digest=digest,
+            origin_json=origin,
         )
-        for r in rows
+        for aid, kind, revision, meta, created_at, computed_on, task, settings, software, digest, origin, name, number in rows
     ]
 
 
 # -- notes -----------------------------------------------------------------------------
 
 
-def insert_note(conn: sqlite3.Connection, version_row: int, text: str, created_at: str) -> None:
+def insert_note(conn: IndexBackend, version_row: int, text: str, created_at: str) -> None:
     conn.execute("INSERT INTO notes (version_id, text, created_at) VALUES (?, ?, ?)", (version_row, text, created_at))
 
 
-def load_notes(conn: sqlite3.Connection, version_row: int, ref: str) -> list[Note]:
+def load_notes(conn: IndexBackend, version_row: int, ref: str) -> list[Note]:
     rows = conn.execute("SELECT text, created_at FROM notes WHERE version_id = ? ORDER BY id", (version_row,))
     return [Note(ref, i, text, created_at) for i, (text, created_at) in enumerate(rows, start=1)]

@@ -1,4 +1,4 @@
-"""Migrate an index of schema 1 (the first wave's stores) to schema 2, in one transaction.
+"""Migrate a SQLite index of schema 1 (the first wave's stores) or 2 (before the audit log) to the current schema.
 
 - versions get a content identity and their parent's identity; an ``imported`` version
   takes back its original reason and keeps where it came from as its origin;
@@ -6,6 +6,8 @@
 - each skill's newest version becomes current for nominal (what unpinned references
   resolved to before), with reason ``migrated``;
 - the store gets an id. A copy of the old index is kept as ``index.sqlite.schema1``.
+
+Schema 2 only gains the (empty) audit log table.
 """
 
 from __future__ import annotations
@@ -14,11 +16,15 @@ import json
 import sqlite3
 import uuid
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from kinetome.library.errors import StoreIntegrityError
 from kinetome.library.store.identity import artifact_digest, content_key, lookup_key, version_identity
 from kinetome.library.store.legacy import model_task_and_settings, reason_and_origin
 from kinetome.library.store.metadata import canonical_json
+
+if TYPE_CHECKING:
+    from kinetome.library.store.sqlite_index import SqliteIndex
 
 __all__ = ["migrate_index", "BACKUP_SUFFIX"]
 
@@ -113,18 +119,31 @@ def _set_currents(conn: sqlite3.Connection, now: str) -> None:
     )
 
 
-def migrate_index(conn: sqlite3.Connection, path: Path, *, from_version: int) -> None:
-    """Bring an index from ``from_version`` to the current schema (only schema 1 exists before it)."""
-    from kinetome.library.store.index import utc_now
-    from kinetome.library.store.schema import SCHEMA, SCHEMA_VERSION, write_transaction
+def _add_audit_log(conn: sqlite3.Connection) -> None:
+    """Schema 2 -> 3: the audit log table (empty: what happened before it was not recorded)."""
+    conn.execute(_schema_statement("CREATE TABLE IF NOT EXISTS audit_log ("))
 
-    if from_version != 1:
+
+def migrate_index(index: SqliteIndex, *, from_version: int) -> None:
+    """Bring a SQLite index from ``from_version`` to the current schema, in one transaction.
+    (Schemas 1 and 2 only ever existed as SQLite files.)"""
+    from kinetome.library.store.index import utc_now
+    from kinetome.library.store.schema import SCHEMA, SCHEMA_VERSION
+
+    conn, path = index.conn, index.path
+    if from_version not in (1, 2):
         raise StoreIntegrityError(f"{path} has index schema {from_version}, which no kinetome wrote; restore it from a backup")
+    if from_version == 2:
+        with index.write_transaction():
+            if index.schema_version() == from_version:  # else another process migrated it first
+                _add_audit_log(conn)
+                conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+        return
     _backup(conn, path)
     conn.execute("PRAGMA foreign_keys = OFF")  # the versions table is rebuilt under the rows that point at it
     try:
-        with write_transaction(conn):
-            if conn.execute("PRAGMA user_version").fetchone()[0] != from_version:
+        with index.write_transaction():
+            if index.schema_version() != from_version:
                 return  # another process migrated it first
             identities = _migrate_versions(conn)
             for statement in SCHEMA:

@@ -1,4 +1,5 @@
-"""``Store``: immutable skill versions with lineage, current versions per task, notes and artifacts over one folder."""
+"""``Store``: immutable skill versions with lineage, current versions per task, notes, artifacts and an
+audit log, over an index backend (SQLite file or PostgreSQL database) and a blob store (folder or S3)."""
 
 from __future__ import annotations
 
@@ -9,13 +10,14 @@ from pathlib import Path
 
 from kinetome.library.errors import InvalidInputError, NotFoundError, StoreIntegrityError
 from kinetome.library.fault_points import fault_point
-from kinetome.library.store import index
-from kinetome.library.store.blobs import BlobDir
+from kinetome.library.store import audit, index
+from kinetome.library.store.blobs import BlobStore, open_blobs
 from kinetome.library.store.identity import version_identity
+from kinetome.library.store.index_backend import IndexBackend
+from kinetome.library.store.location import check_database_url, is_database_url
 from kinetome.library.store.metadata import canonical_meta
 from kinetome.library.store.names import NOMINAL_TASK, format_ref, parse_pin, parse_ref, validate_name, validate_role, validate_task
 from kinetome.library.store.records import REASONS, AddResult, FileEntry, Note, SkillSummary, VersionRecord
-from kinetome.library.store.schema import connect, write_transaction
 from kinetome.library.store.store_artifacts import ArtifactMethods
 from kinetome.library.store.store_currents import CurrentMethods
 from kinetome.library.store.verify import VerifyReport, verify_store
@@ -58,35 +60,101 @@ def check_files(files: object, *, what: str) -> dict[str, bytes]:
     return out
 
 
+def _open_folder(root: Path, *, blobs: object, create: bool) -> IndexBackend:
+    """The SQLite index of a store folder (created with the folder if ``create``)."""
+    from kinetome.library.store.sqlite_index import SqliteIndex
+
+    if root.exists() and not root.is_dir():
+        raise InvalidInputError(f"store root must be a folder, got the file {root}; pass a folder path to --store")
+    path = root / INDEX_NAME
+    if not path.exists():
+        if not create:
+            raise NotFoundError(
+                f"no kinetome store at {root} ({INDEX_NAME} is missing); "
+                "check --store / $KINETOME_STORE, or register a skill to create one"
+            )
+        root.mkdir(parents=True, exist_ok=True)
+    found = SqliteIndex(path, create=create)
+    if blobs is not None and index.store_info(found, "blobs") is None and not found.execute("SELECT 1 FROM versions LIMIT 1").fetchone():
+        with found.write_transaction():  # a new store records where its blobs are
+            index.set_store_info(found, "blobs", _absolute(blobs))
+    return found
+
+
+def _open_database(url: str, *, blobs: object, create: bool) -> IndexBackend:
+    """The PostgreSQL index at ``url``; creating one records its blob location, so it needs one."""
+    from kinetome.library.store.pg_index import PostgresIndex
+
+    try:
+        return PostgresIndex(url, create=create and blobs is not None, info=None if blobs is None else {"blobs": _absolute(blobs)})
+    except NotFoundError:
+        if create and blobs is None:
+            raise InvalidInputError(
+                f"there is no store at {url} yet, and creating one needs a blob location, got none; "
+                "pass --blobs with a shared folder or s3://bucket/prefix (or set $KINETOME_BLOBS)"
+            ) from None
+        raise
+
+
+def _absolute(blobs: object) -> str:
+    """A blob location as it is recorded: URLs as given, folders as absolute paths."""
+    text = str(blobs)
+    return text if "://" in text else str(Path(text).expanduser().resolve())
+
+
 class Store(CurrentMethods, ArtifactMethods):
-    """A store folder: ``index.sqlite`` plus ``blobs/<aa>/<sha256>``.
+    """A store: an index plus content-addressed blobs.
+
+    ``Store(folder)`` is the embedded store (``index.sqlite`` and ``blobs/<aa>/<sha256>`` in the
+    folder, no server); ``Store("postgresql://host/db", blobs=...)`` keeps its index in a
+    PostgreSQL database and its blobs in a shared folder or ``s3://bucket/prefix``. The blob
+    location given when a store is created is recorded in it; ``blobs=`` overrides it (e.g. a
+    shared folder mounted elsewhere on this machine).
 
     Versions, artifacts and current-version events are only ever added. Each add
     writes its blobs first (atomically) and then its index rows in one transaction,
     so a killed add leaves at most unused blobs, never a partial version.
     """
 
-    def __init__(self, root: str | os.PathLike, *, create: bool = True):
-        self.root = Path(root).expanduser()
-        self.index_path = self.root / INDEX_NAME
-        if self.root.exists() and not self.root.is_dir():
-            raise InvalidInputError(f"store root must be a folder, got the file {self.root}; pass a folder path to --store")
-        if not self.index_path.exists():
-            if not create:
-                raise NotFoundError(
-                    f"no kinetome store at {self.root} ({INDEX_NAME} is missing); "
-                    "check --store / $KINETOME_STORE, or register a skill to create one"
-                )
-            self.root.mkdir(parents=True, exist_ok=True)
-        self._blobs = BlobDir(self.root)
-        self._blobs.create()
-        self._conn = connect(self.index_path, create=create)
-        self.store_id = index.store_info(self._conn, "store_id") or ""
+    def __init__(self, location: str | os.PathLike, *, blobs: str | os.PathLike | None = None, create: bool = True):
+        self.root: Path | None = None
+        if is_database_url(location):
+            self.location = check_database_url(str(location))
+            self._index = _open_database(self.location, blobs=blobs, create=create)
+        else:
+            self.root = Path(location).expanduser()
+            self.location = str(self.root)
+            self._index = _open_folder(self.root, blobs=blobs, create=create)
+        try:
+            recorded = index.store_info(self._index, "blobs")
+            self._blobs: BlobStore = open_blobs(blobs if blobs is not None else recorded or self.root)
+            self._blobs.create()
+            self.store_id = index.store_info(self._index, "store_id") or ""
+        except BaseException:
+            self._index.close()
+            raise
+
+    @property
+    def index_path(self) -> Path:
+        """The SQLite file of an embedded store."""
+        if self.root is None:
+            raise InvalidInputError(f"the store at {self.location} keeps its index on a database server, not in a file")
+        return self.root / INDEX_NAME
+
+    @property
+    def blobs_location(self) -> str:
+        """Where this store's blobs are: a folder path or a URL."""
+        return self._blobs.location
+
+    @property
+    def backend(self) -> str:
+        """``sqlite`` or ``postgresql``."""
+        return self._index.dialect
 
     # -- lifecycle ---------------------------------------------------------------------
 
     def close(self) -> None:
-        self._conn.close()
+        self._index.close()
 
     def __enter__(self) -> Store:
         return self
@@ -95,18 +163,18 @@ class Store(CurrentMethods, ArtifactMethods):
         self.close()
 
     def __repr__(self) -> str:
-        return f"Store({str(self.root)!r})"
+        return f"Store({self.location!r})"
 
     # -- lookups -----------------------------------------------------------------------
 
     def _not_found(self, name: str, number: int | None) -> NotFoundError:
-        numbers = index.numbers_of(self._conn, name)
+        numbers = index.numbers_of(self._index, name)
         if numbers:
             return NotFoundError(
                 f"{format_ref(name, number or 0)} does not exist; {name} has versions "
                 f"{_number_ranges(numbers)} (latest {format_ref(name, numbers[-1])})"
             )
-        names = index.all_names(self._conn)
+        names = index.all_names(self._index)
         close = difflib.get_close_matches(name, names, n=3, cutoff=0.6)
         if close:
             hint = "did you mean " + " or ".join(repr(c) for c in close) + "?"
@@ -114,14 +182,14 @@ class Store(CurrentMethods, ArtifactMethods):
             hint = f"the store holds {len(names)} other skill(s); run `kinetome list` to see them"
         else:
             hint = "the store is empty; register a skill first"
-        return NotFoundError(f"no skill named {name!r} in the store at {self.root}; {hint}")
+        return NotFoundError(f"no skill named {name!r} in the store at {self.location}; {hint}")
 
     def _row(self, ref: str, task: str | None = None) -> tuple[int, VersionRecord]:
         pin = parse_pin(ref)
         if pin.identity is not None:
             row_id = self._identity_row(pin.name, pin.identity)
         elif pin.number is not None:
-            row_id = index.version_id(self._conn, pin.name, pin.number)
+            row_id = index.version_id(self._index, pin.name, pin.number)
         else:
             row_id = self._current_or_latest(pin.name, task)
         if row_id is None:
@@ -129,7 +197,7 @@ class Store(CurrentMethods, ArtifactMethods):
         return row_id, self._load_id(row_id)
 
     def _identity_row(self, name: str, prefix: str) -> int:
-        rows = index.find_by_identity_prefix(self._conn, name, prefix)
+        rows = index.find_by_identity_prefix(self._index, name, prefix)
         if not rows:
             raise NotFoundError(
                 f"no version of {name} has identity {prefix}; `kinetome lineage {name}` lists its versions and identities"
@@ -142,13 +210,13 @@ class Store(CurrentMethods, ArtifactMethods):
     def _current_or_latest(self, name: str, task: str | None) -> int | None:
         """The current version for ``task``, else for nominal, else the newest version."""
         for t in dict.fromkeys([validate_task(task) if task is not None else NOMINAL_TASK, NOMINAL_TASK]):
-            row = index.current_row(self._conn, name, t)
+            row = index.current_row(self._index, name, t)
             if row is not None:
                 return row
-        return index.latest_row(self._conn, name)
+        return index.latest_row(self._index, name)
 
     def _load_id(self, row_id: int) -> VersionRecord:
-        return index.load_versions(self._conn, "v.id = ?", (row_id,))[0][1]
+        return index.load_versions(self._index, "v.id = ?", (row_id,))[0][1]
 
     def get(self, ref: str, *, task: str | None = None) -> VersionRecord:
         """The version ``name@N`` or ``name@id:HEX``; for a bare ``name`` the current version for
@@ -184,13 +252,13 @@ class Store(CurrentMethods, ArtifactMethods):
                 env=env,
                 current=None if current is None else int(current),
             )
-            for name, number, count, created_at, description, env, current in index.skill_summaries(self._conn)
+            for name, number, count, created_at, description, env, current in index.skill_summaries(self._index)
         ]
 
     def history(self, name: str) -> list[VersionRecord]:
         """Every version of a skill, oldest first (a ref's number is ignored)."""
         bare, _ = parse_ref(name)
-        found = index.load_versions(self._conn, "v.name = ?", (bare,))
+        found = index.load_versions(self._index, "v.name = ?", (bare,))
         if not found:
             raise self._not_found(bare, None)
         return [record for _, record in found]
@@ -201,7 +269,7 @@ class Store(CurrentMethods, ArtifactMethods):
         chain = [record]
         seen = {row_id}
         while True:
-            parent = index.parent_row(self._conn, row_id)
+            parent = index.parent_row(self._index, row_id)
             if parent is None:
                 return chain
             if parent in seen:
@@ -213,7 +281,7 @@ class Store(CurrentMethods, ArtifactMethods):
     def children(self, ref: str) -> list[VersionRecord]:
         """Versions whose parent is ``ref`` (any name)."""
         row_id, _ = self._row(ref)
-        return [r for _, r in index.load_versions(self._conn, "v.parent_id = ?", (row_id,))]
+        return [r for _, r in index.load_versions(self._index, "v.parent_id = ?", (row_id,))]
 
     # -- adding ------------------------------------------------------------------------
 
@@ -222,9 +290,15 @@ class Store(CurrentMethods, ArtifactMethods):
         fault_point("store.blobs-written")  # blobs in place, no index row yet
         return entries
 
-    def _insert(self, conn, name: str, entries: tuple[FileEntry, ...], parent_id: int | None, reason: str, meta_json: str) -> int:
-        parent_identity = None if parent_id is None else self._load_id(parent_id).identity
+    def _insert(
+        self, conn, name: str, entries: tuple[FileEntry, ...], parent_id: int | None, reason: str, meta_json: str, **detail
+    ) -> int:
+        """Insert the next version of ``name`` and its audit entry (inside a write transaction)."""
+        parent = None if parent_id is None else self._load_id(parent_id)
+        parent_identity = None if parent is None else parent.identity
         digests = {e.role: e.digest for e in entries}
+        identity = version_identity(name, digests, parent_identity=parent_identity, reason=reason)
+        now = index.utc_now()
         row_id = index.insert_version(
             conn,
             name=name,
@@ -232,9 +306,14 @@ class Store(CurrentMethods, ArtifactMethods):
             parent_id=parent_id,
             parent_identity=parent_identity,
             reason=reason,
-            identity=version_identity(name, digests, parent_identity=parent_identity, reason=reason),
+            identity=identity,
             meta_json=meta_json,
-            created_at=index.utc_now(),
+            created_at=now,
+        )
+        ref = self._load_id(row_id).ref
+        audit.append_entry(
+            conn, reason, name=name, subject=ref, created_at=now,
+            detail={"identity": identity, "parent": None if parent is None else parent.ref, **detail},
         )
         fault_point("store.version-row-uncommitted")  # row written inside the open transaction
         return row_id
@@ -265,7 +344,7 @@ class Store(CurrentMethods, ArtifactMethods):
         parent_id = None if parent is None else self._row(parent)[0]
         entries = self._store_files(payload)
         key = index.content_key({e.role: e.digest for e in entries})
-        with write_transaction(self._conn) as conn:
+        with self._index.write_transaction() as conn:
             existing = index.find_by_content(conn, name, key)
             if existing is not None:
                 return AddResult(self._load_id(existing), False)
@@ -283,13 +362,13 @@ class Store(CurrentMethods, ArtifactMethods):
         meta_json = canonical_meta(meta)
         entries = self._store_files(check_files(files, what="files"))
         key = index.content_key({e.role: e.digest for e in entries})
-        with write_transaction(self._conn) as conn:
+        with self._index.write_transaction() as conn:
             existing = index.find_by_content(conn, name, key)
             if existing is not None:
                 return AddResult(self._load_id(existing), False)
             parent_id = self._current_or_latest(name, None)
             reason = "registered" if parent_id is None else "revised"
-            row_id = self._insert(conn, name, entries, parent_id, reason, meta_json)
+            row_id = self._insert(conn, name, entries, parent_id, reason, meta_json, current_for=[NOMINAL_TASK])
             index.insert_current(
                 conn, name=name, task=NOMINAL_TASK, version_row=row_id, reason=reason, evidence_json="{}", created_at=index.utc_now()
             )
@@ -305,17 +384,22 @@ class Store(CurrentMethods, ArtifactMethods):
             raise InvalidInputError(
                 f"note text must be at most {MAX_NOTE_CHARS} characters, got {len(text)}; attach long reports as a model file"
             )
-        with write_transaction(self._conn) as conn:
+        with self._index.write_transaction() as conn:
             row_id, record = self._row(ref)
             index.insert_note(conn, row_id, text, index.utc_now())
-        return index.load_notes(self._conn, row_id, record.ref)[-1]
+        return index.load_notes(self._index, row_id, record.ref)[-1]
 
     def notes(self, ref: str) -> list[Note]:
         row_id, record = self._row(ref)
-        return index.load_notes(self._conn, row_id, record.ref)
+        return index.load_notes(self._index, row_id, record.ref)
 
     # -- integrity ---------------------------------------------------------------------
 
+    def audit_log(self, name: str | None = None) -> list[audit.AuditEntry]:
+        """The audit log, oldest first: every entry, or those about skill ``name``."""
+        return audit.load_entries(self._index, None if name is None else parse_ref(name)[0])
+
     def verify(self) -> VerifyReport:
-        """Re-hash every blob and recompute every identity and artifact digest from the index rows."""
-        return verify_store(self._conn, self._blobs, self.root)
+        """Re-hash every blob, recompute every identity and artifact digest from the index rows,
+        and follow the audit log's chain of digests."""
+        return verify_store(self._index, self._blobs, self.location)

@@ -14,7 +14,6 @@ from kinetome.library.store.identity import artifact_digest, lookup_key
 from kinetome.library.store.metadata import canonical_json, canonical_meta
 from kinetome.library.store.names import validate_kind
 from kinetome.library.store.records import ArtifactRecord, is_digest
-from kinetome.library.store.schema import write_transaction
 
 __all__ = ["ArtifactMethods", "Provenance", "provenance"]
 
@@ -74,7 +73,7 @@ def provenance(
 
 
 class ArtifactMethods:
-    """Mixed into ``Store``: needs ``_conn``, ``_row``, ``_blobs`` and ``_store_files``."""
+    """Mixed into ``Store``: needs ``_index``, ``_row``, ``_blobs`` and ``_store_files``."""
 
     def attach_artifact(
         self,
@@ -102,7 +101,7 @@ class ArtifactMethods:
         entries = self._store_files(check_files(files, what="artifact files"))
         digests = {e.role: e.digest for e in entries}
         lookup = lookup_key_of(kind, p)
-        with write_transaction(self._conn) as conn:
+        with self._index.write_transaction() as conn:
             aid = index.find_artifact_by_content(conn, row_id, kind, files_key=index.content_key(digests), lookup=lookup)
             if aid is None:
                 aid = index.insert_artifact(
@@ -110,7 +109,7 @@ class ArtifactMethods:
                     task_json=p.task, settings_json=p.settings, software_json=p.software, meta_json=p.meta,
                     lookup=lookup, digest=p.digest(kind, digests), created_at=index.utc_now(),
                 )
-        return index.load_artifacts(self._conn, "a.id = ?", (aid,))[0]
+        return index.load_artifacts(self._index, "a.id = ?", (aid,))[0]
 
     def artifacts(self, ref: str, *, kind: str | None = None, all_revisions: bool = False) -> list[ArtifactRecord]:
         """Artifacts attached to a version: the latest revision of each kind, or every revision."""
@@ -123,7 +122,7 @@ class ArtifactMethods:
                 " AND a.revision = (SELECT MAX(revision) FROM artifacts a2"
                 " WHERE a2.version_id = a.version_id AND a2.kind = a.kind)"
             )
-        return index.load_artifacts(self._conn, where, params)
+        return index.load_artifacts(self._index, where, params)
 
     def get_artifact(self, ref: str, kind: str, *, revision: int | None = None) -> ArtifactRecord:
         """One artifact revision (the latest if ``revision`` is None)."""
@@ -131,7 +130,7 @@ class ArtifactMethods:
 
         validate_kind(kind)
         row_id, record = self._row(ref)
-        revisions = index.load_artifacts(self._conn, "a.version_id = ? AND a.kind = ?", (row_id, kind))
+        revisions = index.load_artifacts(self._index, "a.version_id = ? AND a.kind = ?", (row_id, kind))
         if not revisions:
             kinds = sorted({a.kind for a in self.artifacts(record.ref)})
             have = ", ".join(kinds) if kinds else "none"
@@ -169,8 +168,8 @@ class ArtifactMethods:
         or None. With ``software``, only evidence computed with exactly those versions counts."""
         validate_kind(kind)
         p = provenance(computed_on, task, settings, software, None, default_identity="")
-        for aid in index.find_artifacts_by_key(self._conn, kind, lookup_key_of(kind, p)):
-            found = index.load_artifacts(self._conn, "a.id = ?", (aid,))[0]
+        for aid in index.find_artifacts_by_key(self._index, kind, lookup_key_of(kind, p)):
+            found = index.load_artifacts(self._index, "a.id = ?", (aid,))[0]
             if software is None or found.software_json == p.software:
                 return found
         return None

@@ -1,16 +1,18 @@
 """``verify``: re-hash every blob, recompute every identity and artifact digest from the index rows,
-and name every version and artifact a problem breaks."""
+follow the audit log's chain, and name every version and artifact a problem breaks.
+
+The SQL here reads alike on both index backends; each backend adds the damage only it can see."""
 
 from __future__ import annotations
 
 import json
-import sqlite3
 from dataclasses import dataclass
 from pathlib import Path
 
-from kinetome.library.store.blobs import BlobDir, hash_file
+from kinetome.library.store.audit import audit_problems
+from kinetome.library.store.blobs import BlobStore
 from kinetome.library.store.identity import artifact_digest, version_identity
-from kinetome.library.store.records import is_digest
+from kinetome.library.store.index_backend import IndexBackend
 
 __all__ = ["BlobUse", "BlobProblem", "VerifyReport", "verify_store"]
 
@@ -31,7 +33,7 @@ class BlobProblem:
     """A blob the index needs that is missing or whose content no longer matches its digest."""
 
     digest: str
-    path: Path
+    path: Path | str  # a file, or a URL in object storage
     problem: str  # "missing" | "corrupt"
     expected_size: int
     actual_size: int | None
@@ -54,15 +56,15 @@ class BlobProblem:
 class VerifyReport:
     """Result of ``Store.verify()``; ``ok`` ignores orphans and temp files (harmless leftovers)."""
 
-    root: Path
+    root: Path | str  # the store folder, or its database URL
     blobs_checked: int
     bytes_checked: int
     versions_checked: int
     artifacts_checked: int
     problems: tuple[BlobProblem, ...]
     index_problems: tuple[str, ...]
-    orphans: tuple[Path, ...]
-    temp_files: tuple[Path, ...]
+    orphans: tuple[Path | str, ...]
+    temp_files: tuple[Path | str, ...]
 
     @property
     def ok(self) -> bool:
@@ -114,7 +116,7 @@ class VerifyReport:
             )
         if self.temp_files:
             out.append(
-                f"{len(self.temp_files)} temp file(s) in {self.root / 'tmp'} "
+                f"{len(self.temp_files)} temp file(s) beside the blobs "
                 "(left by interrupted writes, or a write in progress)"
             )
         status = "ok" if self.ok else f"DAMAGED: {len(self.problems)} bad blob(s), {len(self.index_problems)} index problem(s)"
@@ -125,10 +127,8 @@ class VerifyReport:
         return out
 
 
-def _index_problems(conn: sqlite3.Connection) -> list[str]:
-    problems = [r[0] for r in conn.execute("PRAGMA integrity_check") if r[0] != "ok"]
-    for table, rowid, parent, _ in conn.execute("PRAGMA foreign_key_check"):
-        problems.append(f"table {table} row {rowid} points at a missing row of {parent}")
+def _index_problems(conn: IndexBackend) -> list[str]:
+    problems = conn.integrity_problems()
     for (ref,) in conn.execute(
         "SELECT v.name || '@' || v.number FROM versions v"
         " WHERE NOT EXISTS (SELECT 1 FROM version_files f WHERE f.version_id = v.id)"
@@ -139,17 +139,17 @@ def _index_problems(conn: sqlite3.Connection) -> list[str]:
         " JOIN versions v ON v.id = f.version_id JOIN blobs b ON b.digest = f.digest WHERE f.size != b.size"
     ):
         problems.append(f"version {ref} file {role} records {fsize} bytes but its blob records {bsize}")
-    return problems + _identity_problems(conn) + _artifact_problems(conn)
+    return problems + _identity_problems(conn) + _artifact_problems(conn) + audit_problems(conn)
 
 
-def _files_of(conn: sqlite3.Connection, table: str, owner: str) -> dict[int, dict[str, str]]:
+def _files_of(conn: IndexBackend, table: str, owner: str) -> dict[int, dict[str, str]]:
     out: dict[int, dict[str, str]] = {}
     for owner_id, role, digest in conn.execute(f"SELECT {owner}, role, digest FROM {table}"):
         out.setdefault(int(owner_id), {})[role] = digest
     return out
 
 
-def _identity_problems(conn: sqlite3.Connection) -> list[str]:
+def _identity_problems(conn: IndexBackend) -> list[str]:
     """Recompute each version's identity from its files, reason and parent; flag rows that no longer match."""
     files = _files_of(conn, "version_files", "version_id")
     identities = {int(i): ident for i, ident in conn.execute("SELECT id, identity FROM versions")}
@@ -168,7 +168,7 @@ def _identity_problems(conn: sqlite3.Connection) -> list[str]:
     return problems
 
 
-def _artifact_problems(conn: sqlite3.Connection) -> list[str]:
+def _artifact_problems(conn: IndexBackend) -> list[str]:
     """Recompute each artifact's digest from its row and files; flag rows that no longer match."""
     files = _files_of(conn, "artifact_files", "artifact_id")
     problems = []
@@ -192,7 +192,7 @@ def _artifact_problems(conn: sqlite3.Connection) -> list[str]:
     return problems
 
 
-def _users(conn: sqlite3.Connection, digests: list[str]) -> dict[str, list[BlobUse]]:
+def _users(conn: IndexBackend, digests: list[str]) -> dict[str, list[BlobUse]]:
     out: dict[str, list[BlobUse]] = {d: [] for d in digests}
     for start in range(0, len(digests), 500):
         chunk = digests[start : start + 500]
@@ -214,7 +214,7 @@ def _users(conn: sqlite3.Connection, digests: list[str]) -> dict[str, list[BlobU
     return out
 
 
-def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> VerifyReport:
+def verify_store(conn: IndexBackend, blobs: BlobStore, root: Path | str) -> VerifyReport:
     """Check the index, re-hash every blob it lists, and list leftovers.
 
     A snapshot: a blob written by an add still in progress elsewhere may show as an orphan.
@@ -226,12 +226,11 @@ def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> Verify
     bad: list[tuple[str, str, int | None, str | None]] = []
     total = 0
     for digest, size in expected.items():
-        path = blobs.path(digest)
-        try:
-            actual, actual_size = hash_file(path)
-        except FileNotFoundError:
+        found = blobs.hash_stored(digest)
+        if found is None:
             bad.append((digest, "missing", None, None))
             continue
+        actual, actual_size = found
         total += actual_size
         if actual != digest or actual_size != size:
             bad.append((digest, "corrupt", actual_size, actual))
@@ -239,7 +238,7 @@ def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> Verify
     problems = tuple(
         BlobProblem(
             digest=d,
-            path=blobs.path(d),
+            path=blobs.where(d),
             problem=kind,
             expected_size=expected[d],
             actual_size=asize,
@@ -248,11 +247,7 @@ def verify_store(conn: sqlite3.Connection, blobs: BlobDir, root: Path) -> Verify
         )
         for d, kind, asize, adigest in bad
     )
-    orphans = tuple(
-        p
-        for p in blobs.stored_files()
-        if not (is_digest(p.name) and p.parent.name == p.name[:2] and p.name in expected and p.is_file())
-    )
+    orphans = tuple(blobs.strays(set(expected)))
     return VerifyReport(
         root=root,
         blobs_checked=len(expected),

@@ -1,9 +1,10 @@
 """Subprocess helper for the store's crash and concurrency tests (run as a script, not collected).
 
-Usage:
-  python store_worker.py crash ROOT SEED             add versions forever (until killed)
-  python store_worker.py add ROOT NAME WRITER COUNT GO   COUNT distinct versions after GO exists
-  python store_worker.py same ROOT NAME COUNT GO         COUNT versions whose content depends only on i
+Usage (STORE BLOBS: a store folder and ``-``, or a postgresql:// URL and its blob folder):
+  python store_worker.py crash STORE BLOBS SEED                 add versions forever (until killed)
+  python store_worker.py add STORE BLOBS NAME WRITER COUNT GO   COUNT distinct versions after GO exists
+  python store_worker.py same STORE BLOBS NAME COUNT GO         COUNT versions whose content depends only on i
+  python store_worker.py promote STORE BLOBS NAME COUNT GO      COUNT promotions, alternating NAME@1 and NAME@2
 """
 
 from __future__ import annotations
@@ -41,8 +42,9 @@ def _wait_for(go: Path) -> None:
 def main(argv: list[str]) -> int:
     from kinetome.library.store import Store
 
-    mode, root = argv[0], Path(argv[1])
-    store = Store(root)  # workers may race to create the store: schema setup is one immediate transaction
+    mode, location, blobs = argv[0], argv[1], None if argv[2] == "-" else argv[2]
+    argv = argv[1:]
+    store = Store(location, blobs=blobs)  # workers may race to create the store: schema setup is one locked transaction
     if mode == "crash":
         seed = int(argv[2])
         print("ready", flush=True)
@@ -69,6 +71,12 @@ def main(argv: list[str]) -> int:
         _wait_for(go)
         for i in range(count):
             store.add(name, {"spec.json": payload(f"same-{i}", "spec", 64)}, meta={"i": i})
+        return 0
+    if mode == "promote":
+        name, count, go = argv[2], int(argv[3]), Path(argv[4])
+        _wait_for(go)
+        for i in range(count):
+            store.promote(f"{name}@{1 + i % 2}", evidence={"i": i})
         return 0
     raise SystemExit(f"unknown mode {mode!r}")
 

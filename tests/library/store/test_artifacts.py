@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import json
-import sqlite3
 
 import pytest
 
 from kinetome.library.errors import InvalidInputError
-from kinetome.library.store import ARTIFACT_KINDS, Store, artifact_digest, export_bundle, import_bundle
+from kinetome.library.store import ARTIFACT_KINDS, artifact_digest, export_bundle, import_bundle
+from tests.store_backends import raw_sql
 
 TASK = {"env": "kinetome/BenchArm-v0", "variant": "heavy_payload", "variant_digest": "ab" * 32}
 SETTINGS = {"episodes": 200, "seed": 0, "method": "simulation"}
@@ -16,12 +16,11 @@ SOFTWARE = {"mujoco": "3.3.0", "numpy": "2.1.0", "python": "3.11.7"}
 
 
 @pytest.fixture
-def store(tmp_path):
-    s = Store(tmp_path / "store")
+def store(new_store):
+    s = new_store()
     s.register("reach", {"spec.json": b'{"reach": 1}'})
     s.register("place", {"spec.json": b'{"place": 1}'})
-    yield s
-    s.close()
+    return s
 
 
 def _ids(store, *refs):
@@ -78,22 +77,19 @@ def test_bad_artifacts_are_refused(store):
 
 
 @pytest.mark.parametrize("kind", ARTIFACT_KINDS)
-def test_every_artifact_kind_survives_export_import_and_verify(store, tmp_path, kind):
+def test_every_artifact_kind_survives_export_import_and_verify(store, new_store, tmp_path, kind):
     assert set(ARTIFACT_KINDS) >= {"option-models", "check-result", "sweep", "initiation-proposal"}
     chain = _ids(store, "reach@1")
     a = store.attach_artifact("reach@1", kind, {"data.json": json.dumps({"kind": kind}).encode()}, computed_on=chain, task=TASK, settings=SETTINGS, software=SOFTWARE)
     path = export_bundle(store, "reach@1", tmp_path / f"{kind}.tar")
-    with Store(tmp_path / "other") as other:
+    with new_store("other") as other:
         import_bundle(other, path)
         (b,) = other.artifacts("reach@1")
         assert (b.ref, b.digest, b.computed_on, b.task, b.settings, b.software) == (a.ref, a.digest, a.computed_on, a.task, a.settings, a.software)
         assert other.read_artifact(b, "data.json") == store.read_artifact(a, "data.json")
         assert other.find_artifact(kind, computed_on=chain, task=TASK, settings=SETTINGS, software=SOFTWARE) == b
         assert other.verify().ok
-        conn = sqlite3.connect(other.index_path)
-        with conn:
-            conn.execute("UPDATE artifacts SET settings = ?", (json.dumps({**SETTINGS, "episodes": 5}),))
-        conn.close()
+        raw_sql(other, "UPDATE artifacts SET settings = ?", (json.dumps({**SETTINGS, "episodes": 5}),))
         report = other.verify()
         assert not report.ok and any(f"reach@1/{kind}#1" in p and "digest" in p for p in report.index_problems)
 

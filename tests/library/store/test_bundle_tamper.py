@@ -12,16 +12,16 @@ import pytest
 from kinetome.library.errors import BundleError
 from kinetome.library.store import Store, export_bundle, import_bundle
 
-from .test_store_bundles import _snapshot
+from tests.store_backends import snapshot
 
 RECORD = json.dumps({"method": "retrain", "seed": 3, "config": {"env_step_budget": 2048}}).encode()
 EVALUATION = json.dumps({"trained_task": {"parent": "3/64 = 0.05", "child": "58/64 = 0.91"}}).encode()
 
 
 @pytest.fixture
-def bundle(tmp_path) -> Path:
+def bundle(new_store, tmp_path) -> Path:
     """A bundle with every part import trusts: lineage, metrics, notes, models and other artifacts."""
-    with Store(tmp_path / "source") as s:
+    with new_store("source") as s:
         s.register("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50}, meta={"description": "reach"})
         child = s.add(
             "reach",
@@ -41,21 +41,21 @@ def bundle(tmp_path) -> Path:
 
 
 @pytest.fixture
-def target(tmp_path):
-    s = Store(tmp_path / "target")
+def target(new_store):
+    s = new_store("target")
     s.register("keep", {"spec.json": b"already here"})
     yield s
     s.close()
 
 
 def _refused(target: Store, data: bytes, path: Path, what: str) -> None:
-    before = _snapshot(target.root)
+    before = snapshot(target)
     path.write_bytes(data)
     with pytest.raises(BundleError):
         import_bundle(target, path)
         pytest.fail(f"{what} was accepted")
-    assert _snapshot(target.root) == before, what
-    assert not any((target.root / "tmp").iterdir())
+    assert snapshot(target) == before, what
+    assert not target._blobs.temp_files()
 
 
 def _member_spans(data: bytes) -> list[tuple[str, int, int, int]]:
@@ -202,12 +202,12 @@ def test_a_changed_lineage_metrics_model_or_artifact_file_is_refused(bundle, tar
     _refused(target, changed, tmp_path / "swapped.tar", role)
 
 
-def test_a_flipped_byte_in_a_gzip_bundle_is_refused(bundle, target, tmp_path):
-    with Store(tmp_path / "source", create=False) as s:
+def test_a_flipped_byte_in_a_gzip_bundle_is_refused(bundle, target, new_store, tmp_path):
+    with new_store("source", create=False) as s:
         gz = export_bundle(s, "reach@2", tmp_path / "reach.tar.gz")
     data = gz.read_bytes()
     assert import_bundle(target, gz).added == ("reach@1", "reach@2")
-    with Store(tmp_path / "fresh") as fresh:
+    with new_store("fresh") as fresh:
         step = max(1, len(data) // 150)
         for pos in sorted(set(range(0, len(data), step)) | {3, 4, 8, 9, len(data) - 1}):
             flipped = bytearray(data)

@@ -5,14 +5,11 @@ from __future__ import annotations
 import pytest
 
 from kinetome.library.errors import InvalidInputError, NotFoundError
-from kinetome.library.store import Store
 
 
 @pytest.fixture
-def store(tmp_path):
-    s = Store(tmp_path / "store")
-    yield s
-    s.close()
+def store(new_store):
+    return new_store()
 
 
 def _spec(n: int) -> dict[str, bytes]:

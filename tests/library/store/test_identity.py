@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import sqlite3
 
 import pytest
 
 from kinetome.library.errors import BundleError, InvalidInputError, NotFoundError
 from kinetome.library.store import Store, export_bundle, import_bundle, version_identity
 
-from .test_store_bundles import _snapshot
+from tests.store_backends import raw_sql, snapshot
 
 
 def _fill(store: Store) -> None:
@@ -21,21 +20,21 @@ def _fill(store: Store) -> None:
 
 
 @pytest.fixture
-def source(tmp_path):
-    s = Store(tmp_path / "source")
+def source(new_store):
+    s = new_store("source")
     _fill(s)
     yield s
     s.close()
 
 
 @pytest.fixture
-def empty(tmp_path):
-    s = Store(tmp_path / "empty")
+def empty(new_store):
+    s = new_store("empty")
     yield s
     s.close()
 
 
-def test_identity_covers_files_and_lineage(source, tmp_path):
+def test_identity_covers_files_and_lineage(source, new_store):
     one, two, three = (source.get(f"reach@{n}") for n in (1, 2, 3))
     assert all(len(v.identity) == 64 and int(v.identity, 16) >= 0 for v in (one, two, three))
     assert len({one.identity, two.identity, three.identity}) == 3
@@ -43,7 +42,7 @@ def test_identity_covers_files_and_lineage(source, tmp_path):
     assert one.identity == version_identity("reach", one.digests, parent_identity=None, reason="registered")
     assert three.identity == version_identity("reach", three.digests, parent_identity=one.identity, reason="retrained")
     # another store with the same content and lineage gives the same identities
-    with Store(tmp_path / "again") as again:
+    with new_store("again") as again:
         _fill(again)
         assert [again.get(f"reach@{n}").identity for n in (1, 2, 3)] == [one.identity, two.identity, three.identity]
     # the same files with another parent or reason are another version
@@ -80,9 +79,9 @@ def test_import_keeps_numbers_identity_and_origin(source, empty, tmp_path):
     assert empty.add("reach", {"spec.json": b"local"}).version.ref == "reach@4"
 
 
-def test_origin_survives_a_second_hop(source, empty, tmp_path):
+def test_origin_survives_a_second_hop(source, empty, new_store, tmp_path):
     import_bundle(empty, export_bundle(source, "reach@3", tmp_path / "a.tar"))
-    with Store(tmp_path / "third") as third:
+    with new_store("third") as third:
         import_bundle(third, export_bundle(empty, "reach@3", tmp_path / "b.tar"))
         assert third.get("reach@3").origin["store"] == source.store_id
 
@@ -90,24 +89,24 @@ def test_origin_survives_a_second_hop(source, empty, tmp_path):
 def test_importing_the_same_bundle_twice_is_a_no_op(source, empty, tmp_path):
     path = export_bundle(source, "reach@3", tmp_path / "reach.tar")
     first = import_bundle(empty, path)
-    before = _snapshot(empty.root)
+    before = snapshot(empty)
     second = import_bundle(empty, path)
     assert second.versions == first.versions and second.added == ()
-    assert _snapshot(empty.root) == before
+    assert snapshot(empty) == before
     # importing into the store it came from is a no-op as well
-    before = _snapshot(source.root)
+    before = snapshot(source)
     assert import_bundle(source, path).added == ()
-    assert _snapshot(source.root) == before
+    assert snapshot(source) == before
 
 
 def test_conflicting_version_is_refused_and_changes_nothing(source, empty, tmp_path):
     path = export_bundle(source, "reach@3", tmp_path / "reach.tar")
     empty.register("reach", {"spec.json": b"someone else's reach"})
-    before = _snapshot(empty.root)
+    before = snapshot(empty)
     local = empty.get("reach@1").identity
     with pytest.raises(BundleError, match=rf"reach@1 in the bundle \(identity {source.get('reach@1').identity[:12]}\) conflicts with reach@1 here \(identity {local[:12]}\)"):
         import_bundle(empty, path)
-    assert _snapshot(empty.root) == before
+    assert snapshot(empty) == before
 
 
 def test_renumbered_import_keeps_the_original_ref_as_origin(source, empty, tmp_path):
@@ -119,13 +118,6 @@ def test_renumbered_import_keeps_the_original_ref_as_origin(source, empty, tmp_p
     three = source.get("reach@3")
     assert empty.get(f"reach@id:{three.identity[:16]}").ref == "reach@3"
     assert empty.get("reach@3").identity == three.identity
-
-
-def _corrupt(store: Store, sql: str, *params) -> None:
-    conn = sqlite3.connect(store.index_path)
-    with conn:
-        conn.execute(sql, params)
-    conn.close()
 
 
 @pytest.mark.parametrize(
@@ -141,7 +133,7 @@ def _corrupt(store: Store, sql: str, *params) -> None:
 )
 def test_verify_flags_an_index_row_that_no_longer_matches_its_identity(source, sql, params):
     assert source.verify().ok
-    _corrupt(source, sql, *params)
+    raw_sql(source, sql, params)
     report = source.verify()
     assert not report.ok
     assert any("identity" in p and "@3" in p for p in report.index_problems), report.index_problems

@@ -13,7 +13,7 @@ import pytest
 from kinetome.library.store import SCHEMA_VERSION, Store, export_bundle, import_bundle
 from kinetome.library.store.legacy import reason_and_origin
 
-from .test_store_bundles import _snapshot
+from tests.store_backends import snapshot
 
 FIXTURES = Path(__file__).resolve().parents[2] / "fixtures"
 WAVE1 = FIXTURES / "wave1"
@@ -42,7 +42,7 @@ def wave1_store(tmp_path) -> Path:
 
 def test_a_wave1_store_opens_and_migrates(wave1_store):
     with Store(wave1_store) as store:
-        assert _user_version(wave1_store) == SCHEMA_VERSION == 2
+        assert _user_version(wave1_store) == SCHEMA_VERSION == 3
         assert (wave1_store / "index.sqlite.schema1").is_file()
         refs = [(v.ref, v.reason, v.parent) for s in store.list_skills() for v in store.history(s.name)]
         assert refs == [
@@ -68,10 +68,10 @@ def test_a_wave1_store_opens_and_migrates(wave1_store):
         assert [n.text for n in store.notes("arm-lift@1")] == ["wave-1 fixture note: checked on the bench"]
         report = store.verify()
         assert report.ok, report.format_text()
-    before = _snapshot(wave1_store)
+        before = snapshot(store)
     with Store(wave1_store) as store:  # opening again changes nothing
         assert store.get("arm-reach-tray@2") == two
-    assert _snapshot(wave1_store) == before
+        assert snapshot(store) == before
 
 
 def test_a_migrated_store_runs_its_skills(wave1_store):

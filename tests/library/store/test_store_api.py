@@ -20,10 +20,8 @@ PARAMS = b"\x00\x01" * 64
 
 
 @pytest.fixture
-def store(tmp_path):
-    s = Store(tmp_path / "store")
-    yield s
-    s.close()
+def store(new_store):
+    return new_store()
 
 
 def _utc(text: str) -> datetime:
@@ -91,10 +89,10 @@ def test_list_history_lineage_children(store):
     assert store.children("lift@2") == []
 
 
-def test_store_reopens_with_the_same_content(tmp_path):
-    with Store(tmp_path / "s") as s:
+def test_store_reopens_with_the_same_content(new_store):
+    with new_store("s") as s:
         v = s.add("reach", {"spec.json": SPEC}).version
-    with Store(tmp_path / "s", create=False) as s:
+    with new_store("s", create=False) as s:
         assert s.get("reach") == v and s.read_file(v, "spec.json") == SPEC
 
 
@@ -285,7 +283,7 @@ def test_open_errors(tmp_path):
     conn = sqlite3.connect(tmp_path / "newer" / "index.sqlite")
     conn.execute("PRAGMA user_version = 99")
     conn.close()
-    with pytest.raises(StoreIntegrityError, match=r"has index schema 99, newer than this kinetome understands \(2\); upgrade"):
+    with pytest.raises(StoreIntegrityError, match=r"has index schema 99, newer than this kinetome understands \(3\); upgrade"):
         Store(tmp_path / "newer")
 
 
@@ -297,19 +295,22 @@ def test_resolve_store_root_precedence(tmp_path, monkeypatch):
     assert resolve_store_root(None) == tmp_path / "env"
     monkeypatch.delenv(STORE_ENV_VAR)
     assert resolve_store_root(None) == Path(platformdirs.user_data_dir("kinetome")) / "store"
-    with pytest.raises(InvalidInputError, match=r"--store must be a folder path, got ''"):
+    with pytest.raises(InvalidInputError, match=r"--store must be a folder path or a postgresql:// URL, got ''"):
         resolve_store_root("")
 
 
-def test_store_reads_do_not_import_heavy_libraries(tmp_path):
-    with Store(tmp_path / "s") as s:
+def test_store_reads_do_not_import_heavy_libraries(new_store, store_places):
+    with new_store("s") as s:
         s.add("reach", {"spec.json": SPEC})
+    blobs = store_places.blobs("s")
     code = (
         "import sys, json\n"
         "from kinetome.library.store import Store\n"
-        f"s = Store({str(tmp_path / 's')!r}, create=False)\n"
+        f"s = Store({str(store_places.location('s'))!r}, blobs={None if blobs is None else str(blobs)!r}, create=False)\n"
         "s.list_skills(); s.history('reach'); s.get('reach'); s.lineage('reach'); s.verify()\n"
-        "print(json.dumps(sorted(m for m in ('torch', 'mujoco', 'z3', 'numpy', 'gymnasium') if m in sys.modules)))\n"
+        "heavy = ('torch', 'mujoco', 'z3', 'numpy', 'gymnasium', 'fsspec', 's3fs', 'botocore', 'aiobotocore')\n"
+        "print(json.dumps([sorted(m for m in heavy if m in sys.modules), 'psycopg' in sys.modules]))\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
-    assert json.loads(out) == []
+    # the database driver loads only for a store on a server
+    assert json.loads(out) == [[], store_places.backend == "postgresql"]

@@ -5,7 +5,6 @@ from __future__ import annotations
 import hashlib
 import io
 import json
-import sqlite3
 import tarfile
 from pathlib import Path
 
@@ -14,6 +13,7 @@ import pytest
 from kinetome.library.errors import BundleError
 from kinetome.library.store import MAX_MEMBER_BYTES, Store, export_bundle, import_bundle
 from kinetome.library.store.bundle_tar import gzip_bytes
+from tests.store_backends import snapshot
 
 
 def _populate(store: Store) -> None:
@@ -27,16 +27,16 @@ def _populate(store: Store) -> None:
 
 
 @pytest.fixture
-def source(tmp_path):
-    s = Store(tmp_path / "source")
+def source(new_store):
+    s = new_store("source")
     _populate(s)
     yield s
     s.close()
 
 
 @pytest.fixture
-def target(tmp_path):
-    s = Store(tmp_path / "target")
+def target(new_store):
+    s = new_store("target")
     s.add("keep", {"spec.json": b"already here"})
     yield s
     s.close()
@@ -73,15 +73,15 @@ def test_round_trip_keeps_lineage_models_and_notes(source, target, tmp_path, suf
     assert target.verify().ok
 
     # importing the same bundle again reuses every version and artifact revision
-    before = _snapshot(target.root)
+    before = snapshot(target)
     again = import_bundle(target, path)
     assert again.versions == imported and again.added == ()
-    assert _snapshot(target.root) == before
+    assert snapshot(target) == before
 
 
-def test_import_reuses_versions_with_the_same_identity(source, tmp_path):
+def test_import_reuses_versions_with_the_same_identity(source, new_store, tmp_path):
     path = export_bundle(source, "reach@2", tmp_path / "reach.tar")
-    with Store(tmp_path / "other") as other:
+    with new_store("other") as other:
         other.add("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50}, meta={"mine": True})  # same as source reach@1
         report = import_bundle(other, path)
         assert [v.ref for v in report.versions] == ["reach@1", "reach@2"] and report.added == ("reach@2",)
@@ -146,16 +146,6 @@ def _write(path: Path, members, *, gz: bool = False, raw_tail: bytes = b"") -> P
 
 def _blob_names(members) -> list[str]:
     return [m.name for m, _ in members if m.name.startswith("blobs/")]
-
-
-def _snapshot(root: Path):
-    """Every file (bytes) and folder of a store except the SQLite files, plus the index content."""
-    files = sorted((str(p.relative_to(root)), p.read_bytes()) for p in root.rglob("*") if p.is_file() and not p.name.startswith("index.sqlite"))
-    dirs = sorted(str(p.relative_to(root)) for p in root.rglob("*") if p.is_dir())
-    conn = sqlite3.connect(root / "index.sqlite")
-    dump = list(conn.iterdump())
-    conn.close()
-    return files, dirs, dump
 
 
 def _with_manifest(members, data: bytes):
@@ -272,13 +262,13 @@ def test_unsafe_or_broken_bundles_are_refused_and_change_nothing(source, target,
     archive = build(members, tmp_path / f"{case_id}.tar")
     # a store that already shares content with the bundle, so a partial write would show
     target.add("reach", {"spec.json": b'{"reach": 1}', "params.safetensors": b"P1" * 50})
-    before = _snapshot(target.root)
+    before = snapshot(target)
 
     with pytest.raises(BundleError, match=message):
         import_bundle(target, archive, **kwargs)
 
-    assert _snapshot(target.root) == before
-    assert not any((target.root / "tmp").iterdir())
+    assert snapshot(target) == before
+    assert not target._blobs.temp_files()
 
 
 def test_absolute_path_survives_tar_writing():

@@ -8,8 +8,6 @@ from pathlib import Path
 
 import pytest
 
-from kinetome.library.store import Store
-
 WORKER = Path(__file__).with_name("store_worker.py")
 WRITERS = 4
 PER_WRITER = 50
@@ -31,14 +29,14 @@ def _run_all(commands: list[list[str]], go: Path) -> None:
     [(True, True), (False, True), (True, False)],
     ids=["same-name", "distinct-names", "same-name-all-creating-the-store"],
 )
-def test_parallel_adders_lose_nothing(tmp_path, shared_name, precreate):
-    root, go = tmp_path / "store", tmp_path / "go"
+def test_parallel_adders_lose_nothing(new_store, store_places, tmp_path, shared_name, precreate):
+    go = tmp_path / "go"
     if precreate:
-        Store(root).close()
+        new_store().close()
     names = ["shared"] * WRITERS if shared_name else [f"skill-{w}" for w in range(WRITERS)]
-    _run_all([["add", str(root), names[w], str(w), str(PER_WRITER), str(go)] for w in range(WRITERS)], go)
+    _run_all([["add", *store_places.args(), names[w], str(w), str(PER_WRITER), str(go)] for w in range(WRITERS)], go)
 
-    with Store(root, create=False) as store:
+    with new_store(create=False) as store:
         assert store.verify().ok
         versions = [v for name in sorted(set(names)) for v in store.history(name)]
         assert len(versions) == WRITERS * PER_WRITER
@@ -49,13 +47,33 @@ def test_parallel_adders_lose_nothing(tmp_path, shared_name, precreate):
         assert written == [(w, i) for w in range(WRITERS) for i in range(PER_WRITER)], "a version was lost or doubled"
 
 
-def test_parallel_identical_adds_create_each_version_once(tmp_path):
-    root, go = tmp_path / "store", tmp_path / "go"
-    Store(root).close()
+def test_parallel_identical_adds_create_each_version_once(new_store, store_places, tmp_path):
+    go = tmp_path / "go"
+    new_store().close()
     count = 20
-    _run_all([["same", str(root), "twin", str(count), str(go)] for _ in range(WRITERS)], go)
-    with Store(root, create=False) as store:
+    _run_all([["same", *store_places.args(), "twin", str(count), str(go)] for _ in range(WRITERS)], go)
+    with new_store(create=False) as store:
         history = store.history("twin")
         assert [v.number for v in history] == list(range(1, count + 1))
         # each distinct content exists exactly once, whichever writer got there first
         assert sorted(v.meta["i"] for v in history) == list(range(count))
+
+
+def test_parallel_promotions_and_roll_backs_are_serialised(new_store, store_places, tmp_path):
+    """Each promotion reads the current version and appends the next one under the write lock:
+    every entry's "was" is the version the entry before it made current."""
+    go = tmp_path / "go"
+    with new_store() as store:
+        store.register("reach", {"spec.json": b"1"})
+        store.register("reach", {"spec.json": b"2"})
+    count = 25
+    _run_all([["promote", *store_places.args(), "reach", str(count), str(go)] for _ in range(WRITERS)], go)
+    with new_store(create=False) as store:
+        history = store.current_history("reach")
+        assert len(history) == 2 + WRITERS * count  # two registrations, then every promotion
+        log = [e for e in store.audit_log("reach") if e.action in ("promoted", "rolled-back")]
+        assert len(log) == WRITERS * count
+        made_current = [history[1].version] + [e.subject.split(" ")[0] for e in log]
+        assert [e.detail["from"] for e in log] == made_current[:-1]
+        assert all((e.action == "rolled-back") == (e.detail["from"] == "reach@2" and e.subject.startswith("reach@1")) for e in log)
+        assert store.verify().ok

@@ -13,8 +13,6 @@ from pathlib import Path
 
 import pytest
 
-from kinetome.library.store import Store
-
 WORKER = Path(__file__).with_name("store_worker.py")
 _spec = importlib.util.spec_from_file_location("kinetome_store_worker", WORKER)
 worker = importlib.util.module_from_spec(_spec)
@@ -24,14 +22,13 @@ KILLS = 32  # the brief asks for at least 30
 
 
 @pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX SIGKILL")
-def test_sigkilled_adders_leave_only_complete_versions(tmp_path):
-    root = tmp_path / "store"
+def test_sigkilled_adders_leave_only_complete_versions(new_store, store_places):
     rng = random.Random(20260131)
     killed_while_running = 0
     started = time.monotonic()
     for k in range(KILLS):
         proc = subprocess.Popen(
-            [sys.executable, str(WORKER), "crash", str(root), str(k)],
+            [sys.executable, str(WORKER), "crash", *store_places.args(), str(k)],
             stdout=subprocess.PIPE,
             stderr=subprocess.PIPE,
             text=True,
@@ -47,7 +44,7 @@ def test_sigkilled_adders_leave_only_complete_versions(tmp_path):
     elapsed = time.monotonic() - started
     assert killed_while_running == KILLS, "a worker exited on its own; see its stderr"
 
-    with Store(root, create=False) as store:
+    with new_store(create=False) as store:
         report = store.verify()
         assert report.ok, report.lines()  # orphans and temp files are allowed, damage is not
         history = store.history("crash")

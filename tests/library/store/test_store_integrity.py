@@ -2,32 +2,32 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 
 import pytest
 
 from kinetome.library.errors import StoreIntegrityError
-from kinetome.library.store import Store, export_bundle
+from kinetome.library.store import export_bundle
 
 SHARED = b'{"kind": "joint_pd", "kp": 3.0}'
 
 
 @pytest.fixture
-def store(tmp_path):
-    s = Store(tmp_path / "store")
+def store(new_store):
+    s = new_store()
     s.add("reach", {"spec.json": SHARED, "params.safetensors": b"p1" * 100})
     s.add("reach", {"spec.json": SHARED, "params.safetensors": b"p2" * 100}, parent="reach@1", reason="retrained")
     s.add("lift", {"spec.json": b"other spec", "params.safetensors": b"p3"})
     s.attach_model("lift@1", "end_state", {"table.bin": SHARED})
     s.attach_model("lift@1", "end_state", {"table.bin": b"rev2"})
-    yield s
-    s.close()
+    return s
 
 
 def _blob_path(store, data: bytes):
     import hashlib
 
     digest = hashlib.sha256(data).hexdigest()
-    return digest, store.root / "blobs" / digest[:2] / digest
+    return digest, Path(store.blobs_location) / "blobs" / digest[:2] / digest
 
 
 def test_clean_store_verifies_ok(store):
@@ -95,11 +95,12 @@ def test_orphans_and_temp_files_do_not_fail_verify(store):
     digest, path = _blob_path(store, stray)
     path.parent.mkdir(exist_ok=True)
     path.write_bytes(stray)
-    (store.root / "tmp" / "blob-partial").write_bytes(b"half")
+    tmp = Path(store.blobs_location) / "tmp"
+    (tmp / "blob-partial").write_bytes(b"half")
     report = store.verify()
     assert report.ok
     assert report.orphans == (path,)
-    assert report.temp_files == (store.root / "tmp" / "blob-partial",)
+    assert report.temp_files == (tmp / "blob-partial",)
 
 
 def test_readding_identical_content_repairs_a_corrupt_blob(store):

@@ -1,0 +1,56 @@
+"""The small interface every index backend provides (SQLite embedded, PostgreSQL server).
+
+``index.py`` writes its SQL once, with ``?`` placeholders, against this interface; a backend
+runs it, takes the store's write lock in ``write_transaction`` and reports its own damage.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import AbstractContextManager
+from typing import Any
+
+__all__ = ["IndexBackend"]
+
+
+class IndexBackend(ABC):
+    """One open connection to a store's index."""
+
+    #: ``"sqlite"`` or ``"postgresql"``
+    dialect: str
+    #: where the index is, for messages (never holds a password)
+    location: str
+
+    @abstractmethod
+    def execute(self, sql: str, params: Sequence[Any] = ()) -> Any:
+        """Run one statement (``?`` placeholders); returns a cursor (``fetchone``, ``fetchall``, iteration)."""
+
+    @abstractmethod
+    def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
+        """Run one statement for each parameter row."""
+
+    @abstractmethod
+    def insert(self, sql: str, params: Sequence[Any]) -> int:
+        """Run an INSERT into a table with an ``id`` column and return the new row's id."""
+
+    @abstractmethod
+    def write_transaction(self) -> AbstractContextManager[IndexBackend]:
+        """One transaction holding the store's write lock from its first statement: version numbers,
+        revisions and audit entries read inside it cannot be taken by another writer before the commit."""
+
+    @abstractmethod
+    def json_text(self, column: str, key: str) -> str:
+        """An SQL expression: the text value of ``key`` in the JSON object in ``column``, else NULL."""
+
+    @abstractmethod
+    def integrity_problems(self) -> list[str]:
+        """Damage the backend itself can see (page checks, dangling references), one line each."""
+
+    @abstractmethod
+    def close(self) -> None:
+        """Close the connection (an open transaction is rolled back)."""
+
+    def rows(self, sql: str, params: Sequence[Any] = ()) -> Iterator[tuple]:
+        """The rows of a query, as tuples."""
+        return iter(self.execute(sql, params).fetchall())

@@ -1,0 +1,131 @@
+"""The server index backend: PostgreSQL through psycopg 3; the write lock is a row lock.
+
+Connection details come from the URL and, as libpq reads them, from ``PGHOST``/``PGUSER``/...,
+a service file (``?service=NAME``) and a password file (``~/.pgpass``). A store is one database
+(or the first schema on the URL's ``search_path``). Imported only for ``postgresql://`` stores.
+"""
+
+from __future__ import annotations
+
+import uuid
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from typing import Any
+
+import psycopg
+
+from kinetome.library.errors import NotFoundError, StoreIntegrityError, StoreUnavailableError
+from kinetome.library.store.index_backend import IndexBackend
+from kinetome.library.store.schema import SCHEMA_VERSION, schema_statements
+
+__all__ = ["PostgresIndex", "CONNECT_TIMEOUT_S"]
+
+CONNECT_TIMEOUT_S = 20
+_SETTINGS_FIX = (
+    "check that the server runs and the connection settings: the URL, PGHOST/PGPORT/PGUSER/PGDATABASE, "
+    "the password file (~/.pgpass or $PGPASSFILE) or the service file ($PGSERVICEFILE)"
+)
+
+
+def _first_line(error: BaseException) -> str:
+    return (str(error).strip().splitlines() or [type(error).__name__])[0]
+
+
+class PostgresIndex(IndexBackend):
+    """The index of a store in a PostgreSQL database (schema version in ``store_info``)."""
+
+    dialect = "postgresql"
+
+    def __init__(self, url: str, *, create: bool, info: Mapping[str, str] | None = None):
+        self.location = url
+        self._sql: dict[str, str] = {}
+        try:
+            self.conn = psycopg.connect(url, autocommit=True, connect_timeout=CONNECT_TIMEOUT_S, application_name="kinetome")
+        except psycopg.Error as e:
+            raise StoreUnavailableError(f"cannot connect to the store at {url}: {_first_line(e)}; {_SETTINGS_FIX}") from None
+        try:
+            self._prepare(create=create, info=info or {})
+        except psycopg.Error as e:
+            self.conn.close()
+            raise StoreIntegrityError(f"the store at {url} cannot be opened: {_first_line(e)}; {_SETTINGS_FIX}") from None
+        except BaseException:
+            self.conn.close()
+            raise
+
+    def _schema_version(self) -> int | None:
+        # an MVCC read of the catalog: a name lookup (to_regclass) would cache "no such table"
+        # for this session and miss the tables another process created meanwhile
+        (exists,) = self.conn.execute(
+            "SELECT EXISTS (SELECT 1 FROM pg_catalog.pg_class c JOIN pg_catalog.pg_namespace n ON n.oid = c.relnamespace"
+            " WHERE c.relname = 'store_info' AND n.nspname = current_schema())"
+        ).fetchone()
+        if not exists:
+            return None
+        row = self.conn.execute("SELECT value FROM store_info WHERE key = 'schema'").fetchone()
+        return None if row is None else int(row[0])
+
+    def _prepare(self, *, create: bool, info: Mapping[str, str]) -> None:
+        version = self._schema_version()
+        if version is None:
+            if not create:
+                raise NotFoundError(
+                    f"no kinetome store at {self.location} (the database has no kinetome tables); "
+                    "check --store / $KINETOME_STORE, or register a skill to create one"
+                )
+            with self.conn.transaction():
+                # several processes may create the store at once: only the first builds the schema
+                self.conn.execute("SELECT pg_advisory_xact_lock(hashtext('kinetome store ' || coalesce(current_schema(), '')))")
+                if self._schema_version() is None:
+                    self._create_schema(info)
+        elif version != SCHEMA_VERSION:
+            raise StoreIntegrityError(
+                f"{self.location} has index schema {version}, which this kinetome does not understand ({SCHEMA_VERSION}); "
+                "use the kinetome that wrote it"
+            )
+
+    def _create_schema(self, info: Mapping[str, str]) -> None:
+        for statement in schema_statements(self.dialect):
+            self.conn.execute(statement)
+        rows = {"store_id": uuid.uuid4().hex, "schema": str(SCHEMA_VERSION), **info}
+        with self.conn.cursor() as cur:
+            cur.executemany("INSERT INTO store_info (key, value) VALUES (%s, %s)", list(rows.items()))
+
+    # -- the IndexBackend interface ----------------------------------------------------
+
+    def _translate(self, sql: str) -> str:
+        """``?`` placeholders -> psycopg's ``%s`` (a literal ``%`` doubled)."""
+        out = self._sql.get(sql)
+        if out is None:
+            out = self._sql[sql] = sql.replace("%", "%%").replace("?", "%s")
+        return out
+
+    def execute(self, sql: str, params: Sequence[Any] = ()) -> psycopg.Cursor:
+        return self.conn.execute(self._translate(sql), tuple(params))
+
+    def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
+        rows = [tuple(r) for r in rows]
+        if rows:
+            with self.conn.cursor() as cur:
+                cur.executemany(self._translate(sql), rows)
+
+    def insert(self, sql: str, params: Sequence[Any]) -> int:
+        return int(self.execute(sql + " RETURNING id", params).fetchone()[0])
+
+    @contextmanager
+    def write_transaction(self) -> Iterator[PostgresIndex]:
+        """A transaction that first locks the ``store_id`` row of ``store_info``: writers to one
+        store take turns, so what they read after the lock (the highest number, the current
+        version, the audit head) stays true until they commit. A dropped connection rolls back."""
+        with self.conn.transaction():
+            self.conn.execute("SELECT value FROM store_info WHERE key = 'store_id' FOR UPDATE")
+            yield self
+
+    def json_text(self, column: str, key: str) -> str:
+        return f"(CASE WHEN jsonb_typeof(({column})::jsonb -> '{key}') = 'string' THEN ({column})::jsonb ->> '{key}' END)"
+
+    def integrity_problems(self) -> list[str]:
+        # the server enforces every foreign key and check; there is no page check to run from here
+        return []
+
+    def close(self) -> None:
+        self.conn.close()
