@@ -60,3 +60,33 @@ def test_sigkilled_adders_leave_only_complete_versions(new_store, store_places):
                 assert store.read_model(m, "table.bin") == worker.payload(f"model-{meta['seed']}-{m.meta['i']}", "t", 4096)
         # every add named the latest version as parent, so the lineage of the newest runs through all
         assert [v.ref for v in store.lineage(history[-1].ref)] == [v.ref for v in reversed(history)]
+
+
+FAULT_POINTS = ("store.blob-before-rename", "store.blobs-written", "store.version-row-uncommitted")
+
+
+@pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX SIGKILL")
+@pytest.mark.parametrize("point", FAULT_POINTS)
+def test_an_adder_killed_at_each_point_of_the_write_leaves_nothing_partial(new_store, store_places, tmp_path, point):
+    """Killed while the blob is half placed, after the blobs, or with the row written but not committed."""
+    from kinetome.library.fault_points import FAULT_POINT_ENV
+
+    with new_store() as store:
+        store.register("reach", {"spec.json": b"1"})
+    go, ready = tmp_path / "go", tmp_path / "ready"
+    go.touch()
+    env = {**os.environ, FAULT_POINT_ENV: f"{point}@{ready}"}
+    proc = subprocess.Popen([sys.executable, str(WORKER), "add", *store_places.args(), "reach", "9", "1", str(go)], env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.monotonic() + 120
+    while not ready.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    assert ready.exists() and proc.poll() is None, "the add must stop at the armed point"
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait(timeout=30)
+    with new_store(create=False) as store:
+        assert [v.ref for v in store.history("reach")] == ["reach@1"]
+        assert [e.subject for e in store.audit_log()] == ["reach@1"]
+        assert store.verify().ok
+        # the next add takes the next number: the killed one left no gap and no lock behind
+        assert store.add("reach", {"spec.json": b"2"}).version.ref == "reach@2"
