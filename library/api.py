@@ -440,7 +440,15 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=folder / "checkpoints")
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"train {Path(config_path).stem}")
     shared = current_meta({**result.metadata(), "method": "train", "variant": variant_record(task.variant, variant), "initial_states": task.initial_states, "trained_with": list(loaded.skills)})
-    children = [_store_trained(store, s, result, shared, index) for index, s in enumerate(skills)]
+    from .lineage.retraining import train_record
+
+    with_ids = [(s.ref, store.get(s.ref).identity) for s in skills]
+    records = [
+        train_record(with_ids[i], with_ids, training_file=config_path, variant_file=task.variant, variant=variant,
+                     initial_states_file=task.initial_states, config=result.config.as_dict(), seed=result.config.seed)
+        for i in range(len(skills))
+    ]
+    children = [_store_trained(store, s, result, shared, index, records[index]) for index, s in enumerate(skills)]
     chooser_refs = [store.attach_model(child, CHOOSER_KIND, result.chooser_files(children), {"skills": children}).ref
                     for child in children]
     return tagged("train", {
@@ -459,8 +467,11 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     })
 
 
-def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any], index: int) -> str:
-    """Store skill ``index`` refined by ``train`` as a child version (with its learned stop, if any); returns its ref."""
+def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any], index: int, record: dict[str, Any]) -> str:
+    """Store skill ``index`` refined by ``train`` as a child version (with its learned stop, if any, and
+    ``record.json``: how it was made); returns its ref."""
+    from .lineage.retraining import record_bytes
+    from .lineage.roles import RECORD_FILE
     from .runtime.files import NORMALISER_FILE
     from .runtime.skill import PARAMS_FILE, SPEC_FILE
     from .spec import canonical_json, skill_to_document
@@ -470,6 +481,7 @@ def _store_trained(store: Any, skill: Any, result: Any, shared: dict[str, Any], 
         PARAMS_FILE: result.parameters_bytes[skill.ref],
         NORMALISER_FILE: result.normaliser,
         **result.stop_files(index),  # the learned stop this version runs with (stop modes other than registered)
+        RECORD_FILE: record_bytes(record),
     }
     meta = {**shared, "description": skill.skill.description, "env": skill.skill.env, "kind": skill.skill.controller.kind}
     return store.add(skill.skill.name, files, parent=skill.ref, reason="retrained", meta=meta).version.ref

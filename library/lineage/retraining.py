@@ -20,9 +20,10 @@ from kinetome.library.lineage.promotion import DEFAULT_EPISODES, compare_on_task
 from kinetome.library.lineage.roles import EVALUATION_FILE, INITIAL_STATES_FILE, RECORD_FILE, VARIANT_FILE
 from kinetome.library.store.metadata import canonical_json
 
-__all__ = ["TaskFiles", "ChildDraft", "RECORD_SCHEMA", "run_retrain", "apply_promotion", "reproduce_retrain"]
+__all__ = ["TaskFiles", "ChildDraft", "RECORD_SCHEMA", "TRAIN_RECORD_SCHEMA", "run_retrain", "apply_promotion", "reproduce_retrain", "train_record", "record_bytes"]
 
 RECORD_SCHEMA = "kinetome.retrain-record/1"
+TRAIN_RECORD_SCHEMA = "kinetome.train-record/1"
 # learning-curve columns that measure the machine, not the training: left out of the stored curve
 TIMING_COLUMNS = ("steps_per_s",)
 EVALUATION_SCHEMA = "kinetome.retrain-evaluation/1"
@@ -84,6 +85,45 @@ def _record(parent_ref: str, parent_identity: str, task: TaskFiles, variant: Any
         "code": code_version(),
         "software": software_versions(),
     }
+
+
+def _file_record(path: str | Path | None) -> dict[str, Any] | None:
+    """A file an input was read from: its name and sha256 (None: not given; a bare name: sha256 None)."""
+    if path is None:
+        return None
+    file = Path(path)
+    return {"file": str(path), "sha256": _sha256(file.read_bytes()) if file.is_file() else None}
+
+
+def train_record(
+    parent: tuple[str, str], trained_with: list[tuple[str, str]], *, training_file: str | Path, variant_file: str | Path | None,
+    variant: Any, initial_states_file: str | Path | None, config: dict[str, Any], seed: int,
+) -> dict[str, Any]:
+    """``record.json`` of a version refined by ``kinetome train`` (options mode): the parent and every
+    skill trained with it (ref, identity), the input files and their digests, config, seed, code and software."""
+    from kinetome.library.provenance import code_version, software_versions
+
+    variant_part = _file_record(variant_file)
+    if variant_part is not None and variant is not None:
+        variant_part.update(name=variant.name, digest=variant.digest)
+    return {
+        "schema": TRAIN_RECORD_SCHEMA,
+        "method": "train",
+        "parent": {"ref": parent[0], "identity": parent[1]},
+        "trained_with": [{"ref": ref, "identity": identity} for ref, identity in trained_with],
+        "training_file": _file_record(training_file),
+        "variant": variant_part,
+        "initial_states": _file_record(initial_states_file),
+        "config": config,
+        "seed": int(seed),
+        "code": code_version(),
+        "software": software_versions(),
+    }
+
+
+def record_bytes(record: dict[str, Any]) -> bytes:
+    """A record as stored: canonical values, indented JSON."""
+    return _json_bytes(record)
 
 
 def _stored_curve(rows: list[dict[str, Any]]) -> bytes:

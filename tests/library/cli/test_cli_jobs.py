@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 from pathlib import Path
 
@@ -156,6 +157,15 @@ def test_train_options_stores_children_and_reports_durations(store, tmp_path, ca
         code, view = _json(capsys, "--store", store, "show", child, "--json")
         assert view["reason"] == "retrained" and view["parent"].split("@")[0] == child.split("@")[0]
         assert view["meta"]["method"] == "train" and view["meta"]["variant"] is None and "stop_rate" in view["meta"]
+        # the same kind of record as a retrain child: parent identity, input file digests, config, seed, code, software
+        record = json.loads(open_store(store).read_file(child, "record.json"))
+        parent = open_store(store).get(view["parent"])
+        assert record["schema"] == "kinetome.train-record/1" and record["method"] == "train"
+        assert record["parent"] == {"ref": parent.ref, "identity": parent.identity}
+        assert [t["ref"] for t in record["trained_with"]] == r["skills"] and record["seed"] == record["config"]["seed"]
+        assert record["training_file"]["sha256"] == hashlib.sha256(config.read_bytes()).hexdigest()
+        assert record["config"]["env_step_budget"] == 4096 and {"numpy", "torch", "mujoco"} <= set(record["software"])
+        assert "code" in record
     # trained in "learned" stop mode: each child runs its own learned stop, and the policy over skills runs as a chooser
     from kinetome.library.api import load
 
