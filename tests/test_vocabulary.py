@@ -183,13 +183,14 @@ def json_outputs(tmp_path_factory) -> dict[str, Any]:
         out["train"] = capsys.json(*s, "train", str(train), "--out", str(tmp / "tr"), "--json")
         out["list"] = capsys.json(*s, "list", "--json")
         out["show"] = capsys.json(*s, "show", "arm-reach-tray@2", "--json")
-        out["lineage"] = capsys.json(*s, "lineage", "arm-reach-tray", "--json")
+        out["lineage"] = capsys.json(*s, "lineage", "arm-reach-tray", "--log", "--json")
         out["diff"] = capsys.json(*s, "diff", "arm-reach-tray@1", "arm-reach-tray@2", "--json")
         out["verify"] = capsys.json(*s, "verify", "--json")
         assert main([*s, "export", "arm-reach-tray@2", "--out", str(tmp / "b.tar.gz")]) == 0
         out["import"] = capsys.json("--store", str(tmp / "other"), "import", str(tmp / "b.tar.gz"), "--json")
         out["promote"] = capsys.json(*s, "promote", "arm-reach-tray@1", "--json")
         out["check"] = capsys.json(*s, "check", str(CONFIGS / "chains" / "arm-place-release.yaml"), "--episodes", "20", "--json")
+        out["copy-store"] = capsys.json(*s, "copy-store", str(tmp / "copied"), "--json")
     return out
 
 
@@ -216,7 +217,7 @@ class _Capture:
         return json.loads(text)
 
 
-COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check")
+COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store")
 
 
 @pytest.mark.parametrize("command", COMMANDS_WITH_JSON)

@@ -216,3 +216,28 @@ def test_a_missing_bucket_or_endpoint_is_one_clean_error(tmp_path, monkeypatch, 
         with pytest.raises(StoreUnavailableError, match=r"blob [0-9a-f]{64} at s3://no-such-bucket/x failed: EndpointConnectionError"):
             store.register("reach", SPEC)
         assert store.list_skills() == []
+
+
+# -- the commands ----------------------------------------------------------------------
+
+
+def test_copy_store_and_the_log_from_the_command_line(pg_url, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("KINETOME_USER", "ada")
+    spec = Path(__file__).parents[3] / "configs" / "skills" / "arm-reach-tray.yaml"
+    local, team = str(tmp_path / "local"), pg_url()
+    assert main(["--store", local, "register", str(spec)]) == 0
+    assert main(["--store", local, "promote", "arm-reach-tray@1", "--task", "heavy_payload"]) == 0
+    capsys.readouterr()
+    assert main(["--store", local, "copy-store", team, "--target-blobs", str(tmp_path / "shared")]) == 0
+    out = capsys.readouterr().out
+    assert "copied 1 versions, 0 artifact revisions, 2 blobs" in out and "copy: ok: 1 versions" in out
+    assert main(["--store", team, "lineage", "arm-reach-tray", "--log"]) == 0
+    out = capsys.readouterr().out
+    log = out[out.index("audit log"):]
+    assert "ada" in log and "registered" in log and "promoted" in log and "arm-reach-tray@1 for heavy_payload" in log
+    # a second copy into the now full store is refused and changes nothing
+    assert main(["--store", local, "copy-store", team]) == 2
+    assert "must be empty, got 1 version(s)" in capsys.readouterr().err
+    assert main(["--store", team, "lineage", "arm-reach-tray", "--log", "--json"]) == 0
+    entries = json.loads(capsys.readouterr().out)["log"]
+    assert [e["action"] for e in entries] == ["registered", "promoted"]
