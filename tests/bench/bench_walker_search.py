@@ -2,14 +2,14 @@
 
 Retrains the test walker's oscillator gait (``walker-walk``) on the
 low-friction variant from the standing initial states with each method and
-the same env-step budget (``--budget``, default 409,600 = 4x the shipped
+the same env-step budget (``--budget``, default 102,400 = the shipped
 config's), seeds fixed in advance. Each result is judged on 200 fresh
 episodes (seed 10,000 + run seed): the success criterion is the skill's own
 ``stops_when`` (one metre of travel) in at least ``--bar`` of them (default
 0.9), the same for both methods. Finished runs go to ``runs.csv`` in
 ``--out`` (a rerun skips them); the table is printed and written to ``table.md``.
 
-    python tests/bench/bench_walker_search.py [--budget 409600] [--seeds 0 1 2] [--methods search actor-critic] [--out bench-walker]
+    python tests/bench/bench_walker_search.py [--budget 102400] [--seeds 0 1 2] [--methods search actor-critic] [--out bench-walker]
 """
 
 from __future__ import annotations
@@ -54,7 +54,7 @@ def run(method: str, seed: int, budget: int) -> dict:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--budget", type=int, default=409_600)
+    ap.add_argument("--budget", type=int, default=102_400)
     ap.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2])
     ap.add_argument("--methods", nargs="+", default=["search", "actor-critic"])
     ap.add_argument("--bar", type=float, default=0.9)
