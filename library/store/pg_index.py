@@ -99,13 +99,27 @@ class PostgresIndex(IndexBackend):
             out = self._sql[sql] = sql.replace("%", "%%").replace("?", "%s")
         return out
 
+    @contextmanager
+    def _clean_errors(self) -> Iterator[None]:
+        """A lost connection or a refused statement becomes one clean kinetome error."""
+        try:
+            yield
+        except psycopg.OperationalError as e:
+            raise StoreUnavailableError(f"the store at {self.location} stopped answering: {_first_line(e)}; {_SETTINGS_FIX}") from None
+        except psycopg.DatabaseError as e:
+            raise StoreIntegrityError(
+                f"the index at {self.location} refused a statement: {_first_line(e)}; run `kinetome verify`, "
+                "and restore the database from a backup if it was changed outside kinetome"
+            ) from None
+
     def execute(self, sql: str, params: Sequence[Any] = ()) -> psycopg.Cursor:
-        return self.conn.execute(self._translate(sql), tuple(params))
+        with self._clean_errors():
+            return self.conn.execute(self._translate(sql), tuple(params))
 
     def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
         rows = [tuple(r) for r in rows]
         if rows:
-            with self.conn.cursor() as cur:
+            with self._clean_errors(), self.conn.cursor() as cur:
                 cur.executemany(self._translate(sql), rows)
 
     def insert(self, sql: str, params: Sequence[Any]) -> int:
@@ -116,7 +130,7 @@ class PostgresIndex(IndexBackend):
         """A transaction that first locks the ``store_id`` row of ``store_info``: writers to one
         store take turns, so what they read after the lock (the highest number, the current
         version, the audit head) stays true until they commit. A dropped connection rolls back."""
-        with self.conn.transaction():
+        with self._clean_errors(), self.conn.transaction():
             self.conn.execute("SELECT value FROM store_info WHERE key = 'store_id' FOR UPDATE")
             yield self
 

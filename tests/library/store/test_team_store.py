@@ -241,3 +241,26 @@ def test_copy_store_and_the_log_from_the_command_line(pg_url, tmp_path, capsys, 
     assert main(["--store", team, "lineage", "arm-reach-tray", "--log", "--json"]) == 0
     entries = json.loads(capsys.readouterr().out)["log"]
     assert [e["action"] for e in entries] == ["registered", "promoted"]
+
+
+def test_a_server_that_goes_away_is_one_clean_error(pg_server, pg_url, tmp_path):
+    import psycopg
+
+    with Store(pg_url(), blobs=tmp_path / "b") as store:
+        store.register("reach", SPEC)
+        (pid,) = store._index.execute("SELECT pg_backend_pid()").fetchone()
+        with psycopg.connect(pg_server.url, autocommit=True) as admin:
+            admin.execute("SELECT pg_terminate_backend(%s)", (pid,))
+        with pytest.raises(StoreUnavailableError, match=r"the store at postgresql://.* stopped answering"):
+            store.list_skills()
+        with pytest.raises(StoreUnavailableError, match=r"stopped answering"):
+            store.register("reach", {"spec.json": b"new"})
+
+
+def test_a_broken_index_is_reported_not_a_traceback(pg_url, tmp_path):
+    with Store(pg_url(), blobs=tmp_path / "b") as store:
+        store.register("reach", SPEC)
+        store._index.execute("DROP TABLE audit_log")
+        with pytest.raises(StoreIntegrityError, match=r"the index at postgresql://.* refused a statement: relation \"audit_log\" does not exist"):
+            store.register("reach", {"spec.json": b"new"})
+        assert [v.ref for v in store.history("reach")] == ["reach@1"]  # the refused add left nothing
