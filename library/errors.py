@@ -14,6 +14,7 @@ __all__ = [
     "InvalidInputError",
     "InvalidSpecError",
     "NotFoundError",
+    "ExecutionError",
     "StoreIntegrityError",
     "StoreUnavailableError",
     "BundleError",
@@ -83,6 +84,12 @@ class StoreUnavailableError(KinetomeError):
 
 class BundleError(KinetomeError):
     """A bundle archive is unsafe or inconsistent; nothing was imported."""
+
+
+class ExecutionError(KinetomeError):
+    """Work could not run where it was sent: a Ray cluster that cannot be reached, refuses, or keeps losing workers."""
+
+    exit_code = 2
 
 
 class TrainingError(KinetomeError):

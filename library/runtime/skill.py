@@ -11,7 +11,7 @@ import numpy as np
 from ..spec import Skill, skill_from_document
 from .files import LEARNED_STOP_FILE, NORMALISER_FILE, PARAMS_FILE, SPEC_FILE, STOP_HEADS_FILE
 
-__all__ = ["LoadedSkill", "skill_from_spec", "load_skill", "SPEC_FILE", "PARAMS_FILE"]
+__all__ = ["LoadedSkill", "skill_from_spec", "load_skill", "with_learned_stop", "SPEC_FILE", "PARAMS_FILE"]
 
 
 
@@ -27,6 +27,7 @@ class LoadedSkill:
     max_steps: int
     parameters: dict[str, np.ndarray]
     learned_stop: Any = None  # runtime.learned.LearnedStop: a stop head trained in settings mode, run as trained
+    files: Any = None  # role -> bytes the version was loaded from (None: built from a spec in memory)
 
     @property
     def name(self) -> str:
@@ -75,9 +76,16 @@ def load_skill(store: Any, ref: str, *, rig: Any = None) -> LoadedSkill:
     doc = json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))
     values = load_parameters(store.read_file(version, PARAMS_FILE))
     loaded = skill_from_spec(skill_from_document(doc), ref=version.ref, rig=rig, parameter_values=values)
+    files = {SPEC_FILE: store.read_file(version, SPEC_FILE), PARAMS_FILE: store.read_file(version, PARAMS_FILE)}
     if LEARNED_STOP_FILE not in version.roles:
-        return loaded
+        return replace(loaded, files=files)
+    stop_files = {role: store.read_file(version, role) for role in (LEARNED_STOP_FILE, STOP_HEADS_FILE, NORMALISER_FILE)}
+    return with_learned_stop(replace(loaded, files={**files, **stop_files}), stop_files)
+
+
+def with_learned_stop(loaded: LoadedSkill, stop_files: dict[str, bytes]) -> LoadedSkill:
+    """``loaded`` running the learned stop stored in ``stop_files`` (learned_stop.json, stop heads, normaliser)."""
     from .learned import LearnedStop
 
-    stop = LearnedStop.from_files(*(store.read_file(version, role) for role in (LEARNED_STOP_FILE, STOP_HEADS_FILE, NORMALISER_FILE)))
+    stop = LearnedStop.from_files(*(stop_files[role] for role in (LEARNED_STOP_FILE, STOP_HEADS_FILE, NORMALISER_FILE)))
     return replace(loaded, learned_stop=stop)
