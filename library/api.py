@@ -36,6 +36,7 @@ __all__ = [
     "version_files",
     "RETRAIN_DEFAULTS",
     "resolve",
+    "sweep",
 ]
 
 
@@ -517,4 +518,43 @@ def check_chain(
         from .report.checker_plots import write_report
 
         write_report(result, out)
+    return result
+
+
+def sweep(
+    target: str | Path,
+    *,
+    store: Any,
+    axes: Any = (),
+    samples: int | None = None,
+    variant: str | Path | None = None,
+    initial_states: str | Path | None = None,
+    episodes: int | None = None,
+    seed: int | None = None,
+    require: float | None = None,
+    confidence: float | None = None,
+    correction: str | None = None,
+    out: str | Path | None = None,
+    reuse: bool = True,
+    progress: Any = None,
+) -> dict[str, Any]:
+    """Robustness sweep of a skill or chain over task variants and disturbances; records the valid-for region.
+
+    ``target``: a sweep file, a chain file, or a skill (name, name@N, spec file). ``axes``: extra or
+    replacing axes (``"payload_mass=0.2,0.6,1.0"``, ``"actuator_gain=0.5:1.2"`` with ``samples``).
+    Returns the JSON-ready result (``schema`` kinetome.sweep/1): per cell the success interval,
+    episodes run and pass/fail/unsure mark, the region, the axis ranking; ``reused`` is True when
+    the same sweep on the same identities was found stored. With ``out``: sweep.json, sweep.txt and
+    the heat map PNG there.
+    """
+    from .sweep.build import build_spec
+    from .sweep.run import run_sweep
+
+    spec = build_spec(target, axes=axes, samples=samples, variant=variant, initial_states=initial_states, episodes=episodes,
+                      seed=seed, require=require, confidence=confidence, correction=correction)
+    result = run_sweep(spec, store=store, reuse=reuse, progress=progress)
+    if out is not None:
+        from .report.sweep_plots import write_sweep_report
+
+        result = write_sweep_report(result, out)
     return result

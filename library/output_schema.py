@@ -27,6 +27,8 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "train": 1,
     "check": 1,
     "demo": 1,
+    "sweep": 1,
+    "retrain-batch": 1,
 }
 
 

@@ -1,0 +1,59 @@
+"""The text ``kinetome sweep`` prints for a sweep result (and ``show`` for a stored region)."""
+
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+__all__ = ["format_sweep", "format_region", "cell_label"]
+
+
+def cell_label(values: Mapping[str, Any]) -> str:
+    """``payload_mass=0.6, actuator_gain=0.8`` (axes in the order given)."""
+    return ", ".join(f"{k}={v:g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in values.items())
+
+
+def format_region(region: Mapping[str, Any], *, indent: str = "  ") -> list[str]:
+    """The region in words: requirement, method, and every passing cell."""
+    cells = region["cells"]
+    lines = [
+        f"{indent}valid for {len(cells)} of {region['cells_evaluated']} evaluated cells (success >= {region['require']:g}, "
+        f"confidence {region['confidence']:g}, {region['correction']} correction); base variant {region['base_variant']['name']}",
+    ]
+    ordered = [{a: c[a] for a in region["axes"] if a in c} for c in cells]
+    lines += [f"{indent}  {cell_label(c)}" for c in ordered] or [f"{indent}  (no cell clears the requirement)"]
+    lines.append(f"{indent}method: {region['method']}")
+    return lines
+
+
+def format_sweep(result: Mapping[str, Any]) -> str:
+    from ..cli.output import format_table
+
+    axes = [a["name"] for a in result["axes"]]
+    t = result["target"]
+    cells = result["cells"]
+    head = (f"sweep {result['name']}: {t['kind']} {t['label']} ({', '.join(t['skills'])}) on {result['env']}, "
+            f"{len(cells)} cells x {result['episodes_per_cell']} episodes, seed {result['seed']}")
+    if result.get("reused"):
+        head += f"\nreused the stored result {result['artifact']} (same identities, task, settings and software): nothing simulated"
+    conf = result["region"]["confidence"]
+    rows = []
+    for c in cells:
+        low, high = c["interval"]
+        row = {"index": c["index"], **{a: c["values"][a] for a in axes}}
+        row.update(success=f"{c['successes']}/{c['episodes']} = {c['success_rate']:.3f}" if c["episodes"] else "0/0",
+                   interval=f"{low:.3f} to {high:.3f}", lower=f"{c['corrected_lower']:.3f}", run=c["episodes_run"], mark=c["mark"])
+        rows.append(row)
+    columns = [("index", "#"), *[(a, a.upper()) for a in axes], ("success", "SUCCESS (DISTINCT)"),
+               ("interval", f"{conf:.0%} EXACT INTERVAL"), ("lower", "CORRECTED LOWER"), ("run", "EPISODES RUN"), ("mark", "MARK")]
+    lines = [head, format_table(rows, columns), "", "valid-for region"]
+    lines += format_region(result["region"])
+    ranking = ", ".join(f"{r['axis']} {r['effect']:.3f}" for r in result["axis_ranking"])
+    lines.append(f"axes by effect on success ({result['ranking_rule']}): {ranking}")
+    if result.get("artifact") and not result.get("reused"):
+        lines.append(f"stored as {result['artifact']}")
+    elif not result.get("artifact"):
+        lines.append("not stored: the target includes a spec file, which has no version to attach evidence to")
+    for name, path in (result.get("files") or {}).items():
+        lines.append(f"{name:<9} {path}")
+    lines.append(result["caution"])
+    return "\n".join(lines)
