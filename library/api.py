@@ -536,6 +536,8 @@ def sweep(
     correction: str | None = None,
     out: str | Path | None = None,
     reuse: bool = True,
+    workers: int | None = None,
+    address: str | None = None,
     progress: Any = None,
 ) -> dict[str, Any]:
     """Robustness sweep of a skill or chain over task variants and disturbances; records the valid-for region.
@@ -545,14 +547,21 @@ def sweep(
     Returns the JSON-ready result (``schema`` kinetome.sweep/1): per cell the success interval,
     episodes run and pass/fail/unsure mark, the region, the axis ranking; ``reused`` is True when
     the same sweep on the same identities was found stored. With ``out``: sweep.json, sweep.txt and
-    the heat map PNG there.
+    the heat map PNG there. Cells run through the execution layer: ``workers`` local Ray worker
+    processes, or the Ray cluster at ``address`` (its nodes must reach the store); each cell draws
+    only from (seed, cell index), so the result is the same at any worker count.
     """
+    from .execution import executor_for
     from .sweep.build import build_spec
     from .sweep.run import run_sweep
 
     spec = build_spec(target, axes=axes, samples=samples, variant=variant, initial_states=initial_states, episodes=episodes,
                       seed=seed, require=require, confidence=confidence, correction=correction)
-    result = run_sweep(spec, store=store, reuse=reuse, progress=progress)
+    executor = executor_for(workers, address)
+    try:
+        result = run_sweep(spec, store=store, reuse=reuse, progress=progress, map_fn=executor.map)
+    finally:
+        executor.close()
     if out is not None:
         from .report.sweep_plots import write_sweep_report
 

@@ -37,6 +37,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--require", type=float, metavar="P", help="success a cell must show (default: the file's, a chain's require.chain, else 0.95)")
     p.add_argument("--confidence", type=float, help="confidence of the bounds (default 0.95)")
     p.add_argument("--correction", choices=("holm", "bonferroni"), help="correction across cells (default holm: Holm-Bonferroni)")
+    p.add_argument("--workers", type=int, help="cells run on N local Ray worker processes (default: this process); same result at any count")
+    p.add_argument("--address", metavar="HOST:PORT", help="run the cells on the Ray cluster at this address (its nodes must reach the store)")
     p.add_argument("--no-reuse", dest="reuse", action="store_false", help="simulate even when the same sweep is stored (the new result is stored too)")
     p.add_argument("--out", metavar="DIR", help="write sweep.json, sweep.txt and heatmap.png to DIR")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
@@ -51,6 +53,7 @@ def _sweep(args: argparse.Namespace) -> int:
         args.target, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), axes=args.axis,
         samples=args.samples, variant=args.variant, initial_states=args.initial_states, episodes=args.episodes, seed=args.seed,
         require=args.require, confidence=args.confidence, correction=args.correction, out=args.out, reuse=args.reuse,
+        workers=args.workers, address=args.address,
     )
     if args.json:
         print_json(result)

@@ -20,7 +20,7 @@ from .cells import cell_item, evaluate_cell
 from .region import correction_text, mark_cells
 from .spec import DEFAULT_REQUIRE, SweepSpec
 
-__all__ = ["SWEEP_KIND", "SweepTarget", "resolve_target", "run_sweep", "local_map", "rank_axes"]
+__all__ = ["SWEEP_KIND", "SweepTarget", "resolve_target", "run_sweep", "rank_axes"]
 
 SWEEP_KIND = "sweep"
 
@@ -113,11 +113,6 @@ def resolve_target(spec: SweepSpec, store: Any) -> SweepTarget:
     return _chain_target(spec, store) if spec.chain is not None else _skill_target(spec, store)
 
 
-def local_map(fn: Callable[[Any], Any], items: Sequence[Any]) -> list[Any]:
-    """The one-process executor: results in item order."""
-    return [fn(item) for item in items]
-
-
 def _digest(value: Any) -> str:
     return hashlib.sha256(json.dumps(value, sort_keys=True, separators=(",", ":")).encode()).hexdigest()
 
@@ -183,9 +178,10 @@ def _plain_fields(variant: Any) -> dict[str, Any]:
     return {k: list(v) if isinstance(v, tuple) else v for k, v in variant.fields_set().items()}
 
 
-def run_sweep(spec: SweepSpec, *, store: Any, map_fn: Callable[[Callable, Sequence], list] = local_map, reuse: bool = True,
+def run_sweep(spec: SweepSpec, *, store: Any, map_fn: Callable[[Callable, Sequence], list] | None = None, reuse: bool = True,
               progress: Callable[[int, int], None] | None = None) -> dict[str, Any]:
-    """Evaluate ``spec`` (or find it stored) and store its region on the target's first version."""
+    """Evaluate ``spec`` (or find it stored) and store its region on the target's first version.
+    ``map_fn(evaluate_cell, items)`` runs the cells (an executor's ``map``; default: this process)."""
     from ..evidence import find_result, store_result
     from ..output_schema import tagged
     from ..safety import caution_for
@@ -203,6 +199,10 @@ def run_sweep(spec: SweepSpec, *, store: Any, map_fn: Callable[[Callable, Sequen
                        disturbances=cell_disturbances(target.disturbances, c), episodes=spec.episodes, seed=spec.seed)
              for i, c in enumerate(cells)]
     _check_axes_apply(spec, target, items[0])
+    if map_fn is None:
+        from ..execution import InProcessExecutor
+
+        map_fn = InProcessExecutor().map
     results = map_fn(evaluate_cell, items)
     if progress is not None:
         progress(len(results), len(items))

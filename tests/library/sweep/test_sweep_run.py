@@ -13,7 +13,8 @@ from kinetome.library.cli.main import main
 from kinetome.library.errors import InvalidInputError
 from kinetome.library.sweep.build import build_spec
 from kinetome.library.sweep.cells import cell_seed, evaluate_cell
-from kinetome.library.sweep.run import SWEEP_KIND, local_map, resolve_target, run_sweep
+from kinetome.library.execution import InProcessExecutor
+from kinetome.library.sweep.run import SWEEP_KIND, resolve_target
 
 ROOT = Path(__file__).resolve().parents[3]
 CONFIGS = ROOT / "configs"
@@ -66,8 +67,8 @@ def test_a_cell_gives_the_same_result_alone_and_in_any_order(store) -> None:
     target = resolve_target(spec, store)
     items = [cell_item(target, index=i, variant_fields=cell_variant_fields({}, c), disturbances=cell_disturbances(target.disturbances, c),
                        episodes=6, seed=0) for i, c in enumerate(spec.cells())]
-    together = local_map(evaluate_cell, items)
-    backwards = local_map(evaluate_cell, items[::-1])[::-1]
+    together = InProcessExecutor().map(evaluate_cell, items)
+    backwards = InProcessExecutor().map(evaluate_cell, items[::-1])[::-1]
     alone = evaluate_cell(json.loads(json.dumps(items[3])))  # plain data survives a round trip (what a worker receives)
     assert together == backwards and alone == together[3]
     assert cell_seed(0, 3) != cell_seed(0, 2) and cell_seed(0, 3) != cell_seed(1, 3)
