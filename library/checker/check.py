@@ -63,6 +63,10 @@ def check_chain(
     if not isinstance(chain, Chain):
         chain = load_chain(chain, store=store)
     ctx = prepare_context(chain, store=store, options=options)
+    from ..sweep.regions import region_warnings
+
+    ctx.notes.extend(region_warnings(store, list(ctx.skills), env=ctx.rig.env_id, variant=ctx.rig.variant,
+                                     disturbances=chain.disturbances.to_dict()))
     return run_check(ctx)
 
 

@@ -187,7 +187,7 @@ def format_result(result: Any, *, width: int = 100) -> str:
     if result.notes:
         out.append("")
         for n in result.notes:
-            out += _wrap(n, "note: ", width)
+            out += _wrap(n, "" if n.startswith("warning: ") else "note: ", width)
     out.append("")
     code = result.exit_code
     out.append(f"exit code {code}: {EXIT_TEXT[code]}")

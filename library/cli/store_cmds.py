@@ -172,6 +172,7 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
 
     from ..renamed_keys import SPEC_RENAMES, rename_keys
     from ..stored_meta import current_meta
+    from ..sweep.regions import stored_regions
 
     v = store.get(ref)
     spec, _ = rename_keys(json.loads(store.read_file(v, SPEC_FILE).decode("utf-8")), SPEC_RENAMES, source=f"{v.ref} spec", warn=False)
@@ -200,6 +201,7 @@ def _version_view(store: Any, ref: str) -> dict[str, Any]:
         "files": [{"role": f.role, "digest": f.digest, "size": f.size} for f in v.files],
         "notes": [{"text": n.text, "created_at": n.created_at} for n in store.notes(v.ref)],
         "models": models,
+        "regions": stored_regions(store, v.ref),
         "lineage": [x.ref for x in store.lineage(v.ref)],
     }
 
@@ -280,11 +282,27 @@ def _show(args: argparse.Namespace) -> int:
             print_table(headlines(m["errors"]), [("check", "HELD-OUT CHECK"), ("value", "VALUE")])
     else:
         print(f"  none; fit them with: kinetome fit {view['ref']}")
+    _print_regions(view)
     if view["notes"]:
         print("\nnotes")
         for n in view["notes"]:
             print(f"  {_when(n['created_at'])}  {n['text']}")
     return 0
+
+
+def _print_regions(view: dict[str, Any]) -> None:
+    """The valid-for regions of the version's stored sweeps (kinetome sweep), newest first."""
+    from ..sweep.text import format_region
+
+    print("\nvalid-for regions")
+    if not view["regions"]:
+        print(f"  none; map one with: kinetome sweep {view['ref']} --axis payload_mass=0.2,0.6,1.0")
+        return
+    for r in view["regions"]:
+        target = r.get("target") or {}
+        what = "this version" if r["own"] else f"{target.get('kind', 'chain')} {target.get('label')} ({', '.join(target.get('skills', []))})"
+        print(f"  {r['artifact']}  sweep {r['name']} of {what} on {r['env']}")
+        print("\n".join(format_region(r["region"], indent="    ")))
 
 
 def _lineage(args: argparse.Namespace) -> int:

@@ -1,11 +1,21 @@
 """Robustness sweeps: evaluate a skill or chain over a grid (or random sample) of task variants
-and disturbances, mark each cell against the requirement, and record the valid-for region."""
+and disturbances, mark each cell against the requirement, and record the valid-for region.
 
-from .axes import AXES, SweepAxis
-from .region import CORRECTIONS, mark_cells, one_sided_p_value
-from .run import SWEEP_KIND, rank_axes, resolve_target, run_sweep
-from .spec import Axis, SweepSpec
-from .sweep_file import load_sweep, parse_axis_option
+Names load on first access, so ``show`` (which reads stored regions) stays light.
+"""
 
-__all__ = ["AXES", "SweepAxis", "CORRECTIONS", "mark_cells", "one_sided_p_value", "SWEEP_KIND", "rank_axes", "resolve_target",
-           "run_sweep", "Axis", "SweepSpec", "load_sweep", "parse_axis_option"]
+from importlib import import_module
+from typing import Any
+
+_NAMES = {
+    "AXES": "axes", "SweepAxis": "axes", "CORRECTIONS": "region", "mark_cells": "region", "one_sided_p_value": "region",
+    "SWEEP_KIND": "run", "rank_axes": "run", "resolve_target": "run", "run_sweep": "run", "Axis": "spec", "SweepSpec": "spec",
+    "load_sweep": "sweep_file", "parse_axis_option": "sweep_file", "stored_regions": "regions", "region_contains": "regions",
+}
+__all__ = sorted(_NAMES)
+
+
+def __getattr__(name: str) -> Any:
+    if name not in _NAMES:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    return getattr(import_module(f"{__name__}.{_NAMES[name]}"), name)

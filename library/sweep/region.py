@@ -20,8 +20,6 @@ import math
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
-from ..checker.stats import clopper_pearson, lower_bound, upper_bound
-
 __all__ = [
     "CORRECTIONS",
     "CellMark",
@@ -85,6 +83,8 @@ def _levels(p_values: Sequence[float], alpha: float, correction: str) -> list[fl
 
 
 def _bound(k: int, n: int, level: float, side: str) -> float:
+    from ..checker.stats import lower_bound, upper_bound
+
     if n == 0:
         return 0.0 if side == "lower" else 1.0
     fn = lower_bound if side == "lower" else upper_bound
@@ -113,6 +113,8 @@ def mark_cells(counts: Sequence[tuple[int, int]], *, require: float, confidence:
     for i, (k, n) in enumerate(counts):
         upper = _bound(k, n, alpha / m, "upper")
         mark = PASS if passed[i] else (FAIL if upper < require else UNSURE)
+        from ..checker.stats import clopper_pearson
+
         interval = clopper_pearson(k, n, confidence) if n else (0.0, 1.0)
         out.append(CellMark(k, n, interval, p_values[i], levels[i], lowers[i], upper, mark))
     return out
