@@ -501,9 +501,13 @@ def check_chain(
     progress: Any = None,
     fail_on_gaps: bool = False,
     fail_on_limits: bool = False,
+    reuse: bool = True,
 ) -> Any:
     """Check a chain file handoff by handoff; with ``out``, write the report folder there.
     ``progress(done, total)`` follows the simulation (episodes), when one runs.
+    The result is stored as evidence when every skill is a stored version; the same check
+    again (same identities, task, settings, software) returns the stored result
+    (``result.reused`` is True) unless ``reuse`` is False.
 
     Returns a ``CheckResult``: ``exit_code`` 0 when every handoff composes and the
     whole chain meets its requirement, 1 when something breaks or fails, 3 when
@@ -513,7 +517,7 @@ def check_chain(
     from .checker import check_chain as _check
 
     result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress,
-                    fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits)
+                    fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits, reuse=reuse)
     if out is not None:
         from .report.checker_plots import write_report
 

@@ -58,14 +58,16 @@ def store_result(
     result: Any,
     software: Mapping | str = CURRENT,
     meta: Mapping | None = None,
+    extra_files: Mapping[str, bytes] | None = None,
 ) -> Any:
     """Attach ``result`` (a JSON value) as evidence ``kind`` to the first version of ``refs``,
-    computed on all of their identities; returns the ArtifactRecord."""
+    computed on all of their identities; ``extra_files`` (role -> bytes) are stored beside it
+    (e.g. the text a person read). Returns the ArtifactRecord."""
     ids = identities_of(store, refs, task=task)
     data = canonical_json(result).encode("utf-8")
     owner = f"{store.get(refs[0], task=(task or {}).get('variant')).name}@id:{ids[0]}"
     return store.attach_artifact(
-        owner, kind, {RESULT_FILE: data}, computed_on=ids, task=task, settings=settings, software=_software(software), meta=meta
+        owner, kind, {**(extra_files or {}), RESULT_FILE: data}, computed_on=ids, task=task, settings=settings, software=_software(software), meta=meta
     )
 
 

@@ -12,6 +12,7 @@ states form a box over raw state, else measured on sampled initial states.
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -23,6 +24,7 @@ from .entry import sample_entry
 from .evidence import Evidence
 from .registry import AUTO, get_method, methods
 from .result import CheckResult
+from .reuse import StoredCheck, check_key, find_stored, store_check, stored_about
 from .structural import structural_check
 
 __all__ = ["check_chain", "run_check"]
@@ -44,7 +46,8 @@ def check_chain(
     progress: Any = None,
     fail_on_gaps: bool = False,
     fail_on_limits: bool = False,
-) -> CheckResult:
+    reuse: bool = True,
+) -> CheckResult | StoredCheck:
     """Check that a chain composes. ``chain`` is a Chain or the path of a chain file.
 
     Raises InvalidInputError (exit code 2) for bad input; otherwise the
@@ -53,6 +56,8 @@ def check_chain(
     ``episodes``/``seed`` override the chain file's values.
     ``progress(done, total)`` follows the simulation in episodes, when one runs.
     ``fail_on_gaps`` / ``fail_on_limits``: see ``CheckOptions``.
+    With a store and stored skills, the result is kept as evidence of the first skill; the
+    same check again (``reuse``) returns that ``StoredCheck`` instead of running (``reuse.py``).
     """
     extra = {} if block_size is None else {"block_size": block_size}
     options = CheckOptions(
@@ -67,7 +72,23 @@ def check_chain(
 
     ctx.notes.extend(region_warnings(store, list(ctx.skills), env=ctx.rig.env_id, variant=ctx.rig.variant,
                                      disturbances=chain.disturbances.to_dict()))
-    return run_check(ctx)
+    key = check_key(ctx)
+    if key is not None and reuse:
+        stored = find_stored(ctx.store, key)
+        if stored is not None:
+            return stored
+    result = run_check(ctx)
+    return result if key is None else _keep(ctx.store, key, result)
+
+
+def _keep(store: Any, key: Any, result: CheckResult) -> CheckResult:
+    """Store the result for reuse; a store that refuses the write costs the reuse, not the result."""
+    try:
+        artifact = store_check(store, key, result)
+    except Exception as exc:  # e.g. a read-only store: the check itself stands
+        note = f"result not stored for reuse: {type(exc).__name__}: {exc}"
+        return replace(result, notes=(*result.notes, note))
+    return replace(result, stored=stored_about(artifact))
 
 
 def _plan(method: str) -> list[str]:

@@ -188,6 +188,8 @@ class CheckResult:
     seed: int = 0
     layout: Any = None  # the rig's StateLayout, for plots
     caution: str = CAUTION  # safety.caution_for(the chain's robot)
+    stored: Mapping[str, Any] | None = None  # where this result was kept for reuse (``reuse.py``), if it was
+    reused: bool = field(default=False, init=False)  # a fresh result; ``reuse.StoredCheck`` is the reused kind
 
     def __post_init__(self) -> None:
         if not self.all_handoffs or not self.all_handoffs[0].handoff.is_entry:
@@ -245,6 +247,7 @@ class CheckResult:
             "notes": list(self.notes),
             "timings_s": dict(self.timings),
             "caution": self.caution,
+            "stored": None if self.stored is None else dict(self.stored),
         }
         return _finite_or_none(json.loads(json.dumps(body, default=_json_default)))
 

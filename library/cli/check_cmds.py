@@ -36,6 +36,9 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
                    help="a contract gap (a state A may stop in that B refuses, even if never reached) breaks its handoff")
     p.add_argument("--fail-on-limits", action="store_true",
                    help="a declared limit exceeded in simulation, or a command jump above handoff_limits.command_jump, breaks its handoff")
+    p.add_argument("--fresh", action="store_true",
+                   help="run the check even when the store holds the result of the same check (same skill identities, "
+                   "task, settings and software); the new result is stored too")
     p.set_defaults(handler=_check)
 
 
@@ -55,6 +58,7 @@ def _check(args: argparse.Namespace) -> int:
             out=args.out,
             fail_on_gaps=args.fail_on_gaps,
             fail_on_limits=args.fail_on_limits,
+            reuse=not args.fresh,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

@@ -253,6 +253,10 @@ def write_report(result: Any, directory: str | Path) -> dict[str, Path]:
     written["summary"] = out / "summary.txt"
     (out / "result.json").write_text(result.to_json() + "\n", encoding="utf-8")
     written["json"] = out / "result.json"
+    if getattr(result, "reused", False):  # a stored result keeps its text and JSON, not the states behind the plots
+        (out / "PLOTS.txt").write_text("no plots: this result was reused from the store; run the check with --fresh to draw them\n", encoding="utf-8")
+        written["plots_note"] = out / "PLOTS.txt"
+        return written
     for h in result.all_handoffs:
         kind = "entry" if h.handoff.is_entry else "handoff"
         name = f"{kind}_{h.index}_{_slug(h.handoff.source)}_to_{_slug(h.handoff.target)}.png"

@@ -124,19 +124,20 @@ def test_demo_chains_agree_with_simulation_in_direction(demo_store):
 
 def test_demo_chain_verdicts(demo_store):
     chains = CONFIGS / "chains"
-    composes = check_chain(chains / "arm-lift-reach-place.yaml", store=demo_store)
+    # reuse=False: the test above stored these checks; the evidence objects need fresh runs
+    composes = check_chain(chains / "arm-lift-reach-place.yaml", store=demo_store, reuse=False)
     assert composes.exit_code == 0
     assert all(h.decided_by == "sim" and h.verdict is Verdict.COMPOSES for h in composes.handoffs)
     assert all(h.evidence_of("static").details["containment"] == "proved" for h in composes.handoffs)
     assert composes.whole_chain.episodes == 59  # the zero-failure stage settled everything
 
-    walker = check_chain(chains / "walker-stand-walk-halt.yaml", store=demo_store)
+    walker = check_chain(chains / "walker-stand-walk-halt.yaml", store=demo_store, reuse=False)
     walk_halt = walker.handoffs[1]
     # The solver's pitched stop state is realised in MuJoCo but never reached: a contract gap, not a break.
     assert walk_halt.evidence_of("static").details["containment"] == "counterexample"
     assert walk_halt.verdict is Verdict.COMPOSES and any("contract gap" in n for n in walk_halt.notes)
 
-    breaks = check_chain(chains / "arm-place-release.yaml", store=demo_store)
+    breaks = check_chain(chains / "arm-place-release.yaml", store=demo_store)  # may be reused: verdicts only
     assert breaks.handoffs[1].decided_by == "sim" and breaks.handoffs[1].verdict is Verdict.BREAKS
     assert breaks.handoffs[0].verdict is Verdict.COMPOSES and breaks.exit_code == 1
 
