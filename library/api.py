@@ -31,6 +31,7 @@ __all__ = [
     "retrain",
     "train",
     "check_chain",
+    "plan_chain",
     "sample_initial_states",
     "spec_version_files",
     "version_files",
@@ -571,3 +572,54 @@ def sweep(
 
         result = write_sweep_report(result, out)
     return result
+
+
+def plan_chain(
+    *,
+    env: str,
+    goal: str,
+    store: Any,
+    variant: str | Path | None = None,
+    initial_states: str | Path | None = None,
+    max_length: int = 4,
+    time_budget: float = 120.0,
+    skills: list[str] | None = None,
+    begin_with: list[str] | None = None,
+    top: int = 3,
+    particles: int = 200,
+    episodes: int = 200,
+    require: float = 0.95,
+    confidence: float = 0.95,
+    seed: int = 0,
+    name: str = "planned-chain",
+    workers: int = 1,
+    out: str | Path | None = None,
+    progress: Any = None,
+) -> Any:
+    """Search the store for a chain of skills that reaches ``goal`` (a predicate over named state) from the
+    initial states, check the ``top`` candidates in simulation and pick the one with the highest lower bound
+    of measured whole-chain success (then the shortest). With ``out``, write ``<name>.yaml`` (a chain file for
+    ``kinetome check``), the winner's check report (``out/check``) and ``plan.txt``/``plan.json``.
+
+    Returns a ``PlanResult``: ``exit_code`` 0 when a chain was found and passed its check, 1 otherwise
+    (``format_text()`` names the closest candidate and its failing handoff); bad input raises
+    ``InvalidInputError`` (exit 2). ``result.to_dict()`` is the ``--json`` output (schema kinetome.plan/1).
+    """
+    from .planning.confirm import ChainSettings
+    from .planning.library_problem import PlanTask
+    from .planning.plan import run_plan
+    from .planning.request import check_plan_inputs
+    from .planning.search import SearchSettings
+
+    begin = tuple(begin_with or ())
+    check_plan_inputs(max_length=max_length, time_budget=time_budget, top=top, particles=particles, episodes=episodes, require=require,
+                      confidence=confidence, seed=seed, name=name, begin_with=begin, variant=variant, initial_states=initial_states)
+    task = PlanTask(
+        env=env, goal=goal, variant=None if variant is None else Path(variant).resolve(),
+        initial_states=None if initial_states is None else Path(initial_states).resolve(), skills=tuple(skills or ()), begin_with=begin,
+    )
+    return run_plan(
+        store, task, search=SearchSettings(max_length=max_length, time_budget_s=float(time_budget), top=top, seed=seed),
+        chain=ChainSettings(name=name, require=require, confidence=confidence, episodes=episodes, seed=seed),
+        particles=particles, workers=workers, out=out, progress=progress,
+    )

@@ -26,6 +26,7 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "retrain": 1,
     "train": 1,
     "check": 1,
+    "plan": 1,
     "demo": 1,
     "sweep": 1,
     "retrain-batch": 1,

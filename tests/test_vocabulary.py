@@ -192,6 +192,8 @@ def json_outputs(tmp_path_factory) -> dict[str, Any]:
         out["check"] = capsys.json(*s, "check", str(CONFIGS / "chains" / "arm-place-release.yaml"), "--episodes", "20", "--json")
         out["copy-store"] = capsys.json(*s, "copy-store", str(tmp / "copied"), "--json")
         out["sweep"] = capsys.json(*s, "sweep", "arm-reach-tray@1", "--axis", "payload_mass=0.2,1.0", "--episodes", "2", "--json")
+        out["plan"] = capsys.json(*s, "plan", "--env", "kinetome/BenchArm-v0", "--goal", "norm(fingertip - target) < 0.02",
+                                  "--max-length", "2", "--particles", "10", "--top", "1", "--episodes", "20", "--out", str(tmp / "pl"), "--json")
     return out
 
 
@@ -218,7 +220,7 @@ class _Capture:
         return json.loads(text)
 
 
-COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "sweep")
+COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "sweep", "plan")
 
 
 @pytest.mark.parametrize("command", COMMANDS_WITH_JSON)
@@ -228,7 +230,7 @@ def test_every_json_output_has_a_schema_and_the_vocabulary(json_outputs, command
     assert old_json_keys(data) == []
 
 
-@pytest.mark.parametrize("command", ["run", "retrain", "train", "check", "sweep"])
+@pytest.mark.parametrize("command", ["run", "retrain", "train", "check", "sweep", "plan"])
 def test_results_that_could_reach_a_machine_carry_the_caution(json_outputs, command) -> None:
     assert "ISO 12100" in json_outputs[command]["caution"]
 

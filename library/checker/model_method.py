@@ -29,7 +29,7 @@ from .registry import checker_method
 from .stats import clopper_pearson
 from .verdict import Estimate, Verdict, estimate
 
-__all__ = ["model_method", "skill_models", "MAX_UNSUPPORTED", "REJECTION_TRIES", "stopped_end_states"]
+__all__ = ["model_method", "skill_models", "task_models", "TaskModels", "held_out_error", "MAX_UNSUPPORTED", "REJECTION_TRIES", "stopped_end_states"]
 
 MAX_UNSUPPORTED = 0.05  # fraction of particles outside the support above which models do not decide
 REJECTION_TRIES = 20  # end-state draws per particle to satisfy stops_when
@@ -66,6 +66,22 @@ def _matching(ctx: Any, store: Any, ref: str, task: dict) -> tuple[Any, str | No
                   f"(fit them on this task: kinetome fit {ref} --variant ...)")
 
 
+def task_models(store: Any, ref: str, task: dict) -> tuple[TaskModels | None, str]:
+    """Option models of ``ref`` valid for ``task`` (``api.model_task``), or None and why not ("" when none exist)."""
+    from ..option_models import OptionModels
+
+    art, why = _matching(None, store, ref, task)
+    if art is None:
+        return None, why or ""
+    try:
+        models = OptionModels.from_files({role: store.read_artifact(art, role) for role in art.roles})
+    except Exception as exc:  # a damaged or incompatible model file: say why, leave it to simulation
+        return None, f"{art.ref} could not be read: {exc}"
+    if models.support is None or models.held_out is None:
+        return None, f"{art.ref} has no support test or held-out episodes (fitted by an older kinetome); refit them"
+    return TaskModels(models, art.ref, task), ""
+
+
 def skill_models(ctx: Any, index: int) -> TaskModels | None:
     """Option models of skill ``index`` valid for the chain's task, or None (the reason goes to the notes)."""
     key = f"models:{index}"
@@ -76,24 +92,14 @@ def skill_models(ctx: Any, index: int) -> TaskModels | None:
     if ctx.store is None or skill.ref.endswith((".yaml", ".yml")):
         return None
     from ..api import model_task
-    from ..option_models import OptionModels
 
-    task = model_task(ctx.rig)
-    art, why = _matching(ctx, ctx.store, skill.ref, task)
-    if art is None:
+    found, why = task_models(ctx.store, skill.ref, model_task(ctx.rig))
+    if found is None:
         if why:
             _refusal(ctx, index, why)
         return None
-    try:
-        models = OptionModels.from_files({role: ctx.store.read_artifact(art, role) for role in art.roles})
-    except Exception as exc:  # a damaged or incompatible model file: say why, leave it to simulation
-        _refusal(ctx, index, f"{art.ref} could not be read: {exc}")
-        return None
-    if models.support is None or models.held_out is None:
-        _refusal(ctx, index, f"{art.ref} has no support test or held-out episodes (fitted by an older kinetome); refit them")
-        return None
-    ctx.cache[key] = TaskModels(models, art.ref, task)
-    return ctx.cache[key]
+    ctx.cache[key] = found
+    return found
 
 
 def stopped_end_states(models: Any, skill: Any, states: dict, rng: np.random.Generator) -> tuple[dict, np.ndarray]:

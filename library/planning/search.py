@@ -18,7 +18,10 @@ then steps) is an optimistic bound for every extension, and candidates leave the
 queue best first. Children are scored only when they reach the front of the queue
 (lazy evaluation: pushed with the parent's key, which bounds theirs).
 
-Pair facts prune before any scoring: a handoff A -> B whose stop region and
+A skill never follows itself (it would start where its own stop put it), and a
+prefix whose last stop region is proved to lie in the goal is not extended (every
+extension is dominated). Pair facts
+prune before any scoring: a handoff A -> B whose stop region and
 initiation set cannot meet (``impossible``), or that stored evidence says breaks
 (``broken``), is never tried; a ``proved`` containment skips the acceptance test.
 """
@@ -102,7 +105,8 @@ class PlanProblem:
 
     ``link(a, b)`` gives the fact about handoff a -> b; ``goal_link(a)`` about a's stop
     region and the goal. ``explain(target, states, row)`` (optional) says why ``target``
-    (a skill ref, or None for the goal) refuses one state.
+    (a skill ref, or None for the goal) refuses one state. ``begin_with``: skills every
+    candidate must start with (the search adds the rest).
     """
 
     skills: Mapping[str, SkillModel]
@@ -111,6 +115,7 @@ class PlanProblem:
     link: Callable[[str, str], LinkFact]
     goal_link: Callable[[str], LinkFact]
     explain: Callable[[str | None, Mapping[str, np.ndarray], int], str] | None = None
+    begin_with: tuple[str, ...] = ()  # every candidate starts with these skills, in this order
 
 
 @dataclass(frozen=True)
@@ -330,6 +335,7 @@ class _Search:
         self.scored = 0
         self.pruned = 0
         self.closest: Failure | None = None
+        self._closest_rank: tuple = ()
         self.facts: dict[tuple[str, str], LinkFact] = {}
         self.found: list[Candidate] = []
 
@@ -337,13 +343,13 @@ class _Search:
         self.counter += 1
         heapq.heappush(self.queue, _Entry(key, self.counter, skills, kind, **kw))
 
-    def fail(self, skills: tuple[str, ...], link: tuple[str, str], reason: str, before: float) -> None:
-        f = Failure(skills, link, reason, before)
-        better = self.closest is None or (before, len(skills), link[1] == GOAL) > (
-            self.closest.success_before, len(self.closest.skills), self.closest.link[1] == GOAL
-        )
-        if better:
-            self.closest = f
+    def fail(self, skills: tuple[str, ...], link: tuple[str, str], reason: str, before: float, *, pruned: bool = False) -> None:
+        """Remember the closest failure: measured at the goal, then measured at a handoff, then pruned by a
+        pair fact; within a tier the most mass before the failing link, then the shortest prefix."""
+        tier = 0 if pruned else (2 if link[1] == GOAL else 1)
+        rank = (tier, before, -len(skills))
+        if self.closest is None or rank > self._closest_rank:
+            self.closest, self._closest_rank = Failure(skills, link, reason, before), rank
 
     def fact(self, a: str, b: str) -> LinkFact:
         if (a, b) not in self.facts:
@@ -359,10 +365,16 @@ class _Search:
     def children(self, e: _Entry) -> None:
         """Queue the goal test and every next skill of a scored prefix, unscored, with the parent's key
         (pair facts are asked only when a child reaches the front)."""
-        self.push(e.key, e.skills, "goal", parent=e.particles)
+        fixed = self.problem.begin_with
+        if len(e.skills) >= len(fixed):
+            self.push(e.key, e.skills, "goal", parent=e.particles)
         if len(e.skills) >= self.settings.max_length:
             return
-        for ref in self.problem.skills:
+        if len(e.skills) >= len(fixed) and self.fact(e.skills[-1], GOAL).status == PROVED:
+            return  # every extension is dominated: success cannot rise, steps cannot fall
+        # a skill never follows itself: it would start where its own stop put it
+        nxt = [fixed[len(e.skills)]] if len(e.skills) < len(fixed) else [r for r in self.problem.skills if r != e.skills[-1]]
+        for ref in nxt:
             self.push(e.key, (*e.skills, ref), "prefix", parent=e.particles)
 
     def allowed(self, e: _Entry, target: str) -> LinkFact | None:
@@ -374,7 +386,7 @@ class _Search:
         if f.status in (IMPOSSIBLE, BROKEN):
             self.pruned += 1
             prefix = e.skills if target == GOAL else e.skills[:-1]
-            self.fail(prefix, (a, target), f.reason, e.parent.success)
+            self.fail(prefix, (a, target), f.reason, e.parent.success, pruned=True)
             return None
         return f
 
@@ -416,7 +428,7 @@ class _Search:
     def roots(self) -> None:
         p = start_particles(self.problem.start)
         key = _key(p, 0, self.settings.success_tolerance)
-        for ref in self.problem.skills:
+        for ref in self.problem.begin_with[:1] or list(self.problem.skills):
             self.push(key, (ref,), "prefix", parent=p)
 
     def run(self) -> bool:
@@ -444,6 +456,11 @@ def search_chains(problem: PlanProblem, settings: SearchSettings | None = None) 
     settings = settings or SearchSettings()
     if not problem.skills:
         raise ValueError("the search needs at least one skill, got none")
+    unknown = [ref for ref in problem.begin_with if ref not in problem.skills]
+    if unknown:
+        raise ValueError(f"begin_with names skills the problem does not have: {unknown}; known: {list(problem.skills)}")
+    if len(problem.begin_with) > settings.max_length:
+        raise ValueError(f"begin_with has {len(problem.begin_with)} skills, more than max_length {settings.max_length}")
     t0 = time.monotonic()
     s = _Search(problem, settings)
     complete = s.run()

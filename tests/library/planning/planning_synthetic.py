@@ -144,6 +144,8 @@ class SyntheticLibrary:
         out = []
         for n in range(1, max_length + 1):
             for seq in itertools.product(refs, repeat=n):
+                if any(a == b for a, b in zip(seq, seq[1:])):
+                    continue  # a skill never follows itself (the search's rule)
                 success, steps, _ = self.truth(seq)
                 out.append((seq, success, steps))
         return out
