@@ -5,13 +5,15 @@ own path (``prepare_context`` + ``run_check``, method ``auto``). Candidates are 
 by the one-sided lower bound of measured whole-chain success (where the goal is not
 proved to follow from the last skill's stop region, success also needs the goal to
 hold in the last end state: an exact one-sided bound over the episodes run), then by
-the mean duration of the successful episodes. A rejected candidate is explained by
+the mean duration of the successful episodes. A check stored before with the same
+identities, task, settings and software is reused (the checker's rule), except where
+the goal must be measured on the episodes themselves; every fresh check is stored. A rejected candidate is explained by
 its first failing handoff (entry included), else by the whole chain's bound.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -70,14 +72,14 @@ def candidate_chain(candidate: Candidate, task: Any, settings: ChainSettings, *,
     )
 
 
-def _first_failure(result: Any) -> str:
+def _first_failure(result: Any, data: Mapping[str, Any]) -> str:
     for h in result.all_handoffs:
         if h.verdict.value != "composes":
-            return f"{h.handoff.source} -> {h.handoff.target}: {h.verdict.value} ({h.reason})"
+            return f"{h.label}: {h.verdict.value} ({h.reason})"
     if result.exit_code != 0:
-        stats = result.whole_chain
-        low = stats.success.low if stats is not None else float("nan")
-        return f"whole chain: lower bound {low:.3f} does not meet require.chain {result.chain.chain_requirement}"
+        low = ((data.get("whole_chain") or {}).get("success") or {}).get("low")
+        shown = "none" if low is None else f"{low:.3f}"
+        return f"whole chain: lower bound {shown} does not meet require.chain {data['chain']['require']['chain']}"
     return ""
 
 
@@ -92,23 +94,43 @@ def _goal_counts(ctx: Any, goal: Any) -> tuple[int, int]:
     return int(np.sum(ok & inside)), int(ok.size)
 
 
-def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, workers: int, progress: Any) -> Confirmation:
+def _check(store: Any, chain: Any, *, reuse: bool, workers: int, progress: Any) -> tuple[Any, Any]:
+    """The checker's own path (stored result reused when allowed, a fresh one kept); the context when it ran."""
     from ..checker import CheckOptions, prepare_context, run_check
-    from ..checker.stats import lower_bound
+    from ..checker.reuse import check_key, find_stored, store_check, stored_about
 
     ctx = prepare_context(chain, store=store, options=CheckOptions(method="auto", workers=workers, progress=progress))
+    key = check_key(ctx)
+    if key is not None and reuse:
+        stored = find_stored(store, key)
+        if stored is not None:
+            return stored, None
     result = run_check(ctx)
-    stats = result.whole_chain
-    lower = stats.success.low if stats is not None else 0.0
-    k, n = _goal_counts(ctx, goal)
-    failure = _first_failure(result)
-    if candidate.goal.status != PROVED and n:
+    if key is not None:
+        try:
+            result = replace(result, stored=stored_about(store_check(store, key, result)))
+        except Exception as exc:  # a store that refuses the write costs the reuse, not the result
+            result = replace(result, notes=(*result.notes, f"result not stored for reuse: {type(exc).__name__}: {exc}"))
+    return result, ctx
+
+
+def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, workers: int, progress: Any) -> Confirmation:
+    from ..checker.stats import lower_bound
+
+    measured_goal = candidate.goal.status != PROVED
+    result, ctx = _check(store, chain, reuse=not measured_goal, workers=workers, progress=progress)
+    data = result.to_dict()
+    whole = data.get("whole_chain") or {}
+    lower = float((whole.get("success") or {}).get("low") or 0.0)
+    k, n = _goal_counts(ctx, goal) if ctx is not None else (int((whole.get("success") or {}).get("k") or 0), int(whole.get("episodes") or 0))
+    failure = _first_failure(result, data)
+    if measured_goal and n:
         lower = min(lower, lower_bound(k, n, chain.confidence))
         if not failure and lower < chain.chain_requirement:
             failure = (f"{chain.skills[-1]} -> goal: {k} of {n} episodes ended inside the goal; lower bound {lower:.3f} "
                        f"does not meet {chain.chain_requirement}")
-    duration = float(stats.duration.get("success_mean", float("nan"))) if stats is not None else float("nan")
-    return Confirmation(candidate, chain, result, float(lower), k, n, duration, failure)
+    duration = (whole.get("duration") or {}).get("success_mean")
+    return Confirmation(candidate, chain, result, lower, k, n, float("nan") if duration is None else float(duration), failure)
 
 
 def confirm_candidates(

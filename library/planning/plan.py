@@ -10,7 +10,7 @@ from typing import Any
 
 from ..output_schema import tagged
 from .confirm import ChainSettings, Confirmation, chain_yaml, confirm_candidates
-from .library_problem import CHECK_RESULT_KIND, PlanTask, build_problem
+from .library_problem import PlanTask, build_problem
 from .search import SearchResult, SearchSettings, search_chains
 
 __all__ = ["PlanResult", "run_plan", "EXIT_TEXT"]
@@ -86,18 +86,14 @@ def _scored_by(lp: Any) -> dict[str, str]:
     return out
 
 
-def _store_results(store: Any, confirmations: list[Confirmation], task_key: dict, chain: ChainSettings) -> tuple[str, ...]:
-    """Keep each check as evidence (kind check-result) on the chain's first version, for later plans to prune with."""
-    from ..evidence import store_result
-
-    refs = []
+def _stored(confirmations: list[Confirmation]) -> tuple[str, ...]:
+    """Where each check is kept as evidence (kind check-result), reused or fresh."""
+    out = []
     for c in confirmations:
-        settings = {"method": "auto", "episodes": chain.episodes, "seed": chain.seed, "require": chain.require,
-                    "confidence": chain.confidence, "source": "kinetome plan"}
-        art = store_result(store, CHECK_RESULT_KIND, list(c.chain.skills), task=task_key, settings=settings,
-                           result=json.loads(c.result.to_json()))
-        refs.append(art.ref)
-    return tuple(refs)
+        about = c.result.to_dict().get("stored") or {}
+        if about.get("artifact"):
+            out.append(f"{about['artifact']} ({'reused' if about.get('reused') else 'stored'})")
+    return tuple(out)
 
 
 def _write(out: Path, winner: Confirmation, goal: str) -> tuple[Path, Path]:
@@ -121,7 +117,7 @@ def run_plan(
     lp = build_problem(store, task, particles=particles, seed=chain.seed, confidence=chain.confidence)
     found = search_chains(lp.problem, search)
     confirmations = confirm_candidates(store, list(found.candidates), task, lp.goal, chain, workers=workers, progress=progress)
-    stored = _store_results(store, confirmations, lp.task_key, chain) if confirmations else ()
+    stored = _stored(confirmations)
     chain_file = report = None
     winner = confirmations[0] if confirmations and confirmations[0].passed else None
     if winner is not None and out is not None:

@@ -89,7 +89,7 @@ def plan_text(r: Any) -> str:
     elif r.confirmations:
         lines += ["", "no candidate passed its check; each is explained by its first failing handoff above"]
     if r.stored:
-        lines.append(f"stored the checks as evidence: {', '.join(r.stored)}")
+        lines.append(f"check results kept as evidence (later plans on this task skip handoffs they found broken): {', '.join(r.stored)}")
     if r.winner is None:  # the winner's check text already carries the caution
         lines += ["", r.caution]
     lines += ["", f"exit code {r.exit_code}: {EXIT_TEXT[r.exit_code]}"]
