@@ -31,6 +31,7 @@ __all__ = [
     "rig_named_state",
     "RigStart",
     "NamedStateFn",
+    "respect_joints",
 ]
 
 # (qpos (n, nq), qvel (n, nv)) -> name -> (n, *shape)
@@ -322,6 +323,9 @@ def _respect_joints(model: mujoco.MjModel, qpos: np.ndarray) -> np.ndarray:
             quat = qpos[:, start : start + 4]
             qpos[:, start : start + 4] = quat / np.linalg.norm(quat, axis=1, keepdims=True)
     return qpos
+
+
+respect_joints = _respect_joints  # public name: other layers widen sampled states and keep them valid
 
 
 def forward_named_state(

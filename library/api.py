@@ -32,6 +32,7 @@ __all__ = [
     "train",
     "check_chain",
     "plan_chain",
+    "learn_initiation",
     "sample_initial_states",
     "spec_version_files",
     "version_files",
@@ -623,3 +624,11 @@ def plan_chain(
         chain=ChainSettings(name=name, require=require, confidence=confidence, episodes=episodes, seed=seed),
         particles=particles, workers=workers, out=out, progress=progress,
     )
+def learn_initiation(ref: str, *, store: Any, **options: Any) -> dict[str, Any]:
+    """Run ``ref`` from wide initial states, fit P(success | start state) and propose a ``starts_when``
+    with exact precision and recall intervals; ``adopt=True`` stores it as a new version (lineage
+    reason ``initiation-learned``). Options and the returned dict: ``library/initiation/learn.py``.
+    Raises ``NoRegionFoundError`` (exit 1, nothing stored) when no region meets the precision target."""
+    from .initiation.learn import learn_initiation as _learn
+
+    return _learn(ref, store=store, **options)

@@ -19,6 +19,7 @@ __all__ = [
     "StoreUnavailableError",
     "BundleError",
     "TrainingError",
+    "NoRegionFoundError",
 ]
 
 
@@ -94,5 +95,11 @@ class ExecutionError(KinetomeError):
 
 class TrainingError(KinetomeError):
     """Training could not continue (e.g. NaN/Inf); the last good checkpoint is kept."""
+
+    exit_code = 1
+
+
+class NoRegionFoundError(KinetomeError):
+    """learn-initiation found no start region where the skill meets the precision asked for (nothing stored)."""
 
     exit_code = 1

@@ -30,6 +30,7 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "demo": 1,
     "sweep": 1,
     "retrain-batch": 1,
+    "learn-initiation": 1,
 }
 
 

@@ -181,6 +181,7 @@ def json_outputs(tmp_path_factory) -> dict[str, Any]:
         train = tmp / "train.yaml"
         train.write_text((CONFIGS / "training" / "options_small.yaml").read_text().replace("env_step_budget: 32768", "env_step_budget: 2048"))
         out["train"] = capsys.json(*s, "train", str(train), "--out", str(tmp / "tr"), "--json")
+        out["learn-initiation"] = capsys.json(*s, "learn-initiation", "arm-lift", "--episodes", "300", "--json")
         out["list"] = capsys.json(*s, "list", "--json")
         out["show"] = capsys.json(*s, "show", "arm-reach-tray@2", "--json")
         out["lineage"] = capsys.json(*s, "lineage", "arm-reach-tray", "--log", "--json")
@@ -220,7 +221,8 @@ class _Capture:
         return json.loads(text)
 
 
-COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "sweep", "plan")
+COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "sweep", "plan",
+                      "learn-initiation")
 
 
 @pytest.mark.parametrize("command", COMMANDS_WITH_JSON)
@@ -230,7 +232,7 @@ def test_every_json_output_has_a_schema_and_the_vocabulary(json_outputs, command
     assert old_json_keys(data) == []
 
 
-@pytest.mark.parametrize("command", ["run", "retrain", "train", "check", "sweep", "plan"])
+@pytest.mark.parametrize("command", ["run", "retrain", "train", "check", "sweep", "plan", "learn-initiation"])
 def test_results_that_could_reach_a_machine_carry_the_caution(json_outputs, command) -> None:
     assert "ISO 12100" in json_outputs[command]["caution"]
 

@@ -42,7 +42,7 @@ def common_options() -> argparse.ArgumentParser:
     return common
 
 # command modules, in the order ``--help`` lists them
-_COMMAND_MODULES = ("store_cmds", "version_cmds", "run_cmds", "check_cmds", "plan_cmds", "sweep_cmds", "train_cmds", "demo_cmds")
+_COMMAND_MODULES = ("store_cmds", "version_cmds", "run_cmds", "check_cmds", "plan_cmds", "sweep_cmds", "train_cmds", "initiation_cmds", "demo_cmds")
 
 _DESCRIPTION = (
     "kinetome keeps a versioned library of robot skills (controllers packaged as options), "
