@@ -32,7 +32,12 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         ),
     )
     p.add_argument("ref", metavar="NAME[@N]", help="the version to start from (a name means its current version)")
-    add_task_options(p, variant_required=True)
+    add_task_options(p)
+    p.add_argument("--variants", nargs="+", metavar="FILE",
+                   help="retrain batch: one child per variant file, trained in parallel with --workers (Ray worker processes) "
+                        "or --address; each child is stored with its lineage and promoted per variant; prints a table of the children "
+                        "on their own variant and on nominal (use instead of --variant)")
+    p.add_argument("--address", metavar="HOST:PORT", help="with --variants: train the children on the Ray cluster at this address")
     p.add_argument("--budget", type=int, dest="env_step_budget", metavar="STEPS", help="env steps of training in total (default: the config's env_step_budget)")
     add_old_option(p, "--steps", "--budget", dest="env_step_budget", type=int)
     p.add_argument("--deliberation-cost", type=float, dest="deliberation_cost", metavar="ETA",
@@ -42,7 +47,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
                         "auto (default) searches oscillator (cpg) skills and uses the actor-critic for the rest")
     p.add_argument("--seed", type=int, default=0, help="training and measurement seed (default 0)")
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
-    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--workers", type=int, default=None, help="simulation threads (default 1); with --variants: worker processes, one child each at a time")
     p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
     p.add_argument("--out", metavar="DIR", help="folder for the curve and checkpoints (default: a new ./kinetome-retrain/NAME-N/VARIANT/run-K per run)")
     p.add_argument("--resume", action="store_true", help="continue an interrupted run: the one in --out, else the newest unfinished run of this skill, variant and store (named before training)")
@@ -89,7 +94,14 @@ def _say_run(run: Any, budget_note: str | None) -> None:
 
 def _retrain(args: argparse.Namespace) -> int:
     from ..api import open_store, retrain
+    from ..errors import InvalidInputError
 
+    if (args.variant is None) == (args.variants is None):
+        raise InvalidInputError("retrain needs --variant FILE (one child) or --variants FILE [FILE ...] (a batch); give exactly one")
+    if args.variants is not None:
+        return _retrain_batch(args)
+    if args.address is not None:
+        raise InvalidInputError("--address applies to a batch (--variants); a single retrain runs in this process")
     bar, on_update = _bar(f"retrain {args.ref}", args)
     result = retrain(
         args.ref,
@@ -99,7 +111,7 @@ def _retrain(args: argparse.Namespace) -> int:
         deliberation_cost=args.deliberation_cost,
         seed=args.seed,
         from_scratch=args.from_scratch,
-        workers=args.workers,
+        workers=args.workers or 1,
         config=args.config,
         initial_states=args.initial_states,
         out=args.out,
@@ -123,6 +135,47 @@ def _retrain(args: argparse.Namespace) -> int:
         print(f"models    {result['models']['model_ref']}")
     print(result["caution"])
     return 0
+
+
+def _retrain_batch(args: argparse.Namespace) -> int:
+    from ..api import open_store
+    from ..errors import InvalidInputError
+    from ..lineage.batch import retrain_batch
+
+    if args.resume or args.deliberation_cost:
+        raise InvalidInputError("--resume and --deliberation-cost apply to a single retrain (--variant), not to a batch (--variants)")
+    if not args.json:
+        print(f"retraining {args.ref} on {len(args.variants)} variants ...", file=sys.stderr)
+    result = retrain_batch(
+        args.ref, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), variants=args.variants,
+        initial_states=args.initial_states, config=args.config, env_step_budget=args.env_step_budget, seed=args.seed,
+        from_scratch=args.from_scratch, method=args.method, promotion_episodes=args.promotion_episodes, workers=args.workers,
+        address=args.address, out=args.out,
+    )
+    if args.json:
+        print_json(result)
+        return 0
+    print(format_batch(result))
+    return 0
+
+
+def format_batch(result: dict[str, Any]) -> str:
+    """The comparison table of a retrain batch and each child's lineage."""
+    from .output import format_table
+
+    first = result["children"][0]["promotion"]
+    lines = [
+        f"retrained {result['skill']} on {len(result['children'])} variants ({result['workers']}); fresh episodes: "
+        f"{first['episodes']} per version and task, current only if non-inferior (margin {first['margin']}, one-sided alpha {first['alpha']})",
+        format_table(result["comparison"], [
+            ("variant", "VARIANT"), ("child", "CHILD"), ("parent", "PARENT"), ("own_child", "CHILD ON ITS VARIANT"),
+            ("own_parent", "PARENT ON IT"), ("own_bound", "LOWER BOUND"), ("nominal_child", "CHILD ON NOMINAL"),
+            ("nominal_parent", "PARENT ON NOMINAL"), ("nominal_bound", "LOWER BOUND"), ("current_for", "CURRENT FOR")]),
+        "",
+    ]
+    lines += [f"lineage   {' <- '.join(c['lineage'])}  (trainer {c['trainer']}, {c['env_steps']} env steps)" for c in result["children"]]
+    lines.append(result["caution"])
+    return "\n".join(lines)
 
 
 def _print_promotion(result: dict[str, Any]) -> None:

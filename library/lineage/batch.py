@@ -1,0 +1,128 @@
+"""Retrain batch: one skill retrained on K task variants (in parallel through the execution layer),
+each child stored with its lineage and promoted by the retrain promotion rule on its own variant.
+
+``train_variant(item)`` is the pure, module-level piece a worker runs: it trains one child and
+returns its files and evidence as plain data; storing happens afterwards in this process, in the
+order the variants were given, so version numbers do not depend on which worker finished first.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Sequence
+
+__all__ = ["train_variant", "retrain_batch", "comparison_rows"]
+
+
+def train_variant(item: dict[str, Any]) -> dict[str, Any]:
+    """Train one child of ``item['parent']`` on ``item['variant']``; its files, metadata and promotion test.
+
+    Runs with one torch thread wherever it runs (a worker process has one; here it is set for the
+    call and restored), so a child's parameters, and its identity, do not depend on the worker count."""
+    import torch
+
+    threads = torch.get_num_threads()
+    torch.set_num_threads(1)
+    try:
+        return _train_variant(item)
+    finally:
+        torch.set_num_threads(threads)
+
+
+def _train_variant(item: dict[str, Any]) -> dict[str, Any]:
+    from kinetome.trainers.curves import save_curves
+    from kinetome.trainers.retrain import choose_method
+
+    from ..api import _train_config, load
+    from ..store import Store
+    from .retraining import TaskFiles, parent_task_of, run_retrain
+
+    store = Store(item["store"], blobs=item["blobs"], create=False)
+    version = store.get(item["parent"])
+    parent = load(version.ref, store=store)
+    folder = Path(item["workdir"])
+    draft = run_retrain(
+        parent, version.identity, task=TaskFiles.from_paths(item["variant"], item["initial_states"]),
+        config=_train_config(item["config"], item["overrides"]), seed=item["seed"], workdir=folder,
+        parent_task=parent_task_of(store, version, folder / "parent-task"), from_scratch=item["from_scratch"], workers=1,
+        promotion_episodes=item["promotion_episodes"], method=choose_method(parent.skill.controller.kind, item["method"]),
+    )
+    csv_path, png_path = save_curves(draft.result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(item['variant']).stem}")
+    return {"variant": item["variant"], "parent": parent.ref, "files": dict(draft.files), "meta": draft.meta,
+            "promotion": draft.promotion, "env_steps": int(draft.result.steps), "curve_csv": str(csv_path), "curve_png": str(png_path)}
+
+
+def _items(ref: str, store: Any, variants: Sequence[Path], *, out: Path, common: dict[str, Any]) -> list[dict[str, Any]]:
+    """One plain-data item per variant (a bare ``ref`` resolves to the current version for each variant)."""
+    from ..api import resolve
+    from ..errors import InvalidInputError
+    from ..tasks import load_variant_file
+
+    loaded = [load_variant_file(v) for v in variants]
+    names = [v.name for v in loaded]
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise InvalidInputError(f"--variants: each variant must have its own name (a child becomes current per variant name), "
+                                f"got {', '.join(twice)} more than once; give each variant file a distinct name:")
+    return [{**common, "parent": resolve(ref, store=store, variant=tv), "variant": str(path.resolve()), "workdir": str((out / tv.name).resolve()),
+             "store": str(store.location), "blobs": str(store.blobs_location)} for path, tv in zip(variants, loaded)]
+
+
+def comparison_rows(children: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Per child: success on its own variant and on nominal, beside its parent's, and where it became current."""
+    from .view import counts_text
+
+    rows = []
+    for c in children:
+        by_role = {role: row for row in c["promotion"]["tasks"] for role in row["roles"]}
+        own, nominal = by_role["trained"], by_role["nominal"]
+        rows.append({
+            "variant": own["task"], "child": c["child"], "parent": c["parent"],
+            "own_child": counts_text(own["child"]), "own_parent": counts_text(own["parent"]), "own_bound": f"{own['lower_bound']:+.3f}",
+            "nominal_child": counts_text(nominal["child"]), "nominal_parent": counts_text(nominal["parent"]),
+            "nominal_bound": f"{nominal['lower_bound']:+.3f}", "current_for": ", ".join(c["current_for"]) or "-",
+        })
+    return rows
+
+
+def retrain_batch(
+    ref: str, *, store: Any, variants: Sequence[str | Path], initial_states: str | Path | None = None, config: str | Path | None = None,
+    env_step_budget: int | None = None, seed: int = 0, from_scratch: bool = False, method: str = "auto",
+    promotion_episodes: int | None = None, refit_episodes: int = 200, workers: int | None = None, address: str | None = None,
+    out: str | Path | None = None,
+) -> dict[str, Any]:
+    """Retrain ``ref`` on every variant; store the children in the order given and apply the promotion rule per variant."""
+    from ..api import fit
+    from ..execution import executor_for
+    from ..output_schema import tagged
+    from ..safety import caution_for
+    from ..stored_meta import current_meta
+    from ..tasks import default_rig
+    from .promotion import DEFAULT_EPISODES
+    from .retraining import apply_promotion
+
+    folder = Path(out) if out is not None else Path("kinetome-retrain") / f"{ref.replace('@', '-')}-batch"
+    common = {"initial_states": None if initial_states is None else str(Path(initial_states).resolve()),
+              "config": None if config is None else str(Path(config).resolve()), "overrides": {"env_step_budget": env_step_budget},
+              "seed": int(seed), "from_scratch": bool(from_scratch), "method": method,
+              "promotion_episodes": int(promotion_episodes or DEFAULT_EPISODES)}
+    items = _items(ref, store, [Path(v) for v in variants], out=folder, common=common)
+    executor = executor_for(workers, address)
+    try:
+        trained = executor.map(train_variant, items)
+    finally:
+        executor.close()
+    children = []
+    for item, res in zip(items, trained):
+        version = store.get(res["parent"])
+        added = store.add(version.name, res["files"], parent=res["parent"], reason="retrained", meta=current_meta(res["meta"]))
+        child = added.version.ref
+        current_for = apply_promotion(store, child, res["promotion"]) if added.is_new else store.current_tasks(child)
+        fitted = fit(child, store=store, episodes=refit_episodes, variant=item["variant"], initial_states=initial_states, seed=seed) if refit_episodes else None
+        children.append({"variant": item["variant"], "parent": res["parent"], "child": child, "is_new": added.is_new,
+                         "promotion": res["promotion"], "current_for": current_for, "env_steps": res["env_steps"],
+                         "trainer": res["meta"]["trainer"], "curve_png": res["curve_png"], "models": None if fitted is None else fitted["model_ref"],
+                         "lineage": [v.ref for v in store.lineage(child)]})
+    env = store.get(children[0]["child"]).meta.get("env")
+    return tagged("retrain-batch", {"skill": ref, "children": children, "comparison": comparison_rows(children),
+                                    "workers": getattr(executor, "where", "this process"), "caution": caution_for(default_rig(env) if env else None)})
