@@ -9,7 +9,7 @@ from typing import Any
 from .old_spellings import add_old_option
 from .output import print_json, print_table
 from .progress import Progress
-from .run_cmds import JSON_HELP, add_task_options
+from .run_cmds import JSON_HELP
 
 __all__ = ["add_parsers"]
 
@@ -32,8 +32,11 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         ),
     )
     p.add_argument("ref", metavar="NAME[@N]", help="the version to start from (a name means its current version)")
-    add_task_options(p)
-    p.add_argument("--variants", nargs="+", metavar="FILE",
+    which = p.add_mutually_exclusive_group(required=True)
+    which.add_argument("--variant", metavar="FILE", help="task variant YAML to retrain on (payload, friction, ...; e.g. configs/variants/heavy_payload.yaml)")
+    p.add_argument("--initial-states", dest="initial_states", metavar="FILE", help="initial-states YAML (e.g. configs/initial_states/arm_clearance.yaml; default: the skill's own, else the env's)")
+    add_old_option(p, "--start", "--initial-states", dest="initial_states")
+    which.add_argument("--variants", nargs="+", metavar="FILE",
                    help="retrain batch: one child per variant file, trained in parallel with --workers (Ray worker processes) "
                         "or --address; each child is stored with its lineage and promoted per variant; prints a table of the children "
                         "on their own variant and on nominal (use instead of --variant)")
@@ -96,8 +99,6 @@ def _retrain(args: argparse.Namespace) -> int:
     from ..api import open_store, retrain
     from ..errors import InvalidInputError
 
-    if (args.variant is None) == (args.variants is None):
-        raise InvalidInputError("retrain needs --variant FILE (one child) or --variants FILE [FILE ...] (a batch); give exactly one")
     if args.variants is not None:
         return _retrain_batch(args)
     if args.address is not None:
