@@ -70,6 +70,7 @@ def check_chain(
     ctx = prepare_context(chain, store=store, options=options)
     from ..sweep.regions import region_warnings
 
+    # part of the check's key (notes_before_run): a sweep stored since a check makes the check run again
     ctx.notes.extend(region_warnings(store, list(ctx.skills), env=ctx.rig.env_id, variant=ctx.rig.variant,
                                      disturbances=chain.disturbances.to_dict()))
     key = check_key(ctx)

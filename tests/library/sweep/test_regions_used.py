@@ -74,3 +74,16 @@ def test_show_prints_the_region(swept, capsys) -> None:
     assert main(["--store", str(store.location), "show", "arm-reach-tray@1", "--json"]) == 0
     view = json.loads(capsys.readouterr().out)
     assert view["regions"][0]["region"]["cells"] == [{"payload_mass": 0.2}] and view["regions"][0]["own"]
+
+
+def test_a_sweep_stored_after_a_check_makes_it_run_again_with_the_warning(tmp_path) -> None:
+    store = api.open_store(tmp_path / "store")
+    api.register(CONFIGS / "skills" / "arm-reach-tray.yaml", store=store)
+    chain = _chain(tmp_path, 1.0)
+    before = api.check_chain(chain, store=store, method="static")
+    assert [n for n in before.to_dict()["notes"] if n.startswith("warning: ")] == []
+    api.sweep("arm-reach-tray", store=store, axes=["payload_mass=0.2,1.0"], episodes=40, require=0.9, initial_states=CLEARANCE)
+    after = api.check_chain(chain, store=store, method="static")
+    assert not getattr(after, "reused", False)  # the warning is part of the check's key: not the stored result
+    assert any(n.startswith("warning: arm-reach-tray@1 was swept") for n in after.to_dict()["notes"])
+    assert "warning: arm-reach-tray@1 was swept" in after.format_text()
