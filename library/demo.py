@@ -172,6 +172,26 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
     return result
 
 
+def _learn_initiation(store: Any, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
+    """Where walker-stand really succeeds, against its hand-written starts_when (not adopted)."""
+    from .api import learn_initiation
+    from .errors import NoRegionFoundError
+
+    episodes = 2000 if settings.quick else 4000
+    with log.progress(f"learning where walker-stand works ({episodes} episodes)") as bar:
+        try:
+            result = learn_initiation("walker-stand", store=store, widen=["torso_pitch=0.5", "qvel=0.5"], episodes=episodes, precision=0.9,
+                                      seed=settings.seed, out=out / "initiation", workers=settings.workers,
+                                      progress=lambda d, t: bar.update(d, total=t))
+        except NoRegionFoundError as exc:
+            log.step(str(exc))
+            return {"no_region": str(exc)}
+    p = result["precision"]
+    log.step(f"learned walker-stand's starts_when: {result['proposed']} (precision {p['successes']}/{p['episodes']}, "
+             f"lower bound {p['interval'][0]:.3f}); hand-written: {result['current']['starts_when']}")
+    return result
+
+
 def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, dict[str, Any]]:
     """One traced episode per chain as a labelled filmstrip: {chain: {"path", "renderer", "frames"}}."""
     from .report.filmstrip import chain_filmstrip
@@ -211,6 +231,7 @@ def run_demo(
     fitted = _fit_from_chains(store, configs, settings, log)
     checks = _check_chains(store, configs, out, settings, log)
     retrained = _retrain(store, configs, out, settings, log)
+    learned = _learn_initiation(store, out, settings, log)
     strips = _filmstrips(store, configs, out, settings, log)
     summary = {
         "schema": schema_name("demo"),
@@ -222,6 +243,7 @@ def run_demo(
         "models": fitted,
         "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],
         "retrain": retrained,
+        "initiation": learned,
         "filmstrips": {k: {**v, "path": str(v["path"])} for k, v in strips.items()},
     }
     (out / "demo.json").write_text(json.dumps(summary, indent=2, sort_keys=True, default=str), encoding="utf-8")

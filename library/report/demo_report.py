@@ -81,6 +81,29 @@ def _retrain_section(report: Report, retrain: dict[str, Any]) -> None:
         s.add(image_html(png, "learning curve on the heavy-payload variant"))
 
 
+def _initiation_section(report: Report, learned: dict[str, Any] | None) -> None:
+    if not learned:
+        return
+    s = report.section("initiation", "Where a skill really starts: a learned starts_when")
+    if "no_region" in learned:
+        s.text(learned["no_region"])
+        return
+    s.text(f"{learned['skill']} ran from {learned['episodes']} initial states ({learned['widening_text']}) whatever its starts_when said; "
+           f"{learned['successes']} ended by its stops_when. The proposal below was chosen on other episodes than the ones that measure it "
+           f"(report split, exact {learned['confidence']:.0%} intervals; precision target {learned['precision_target']}); classifier: {learned['classifier']['model']}, "
+           f"Brier {learned['calibration']['brier']:.3f} on the report split. It holds for the sampled initial states only.")
+
+    def rate(r: dict[str, Any]) -> str:
+        return f"{r['successes']}/{r['episodes']} = {r['rate']:.3f} [{r['interval'][0]:.3f}, {r['interval'][1]:.3f}]" if r["episodes"] else "-"
+
+    rows = [{"which": "learned", "text": learned["proposed"], "p": rate(learned["precision"]), "r": rate(learned["recall"])},
+            {"which": "hand-written", "text": learned["current"]["starts_when"], "p": rate(learned["current"]["precision"]),
+             "r": rate(learned["current"]["recall"])}]
+    s.add(table_html(rows, [("which", ""), ("text", "starts_when"), ("p", "Precision"), ("r", "Recall")]))
+    if learned.get("plot") and Path(learned["plot"]).exists():
+        s.add(image_html(Path(learned["plot"]), "start states (stopped or not) with the learned (solid) and hand-written (dashed) boundaries"))
+
+
 def _filmstrip_section(report: Report, strips: dict[str, dict[str, Any]]) -> None:
     from kinetome.envs.render_backend import RENDERER_LABELS
 
@@ -106,6 +129,7 @@ def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks:
     _checks_section(report, checks)
     _models_section(report, summary["models"])
     _retrain_section(report, summary["retrain"])
+    _initiation_section(report, summary.get("initiation"))
     _filmstrip_section(report, strips)
     safety = report.section("safety", "Safety")
     safety.text(CAUTION)
