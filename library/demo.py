@@ -145,6 +145,14 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
     return results
 
 
+def _plan(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
+    from .planning.demo_plan import demo_plan
+
+    planned = demo_plan(store, configs, out, quick=settings.quick, seed=settings.seed, workers=settings.workers)
+    log.step(f"plan: found {' -> '.join(planned['winner']) or 'no chain'} for the goal {planned['goal']} (listed {', '.join(planned['listed'])}; chosen by the search {', '.join(planned['chosen_by_search']) or 'nothing'})")
+    return planned
+
+
 def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
     from .api import retrain
 
@@ -230,6 +238,7 @@ def run_demo(
     registered = _register(store, configs, log)
     fitted = _fit_from_chains(store, configs, settings, log)
     checks = _check_chains(store, configs, out, settings, log)
+    planned = _plan(store, configs, out, settings, log)
     retrained = _retrain(store, configs, out, settings, log)
     learned = _learn_initiation(store, out, settings, log)
     strips = _filmstrips(store, configs, out, settings, log)
@@ -242,6 +251,7 @@ def run_demo(
         "registered": registered,
         "models": fitted,
         "checks": [{k: v for k, v in c.items() if k not in ("report_dir",)} for c in checks],
+        "plan": planned,
         "retrain": retrained,
         "initiation": learned,
         "filmstrips": {k: {**v, "path": str(v["path"])} for k, v in strips.items()},

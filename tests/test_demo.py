@@ -13,7 +13,7 @@ from PIL import Image
 from kinetome.library.cli.main import main
 from tests.browser import chromium_path, render_page
 
-SECTIONS = ("skills", "chains", "models", "retrain", "filmstrips", "safety")
+SECTIONS = ("skills", "chains", "plan", "models", "retrain", "filmstrips", "safety")
 
 
 @pytest.fixture(scope="module")
@@ -33,6 +33,10 @@ def test_demo_registers_fits_checks_and_retrains(demo: Path) -> None:
     assert "breaks" in verdicts["arm-place-release"]
     decided = {j["decided_by"] for c in summary["checks"] for j in c["result"]["handoffs"]}
     assert "static" in decided and "sim" in decided
+    plan = summary["plan"]  # the search finds the workshop's chain, adding the settling skill nobody listed
+    assert plan["exit_code"] == 0 and plan["winner"] == ["arm-lift@1", "arm-reach-tray@1", "arm-place@1"]
+    assert plan["listed"] == ["arm-lift"] and "arm-place@1" in plan["chosen_by_search"]
+    assert plan["confirmed"][0]["lower_bound"] >= 0.95
     retrain = summary["retrain"]
     assert retrain["child"] == "arm-reach-tray@2" and retrain["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]
     assert retrain["after"]["mean_return"] > retrain["before"]["mean_return"]

@@ -77,7 +77,7 @@ def _first_failure(result: Any, data: Mapping[str, Any]) -> str:
         if h.verdict.value != "composes":
             return f"{h.label}: {h.verdict.value} ({h.reason})"
     if result.exit_code != 0:
-        low = ((data.get("whole_chain") or {}).get("success") or {}).get("low")
+        low = ((data.get("whole_chain") or {}).get("success") or {}).get("lower_bound")
         shown = "none" if low is None else f"{low:.3f}"
         return f"whole chain: lower bound {shown} does not meet require.chain {data['chain']['require']['chain']}"
     return ""
@@ -121,8 +121,9 @@ def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, wor
     result, ctx = _check(store, chain, reuse=not measured_goal, workers=workers, progress=progress)
     data = result.to_dict()
     whole = data.get("whole_chain") or {}
-    lower = float((whole.get("success") or {}).get("low") or 0.0)
-    k, n = _goal_counts(ctx, goal) if ctx is not None else (int((whole.get("success") or {}).get("k") or 0), int(whole.get("episodes") or 0))
+    success = whole.get("success") or {}
+    lower = float(success.get("lower_bound") or 0.0)
+    k, n = _goal_counts(ctx, goal) if ctx is not None else (int(success.get("successes") or 0), int(whole.get("episodes") or 0))
     failure = _first_failure(result, data)
     if measured_goal and n:
         lower = min(lower, lower_bound(k, n, chain.confidence))

@@ -127,6 +127,10 @@ def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks:
     )
     _skills_section(report, store)
     _checks_section(report, checks)
+    if "plan" in summary:
+        from .plan_section import plan_section
+
+        plan_section(report, summary["plan"])
     _models_section(report, summary["models"])
     _retrain_section(report, summary["retrain"])
     _initiation_section(report, summary.get("initiation"))

@@ -45,6 +45,12 @@ def test_plan_finds_and_confirms_the_pick_and_place_chain(store, tmp_path, capsy
     data = json.loads((out / "plan.json").read_text())
     assert data["schema"] == "kinetome.plan/1" and data["caution"].startswith("Caution")
     assert data["winner"] == list(chain.skills)
+    # the ranking bound is the check's own whole-chain lower bound (59 of 59 clean episodes: 0.05 ** (1 / 59))
+    report = json.loads((out / "check" / "result.json").read_text())
+    best = data["confirmed"][0]
+    assert best["lower_bound"] == pytest.approx(report["whole_chain"]["success"]["lower_bound"])
+    assert best["lower_bound"] >= 0.95 and best["goal_successes"] == best["episodes"] > 0
+    assert best["mean_duration_steps"] == pytest.approx(report["whole_chain"]["duration"]["success_mean"])
 
 
 def test_plan_from_the_whole_library_ranks_by_measured_bound_then_duration(store, tmp_path, capsys):
