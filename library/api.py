@@ -135,12 +135,18 @@ def run(
     initial_states: str | Path | None = None,
     episodes: int = 100,
     seed: int = 0,
-    workers: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
+    threads: int = 1,
     confidence: float = 0.95,
     progress: Any = None,
 ) -> dict[str, Any]:
-    """Run a stored skill for ``episodes``: success counts and interval, duration, return, outcomes, limits."""
-    from .runtime.execute import run_skill
+    """Run a stored skill for ``episodes``: success counts and interval, duration, return, outcomes, limits.
+
+    ``workers``: Ray worker processes (None: this process); ``address``: a running Ray cluster;
+    ``threads``: MuJoCo threads in this process. The result is the same bits for any of them.
+    """
+    from .execution.spread import run_chain_spread
     from .runtime.summary import limit_exceedances, summarize_rollout
     from .safety import caution_for
     from .initial_states import initial_states_for
@@ -151,7 +157,8 @@ def run(
     loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
     rig = task_rig(loaded.skill.env, task_variant)
     qpos, qvel = sample_initial_states(rig, initial_states_for(loaded.skill, initial_states), episodes, seed=seed)
-    rollout = run_skill(loaded, rig, starts=(qpos, qvel), seed=seed, workers=workers, progress=progress)
+    rollout = run_chain_spread([loaded], rig, starts=(qpos, qvel), seed=seed, workers=workers, address=address, threads=threads,
+                               progress=progress)
     summary = summarize_rollout(rollout, confidence=confidence)
     limits = loaded.skill.limits.as_dict() if loaded.skill.limits else {}
     summary["skill"] = loaded.ref
@@ -170,10 +177,15 @@ def run_chooser(
     initial_states: str | Path | None = None,
     episodes: int = 100,
     seed: int = 0,
-    workers: int = 1,
+    threads: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
     progress: Any = None,
 ) -> dict[str, Any]:
-    """Run the skills trained together with ``ref`` under their chooser (the policy over skills) and summarise."""
+    """Run the skills trained together with ``ref`` under their chooser (the policy over skills) and summarise.
+
+    Runs in this process (``threads`` MuJoCo threads); worker processes are refused for now.
+    """
     from .runtime.files import CHOOSER_KIND
     from .runtime.learned import Chooser
     from .runtime.options import run_options
@@ -181,7 +193,10 @@ def run_chooser(
     from .tasks import load_start_file, load_variant_file, task_rig
 
     _check_episodes(episodes)
-    from .errors import NotFoundError
+    from .errors import InvalidInputError, NotFoundError
+
+    if address is not None or (workers or 1) > 1:
+        raise InvalidInputError("--chooser runs in this process only: drop --workers/--address (use --threads for MuJoCo threads)")
 
     try:
         model = store.get_model(ref, CHOOSER_KIND)
@@ -195,7 +210,7 @@ def run_chooser(
     rig = task_rig(first.skill.env, load_variant_file(variant))
     skills = [load(r, store=store, rig=rig) for r in chooser.skill_refs]
     qpos, qvel = sample_initial_states(rig, load_start_file(initial_states), episodes, seed=seed)
-    out = run_options(skills, chooser, rig, starts=(qpos, qvel), seed=seed, workers=workers,
+    out = run_options(skills, chooser, rig, starts=(qpos, qvel), seed=seed, workers=threads,
                       episode_steps=chooser.features.limit or None, progress=progress)
     summary = out.summary()
     summary.update(chooser=model.ref, variant=None if variant is None else str(variant), caution=caution_for(rig),
@@ -232,11 +247,13 @@ def fit(
     variant: str | Path | None = None,
     initial_states: str | Path | None = None,
     seed: int = 0,
-    workers: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
+    threads: int = 1,
     progress: Any = None,
 ) -> dict[str, Any]:
     """Fit duration, reward and end-state models from rollouts; attach them to the version.
-    ``progress(done, total)`` follows the rollouts."""
+    ``progress(done, total)`` follows the rollouts; ``workers``/``address``/``threads`` as in ``run``."""
     from kinetome.trainers.fitting import collect_and_fit  # trainers only here, lazily
 
     from .initial_states import initial_states_for
@@ -249,7 +266,8 @@ def fit(
     task_variant = load_variant_file(variant)
     loaded = load(resolve(ref, store=store, variant=task_variant), store=store)
     rig = task_rig(loaded.skill.env, task_variant)
-    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, start=initial_states_for(loaded.skill, initial_states), progress=progress)
+    models = collect_and_fit(loaded, rig, episodes=episodes, seed=seed, workers=workers, address=address, threads=threads,
+                             start=initial_states_for(loaded.skill, initial_states), progress=progress)
     errors = models.summary()
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
     settings = {"episodes": episodes, "seed": seed, "initial_states": None if initial_states is None else str(initial_states)}
@@ -391,7 +409,7 @@ def retrain(
     child = added.version.ref
     current_for = apply_promotion(store, child, draft.promotion) if added.is_new else store.current_tasks(child)
     mark_finished(run, child)
-    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, workers=workers) if refit_episodes else None
+    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, threads=workers) if refit_episodes else None
     return tagged("retrain", {
         "parent": parent.ref,
         "child": child,
@@ -498,7 +516,9 @@ def check_chain(
     method: str = "auto",
     episodes: int | None = None,
     seed: int | None = None,
-    workers: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
+    threads: int = 1,
     out: str | Path | None = None,
     progress: Any = None,
     fail_on_gaps: bool = False,
@@ -506,7 +526,9 @@ def check_chain(
     reuse: bool = True,
 ) -> Any:
     """Check a chain file handoff by handoff; with ``out``, write the report folder there.
-    ``progress(done, total)`` follows the simulation (episodes), when one runs.
+    ``progress(done, total)`` follows the simulation (episodes), when one runs. Simulation blocks run
+    in this process (``threads`` MuJoCo threads), on ``workers`` Ray worker processes, or on the Ray
+    cluster at ``address``: the result is the same bits for any of them.
     The result is stored as evidence when every skill is a stored version; the same check
     again (same identities, task, settings, software) returns the stored result
     (``result.reused`` is True) unless ``reuse`` is False.
@@ -518,8 +540,8 @@ def check_chain(
     """
     from .checker import check_chain as _check
 
-    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, progress=progress,
-                    fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits, reuse=reuse)
+    result = _check(chain_path, store=store, method=method, episodes=episodes, seed=seed, workers=workers, address=address,
+                    threads=threads, progress=progress, fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits, reuse=reuse)
     if out is not None:
         from .report.checker_plots import write_report
 

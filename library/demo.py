@@ -136,7 +136,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
         with log.progress(f"checking {path.stem}") as bar:
             result = check_chain(
                 path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed,
-                workers=settings.workers, out=report_dir, progress=lambda done, total: bar.update(done, total=total),
+                threads=settings.workers, out=report_dir, progress=lambda done, total: bar.update(done, total=total),
             )
         data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})

@@ -340,7 +340,9 @@ def collect_and_fit(
     *,
     episodes: int,
     seed: int,
-    workers: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
+    threads: int = 1,
     start: Any = None,
     gamma: float = 0.99,
     progress: Any = None,
@@ -351,13 +353,16 @@ def collect_and_fit(
     Starts come from ``start`` (a StartDistribution) or the rig's default; the
     end-state envelope is the rig's layout. ``fit_options`` go to
     ``fit_option_models`` (features, end_quantities, holdout, expansion...).
-    ``progress(done, total)`` is called as the rollouts advance (env steps).
+    ``progress(done, total)`` is called as the rollouts advance (env steps). The rollouts run in
+    this process (``threads`` MuJoCo threads), on ``workers`` Ray worker processes or on the Ray
+    cluster at ``address``, with the same result.
     """
-    from kinetome.library.runtime.execute import run_skill  # lazy: mujoco
+    from kinetome.library.execution.spread import run_chain_spread  # lazy: mujoco
     from kinetome.library.runtime.starts import sample_starts
 
     qpos, qvel = sample_starts(rig, start, int(episodes), seed=seed)
-    rollout = run_skill(skill, rig, starts=(qpos, qvel), seed=seed, workers=workers, gamma=gamma, progress=progress)
+    rollout = run_chain_spread([skill], rig, starts=(qpos, qvel), seed=seed, workers=workers, address=address, threads=threads,
+                               gamma=gamma, progress=progress)
     fit_options.setdefault("envelope", rig.layout)
     variant = getattr(rig, "variant", None)
     if variant is not None:

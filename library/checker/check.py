@@ -37,7 +37,9 @@ def check_chain(
     method: str = AUTO,
     episodes: int | None = None,
     seed: int | None = None,
-    workers: int = 1,
+    workers: int | None = None,
+    address: str | None = None,
+    threads: int = 1,
     timeout_ms: int = 10_000,
     gamma: float = 0.99,
     start_samples: int = 1000,
@@ -55,13 +57,14 @@ def check_chain(
     meets its requirement), 1 (something breaks or fails) or 3 (unsure).
     ``episodes``/``seed`` override the chain file's values.
     ``progress(done, total)`` follows the simulation in episodes, when one runs.
-    ``fail_on_gaps`` / ``fail_on_limits``: see ``CheckOptions``.
     With a store and stored skills, the result is kept as evidence of the first skill; the
     same check again (``reuse``) returns that ``StoredCheck`` instead of running (``reuse.py``).
+    ``fail_on_gaps`` / ``fail_on_limits``: see ``CheckOptions``; ``workers``/``address``/``threads``:
+    where simulation blocks run (``library/execution``), never what they compute.
     """
     extra = {} if block_size is None else {"block_size": block_size}
     options = CheckOptions(
-        method=method, episodes=episodes, seed=seed, workers=workers, gamma=gamma,
+        method=method, episodes=episodes, seed=seed, workers=workers, address=address, threads=threads, gamma=gamma,
         timeout_ms=timeout_ms, start_samples=start_samples, model_samples=model_samples, progress=progress,
         fail_on_gaps=fail_on_gaps, fail_on_limits=fail_on_limits, **extra,
     )

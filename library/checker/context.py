@@ -24,7 +24,8 @@ class CheckOptions:
     simulation) break the handoff. ``fail_on_limits``: a declared limit of A exceeded in
     simulation, or a command jump at the switch above ``handoff_limits.command_jump``, breaks it.
     ``start_samples``: initial states drawn to test the entry; ``model_samples``:
-    particles for the model method; ``timeout_ms``: per z3 query; ``block_size``:
+    particles for the model method; ``timeout_ms``: per z3 query; ``workers``/``address``/``threads``:
+    where simulation blocks run (never what they compute); ``block_size``:
     episodes per simulation block (results do not depend on it for ``--method sim``
     beyond which initial states are drawn; stopping rules look only at block ends).
     """
@@ -32,7 +33,9 @@ class CheckOptions:
     method: str = "auto"
     episodes: int | None = None
     seed: int | None = None
-    workers: int = 1
+    workers: int | None = None  # Ray worker processes for simulation blocks (None: this process)
+    address: str | None = None  # a running Ray cluster for them
+    threads: int = 1  # MuJoCo threads per block in this process
     gamma: float = 0.99
     timeout_ms: int = 10_000
     start_samples: int = 1000
@@ -55,7 +58,13 @@ class CheckOptions:
 
         count("episodes", 1, allow_none=True)
         count("seed", 0, allow_none=True)
-        count("workers", 1)
+        count("workers", 1, allow_none=True)
+        count("threads", 1)
+        if self.address is not None and (not isinstance(self.address, str) or not self.address.strip()):
+            problems.append(Problem("<options>", None, "address", f"must be a Ray cluster address such as 127.0.0.1:6379, got {self.address!r}"))
+        if not problems and self.threads > 1 and (self.address is not None or (self.workers or 1) > 1):
+            problems.append(Problem("<options>", None, "threads", f"applies to a run in this process, got {self.threads} with worker processes",
+                                    "drop --threads (each worker process runs one thread), or drop --workers/--address"))
         count("timeout_ms", 1)
         count("start_samples", 1)
         count("model_samples", 1)
@@ -90,6 +99,7 @@ class CheckContext:
     cache: dict[str, Any] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     chain_stats: Any = None  # filled by the simulation method
+    built_for: tuple[str, ...] = ()  # per skill, the env whose rig it was built for (workers rebuild it the same way)
 
     @property
     def episodes(self) -> int:
@@ -194,7 +204,7 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
             raise InvalidInputError([chain.problem("task.initial_states", line) for line in exc.problems]) from None
     else:
         start = None
-    skills, envs = [], []
+    skills, envs, built_for = [], [], []
     own_rigs: dict[str, Any] = {rig.env_id: rig}
     for step in chain.skills:
         env = _spec_env(step, store)
@@ -205,4 +215,5 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
         fits = own.metadata.get("robot") == rig.metadata.get("robot") and own.n_act == rig.n_act
         # A skill of another robot is built for its own env; the structural check reports the mismatch.
         skills.append(_load_step(step, store, rig if fits else own))
-    return CheckContext(chain, options, rig, tuple(skills), tuple(envs), start, store)
+        built_for.append(rig.env_id if fits else own.env_id)
+    return CheckContext(chain, options, rig, tuple(skills), tuple(envs), start, store, built_for=tuple(built_for))

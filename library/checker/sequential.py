@@ -23,7 +23,7 @@ Stopping rules look at results only at block boundaries, in block order.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Callable, Iterator
 
 import numpy as np
 
@@ -130,27 +130,48 @@ def _zero_failure_claims(t: Trials, n0: int, *, confidence: float, require: floa
     return per, bool(enough and np.all(t.chain) and bound >= require_chain)
 
 
-def _run_stage(stage: Stage, run_block: Callable[[int, int], Trials]) -> tuple[Trials | None, bool]:
+# run_blocks(blocks) -> the trials of each (first, stop) block, in block order (an iterator; it may
+# compute ahead on workers, and is closed when a stage stops early)
+BlocksRunner = Callable[[tuple[tuple[int, int], ...]], Iterator[Trials]]
+
+
+def _run_stage(stage: Stage, run_blocks: BlocksRunner) -> tuple[Trials | None, bool]:
+    """Consume the stage's blocks in block order; the zero-failure stage looks after each one."""
     parts: list[Trials] = []
-    for a, b in stage.blocks:
-        parts.append(run_block(a, b))
-        if stage.zero_failure and not _still_open(Trials.concatenate(parts)):
-            return Trials.concatenate(parts), stage.blocks[-1][1] != b
+    results = run_blocks(stage.blocks)
+    try:
+        for (_, b), trials in zip(stage.blocks, results):
+            parts.append(trials)
+            if stage.zero_failure and not _still_open(Trials.concatenate(parts)):
+                return Trials.concatenate(parts), stage.blocks[-1][1] != b
+    finally:
+        close = getattr(results, "close", None)
+        if close is not None:
+            close()  # blocks computed ahead of a stop are dropped, unseen
     return (Trials.concatenate(parts) if parts else None), False
+
+
+def _one_by_one(run_block: Callable[[int, int], Trials]) -> BlocksRunner:
+    return lambda blocks: (run_block(a, b) for a, b in blocks)
 
 
 def run_plan(
     plan: SimPlan,
-    run_block: Callable[[int, int], Trials],
+    run_block: Callable[[int, int], Trials] | None = None,
     *,
+    run_blocks: BlocksRunner | None = None,
     require_handoff: float,
     require_chain: float,
     confidence: float,
 ) -> PlanRun:
-    """Run ``plan``; ``run_block(first, stop)`` simulates episodes first..stop-1 and returns their trials."""
+    """Run ``plan``; ``run_block(first, stop)`` simulates episodes first..stop-1 and returns their trials
+    (or ``run_blocks(blocks)`` yields them block by block, in order). Rules look only at block ends."""
+    if (run_block is None) == (run_blocks is None):
+        raise ValueError("run_plan needs exactly one of run_block and run_blocks")
+    run_blocks = run_blocks if run_blocks is not None else _one_by_one(run_block)  # type: ignore[arg-type]
     kw = dict(require_handoff=require_handoff, require_chain=require_chain, confidence=confidence)
     first = plan.stages[0]
-    t1, curtailed = _run_stage(first, run_block)
+    t1, curtailed = _run_stage(first, run_blocks)
     assert t1 is not None
     runs = {first.label: t1.n}
     d1 = decide(t1, composes_confidence=first.composes_confidence, **kw)
@@ -160,7 +181,7 @@ def run_plan(
     if all(per) and chain_ok:
         return PlanRun(d1, t1, runs, {**{str(j): first.label for j in range(t1.m)}, "chain": first.label}, curtailed)
     second = plan.stages[1]
-    t2, _ = _run_stage(second, run_block)
+    t2, _ = _run_stage(second, run_blocks)
     assert t2 is not None
     runs[second.label] = t2.n
     d2 = decide(t2, composes_confidence=second.composes_confidence, **kw)

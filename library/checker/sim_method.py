@@ -12,7 +12,7 @@ zero-failure stage then the rest for ``--method auto``).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Iterator
 
 import numpy as np
 
@@ -46,31 +46,37 @@ def simulation_plan(ctx: Any) -> SimPlan:
 
 
 def simulate_chain(ctx: Any) -> Simulation:
-    """The chain's simulation for this check (run once, cached)."""
+    """The chain's simulation for this check (run once, cached). Blocks run where the options say
+    (this process, Ray workers or a cluster) and are judged in block order, so the result is the same."""
     if "simulation" in ctx.cache:
         return ctx.cache["simulation"]
-    from ..runtime.execute import run_chain
+    from ..execution import executor_for
     from ..runtime.records import ChainRollout
 
-    chain = ctx.chain
-    flags = chain.may_time_out
+    chain, flags = ctx.chain, ctx.chain.may_time_out
+    plan = simulation_plan(ctx)
     parts: list[Any] = []
 
-    def run_block(first: int, stop: int) -> Any:
-        qpos, qvel = ctx.block_starts(first, stop)
-        rollout = run_chain(
-            list(ctx.skills), ctx.rig, starts=(qpos, qvel), seed=ctx.seed, workers=ctx.options.workers,
-            gamma=ctx.options.gamma, disturbances=chain.disturbances, episode_ids=np.arange(first, stop), may_time_out=flags,
-        )
-        parts.append(rollout)
-        if ctx.options.progress is not None:
-            ctx.options.progress(sum(p.n_episodes for p in parts), plan.budget)
-        return trials_from_rollout(rollout, flags)
+    def judged(rollouts: Iterator[Any]) -> Iterator[Any]:
+        try:
+            for rollout in rollouts:
+                parts.append(rollout)
+                if ctx.options.progress is not None:
+                    ctx.options.progress(sum(p.n_episodes for p in parts), plan.budget)
+                yield trials_from_rollout(rollout, flags)
+        finally:
+            close = getattr(rollouts, "close", None)
+            if close is not None:
+                close()
 
-    plan = simulation_plan(ctx)
-    outcome = run_plan(
-        plan, run_block, require_handoff=chain.require_handoff, require_chain=chain.chain_requirement, confidence=chain.confidence
-    )
+    executor = executor_for(ctx.options.workers, ctx.options.address)
+    try:
+        outcome = run_plan(
+            plan, run_blocks=lambda blocks: judged(_block_rollouts(ctx, executor, blocks)),
+            require_handoff=chain.require_handoff, require_chain=chain.chain_requirement, confidence=chain.confidence,
+        )
+    finally:
+        executor.close()
     rollout = ChainRollout.concatenate(parts)
     stats = chain_stats_from_rollout(
         rollout, dt=ctx.rig.dt, success=outcome.decision.chain, chain_ok=outcome.trials.chain, distinct=outcome.decision.distinct,
@@ -78,6 +84,24 @@ def simulate_chain(ctx: Any) -> Simulation:
     )
     ctx.cache["simulation"] = Simulation(plan, outcome, rollout, stats)
     return ctx.cache["simulation"]
+
+
+def _block_rollouts(ctx: Any, executor: Any, blocks: tuple[tuple[int, int], ...]) -> Iterator[Any]:
+    """Each (first, stop) block's ChainRollout, in block order: here one after another, or on workers."""
+    from ..execution import Block, InProcessExecutor
+    from ..execution.chain_blocks import chain_job, run_chain_blocks
+    from ..runtime.execute import run_chain
+
+    chain = ctx.chain
+    run = dict(seed=ctx.seed, gamma=ctx.options.gamma, disturbances=chain.disturbances, may_time_out=chain.may_time_out)
+    if isinstance(executor, InProcessExecutor):
+        for first, stop in blocks:
+            yield run_chain(list(ctx.skills), ctx.rig, starts=ctx.block_starts(first, stop), workers=ctx.options.threads,
+                            episode_ids=np.arange(first, stop), **run)
+        return
+    job = chain_job(list(ctx.skills), ctx.rig, built_for=ctx.built_for or None, threads=1, **run)
+    spread = [Block(i, a, b - a) for i, (a, b) in enumerate(blocks)]
+    yield from run_chain_blocks(executor, job, spread, lambda blk: ctx.block_starts(blk.first, blk.stop))
 
 
 def _take(values: dict, rows: np.ndarray) -> dict:

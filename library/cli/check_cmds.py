@@ -7,6 +7,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from .execution_options import add_execution_options, execution_arguments
+
 __all__ = ["add_parsers"]
 
 
@@ -29,7 +31,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--episodes", type=int, help="simulation budget in episodes (default: the chain file's, else 200)")
     p.add_argument("--seed", type=int, help="seed of the initial states and every random draw (default: the chain file's, else 0)")
-    p.add_argument("--workers", type=int, default=1, help="MuJoCo threads per block of episodes (results do not depend on it)")
+    add_execution_options(p)
     p.add_argument("--json", action="store_true", help="print the result as JSON (schema kinetome.check/1)")
     p.add_argument("--out", metavar="DIR", help="write the text, JSON and PNG plots to DIR")
     p.add_argument("--fail-on-gaps", action="store_true",
@@ -54,7 +56,7 @@ def _check(args: argparse.Namespace) -> int:
             method=args.method,
             episodes=args.episodes,
             seed=args.seed,
-            workers=args.workers,
+            **execution_arguments(args),
             out=args.out,
             fail_on_gaps=args.fail_on_gaps,
             fail_on_limits=args.fail_on_limits,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from .execution_options import add_execution_options, execution_arguments
 from .old_spellings import add_old_option
 from .output import print_json, print_table
 from .progress import Progress
@@ -27,7 +28,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     add_task_options(p)
     p.add_argument("--episodes", type=int, default=100, help="episodes to run (default 100)")
     p.add_argument("--seed", type=int, default=0, help="seed of the initial states and exploration (default 0)")
-    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    add_execution_options(p)
     p.add_argument("--chooser", action="store_true",
                    help="run the skills trained together with NAME@N (kinetome train) under their trained policy over skills")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
@@ -38,7 +39,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--episodes", type=int, default=400, help="episodes to collect, a quarter held out (default 400, at least 20)")
     add_task_options(p)
     p.add_argument("--seed", type=int, default=0, help="seed of the initial states and the held-out split (default 0)")
-    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    add_execution_options(p)
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_fit)
 
@@ -67,7 +68,7 @@ def _run(args: argparse.Namespace) -> int:
         initial_states=args.initial_states,
         episodes=args.episodes,
         seed=args.seed,
-        workers=args.workers,
+        **execution_arguments(args),
         progress=lambda done, total: bar.update(done, total=total),
     )
     bar.close()
@@ -84,7 +85,7 @@ def _run_chooser(args: argparse.Namespace) -> int:
     with Progress(f"run {args.ref} under its chooser ({args.episodes} episodes)", unit="steps", quiet=_quiet(args)) as bar:
         summary = run_chooser(
             args.ref, store=_store(args), variant=args.variant, initial_states=args.initial_states, episodes=args.episodes,
-            seed=args.seed, workers=args.workers, progress=lambda done, total: bar.update(done, total=total),
+            seed=args.seed, **execution_arguments(args), progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:
         print_json(summary)
@@ -133,7 +134,7 @@ def _fit(args: argparse.Namespace) -> int:
     with Progress(f"fit {args.ref} ({args.episodes} episodes)", unit="steps", quiet=_quiet(args)) as bar:
         result = fit(
             args.ref, store=_store(args), episodes=args.episodes, variant=args.variant, initial_states=args.initial_states, seed=args.seed,
-            workers=args.workers, progress=lambda done, total: bar.update(done, total=total),
+            **execution_arguments(args), progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:
         print_json(result)

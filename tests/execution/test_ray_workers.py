@@ -1,7 +1,7 @@
 """Blocks on real Ray worker processes: same bits for 1, 2 and 3 workers, a killed worker's block
 run again with the same result, one thread per worker, mismatched versions refused.
 
-One local Ray (3 CPUs, no dashboard) serves the whole module.
+One local Ray (3 CPUs, no dashboard, conftest.py) serves the whole folder.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ import pytest
 ray = pytest.importorskip("ray", reason="Ray is not installed (pip install -e '.[cluster]')")
 
 from kinetome.library.errors import InvalidInputError  # noqa: E402
-from kinetome.library.execution import InProcessExecutor, VersionMismatchError, executor_for, plan_blocks  # noqa: E402
+from kinetome.library.execution import InProcessExecutor, VersionMismatchError, plan_blocks  # noqa: E402
 from kinetome.library.execution.chain_blocks import run_chain_blocks  # noqa: E402
 from kinetome.library.execution.ray_executor import RayExecutor  # noqa: E402
 from kinetome.library.execution.versions import TEST_OVERRIDE_ENV  # noqa: E402
@@ -28,16 +28,6 @@ from kinetome.library.runtime.records import ChainRollout  # noqa: E402
 from chain_fixture import arm_chain, arm_job, arm_starts, assert_same_rollout  # noqa: E402
 
 EPISODES, BLOCK = 48, 8
-
-
-@pytest.fixture(scope="module")
-def local_ray():
-    if ray.is_initialized():
-        pytest.skip("a Ray started elsewhere in this process is running")
-    owner = executor_for(3)  # starts the module's local Ray with 3 CPUs
-    assert isinstance(owner, RayExecutor)
-    yield owner
-    owner.close()
 
 
 @pytest.fixture(scope="module")

@@ -97,12 +97,13 @@ def test_identical_episodes_are_one_trial():
     assert d.all_handoffs[1].n == 1 and d.all_handoffs[1].single_start and d.all_handoffs[1].verdict is Verdict.COMPOSES
 
 
-def test_results_do_not_depend_on_the_worker_count(tmp_path):
+def test_results_do_not_depend_on_the_thread_count(tmp_path):
+    # worker processes: tests/execution/test_spread_commands.py
     skills = [str(CONFIGS / "skills" / "arm-reach-tray.yaml"), str(CONFIGS / "skills" / "arm-place.yaml")]
     path = write_chain(tmp_path, "workers", skills, start=CONFIGS / "initial_states" / "arm_home_wide.yaml", episodes=40,
                        disturbances={"exploration": True, "gain_spread": 0.1})
-    one = check_chain(path, method="sim", workers=1, block_size=16).to_dict()
-    two = check_chain(path, method="sim", workers=2, block_size=16).to_dict()
+    one = check_chain(path, method="sim", threads=1, block_size=16).to_dict()
+    two = check_chain(path, method="sim", threads=2, block_size=16).to_dict()
     for d in (one, two):
         d.pop("timings_s")
     assert one == two

@@ -106,3 +106,8 @@ def test_method_table_order_and_errors():
         CheckOptions(method="z3")
     with pytest.raises(InvalidInputError, match="workers: must be a whole number >= 1, got 0"):
         CheckOptions(workers=0)
+    with pytest.raises(InvalidInputError, match="threads: applies to a run in this process, got 2 with worker processes"):
+        CheckOptions(workers=2, threads=2)
+    with pytest.raises(InvalidInputError, match="address: must be a Ray cluster address"):
+        CheckOptions(address="")
+    assert CheckOptions(threads=2).threads == 2 and CheckOptions(workers=3).workers == 3

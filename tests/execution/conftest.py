@@ -1,0 +1,19 @@
+"""One local Ray (3 CPUs, no dashboard) for every test in this folder that asks for it."""
+
+from __future__ import annotations
+
+import pytest
+
+
+@pytest.fixture(scope="session")
+def local_ray():
+    ray = pytest.importorskip("ray", reason="Ray is not installed (pip install -e '.[cluster]')")
+    if ray.is_initialized():
+        pytest.skip("a Ray started elsewhere in this process is running")
+    from kinetome.library.execution import executor_for
+    from kinetome.library.execution.ray_executor import RayExecutor
+
+    owner = executor_for(3)  # starts the local Ray with 3 CPUs; executors made later reuse it
+    assert isinstance(owner, RayExecutor)
+    yield owner
+    owner.close()
