@@ -32,11 +32,16 @@ class DemoSettings:
     retrain_config: str = "arm_heavy_payload.yaml"
     seed: int = 0
     workers: int = 2
+    sweep_payloads: tuple[float, ...] = (0.2, 0.4, 0.6, 0.8, 1.0)  # kg
+    sweep_gains: tuple[float, ...] = (0.6, 0.7, 0.8, 0.9, 1.0)
+    sweep_episodes: int = 100  # per cell
+    sweep_require: float = 0.9
 
     @classmethod
     def for_mode(cls, quick: bool) -> "DemoSettings":
         if quick:
-            return cls(quick=True, fit_episodes=400, check_episodes=600, retrain_config="demo_quick.yaml")
+            return cls(quick=True, fit_episodes=400, check_episodes=600, retrain_config="demo_quick.yaml",
+                       sweep_payloads=(0.2, 0.6, 1.0), sweep_gains=(0.8, 1.0), sweep_episodes=50)
         return cls()
 
 
@@ -200,6 +205,22 @@ def _learn_initiation(store: Any, out: Path, settings: DemoSettings, log: _Log) 
     return result
 
 
+def _sweeps(store: Any, configs: Path, out: Path, settings: DemoSettings, retrained: dict[str, Any], log: _Log) -> list[dict[str, Any]]:
+    """The reach skill over payload x motor gain, before (the parent) and after (the heavy-payload child) the retrain."""
+    from .api import sweep
+
+    axes = [f"payload_mass={','.join(f'{v:g}' for v in settings.sweep_payloads)}",
+            f"actuator_gain={','.join(f'{v:g}' for v in settings.sweep_gains)}"]
+    results = []
+    for label, ref in (("before", retrained["parent"]), ("after", retrained["child"])):
+        result = sweep(ref, store=store, axes=axes, episodes=settings.sweep_episodes, require=settings.sweep_require, seed=settings.seed,
+                       initial_states=configs / "initial_states" / "arm_clearance.yaml", out=out / "sweeps" / label)
+        region = result["region"]
+        log.step(f"swept {ref} ({label} the retrain) over payload x motor gain: {len(region['cells'])} of {region['cells_evaluated']} cells in its valid-for region")
+        results.append({"label": label, "ref": ref, "result": result})
+    return results
+
+
 def _filmstrips(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, dict[str, Any]]:
     """One traced episode per chain as a labelled filmstrip: {chain: {"path", "renderer", "frames"}}."""
     from .report.filmstrip import chain_filmstrip
@@ -241,6 +262,7 @@ def run_demo(
     planned = _plan(store, configs, out, settings, log)
     retrained = _retrain(store, configs, out, settings, log)
     learned = _learn_initiation(store, out, settings, log)
+    sweeps = _sweeps(store, configs, out, settings, retrained, log)
     strips = _filmstrips(store, configs, out, settings, log)
     summary = {
         "schema": schema_name("demo"),
@@ -254,6 +276,7 @@ def run_demo(
         "plan": planned,
         "retrain": retrained,
         "initiation": learned,
+        "sweeps": sweeps,
         "filmstrips": {k: {**v, "path": str(v["path"])} for k, v in strips.items()},
     }
     (out / "demo.json").write_text(json.dumps(summary, indent=2, sort_keys=True, default=str), encoding="utf-8")

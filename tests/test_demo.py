@@ -13,7 +13,7 @@ from PIL import Image
 from kinetome.library.cli.main import main
 from tests.browser import chromium_path, render_page
 
-SECTIONS = ("skills", "chains", "plan", "models", "retrain", "filmstrips", "safety")
+SECTIONS = ("skills", "chains", "plan", "models", "retrain", "sweep", "filmstrips", "safety")
 
 
 @pytest.fixture(scope="module")
@@ -40,6 +40,25 @@ def test_demo_registers_fits_checks_and_retrains(demo: Path) -> None:
     retrain = summary["retrain"]
     assert retrain["child"] == "arm-reach-tray@2" and retrain["lineage"] == ["arm-reach-tray@2", "arm-reach-tray@1"]
     assert retrain["after"]["mean_return"] > retrain["before"]["mean_return"]
+
+
+def test_demo_sweeps_the_reach_skill_before_and_after_the_retrain(demo: Path) -> None:
+    summary = json.loads((demo / "demo.json").read_text())
+    before, after = summary["sweeps"]
+    assert (before["label"], before["ref"], after["label"], after["ref"]) == ("before", "arm-reach-tray@1", "after", "arm-reach-tray@2")
+
+    def marks(entry):
+        return {(c["values"]["payload_mass"], c["values"]["actuator_gain"]): c["mark"] for c in entry["result"]["cells"]}
+
+    # the nominal skill holds the light part and drops the heavy one; the retrained child holds the heavy one
+    assert marks(before)[(0.2, 1.0)] == "pass" and marks(before)[(1.0, 1.0)] == "fail"
+    assert marks(after)[(1.0, 1.0)] == "pass"
+    assert {r["axis"] for r in after["result"]["axis_ranking"]} == {"payload_mass", "actuator_gain"}
+    for entry in (before, after):
+        png = Path(entry["result"]["files"]["heat map"])
+        assert png.is_file() and "Caution" in Image.open(png).text
+    html = (demo / "report.html").read_text()
+    assert "before the retrain: arm-reach-tray@1" in html and "after the retrain: arm-reach-tray@2" in html
 
 
 def test_report_is_self_contained_with_every_section(demo: Path) -> None:

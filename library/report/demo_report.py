@@ -104,6 +104,33 @@ def _initiation_section(report: Report, learned: dict[str, Any] | None) -> None:
         s.add(image_html(Path(learned["plot"]), "start states (stopped or not) with the learned (solid) and hand-written (dashed) boundaries"))
 
 
+def _sweep_section(report: Report, sweeps: list[dict[str, Any]]) -> None:
+    from ..sweep.text import cell_label
+
+    s = report.section("sweep", "Where the reach skill works: payload x motor gain, before and after the retrain")
+    if not sweeps:
+        return
+    first = sweeps[0]["result"]
+    region = first["region"]
+    s.text(
+        f"Each cell ran {first['episodes_per_cell']} episodes from the clearance pose with that payload mass and motor gain "
+        f"(factor on every motor's gear). A cell is in the valid-for region only when its one-sided exact lower bound, "
+        f"corrected across the {region['cells_evaluated']} cells ({region['correction']}), clears success {region['require']:g}; "
+        "fail: its corrected upper bound is below it; unsure: neither. No interpolation between cells. The heat map's axes "
+        "are the two axes that change success most (the range of the success rate over an axis's values, averaged over the other)."
+    )
+    for entry in sweeps:
+        result = entry["result"]
+        cells = result["region"]["cells"]
+        s.add(f"<h3>{entry['label']} the retrain: {entry['ref']}</h3>")
+        s.text(f"Valid for {len(cells)} of {result['region']['cells_evaluated']} cells: " + ("; ".join(cell_label(c) for c in cells) or "none")
+               + f". Stored as {result['artifact']}" + (" (reused)." if result.get("reused") else "."))
+        png = (result.get("files") or {}).get("heat map")
+        if png and Path(png).exists():
+            s.add(image_html(Path(png), f"{entry['ref']}: success over payload mass x motor gain, cells marked pass / fail / unsure"))
+    s.text(f"Method: {region['method']}.")
+
+
 def _filmstrip_section(report: Report, strips: dict[str, dict[str, Any]]) -> None:
     from kinetome.envs.render_backend import RENDERER_LABELS
 
@@ -134,6 +161,7 @@ def write_demo_report(out: Path, *, store: Any, summary: dict[str, Any], checks:
     _models_section(report, summary["models"])
     _retrain_section(report, summary["retrain"])
     _initiation_section(report, summary.get("initiation"))
+    _sweep_section(report, summary.get("sweeps", []))
     _filmstrip_section(report, strips)
     safety = report.section("safety", "Safety")
     safety.text(CAUTION)

@@ -92,5 +92,6 @@ def evaluate_cell(item: dict[str, Any]) -> dict[str, Any]:
         "successes": int(np.sum(trials.chain[rows])),
         "episodes": int(rows.size),
         "episodes_run": int(rollout.n_episodes),
+        "env_steps": int(np.sum(rollout.total_steps)),
         "outcomes": {EndReason(code).label: int(np.sum(last == code)) for code in (0, 1, 2, 3, 4)},
     }

@@ -145,7 +145,8 @@ def _assemble(spec: SweepSpec, target: SweepTarget, cells: list[dict[str, float]
                        confidence=spec.confidence, correction=spec.correction)
     rows = []
     for values, r, m in zip(cells, results, marks):
-        rows.append({"index": r["index"], "values": values, **m.to_dict(), "episodes_run": r["episodes_run"], "outcomes": r["outcomes"]})
+        rows.append({"index": r["index"], "values": values, **m.to_dict(), "episodes_run": r["episodes_run"], "env_steps": r["env_steps"],
+                     "outcomes": r["outcomes"]})
     passed = [row["values"] for row in rows if row["mark"] == "pass"]
     region = {
         "require": target.require,
