@@ -576,7 +576,7 @@ def sweep(
     episodes run and pass/fail/unsure mark, the region, the axis ranking; ``reused`` is True when
     the same sweep on the same identities was found stored. With ``out``: sweep.json, sweep.txt and
     the heat map PNG there. Cells run through the execution layer: ``workers`` local Ray worker
-    processes, or the Ray cluster at ``address`` (its nodes must reach the store); each cell draws
+    processes, or the Ray cluster at ``address`` (workers get the skills' files, not the store); each cell draws
     only from (seed, cell index), so the result is the same at any worker count.
     """
     from .execution import executor_for

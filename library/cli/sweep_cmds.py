@@ -38,7 +38,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--confidence", type=float, help="confidence of the bounds (default 0.95)")
     p.add_argument("--correction", choices=("holm", "bonferroni"), help="correction across cells (default holm: Holm-Bonferroni)")
     p.add_argument("--workers", type=int, help="cells run on N local Ray worker processes (default: this process); same result at any count")
-    p.add_argument("--address", metavar="HOST:PORT", help="run the cells on the Ray cluster at this address (its nodes must reach the store)")
+    p.add_argument("--address", metavar="HOST:PORT", help="run the cells on the Ray cluster at this address (workers receive the skills' files, never the store)")
     p.add_argument("--no-reuse", dest="reuse", action="store_false", help="simulate even when the same sweep is stored (the new result is stored too)")
     p.add_argument("--out", metavar="DIR", help="write sweep.json, sweep.txt and heatmap.png to DIR")
     p.add_argument("--json", action="store_true", help=JSON_HELP)

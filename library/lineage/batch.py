@@ -15,7 +15,8 @@ __all__ = ["train_variant", "retrain_batch", "comparison_rows"]
 
 
 def train_variant(item: dict[str, Any]) -> dict[str, Any]:
-    """Train one child of ``item['parent']`` on ``item['variant']``; its files, metadata and promotion test.
+    """Train one child of the parent (its files in ``item['parent']``) on ``item['variant']``; the child's
+    files, metadata and promotion test.
 
     Runs with one torch thread wherever it runs (a worker process has one; here it is set for the
     call and restored), so a child's parameters, and its identity, do not depend on the worker count."""
@@ -33,23 +34,49 @@ def _train_variant(item: dict[str, Any]) -> dict[str, Any]:
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.retrain import choose_method
 
-    from ..api import _train_config, load
-    from ..store import Store
-    from .retraining import TaskFiles, parent_task_of, run_retrain
+    from ..api import _train_config
+    from ..execution.chain_blocks import _rebuild_skill
+    from ..tasks import default_rig, load_variant_file
+    from .retraining import TaskFiles, run_retrain
 
-    store = Store(item["store"], blobs=item["blobs"], create=False)
-    version = store.get(item["parent"])
-    parent = load(version.ref, store=store)
+    parent = _rebuild_skill(item["parent"], default_rig(item["parent"]["built_for"]))
     folder = Path(item["workdir"])
+    parent_task = None
+    if item["parent_task"] is not None:  # the variant file the parent was retrained on, as stored with it
+        path = folder / "parent-task" / item["parent_task"]["name"]
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_bytes(item["parent_task"]["data"])
+        parent_task = load_variant_file(path)
     draft = run_retrain(
-        parent, version.identity, task=TaskFiles.from_paths(item["variant"], item["initial_states"]),
-        config=_train_config(item["config"], item["overrides"]), seed=item["seed"], workdir=folder,
-        parent_task=parent_task_of(store, version, folder / "parent-task"), from_scratch=item["from_scratch"], workers=1,
-        promotion_episodes=item["promotion_episodes"], method=choose_method(parent.skill.controller.kind, item["method"]),
+        parent, item["parent_identity"], task=TaskFiles.from_paths(item["variant"], item["initial_states"]),
+        config=_train_config(item["config"], item["overrides"]), seed=item["seed"], workdir=folder, parent_task=parent_task,
+        from_scratch=item["from_scratch"], workers=1, promotion_episodes=item["promotion_episodes"],
+        method=choose_method(parent.skill.controller.kind, item["method"]),
     )
     csv_path, png_path = save_curves(draft.result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(item['variant']).stem}")
     return {"variant": item["variant"], "parent": parent.ref, "files": dict(draft.files), "meta": draft.meta,
             "promotion": draft.promotion, "env_steps": int(draft.result.steps), "curve_csv": str(csv_path), "curve_png": str(png_path)}
+
+
+def _parent_entry(store: Any, ref: str) -> dict[str, Any]:
+    """What a worker needs of the parent: its files (rebuilt there), identity and own task (workers never open the store)."""
+    import json as _json
+
+    from ..execution.chain_blocks import skill_files
+    from ..runtime.files import SPEC_FILE
+    from ..runtime.skill import load_skill
+    from .roles import RECORD_FILE, VARIANT_FILE
+
+    version = store.get(ref)
+    loaded = load_skill(store, version.ref)
+    env = _json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))["env"]
+    task = None
+    if VARIANT_FILE in version.roles:
+        record = _json.loads(store.read_file(version, RECORD_FILE)) if RECORD_FILE in version.roles else {}
+        name = Path((record.get("variant") or {}).get("file") or VARIANT_FILE).name
+        task = {"name": name, "data": store.read_file(version, VARIANT_FILE)}
+    return {"parent": {"ref": version.ref, "files": skill_files(loaded), "built_for": env}, "parent_identity": version.identity,
+            "parent_task": task}
 
 
 def _items(ref: str, store: Any, variants: Sequence[Path], *, out: Path, common: dict[str, Any]) -> list[dict[str, Any]]:
@@ -64,8 +91,8 @@ def _items(ref: str, store: Any, variants: Sequence[Path], *, out: Path, common:
     if twice:
         raise InvalidInputError(f"--variants: each variant must have its own name (a child becomes current per variant name), "
                                 f"got {', '.join(twice)} more than once; give each variant file a distinct name:")
-    return [{**common, "parent": resolve(ref, store=store, variant=tv), "variant": str(path.resolve()), "workdir": str((out / tv.name).resolve()),
-             "store": str(store.location), "blobs": str(store.blobs_location)} for path, tv in zip(variants, loaded)]
+    return [{**common, **_parent_entry(store, resolve(ref, store=store, variant=tv)), "variant": str(path.resolve()),
+             "workdir": str((out / tv.name).resolve())} for path, tv in zip(variants, loaded)]
 
 
 def comparison_rows(children: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:

@@ -1,7 +1,8 @@
 """One sweep cell as plain data, and the pure function that evaluates it (run by any worker).
 
 ``evaluate_cell(item)`` builds the cell's rig (base variant plus the cell's axis values),
-loads the pinned skills, draws the cell's initial states and runs its episodes with the
+rebuilds the pinned skills from their stored files (carried in the item: workers never open
+the store), draws the cell's initial states and runs its episodes with the
 cell's disturbances. Every random draw comes from the cell seed, which depends only on the
 sweep seed and the cell index, so a cell's result is the same on any worker and at any
 worker count. Success is the skill stopping by its ``stops_when`` (one skill) or the whole
@@ -27,10 +28,8 @@ def cell_item(target: Any, *, index: int, variant_fields: dict[str, Any], distur
     """The plain, picklable description of one cell that ``evaluate_cell`` runs."""
     return {
         "index": int(index),
-        "store": target.store_location,
-        "blobs": target.blobs_location,
         "env": target.env,
-        "skills": list(target.steps),
+        "skills": [dict(entry) for entry in target.skill_entries],
         "may_time_out": list(target.may_time_out),
         "variant": {"name": f"sweep-cell-{index}", **variant_fields},
         "initial_states": target.initial_states,
@@ -41,24 +40,10 @@ def cell_item(target: Any, *, index: int, variant_fields: dict[str, Any], distur
 
 
 def _skills(item: dict[str, Any], rig: Any) -> list[Any]:
-    from ..runtime.skill import load_skill, skill_from_spec
+    """The cell's skills rebuilt from their files (a worker never opens the store)."""
+    from ..execution.chain_blocks import _rebuild_skill
 
-    store = None
-    out = []
-    for step in item["skills"]:
-        if step.endswith((".yaml", ".yml")):
-            from pathlib import Path
-
-            from ..spec_load import load_spec
-
-            out.append(skill_from_spec(load_spec(step), ref=Path(step).name, rig=rig))
-            continue
-        if store is None:
-            from ..store import Store
-
-            store = Store(item["store"], blobs=item["blobs"], create=False)
-        out.append(load_skill(store, step, rig=rig))
-    return out
+    return [_rebuild_skill(entry, rig) for entry in item["skills"]]
 
 
 def evaluate_cell(item: dict[str, Any]) -> dict[str, Any]:

@@ -38,8 +38,7 @@ class SweepTarget:
     initial_states: dict[str, Any] | None
     disturbances: dict[str, Any]
     require: float
-    store_location: str | None
-    blobs_location: str | None
+    skill_entries: tuple[dict[str, Any], ...]  # per step {ref, files}: what a worker rebuilds each skill from
 
     @property
     def stored(self) -> bool:
@@ -57,10 +56,22 @@ def _states_mapping(path: Path | None) -> dict[str, Any] | None:
     return mapping
 
 
-def _store_locations(store: Any) -> tuple[str | None, str | None]:
-    if store is None:
-        return None, None
-    return str(store.location), str(store.blobs_location)
+def _entries(steps: tuple[str, ...], store: Any, env: str) -> tuple[dict[str, Any], ...]:
+    """Each step's files (stored version or spec file), as the execution layer ships skills to workers."""
+    from ..execution.chain_blocks import skill_files
+    from ..runtime.skill import load_skill, skill_from_spec
+    from ..tasks import default_rig
+
+    out = []
+    for step in steps:
+        if step.endswith((".yaml", ".yml")):
+            from ..spec_load import load_spec
+
+            loaded = skill_from_spec(load_spec(step), ref=Path(step).name, rig=default_rig(env))
+        else:
+            loaded = load_skill(store, step, rig=default_rig(env))
+        out.append({"ref": loaded.ref, "files": skill_files(loaded), "built_for": env})
+    return tuple(out)
 
 
 def _skill_target(spec: SweepSpec, store: Any) -> SweepTarget:
@@ -87,7 +98,7 @@ def _skill_target(spec: SweepSpec, store: Any) -> SweepTarget:
         skill, step = skill_from_document(_json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))), version.ref
     states = _states_mapping(spec.initial_states) if spec.initial_states else skill.initial_states_mapping()
     return SweepTarget("skill", step if not step.endswith(".yaml") else Path(step).name, skill.env, (step,), (False,), base, states,
-                       spec.disturbances.to_dict(), spec.require or DEFAULT_REQUIRE, *_store_locations(store))
+                       spec.disturbances.to_dict(), spec.require or DEFAULT_REQUIRE, _entries((step,), store, skill.env))
 
 
 def _chain_target(spec: SweepSpec, store: Any) -> SweepTarget:
@@ -105,7 +116,7 @@ def _chain_target(spec: SweepSpec, store: Any) -> SweepTarget:
         states = None if chain.initial_states is None else json.loads(json.dumps(dict(chain.initial_states)))
     disturbances = spec.disturbances if spec.disturbances.active else chain.disturbances
     return SweepTarget("chain", chain.name, chain.env, steps, chain.may_time_out, base, states, disturbances.to_dict(),
-                       spec.require or chain.chain_requirement, *_store_locations(store))
+                       spec.require or chain.chain_requirement, _entries(steps, store, chain.env))
 
 
 def resolve_target(spec: SweepSpec, store: Any) -> SweepTarget:
