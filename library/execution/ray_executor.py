@@ -8,6 +8,7 @@ result because a block's contents depend only on the block.
 
 from __future__ import annotations
 
+import ipaddress
 import logging
 import os
 from typing import Any, Callable, Iterable, Iterator
@@ -37,10 +38,16 @@ def _start_local(workers: int) -> None:
     """A private local Ray with ``workers`` CPUs; workers inherit one-thread settings."""
     saved = {k: os.environ.get(k) for k in _worker.THREAD_ENV}
     os.environ.update(_worker.THREAD_ENV)  # the raylet, and so every worker, starts with them
+    constants = getattr(getattr(ray, "_private", None), "ray_constants", None)
+    multi_node = getattr(constants, "ENABLE_RAY_CLUSTER", None)
+    if multi_node is not None:
+        constants.ENABLE_RAY_CLUSTER = False  # a private Ray of this machine: every process on 127.0.0.1
     try:
         ray.init(num_cpus=workers, include_dashboard=False, logging_level=logging.ERROR, log_to_driver=False,
                  runtime_env={"env_vars": dict(_worker.THREAD_ENV)})
     finally:
+        if multi_node is not None:
+            constants.ENABLE_RAY_CLUSTER = multi_node
         for k, v in saved.items():
             if v is None:
                 os.environ.pop(k, None)
@@ -48,10 +55,21 @@ def _start_local(workers: int) -> None:
                 os.environ[k] = v
 
 
+def _loopback_host(address: str) -> str | None:
+    """The host of ``address`` when it is a loopback address (a cluster on this machine), else None."""
+    host = address.rsplit(":", 1)[0]
+    try:
+        return host if ipaddress.ip_address(host).is_loopback else None
+    except ValueError:
+        return None
+
+
 def _connect(address: str) -> None:
+    # a head on a loopback address (nodes of one machine, e.g. tests) is reached from that same address
+    local = {"_node_ip_address": _loopback_host(address)} if _loopback_host(address) else {}
     try:
         ray.init(address=address, logging_level=logging.ERROR, log_to_driver=False,
-                 runtime_env={"env_vars": dict(_worker.THREAD_ENV)})
+                 runtime_env={"env_vars": dict(_worker.THREAD_ENV)}, **local)
     except (ConnectionError, RuntimeError, ValueError) as exc:
         raise ExecutionError(f"cannot reach the Ray cluster at {address}: {exc}; start one with `ray start --head` "
                              "or check the address (host:port of the head node, or 'auto')") from None
