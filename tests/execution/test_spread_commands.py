@@ -57,12 +57,19 @@ def test_run_gives_the_same_summary_on_workers(local_ray, store) -> None:
 
 
 def test_fit_gives_the_same_models_on_workers(local_ray, store) -> None:
-    here = api.fit("arm-reach-tray", store=store, episodes=40, seed=2)
-    there = api.fit("arm-reach-tray", store=store, episodes=40, seed=2, workers=3)
-    assert there["errors"] == here["errors"]
-    a, b = (store.get_model(r["model_ref"].split("/")[0], "option-models") for r in (here, there))
-    files = lambda ref: {role: store.read_model(m, role) for m in [ref] for role in m.roles}  # noqa: E731
-    assert files(a) == files(b)
+    from kinetome.library.tasks import task_rig
+    from kinetome.trainers.fitting import collect_and_fit
+
+    skill = api.load("arm-reach-tray", store=store)
+    rig = task_rig(skill.skill.env)
+    fit = lambda **where: collect_and_fit(skill, rig, episodes=40, seed=2, fitted_at="2024-01-01T00:00:00Z", **where).to_files()  # noqa: E731
+    here = fit()
+    assert fit(workers=3) == here
+    assert collect_and_fit(skill, rig, episodes=40, seed=3, fitted_at="2024-01-01T00:00:00Z").to_files() != here
+    # the API and CLI path: the same held-out errors (fitted_at is the clock)
+    a, b = (api.fit("arm-reach-tray", store=store, episodes=40, seed=2, **w)["errors"] for w in ({}, {"workers": 2}))
+    a.pop("fitted_at", None), b.pop("fitted_at", None)
+    assert a == b
 
 
 def test_cli_run_on_workers_prints_the_same_json(local_ray, store, capsys) -> None:
