@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import math
+
 import pytest
 
 from kinetome.library.checker import Verdict, estimate, exit_code_for, single_start_estimate
-from kinetome.library.checker.stats import clopper_pearson, lower_bound
+from kinetome.library.checker.stats import clopper_pearson, lower_bound, upper_bound
 
 C, B, U = Verdict.COMPOSES, Verdict.BREAKS, Verdict.UNSURE
 
@@ -111,3 +113,30 @@ def test_method_table_order_and_errors():
     with pytest.raises(InvalidInputError, match="address: must be a Ray cluster address"):
         CheckOptions(address="")
     assert CheckOptions(threads=2).threads == 2 and CheckOptions(workers=3).workers == 3
+
+
+# The rule at its equality boundary (library/checker/README.md, "Statistics"): composes when the
+# one-sided lower bound *reaches* require.handoff (lower >= require), breaks when the upper bound
+# is *below* it (upper < require). So a lower bound exactly equal to the requirement composes, and
+# an upper bound exactly equal to it does not break. The requirements below are the bounds'
+# own float values, so the comparison is exactly at equality; one ulp either side flips it.
+@pytest.mark.parametrize("k, n", [(59, 59), (190, 200), (97, 100)])
+def test_lower_bound_exactly_at_the_requirement_composes(k, n):
+    low = lower_bound(k, n, 0.95)
+    assert estimate(k, n, require=low, confidence=0.95).verdict is C  # low == require: composes
+    above = math.nextafter(low, 1.0)
+    assert estimate(k, n, require=above, confidence=0.95).verdict is not C  # one ulp above: not yet
+    if k == n:
+        # Closed form for k = n: the bound is the alpha quantile of Beta(n, 1), whose CDF is x^n,
+        # so it is (1 - confidence)^(1/n); equal to the beta quantile up to rounding.
+        assert low == pytest.approx(0.05 ** (1 / n), rel=1e-12)
+
+
+@pytest.mark.parametrize("k, n", [(0, 59), (140, 200), (90, 100)])
+def test_upper_bound_exactly_at_the_requirement_does_not_break(k, n):
+    high = upper_bound(k, n, 0.95)
+    assert estimate(k, n, require=high, confidence=0.95).verdict is not B  # high == require: not below
+    below_req = math.nextafter(high, 1.0)
+    assert estimate(k, n, require=below_req, confidence=0.95).verdict is B  # one ulp more and high < require
+    if k == 0:
+        assert high == pytest.approx(1 - 0.05 ** (1 / n), rel=1e-12)  # k = 0: Beta(1, n) quantile, 1 - alpha^(1/n)
