@@ -36,7 +36,7 @@ def test_discounted_return_convention_identity() -> None:
 
 def test_geometric_option_models_match_closed_forms() -> None:
     # Constant termination probability b per step (Sutton, Precup & Singh 1999 option
-    # models; geometric distribution): E[k] = 1/b, E[gamma^k] = b gamma / (1 - (1-b) gamma)
+    # models, from memory; geometric distribution, closed forms derived here): E[k] = 1/b, E[gamma^k] = b gamma / (1 - (1-b) gamma)
     # = 0.908257 for b = 0.1, gamma = 0.99, and E[return] = r / (1 - gamma (1 - b)).
     # 100k episodes, 25k held out: the fit uses 75k; se of E[k] ~ 9.5/sqrt(75k) = 0.035
     # (0.35%), of E[gamma^k] ~ 0.03%; 1% is ~3 se for steps and far more for the rest.

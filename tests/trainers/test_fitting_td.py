@@ -20,7 +20,7 @@ def _geometric_transitions(n_episodes: int, b: float, r: float, seed: int) -> St
 
 
 def test_lstd_geometric_option_matches_closed_forms() -> None:
-    # Constant termination probability b (Sutton, Precup & Singh 1999; geometric
+    # Constant termination probability b (Sutton, Precup & Singh 1999, from memory; geometric
     # distribution): E[k] = 1/b, E[gamma^k] = b gamma / (1 - (1-b) gamma) = 0.908257,
     # R^o = r / (1 - gamma (1 - b)). 20k episodes ~ 200k transitions; the stop rate
     # estimate has sd ~ sqrt(b(1-b)/200k) = 0.00067 (0.7% of b), so 1% holds at ~1.5 sd
@@ -43,7 +43,7 @@ _PROBS = np.array([0.3, 0.2, 0.5])
 
 
 def _exact_option_models(gamma: float) -> dict[str, np.ndarray]:
-    """Solve the option-model Bellman equations (Sutton, Precup & Singh 1999, Sec. 5) exactly."""
+    """Solve the option-model Bellman equations (Sutton, Precup & Singh 1999, Sec. 5, from memory) exactly."""
     inner = np.arange(1, 5)
     p = np.zeros((4, 6))
     for row, i in enumerate(inner):

@@ -9,7 +9,7 @@ decision rule.
 
 Nominal coverage of [lower, upper]: the lower bound is one-sided at 95%, the upper one-sided
 at 1 - 0.05/2 (Bonferroni over the entry and the handoff), so the pair covers with
-probability >= 1 - 0.05 - 0.025 = 0.925. Tolerances (from the issue): coverage >= nominal - 2
+probability >= 1 - 0.05 - 0.025 = 0.925 (union bound). Tolerances (from the issue): coverage >= nominal - 2
 points over R = 1,000 repetitions (the standard error of a coverage near 0.93 is 0.008), and a
 mean width within 10% of the exact Clopper-Pearson interval (``scipy.stats.binomtest``) of the
 same coverage at the same N.
@@ -36,7 +36,8 @@ def test_bounds_cover_the_closed_form_handoff_probability(tmp_path, p):
     result = run_check(ctx)
     trials = ctx.cache["simulation"].outcome.trials
     assert trials.n == R * N and result.whole_chain.distinct_trajectories == R * N
-    # The whole check (50,000 episodes) sits within 4 standard errors of Phi(z).
+    # The whole check (50,000 episodes) sits within 4 standard errors of Phi(z) (a margin of 4 standard
+    # errors for a seeded statistical check: common practice, not from a source).
     est = result.handoffs[0].estimate
     assert abs(est.rate - p) <= 4 * np.sqrt(p * (1 - p) / (R * N)) + 1e-12
 

@@ -17,8 +17,9 @@ def _chain(folder, name, *, variant=None, start=HOME, skills="[arm-reach-tray@1,
     if variant:
         text += f"  variant: {variant}\n"
     path = folder / f"{name}.yaml"
-    # 0.8: the models' own limits (outcomes never seen keep a floor of about 3/n, and 50 held-out
-    # episodes bound their error to about 0.1) leave no room to certify 0.95 from 200 fitted episodes.
+    # 0.8: the models' own limits (outcomes never seen keep a floor of about 3/n, the rule of three,
+    # from memory; 50 held-out episodes bound their error to about 0.1) leave no room to certify
+    # 0.95 from 200 fitted episodes.
     path.write_text(text + f"skills: {skills}\nrequire: {{handoff: 0.8}}\nepisodes: 80\n")
     return path
 

@@ -51,7 +51,8 @@ def test_no_trials_gives_the_whole_unit_interval():
 
 @pytest.mark.parametrize("k, n", [(3, 10), (95, 100), (0, 20)])
 def test_one_sided_bounds_are_beta_quantiles(k, n):
-    # Clopper-Pearson one-sided bounds: Beta(alpha; k, n-k+1) and Beta(1-alpha; k+1, n-k).
+    # Clopper-Pearson one-sided bounds (from memory; the test above checks them against scipy):
+    # Beta(alpha; k, n-k+1) and Beta(1-alpha; k+1, n-k).
     assert lower_bound(k, n, 0.95) == pytest.approx(beta.ppf(0.05, k, n - k + 1) if k else 0.0)
     assert upper_bound(k, n, 0.95) == pytest.approx(beta.ppf(0.95, k + 1, n - k))
 
@@ -62,7 +63,7 @@ def test_zero_failure_bound_closed_form_and_rule_of_three(n):
     assert bound == pytest.approx(1 - 0.05 ** (1 / n), rel=1e-12)
     # The same bound from the exact one-sided interval with no failures.
     assert bound == pytest.approx(1 - lower_bound(n, n, 0.95), rel=1e-9)
-    # Rule of three (Hanley & Lippman-Hand 1983): about 3/n at 95%, from above since -ln(0.05) = 2.996 < 3
+    # Rule of three (Hanley & Lippman-Hand 1983, from memory): about 3/n at 95%, from above since -ln(0.05) = 2.996 < 3
     # and 1 - exp(-x) < x; the relative gap shrinks like 1.5/n (second-order term), 2% from n = 100 on.
     assert bound < 3 / n
     if n >= 100:
@@ -74,7 +75,7 @@ def test_59_clean_trials_are_needed_to_claim_095():
     assert episodes_for_zero_failures(0.95, 0.95) == 59
     assert 1 - zero_failure_bound(59, 0.95) >= 0.95
     assert 1 - zero_failure_bound(58, 0.95) < 0.95
-    # Rule of three gives n = 3 / 0.05 = 60 as the cross-check (Hanley & Lippman-Hand 1983).
+    # Rule of three gives n = 3 / 0.05 = 60 as the cross-check (Hanley & Lippman-Hand 1983, from memory).
     assert abs(episodes_for_zero_failures(0.95, 0.95) - 3 / 0.05) <= 1
 
 
