@@ -58,9 +58,25 @@ def _skill_problems(ctx: Any, index: int) -> list[str]:
     return out
 
 
+def _other_env_notes(ctx: Any, per_skill: dict[int, list[str]]) -> list[str]:
+    """A note per skill declared on another env of the chain's robot: it runs in the chain's env."""
+    out = []
+    for i, skill in enumerate(ctx.skills):
+        own = ctx.skill_envs[i]
+        if own and own != ctx.rig.env_id and not per_skill[i]:
+            out.append(
+                f"{skill.ref} is declared on env {own} and runs here in env {ctx.rig.env_id} (the same robot, "
+                f"{_robot(ctx.rig)!r}): its controller, starts_when and stops_when are unchanged, but the reward, "
+                f"the env's own episode end and the default initial states are {ctx.rig.env_id}'s"
+            )
+    return out
+
+
 def structural_check(ctx: Any, checked: list[Handoff]) -> dict[int, Evidence]:
-    """Per handoff: ``breaks`` with the reasons when the two sides do not fit, else undecided."""
+    """Per handoff: ``breaks`` with the reasons when the two sides do not fit, else undecided.
+    Skills declared on another env of the same robot fit; the check notes where they run."""
     per_skill = {i: _skill_problems(ctx, i) for i in range(len(ctx.skills))}
+    ctx.notes.extend(_other_env_notes(ctx, per_skill))
     out: dict[int, Evidence] = {}
     for j in checked:
         problems = list(per_skill[j.index])
