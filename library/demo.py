@@ -165,7 +165,7 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
     bar = log.progress("retraining arm-reach-tray", unit="env steps")
 
     def on_update(row: dict[str, Any]) -> None:
-        bar.update(int(row["steps"]), total=int(row.get("total_steps") or 0) or None)
+        bar.update(int(row["env_steps"]), total=int(row.get("total_steps") or 0) or None)
 
     result = retrain(
         "arm-reach-tray",

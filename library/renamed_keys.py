@@ -28,6 +28,7 @@ __all__ = [
     "SPEC_RENAMES",
     "META_RENAMES",
     "OUTCOME_RENAMES",
+    "CURVE_RENAMES",
     "DURATION_OUTPUT_RENAMES",
     "Renamed",
     "RenamedKeyWarning",
@@ -80,6 +81,10 @@ META_RENAMES = {
     "termination_rate": "stop_rate",
     **{f"{m}.{old}": f"{m}.{new}" for m in ("before", "after", "metrics_before", "metrics_after") for old, new in (("mean_steps", "mean_duration"), ("reasons", "outcomes"))},
 }
+
+# Learning-curve columns (rows in trainer checkpoints written before the rename; curve.csv
+# files stored inside older versions keep their header as written).
+CURVE_RENAMES = {"steps": "env_steps", "lr": "learning_rate", "termination_rate": "stop_rate", "length_mean": "mean_duration"}
 
 # How a skill's turn ended, as stored in metrics and option models.
 OUTCOME_RENAMES = {"env_terminated": "env_ended", "terminated": "env_ended"}

@@ -44,7 +44,7 @@ HELP_PATTERNS: dict[str, str] = {
 # Keys that must not appear anywhere in a --json output (at any depth).
 JSON_KEYS: dict[str, set[str]] = {
     "step is a unit, never a bare key": {"steps"},
-    "duration (was episode_steps, mean_steps)": {"episode_steps", "mean_steps"},
+    "duration (was episode_steps, mean_steps, length_mean)": {"episode_steps", "mean_steps", "length_mean"},
     "is_new / created_at (was created)": {"created"},
     "register (was added)": {"added"},
     "current (was latest)": {"latest"},
@@ -99,6 +99,19 @@ def old_yaml_keys(data: Any, *, allowed: set[str] = frozenset()) -> list[str]:
 
 
 # -- the checks can fail ----------------------------------------------------------------
+
+
+def test_learning_curve_columns_use_current_names() -> None:
+    from kinetome.trainers.curves import CURVE_COLUMNS, curve_csv, current_curve_row
+
+    assert old_json_keys(dict.fromkeys(CURVE_COLUMNS, 0)) == []
+    assert {"env_steps", "learning_rate", "stop_rate", "mean_duration"} <= set(CURVE_COLUMNS)
+    old = {"update": 1, "steps": 512, "lr": 3e-4, "termination_rate": 0.1, "length_mean": 40.0}  # a pre-rename checkpoint row
+    row = current_curve_row(old)
+    assert row == {"update": 1, "env_steps": 512, "learning_rate": 3e-4, "stop_rate": 0.1, "mean_duration": 40.0}
+    header, values = curve_csv([row]).splitlines()
+    assert dict(zip(header.split(","), values.split(",")))["env_steps"] == "512"
+    assert old_json_keys(old) != []  # the check can fail
 
 
 def test_each_check_finds_an_old_spelling_and_passes_the_new() -> None:

@@ -6,22 +6,22 @@ import csv
 import io
 import math
 from pathlib import Path
-from typing import Sequence
+from typing import Any, Sequence
 
 from kinetome.library.safety import CAUTION_FOOTER
 
 from .atomic import write_atomic
 
-__all__ = ["CURVE_COLUMNS", "curve_csv", "save_curves", "plot_curves"]
+__all__ = ["CURVE_COLUMNS", "curve_csv", "current_curve_row", "save_curves", "plot_curves"]
 
 CURVE_COLUMNS = (
     "update",
-    "steps",
+    "env_steps",
     "episodes",
     "return_mean",
     "success_rate",
-    "length_mean",
-    "termination_rate",
+    "mean_duration",
+    "stop_rate",
     "mean_skill_duration",
     "policy_loss",
     "value_loss",
@@ -30,11 +30,18 @@ CURVE_COLUMNS = (
     "approx_kl",
     "clip_fraction",
     "explained_variance",
-    "lr",
+    "learning_rate",
     "steps_per_s",
     "eval_success_rate",
     "eval_return",
 )
+
+
+def current_curve_row(row: dict[str, Any]) -> dict[str, Any]:
+    """A curve row under today's column names (checkpoints written before the rename hold old ones)."""
+    from kinetome.library.renamed_keys import CURVE_RENAMES
+
+    return {CURVE_RENAMES.get(k, k): v for k, v in row.items()}
 
 
 def curve_csv(rows: Sequence[dict[str, float]]) -> str:
@@ -58,7 +65,7 @@ def plot_curves(rows: Sequence[dict[str, float]], path: str | Path, *, title: st
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    steps = [r["steps"] for r in rows]
+    steps = [r["env_steps"] for r in rows]
     fig, axes = plt.subplots(1, 3, figsize=(12, 3.4))
     panels = (
         ("return", ("return_mean", "eval_return")),

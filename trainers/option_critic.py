@@ -35,7 +35,7 @@ from .checkpoint import (
     set_generator_state,
 )
 from .config import TrainConfig, config_from_stored
-from .curves import save_curves
+from .curves import current_curve_row, save_curves
 from .nets import SkillCritic, TerminationHeads
 from .normaliser import ObservationNormaliser, ReturnNormaliser
 from .progress import ProgressFn, as_progress
@@ -218,7 +218,7 @@ class OptionCriticTrainer:
         self.collector.load_carry(tensors)
         set_generator_state(self.torch_gen, tensors["rng.torch"])
         self.np_rng.bit_generator.state = meta["numpy_rng"]
-        self.rows = list(meta["rows"])
+        self.rows = [current_curve_row(row) for row in meta["rows"]]  # checkpoints may hold old column names
         self.update_index = int(meta["update"])
         self.steps = int(meta["steps"])
         self.resumed_from = self.update_index
@@ -287,10 +287,10 @@ class OptionCriticTrainer:
         elapsed = time.perf_counter() - clock[0]
         row: dict[str, Any] = {
             "update": self.update_index,
-            "steps": self.steps,
-            **{k: stats[k] for k in ("episodes", "return_mean", "success_rate", "length_mean", "termination_rate", "mean_skill_duration")},
+            "env_steps": self.steps,
+            **{k: stats[k] for k in ("episodes", "return_mean", "success_rate", "mean_duration", "stop_rate", "mean_skill_duration")},
             **{k: info.get(k) for k in ("policy_loss", "value_loss", "termination_loss", "entropy", "approx_kl", "clip_fraction", "explained_variance")},
-            "lr": lr,
+            "learning_rate": lr,
             "steps_per_s": (self.steps - clock[1]) / elapsed if elapsed > 0 else float("nan"),
         }
         if self.evaluate is not None and cfg.eval_every and self.update_index % cfg.eval_every == 0:

@@ -18,7 +18,7 @@ def _num(v: Any, fmt: str) -> str:
 def format_row(row: dict[str, Any]) -> str:
     """``update 3/10  steps 6144/20480  return -12.3  success 0.45  1,234 steps/s``."""
     return (
-        f"update {row['update']}/{row.get('updates', '?')}  steps {row['steps']}/{row.get('total_steps', '?')}  "
+        f"update {row['update']}/{row.get('updates', '?')}  env steps {row['env_steps']}/{row.get('total_steps', '?')}  "
         f"return {_num(row.get('return_mean'), '.3g')}  success {_num(row.get('success_rate'), '.2f')}  "
         f"{_num(row.get('steps_per_s'), ',.0f')} steps/s"
     )

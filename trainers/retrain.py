@@ -82,7 +82,7 @@ class RetrainResult:
             "seed": self.seed,
             "from_scratch": self.from_scratch,
             "trainer": "cma-es" if self.method == "search" else "actor-critic",  # how the child was refined
-            "steps": self.steps,
+            "env_steps": self.steps,
             "updates": self.updates,
             "completed": self.completed,
             "wall_time_s": round(self.wall_time, 3),

@@ -48,9 +48,9 @@ class EpisodeStats:
         return {
             "episodes": len(self.returns),
             "return_mean": float(np.mean(self.returns)) if self.returns else nan,
-            "length_mean": float(np.mean(self.lengths)) if self.lengths else nan,
+            "mean_duration": float(np.mean(self.lengths)) if self.lengths else nan,
             "success_rate": float(np.mean(self.successes)) if self.successes else nan,
-            "termination_rate": self.terminations / self.skill_steps if self.skill_steps else nan,
+            "stop_rate": self.terminations / self.skill_steps if self.skill_steps else nan,
             "mean_skill_duration": float(np.mean(self.skill_durations)) if self.skill_durations else nan,
             "refusals": self.refusals,
             "skill_share": (self.skill_counts / self.skill_counts.sum()).tolist()

@@ -31,6 +31,7 @@ import numpy as np
 from kinetome.library.errors import InvalidInputError, TrainingError
 
 from .checkpoint import load_checkpoint, save_checkpoint
+from .curves import current_curve_row
 from .config import TrainConfig, config_from_stored
 from .progress import ProgressFn, as_progress
 
@@ -185,7 +186,7 @@ class ParameterSearch:
             "episodes": len(candidates) * self.config.search_episodes,
             "return_mean": float(np.mean([i["return"] for i in infos])),
             "success_rate": float(np.mean([i["success"] for i in infos])),
-            "length_mean": float(np.mean([i["length"] for i in infos])),
+            "mean_duration": float(np.mean([i["length"] for i in infos])),
             "best_fitness": float(np.max(scores)),
             "sigma": float(es.sigma),
         }
@@ -228,7 +229,7 @@ class ParameterSearch:
             es.tell(es.ask(), fit.tolist())
         if not np.array_equal(np.asarray(es.mean, dtype=np.float64), tensors["search.mean"]):
             raise TrainingError(f"checkpoint in {self.checkpoint_dir} does not replay to its stored state; start over in a new folder")
-        return es, history, int(meta["steps"]), list(meta["rows"])
+        return es, history, int(meta["steps"]), [current_curve_row(row) for row in meta["rows"]]
 
     # ----- the loop --------------------------------------------------------------------
 
@@ -258,7 +259,7 @@ class ParameterSearch:
             history.append(fit)
             steps += info.pop("steps")
             elapsed = time.perf_counter() - clock[0]
-            row = {"update": len(history), "steps": steps, **info,
+            row = {"update": len(history), "env_steps": steps, **info,
                    "steps_per_s": (steps - clock[1]) / elapsed if elapsed > 0 else float("nan")}
             if self.evaluate is not None and cfg.eval_every and len(history) % cfg.eval_every == 0:
                 self.apply(es.mean)

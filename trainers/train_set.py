@@ -89,16 +89,20 @@ class TrainSetResult:
     def metadata(self) -> dict[str, Any]:
         return {
             "skills": list(self.skill_refs),
-            "termination_rate": self.termination_rate,
-            "mean_skill_duration": self.mean_skill_duration,
-            "mean_return": self.mean_return,
+            "stop_rate": _finite_or_none(self.termination_rate),  # None: nothing measured (JSON has no NaN)
+            "mean_skill_duration": _finite_or_none(self.mean_skill_duration),
+            "mean_return": _finite_or_none(self.mean_return),
             "skill_share": self.skill_share,
-            "steps": self.steps,
+            "env_steps": self.steps,
             "updates": self.updates,
             "completed": self.completed,
             "wall_time_s": round(self.wall_time, 3),
             "config": self.config.as_dict(),
         }
+
+
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if math.isfinite(x) else None
 
 
 def measure_options(
@@ -112,7 +116,13 @@ def measure_options(
     rollouts: int = 2,
     workers: int = 1,
 ) -> dict[str, Any]:
-    """Termination rate, mean skill duration, return and skill share with exploration off."""
+    """Stop rate, mean skill duration, return and skill share with exploration off.
+
+    Runs ``rollouts`` segments, then more until as many episodes have ended as there are
+    parallel envs: with short segments two of them may end no episode and no turn, which
+    left every mean undefined (NaN). Episodes last at most the episode limit, so
+    ``ceil(limit / segment_steps) + 1`` more segments always end one in every env.
+    """
     from .starts import StartSampler
 
     eval_cfg = dataclasses.replace(config, seed=seed)
@@ -137,8 +147,11 @@ def measure_options(
         terminations = steps = 0
         returns: list[float] = []
         counts = np.zeros(len(trainables))
-        for _ in range(rollouts):
+        cap = rollouts + -(-int(collector.limit) // config.segment_steps) + 1
+        done = 0
+        while done < rollouts or (len(returns) < collector.n and done < cap):
             collector.collect()
+            done += 1
             st = collector.stats
             durations += st.skill_durations
             terminations += st.terminations
@@ -146,7 +159,7 @@ def measure_options(
             returns += st.returns
             counts += st.skill_counts
     return {
-        "termination_rate": terminations / steps if steps else math.nan,
+        "stop_rate": terminations / steps if steps else math.nan,
         "mean_skill_duration": float(np.mean(durations)) if durations else math.nan,
         "mean_return": float(np.mean(returns)) if returns else math.nan,
         "skill_share": {s.name: float(c / counts.sum()) for s, c in zip(trainables, counts)} if counts.sum() else {},
@@ -186,7 +199,7 @@ def train_trainables(
         terminations=None if outcome.heads is None else save(module_tensors("heads", outcome.heads)),
         normaliser=save_normalisers(None, outcome.obs_norm, outcome.ret_norm),
         curve=list(outcome.rows),
-        termination_rate=measured["termination_rate"],
+        termination_rate=measured["stop_rate"],
         mean_skill_duration=measured["mean_skill_duration"],
         mean_return=measured["mean_return"],
         skill_share=measured["skill_share"],

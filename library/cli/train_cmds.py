@@ -77,7 +77,7 @@ def _bar(label: str, args: argparse.Namespace) -> tuple[Progress, Any]:
     bar = Progress(label, unit="env steps", quiet=bool(getattr(args, "quiet", False) or args.json))
 
     def on_update(row: dict[str, Any]) -> None:
-        bar.update(int(row["steps"]), total=int(row.get("total_steps") or 0) or None)
+        bar.update(int(row["env_steps"]), total=int(row.get("total_steps") or 0) or None)
 
     return bar, on_update
 

@@ -82,7 +82,7 @@ def _plot(out: Path, seeds: list[int]) -> None:
         path = out / f"curve-{seed}.csv"
         if path.exists():
             rows = list(csv.DictReader(path.open()))
-            ax.plot([int(r["steps"]) for r in rows], [float(r["return_mean"] or "nan") for r in rows], lw=1, label=f"seed {seed}")
+            ax.plot([int(r["env_steps"]) for r in rows], [float(r["return_mean"] or "nan") for r in rows], lw=1, label=f"seed {seed}")
     ax.axhline(PUBLISHED_PPO_1M, color="k", ls="--", lw=1, label="published PPO @1M (~2,160)")
     ax.set(xlabel="env steps", ylabel="training return (episodes ended in the update)", title="flat Hopper-v5")
     ax.legend(fontsize=7)

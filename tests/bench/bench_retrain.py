@@ -44,7 +44,7 @@ def steps_to_target(skill, rig, cfg, start, target: float, seed: int, from_scrat
 
     def watch(row):
         if row.get("eval_success_rate", -1.0) >= target and "steps" not in reached:
-            reached["steps"] = row["steps"]
+            reached["steps"] = row["env_steps"]
             raise StopTraining
 
     t = time.perf_counter()

@@ -35,7 +35,7 @@ def test_retraining_improves_the_reach_and_leaves_the_input_alone(rig):
         np.testing.assert_array_equal(value, stored[name])
     assert not np.array_equal(result.parameters["gain"], stored["gain"])
     assert result.metadata()["after"]["success_rate"] == result.after.success_rate
-    assert result.curve_csv().splitlines()[0].startswith("update,steps,episodes,return_mean")
+    assert result.curve_csv().splitlines()[0].startswith("update,env_steps,episodes,return_mean")
 
 
 def _train(rig, seed, updates=4, workers=1, **over):
@@ -103,11 +103,11 @@ def test_progress_stream_and_curves(rig, tmp_path):
     trainer = OptionCriticTrainer([reach_skill(rig)], rig, quick_config(env_step_budget=16 * 32 * 3), episode_per_skill=True, progress=out)
     trainer.run()
     lines = out.getvalue().splitlines()
-    assert len(lines) == 3 and lines[-1].startswith("update 3/3  steps 1536/1536  return ")
+    assert len(lines) == 3 and lines[-1].startswith("update 3/3  env steps 1536/1536  return ")
     assert "steps/s" in lines[-1]
     csv_path, png_path = trainer.save_curves(tmp_path)
     rows = csv_path.read_text().splitlines()
-    assert len(rows) == 4 and rows[0].split(",")[:3] == ["update", "steps", "episodes"]
+    assert len(rows) == 4 and rows[0].split(",")[:3] == ["update", "env_steps", "episodes"]
     assert png_path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 

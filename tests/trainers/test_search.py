@@ -127,4 +127,4 @@ def test_search_improves_a_real_skill_on_common_episodes(rig):
     out = search.run()
     after, info = search.fitness(search.space.encode(out.parameters), starts)
     assert after > before + 5.0 and info["success"] > 0.5, (before, after, info)
-    assert out.rows[-1]["steps"] == out.steps <= cfg.env_step_budget + 60 * 8 * 8
+    assert out.rows[-1]["env_steps"] == out.steps <= cfg.env_step_budget + 60 * 8 * 8

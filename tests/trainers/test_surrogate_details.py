@@ -34,7 +34,7 @@ def test_learning_rate_anneals_linearly_to_zero(schedule, expected):
     cfg = quick_config(env_step_budget=16 * 32 * 4, learning_rate_schedule=schedule)
     trainer = OptionCriticTrainer([reach_skill(rig)], rig, cfg, episode_per_skill=True)
     rows = trainer.run().rows
-    np.testing.assert_allclose([r["lr"] for r in rows], expected)  # lr_u = lr (1 - u / updates)
+    np.testing.assert_allclose([r["learning_rate"] for r in rows], expected)  # lr_u = lr (1 - u / updates)
     assert trainer.optimiser.param_groups[0]["lr"] == pytest.approx(expected[-1])
 
 

@@ -181,3 +181,22 @@ def test_stop_advantage_compares_with_the_best_skill_that_could_take_over(rig):
     assert set(np.unique(r.skill)) == {0, 1}
     np.testing.assert_array_equal(r.term_advantage[r.skill == 0], 0.0)
     np.testing.assert_array_equal(r.term_advantage[r.skill == 1], -20.0)
+
+
+def test_short_segments_still_measure_every_mean(rig):
+    # Regression: the evaluation after training ran two segments only. With 4-step segments and
+    # skills that never stop by themselves, two segments (8 steps) end no turn and no episode
+    # (episodes last up to 60 steps), so every mean was NaN and storing the result failed
+    # ("meta must hold only JSON values"). It now runs on until each env has ended an episode.
+    import json
+    import math
+
+    cfg = quick_config(env_step_budget=4 * 4 * 2, parallel_envs=4, segment_steps=4, minibatch_size=8,
+                       stop_mode="registered", seed=3)
+    result = train_trainables(_twin_skills(rig), rig, cfg)
+    assert math.isfinite(result.mean_return) and math.isfinite(result.mean_skill_duration)
+    assert math.isfinite(result.termination_rate)
+    assert result.mean_skill_duration > 8  # turns longer than the two segments the old evaluation ran
+    meta = result.metadata()
+    json.dumps(meta, allow_nan=False)  # what the store demands
+    assert meta["stop_rate"] == result.termination_rate and meta["env_steps"] == 32 and "steps" not in meta
