@@ -5,6 +5,9 @@ Prints a Markdown row per worker count: wall time, env steps/s, the ratio to gym
 in this run, and the speed-up of 2 workers over 1; checks that both runs gave identical cells.
 
     python tests/bench/bench_sweep.py [--episodes 200] [--workers 1 2]
+
+With a Ray cluster already running on this machine (`ray start`), set RAY_ADDRESS=local so the
+workers run on a private local Ray.
 """
 
 from __future__ import annotations

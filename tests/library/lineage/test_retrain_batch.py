@@ -87,12 +87,13 @@ def test_bad_batches_are_refused(tmp_path, capsys) -> None:
     assert main([*s, "--variant", str(VARIANTS[0]), "--address", "auto"]) == 2
 
 
-def test_children_are_identical_on_one_and_two_ray_workers(tmp_path) -> None:
+def test_children_are_identical_on_one_and_two_ray_workers(tmp_path, monkeypatch) -> None:
     """Training runs with one torch thread wherever it runs: with more threads in this process the heavy-payload
     child's parameters differed from a worker's in the last bits (seen while building this), so its identity did."""
     ray = pytest.importorskip("ray", reason="Ray is not installed (pip install -e '.[cluster]')")
     if ray.is_initialized():
         pytest.skip("a Ray started elsewhere in this process is running")
+    monkeypatch.setenv("RAY_ADDRESS", "local")  # a private Ray even if another process runs a cluster on this machine
     identities = []
     for workers in (1, 2):
         store = _store(tmp_path / f"w{workers}")

@@ -13,9 +13,10 @@ from kinetome.library import api  # noqa: E402
 CONFIGS = Path(__file__).resolve().parents[3] / "configs"
 
 
-def test_one_and_two_workers_give_identical_cells(tmp_path) -> None:
+def test_one_and_two_workers_give_identical_cells(tmp_path, monkeypatch) -> None:
     if ray.is_initialized():
         pytest.skip("a Ray started elsewhere in this process is running")
+    monkeypatch.setenv("RAY_ADDRESS", "local")  # a private Ray even if another process runs a cluster on this machine
     store = api.open_store(tmp_path / "store")
     api.register(CONFIGS / "skills" / "arm-reach-tray.yaml", store=store)
     args = dict(store=store, axes=["payload_mass=0.2,0.6", "sensor_noise=0,0.05"], episodes=6, reuse=False,
