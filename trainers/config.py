@@ -87,6 +87,8 @@ class TrainConfig:
     search_population: int | None = None  # parameter search: candidates per generation (None: 4 + 3 ln d)
     search_step_size: float = 0.05  # parameter search: initial step, as a fraction of each parameter's bound range
     search_episodes: int = 8  # parameter search: episodes per candidate (the same start states for all)
+    search_finalists: int = 1  # parameter search: candidates compared at the end (final mean + best seen); 1 = the final mean
+    search_final_episodes: int = 16  # parameter search: fresh episodes per finalist (used when search_finalists > 1)
     eval_episodes: int = 32
     eval_every: int = 0  # updates between evaluations (0 = only before and after)
     checkpoint_every: int = 10
@@ -155,6 +157,8 @@ def _validate(c: TrainConfig) -> list[str]:
         if isinstance(c.search_population, int) and c.search_population < 2:
             out.append(f"search_population must be at least 2, got {c.search_population!r}")
     positive_int("search_episodes")
+    positive_int("search_finalists")
+    positive_int("search_final_episodes")
     number("search_step_size", 0.0, 1.0, open_low=True)
     number("learning_rate", 0.0, 1.0, open_low=True)
     number("stop_lr", 0.0, 1.0, open_low=True)

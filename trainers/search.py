@@ -38,6 +38,7 @@ from .progress import ProgressFn, as_progress
 __all__ = ["SearchSpace", "search_space", "ParameterSearch", "SearchOutcome", "METHOD"]
 
 METHOD = "cma-es"  # the name lineage and progress give this method
+FINAL_STARTS = 1_000_002  # start-state stream of the final choice: past any generation number a search reaches
 _RESUMABLE_CHANGES = {"env_step_budget", "checkpoint_every", "log_every", "eval_every", "eval_episodes"}
 
 
@@ -109,6 +110,7 @@ class SearchOutcome:
     completed: bool
     resumed_from: int | None = None
     history: list[np.ndarray] = field(default_factory=list)  # fitness per generation
+    finalists: list[dict[str, Any]] = field(default_factory=list)  # the final choice's scores (search_finalists > 1)
 
 
 class ParameterSearch:
@@ -127,6 +129,7 @@ class ParameterSearch:
         self.progress = as_progress(progress)
         self.evaluate = evaluate
         self.x0 = self.space.encode(skill.controller.parameter_values())
+        self.best_seen: list[tuple[float, np.ndarray]] = []  # (score, x) of the best candidates so far, best first
 
     # ----- the search itself ----------------------------------------------------
 
@@ -180,6 +183,7 @@ class ParameterSearch:
         starts = self._episodes(generation)
         scores, infos = zip(*(self.fitness(np.asarray(x), starts) for x in candidates))
         fit = -np.asarray(scores, dtype=np.float64)  # cma minimises
+        self._remember(candidates, fit)
         es.tell(candidates, fit.tolist())
         info = {
             "steps": sum(i["steps"] for i in infos),
@@ -225,8 +229,11 @@ class ParameterSearch:
             )
         es = self._strategy()
         history = [tensors[f"search.fitness.{g:06d}"] for g in range(int(meta["generation"]))]
-        for fit in history:  # replay: the same draws and the same values give the same state
-            es.tell(es.ask(), fit.tolist())
+        self.best_seen = []
+        for fit in history:  # replay: the same draws and the same values give the same state (and the same best seen)
+            candidates = es.ask()
+            self._remember(candidates, fit)
+            es.tell(candidates, fit.tolist())
         if not np.array_equal(np.asarray(es.mean, dtype=np.float64), tensors["search.mean"]):
             raise TrainingError(f"checkpoint in {self.checkpoint_dir} does not replay to its stored state; start over in a new folder")
         return es, history, int(meta["steps"]), [current_curve_row(row) for row in meta["rows"]]
@@ -253,9 +260,10 @@ class ParameterSearch:
     def _run(self, resume: bool) -> SearchOutcome:
         cfg = self.config
         es, history, steps, rows, resumed_from = self._begin(resume)
-        completed, clock = True, (time.perf_counter(), steps)
-        while steps < cfg.env_step_budget:
+        completed, clock, reserve = True, (time.perf_counter(), steps), 0.0
+        while steps + reserve < cfg.env_step_budget:
             fit, info = self._generation(es, len(history))
+            reserve = self._final_reserve(info["length_mean"])
             history.append(fit)
             steps += info.pop("steps")
             elapsed = time.perf_counter() - clock[0]
@@ -265,14 +273,54 @@ class ParameterSearch:
                 self.apply(es.mean)
                 row.update(self.evaluate())
             rows.append(row)
-            done = steps >= cfg.env_step_budget
+            done = steps + reserve >= cfg.env_step_budget
             if cfg.checkpoint_every and (len(history) % cfg.checkpoint_every == 0 or done):
                 self._save(es, history, steps, rows)
             if not self._report(row, steps):
                 completed = done
                 break
-        self.apply(es.mean)
-        return SearchOutcome(self.space.decode(es.mean), rows, steps, len(history), completed, resumed_from, history)
+        final, finals = np.asarray(es.mean, dtype=np.float64), []
+        if completed and cfg.search_finalists > 1:
+            final, finals, used = self._select_final(final)
+            steps += used
+        self.apply(final)
+        return SearchOutcome(self.space.decode(final), rows, steps, len(history), completed, resumed_from, history, finals)
+
+    # ----- the final choice -------------------------------------------------------------
+
+    def _remember(self, candidates: list, fit: np.ndarray) -> None:
+        """Keep the ``search_finalists - 1`` best candidates seen (by their generation's score) for the final choice."""
+        keep = self.config.search_finalists - 1
+        if keep <= 0:
+            return
+        pool = self.best_seen + [(-float(f), np.asarray(x, dtype=np.float64)) for f, x in zip(fit, candidates)]
+        self.best_seen = sorted(pool, key=lambda item: -item[0])[:keep]  # stable: earlier candidates win ties
+
+    def _final_reserve(self, mean_length: float) -> float:
+        """Env steps held back for the final choice, estimated from the last generation's episode length."""
+        if self.config.search_finalists <= 1:
+            return 0.0
+        return float(self.config.search_finalists * self.config.search_final_episodes * mean_length)
+
+    def _select_final(self, mean: np.ndarray) -> tuple[np.ndarray, list[dict[str, Any]], int]:
+        """Score the final mean and the best candidates seen on the same fresh episodes; keep the best.
+
+        A generation scores each candidate on a few episodes, so the best of them are partly lucky and the
+        final mean may sit between good candidates without being one; more episodes decide. Ties keep the mean.
+        """
+        cfg = self.config
+        from kinetome.library.runtime.starts import sample_starts
+
+        starts = sample_starts(self.rig, self.start, cfg.search_final_episodes, seed=cfg.seed * 1_000_003 + FINAL_STARTS)
+        finalists = [("final mean", mean)] + [(f"best seen {i + 1}", x) for i, (_, x) in enumerate(self.best_seen)]
+        rows, used, best = [], 0, (-math.inf, mean)
+        for label, x in finalists:
+            score, info = self.fitness(x, starts)
+            used += info["steps"]
+            rows.append({"finalist": label, "score": score, "success_rate": info["success"], "episodes": cfg.search_final_episodes})
+            if score > best[0]:
+                best = (score, x)
+        return best[1], rows, used
 
     def _report(self, row: dict[str, Any], steps: int) -> bool:
         from .option_critic import StopTraining

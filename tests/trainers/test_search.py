@@ -37,11 +37,11 @@ class QuadraticSearch(ParameterSearch):
         return value, {"steps": 100, "success": 0.0, "length": 1.0, "return": value}
 
 
-def _quadratic(rig, centre, *, budget=100 * 12 * 40, seed=0, checkpoint_dir=None, progress=None, step=0.2):
+def _quadratic(rig, centre, *, budget=100 * 12 * 40, seed=0, checkpoint_dir=None, progress=None, step=0.2, finalists=1):
     skill = loaded_reach(rig)
     skill = dataclasses.replace(skill, controller=copy.deepcopy(skill.controller))
     cfg = quick_config(env_step_budget=budget, seed=seed, search_step_size=step, search_population=12,
-                       checkpoint_every=1 if checkpoint_dir else 0)
+                       checkpoint_every=1 if checkpoint_dir else 0, search_finalists=finalists, search_final_episodes=4)
     search = QuadraticSearch(skill, rig, cfg, frozen=("reference",), checkpoint_dir=checkpoint_dir, progress=progress)
     search.centre, search.seen = centre, []
     return search
@@ -128,3 +128,55 @@ def test_search_improves_a_real_skill_on_common_episodes(rig):
     after, info = search.fitness(search.space.encode(out.parameters), starts)
     assert after > before + 5.0 and info["success"] > 0.5, (before, after, info)
     assert out.rows[-1]["env_steps"] == out.steps <= cfg.env_step_budget + 60 * 8 * 8
+
+
+class MeanIsAHoleSearch(QuadraticSearch):
+    """The quadratic, except that a small ball around ``hole`` (where the final mean will be) scores badly:
+    a good population whose mean is not itself good, as a gait whose average parameters do not walk."""
+
+    hole: np.ndarray | None = None
+
+    def fitness(self, x, starts):
+        value, info = super().fitness(x, starts)
+        if self.hole is not None and np.linalg.norm(np.asarray(x) - self.hole) < 1e-9:
+            value = -1e6
+        return value, {**info, "return": value}
+
+
+def test_final_choice_keeps_the_best_finalist_on_fresh_episodes_within_the_budget(rig):
+    budget = 100 * 12 * 30
+    plain = _quadratic(rig, _centre(True), budget=budget).run()
+    assert plain.finalists == []  # search_finalists 1: the final mean, no extra episodes
+
+    search = _quadratic(rig, _centre(True), budget=budget, finalists=4)
+    out = search.run()
+    assert [f["finalist"] for f in out.finalists] == ["final mean", "best seen 1", "best seen 2", "best seen 3"]
+    scores = [f["score"] for f in out.finalists]
+    chosen = search.space.encode(out.parameters)
+    assert search.fitness(chosen, None)[0] == max(scores)
+    # the reserve (4 finalists x 4 episodes x 1 step per "episode" here) keeps the total within one generation
+    assert out.steps <= budget + 100 * 12 and out.steps == out.rows[-1]["env_steps"] + 4 * 100
+
+    fresh = _quadratic(rig, _centre(True), budget=budget, finalists=4)  # a fresh skill: the same x0 and draws
+    holed = MeanIsAHoleSearch(fresh.skill, rig, fresh.config, frozen=("reference",))
+    holed.centre, holed.seen = _centre(True), []
+    plain_mean = search.space.encode(plain.parameters)
+    holed.hole = plain_mean  # the same run reaches the same final mean, which now scores -1e6
+    out_holed = holed.run()
+    assert out_holed.finalists[0]["score"] < -1e5
+    assert not np.array_equal(holed.space.encode(out_holed.parameters), plain_mean)
+    assert holed.fitness(holed.space.encode(out_holed.parameters), None)[0] == max(f["score"] for f in out_holed.finalists)
+
+
+def test_resume_with_a_final_choice_is_bit_for_bit(rig, tmp_path):
+    whole = _quadratic(rig, _centre(True), budget=100 * 12 * 12, finalists=3).run()
+
+    def stop_at_5(row):
+        if row["update"] == 5:
+            raise StopTraining
+
+    _quadratic(rig, _centre(True), budget=100 * 12 * 12, checkpoint_dir=tmp_path, progress=stop_at_5, finalists=3).run()
+    second = _quadratic(rig, _centre(True), budget=100 * 12 * 12, checkpoint_dir=tmp_path, finalists=3).run(resume=True)
+    assert second.finalists == whole.finalists  # the best seen are rebuilt by replaying the checkpoint
+    for name in whole.parameters:
+        np.testing.assert_array_equal(second.parameters[name], whole.parameters[name])
