@@ -263,7 +263,7 @@ class ParameterSearch:
         completed, clock, reserve = True, (time.perf_counter(), steps), 0.0
         while steps + reserve < cfg.env_step_budget:
             fit, info = self._generation(es, len(history))
-            reserve = self._final_reserve(info["length_mean"])
+            reserve = self._final_reserve(info["mean_duration"])
             history.append(fit)
             steps += info.pop("steps")
             elapsed = time.perf_counter() - clock[0]
