@@ -99,7 +99,7 @@ def _check(store: Any, chain: Any, *, reuse: bool, workers: int, progress: Any) 
     from ..checker import CheckOptions, prepare_context, run_check
     from ..checker.reuse import check_key, find_stored, store_check, stored_about
 
-    ctx = prepare_context(chain, store=store, options=CheckOptions(method="auto", workers=workers, progress=progress))
+    ctx = prepare_context(chain, store=store, options=CheckOptions(method="auto", threads=workers, progress=progress))
     key = check_key(ctx)
     if key is not None and reuse:
         stored = find_stored(store, key)
