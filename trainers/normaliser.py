@@ -101,11 +101,11 @@ class ReturnNormaliser:
     advantages then live on a scale near one).
     """
 
-    def __init__(self, n_envs: int, *, gamma: float, eps: float = 1e-8):
+    def __init__(self, parallel_envs: int, *, gamma: float, eps: float = 1e-8):
         self.moments = RunningMoments(())
         self.gamma = float(gamma)
         self.eps = float(eps)
-        self.running = np.zeros(n_envs)
+        self.running = np.zeros(parallel_envs)
 
     @property
     def scale(self) -> float:
