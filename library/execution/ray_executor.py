@@ -35,7 +35,8 @@ def worker_report() -> dict[str, Any]:
 
 
 def _start_local(workers: int) -> None:
-    """A private local Ray with ``workers`` CPUs; workers inherit one-thread settings."""
+    """A private local Ray with ``workers`` CPUs (never a cluster found through RAY_ADDRESS or `ray start`);
+    workers inherit one-thread settings."""
     saved = {k: os.environ.get(k) for k in _worker.THREAD_ENV}
     os.environ.update(_worker.THREAD_ENV)  # the raylet, and so every worker, starts with them
     constants = getattr(getattr(ray, "_private", None), "ray_constants", None)
@@ -43,7 +44,7 @@ def _start_local(workers: int) -> None:
     if multi_node is not None:
         constants.ENABLE_RAY_CLUSTER = False  # a private Ray of this machine: every process on 127.0.0.1
     try:
-        ray.init(num_cpus=workers, include_dashboard=False, logging_level=logging.ERROR, log_to_driver=False,
+        ray.init(address="local", num_cpus=workers, include_dashboard=False, logging_level=logging.ERROR, log_to_driver=False,
                  runtime_env={"env_vars": dict(_worker.THREAD_ENV)})
     finally:
         if multi_node is not None:

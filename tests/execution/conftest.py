@@ -1,11 +1,11 @@
-"""One local Ray (3 CPUs, no dashboard) for every test in this folder that asks for it."""
+"""One local Ray (3 CPUs, no dashboard) per test module of this folder that asks for it (stopped after the module)."""
 
 from __future__ import annotations
 
 import pytest
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="module")  # torn down after each module, so tests elsewhere may start their own Ray
 def local_ray():
     ray = pytest.importorskip("ray", reason="Ray is not installed (pip install -e '.[cluster]')")
     if ray.is_initialized():

@@ -1,7 +1,7 @@
 """Blocks on real Ray worker processes: same bits for 1, 2 and 3 workers, a killed worker's block
 run again with the same result, one thread per worker, mismatched versions refused.
 
-One local Ray (3 CPUs, no dashboard, conftest.py) serves the whole folder.
+One local Ray (3 CPUs, no dashboard, conftest.py) serves the module.
 """
 
 from __future__ import annotations
