@@ -28,6 +28,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from .seeding import episode_rng
+from .streams import EpisodeStreams
 
 __all__ = ["Disturbances", "DisturbanceStreams", "NO_DISTURBANCES"]
 
@@ -97,7 +98,7 @@ class DisturbanceStreams:
         self.d = d
         self.ids = np.asarray(episode_ids, dtype=np.int64)
         n = self.ids.size
-        self._sensor = [episode_rng(seed, int(i), _SENSOR_STREAM) for i in self.ids] if d.sensor_noise > 0 else None
+        self._sensor = EpisodeStreams(seed, self.ids, _SENSOR_STREAM) if d.sensor_noise > 0 else None
         if d.gain_spread > 0:
             s = float(d.gain_spread)
             self.gains = np.stack([episode_rng(seed, int(i), _GAIN_STREAM).uniform(1 - s, 1 + s, n_act) for i in self.ids])
@@ -118,7 +119,7 @@ class DisturbanceStreams:
                 continue
             value = np.asarray(state[name], dtype=np.float64)
             width = int(np.prod(value.shape[1:], dtype=np.int64))
-            draws = np.stack([self._sensor[int(r)].standard_normal(width) for r in rows]).reshape(value.shape)
+            draws = self._sensor.take(rows, width).reshape(value.shape)
             out[name] = value + scale * draws
         return out
 

@@ -167,14 +167,14 @@ class StopDraws:
     _STREAM = 11  # distinct from start sampling (0) and exploration noise (7)
 
     def __init__(self, seed: int, n_episodes: int, *, episode_ids: np.ndarray | None = None):
-        from .seeding import episode_rng
+        from .streams import EpisodeStreams
 
         ids = range(n_episodes) if episode_ids is None else [int(i) for i in episode_ids]
-        self._rngs = [episode_rng(seed, i, self._STREAM) for i in ids]
+        self._streams = EpisodeStreams(seed, ids, self._STREAM, kind="uniform")
 
     def draw(self, episodes: np.ndarray) -> np.ndarray:
-        """(len(episodes),) uniforms in [0, 1); each advances only its own episode's stream."""
-        return np.array([self._rngs[int(i)].random() for i in episodes], dtype=np.float64)
+        """(len(episodes),) uniforms in [0, 1); each advances only its own episode's stream (read batch-wide)."""
+        return self._streams.take(episodes, 1)[:, 0]
 
 
 @dataclass(frozen=True, eq=False)

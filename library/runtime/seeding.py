@@ -18,13 +18,15 @@ class ExplorationNoise:
     _STREAM = 7  # distinct from start sampling streams
 
     def __init__(self, seed: int, n_episodes: int, n_act: int, *, episode_ids: np.ndarray | None = None):
+        from .streams import EpisodeStreams
+
         ids = range(n_episodes) if episode_ids is None else [int(i) for i in episode_ids]
-        self._rngs = [episode_rng(seed, i, self._STREAM) for i in ids]
+        self._streams = EpisodeStreams(seed, ids, self._STREAM, kind="normal")
         self._n_act = n_act
 
     def draw(self, episodes: np.ndarray) -> np.ndarray:
-        """(len(episodes), n_act) noise; each row advances only its own stream.
+        """(len(episodes), n_act) noise; each row advances only its own stream (read batch-wide).
 
         ``episodes`` are batch rows; with ``episode_ids`` row i draws from episode ``episode_ids[i]``'s stream.
         """
-        return np.stack([self._rngs[int(i)].standard_normal(self._n_act) for i in episodes]) if len(episodes) else np.zeros((0, self._n_act))
+        return self._streams.take(episodes, self._n_act)
