@@ -18,6 +18,7 @@ __all__ = [
     "StoreIntegrityError",
     "StoreUnavailableError",
     "BundleError",
+    "SignatureError",
     "TrainingError",
     "NoRegionFoundError",
 ]
@@ -85,6 +86,12 @@ class StoreUnavailableError(KinetomeError):
 
 class BundleError(KinetomeError):
     """A bundle archive is unsafe or inconsistent; nothing was imported."""
+
+
+class SignatureError(BundleError):
+    """A bundle is unsigned where signatures are required, signed with another key, or changed after signing."""
+
+    exit_code = 1
 
 
 class ExecutionError(KinetomeError):

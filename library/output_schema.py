@@ -20,6 +20,7 @@ SCHEMA_VERSIONS: dict[str, int] = {
     "import": 1,
     "promote": 1,
     "copy-store": 1,
+    "store-settings": 1,
     "run": 1,
     "run-chooser": 1,
     "fit": 1,

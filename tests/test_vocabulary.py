@@ -205,6 +205,7 @@ def json_outputs(tmp_path_factory) -> dict[str, Any]:
         out["promote"] = capsys.json(*s, "promote", "arm-reach-tray@1", "--json")
         out["check"] = capsys.json(*s, "check", str(CONFIGS / "chains" / "arm-place-release.yaml"), "--episodes", "20", "--json")
         out["copy-store"] = capsys.json(*s, "copy-store", str(tmp / "copied"), "--json")
+        out["store-settings"] = capsys.json(*s, "store-settings", "--json")
         out["sweep"] = capsys.json(*s, "sweep", "arm-reach-tray@1", "--axis", "payload_mass=0.2,1.0", "--episodes", "2", "--json")
         out["plan"] = capsys.json(*s, "plan", "--env", "kinetome/BenchArm-v0", "--goal", "norm(fingertip - target) < 0.02",
                                   "--max-length", "2", "--particles", "10", "--top", "1", "--episodes", "20", "--out", str(tmp / "pl"), "--json")
@@ -234,7 +235,7 @@ class _Capture:
         return json.loads(text)
 
 
-COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "sweep", "plan",
+COMMANDS_WITH_JSON = ("register", "run", "fit", "retrain", "train", "list", "show", "lineage", "diff", "verify", "import", "promote", "check", "copy-store", "store-settings", "sweep", "plan",
                       "learn-initiation")
 
 

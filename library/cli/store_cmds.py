@@ -1,4 +1,4 @@
-"""Store commands: register, list, show, lineage, diff, note, verify, export, import, copy-store."""
+"""Store commands: register, list, show, lineage, diff, note, verify, export, import, copy-store, store-settings."""
 
 from __future__ import annotations
 
@@ -12,6 +12,7 @@ from .output import print_json, print_table
 __all__ = ["add_parsers"]
 
 JSON_HELP = "print machine-readable JSON (with a schema field) instead of text"
+SIGNING_KEY_HELP = "{what} with the team's shared key in FILE (HMAC-SHA256; default: the file named by $KINETOME_SIGNING_KEY_FILE)"
 
 
 def _open_store(args: argparse.Namespace, *, create: bool = True):
@@ -74,11 +75,13 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--out", metavar="FILE", help="bundle file to write (.tar or .tar.gz); required")
     add_old_option(p, "-o", "--out", dest="out")
     add_old_option(p, "--output", "--out", dest="out")
+    p.add_argument("--signing-key", metavar="FILE", help=SIGNING_KEY_HELP.format(what="sign the bundle"))
     p.set_defaults(handler=_export)
 
     p = sub.add_parser("import", parents=[common], help="import a bundle (refuses unsafe or damaged archives)")
     p.add_argument("bundle", metavar="FILE", help="bundle written by kinetome export")
     p.add_argument("--renumber", action="store_true", help="store versions whose number is taken here under the next free number (identity and origin stay)")
+    p.add_argument("--signing-key", metavar="FILE", help=SIGNING_KEY_HELP.format(what="check the bundle's signature"))
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_import)
 
@@ -91,6 +94,17 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--target-blobs", metavar="BLOBS", help="where TARGET keeps its files: a folder or s3://bucket/prefix (needed for a new postgresql:// store)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_copy_store)
+
+    p = sub.add_parser(
+        "store-settings", parents=[common], help="show or change the store's settings (whether imports must be signed)",
+        description="Print the store's settings; with an option, change that setting first (recorded in the audit log).",
+    )
+    p.add_argument(
+        "--require-signatures", choices=("on", "off"),
+        help="on: import refuses bundles that are unsigned or not verified with the team's key; off: signatures are checked only when a key is given",
+    )
+    p.add_argument("--json", action="store_true", help=JSON_HELP)
+    p.set_defaults(handler=_store_settings)
 
 
 def _caution() -> str:
@@ -415,9 +429,12 @@ def _export(args: argparse.Namespace) -> int:
 
     if getattr(args, "out", None) is None:
         raise InvalidInputError("export needs --out FILE, the bundle to write; e.g. --out reach.tar.gz")
+    key = _signing_key(args)
     store = _open_store(args)
-    path = export_bundle(store, args.ref, args.out)
+    path = export_bundle(store, args.ref, args.out, signing_key=key)
     print(f"exported {store.get(args.ref).ref} with its lineage to {path}")
+    if key is not None:
+        print(f"signed with key id {key.key_id} ({key.source})")
     print(CAUTION)
     return 0
 
@@ -425,12 +442,14 @@ def _export(args: argparse.Namespace) -> int:
 def _import(args: argparse.Namespace) -> int:
     from ..store import import_bundle
 
+    key = _signing_key(args)
     store = _open_store(args)
-    report = import_bundle(store, args.bundle, renumber=args.renumber)
+    report = import_bundle(store, args.bundle, renumber=args.renumber, signing_key=key)
     notice = _bundle_notice(args.bundle)
     if args.json:
         versions = [{"ref": v.ref, "identity": v.identity, "origin": v.origin, "is_new": v.ref in report.added} for v in report.versions]
-        print_json(tagged("import", {"versions": versions, "current_set": list(report.currents_set), "root_identity": report.root_identity, "warnings": list(report.warnings), "notice": notice}))
+        print_json(tagged("import", {"versions": versions, "current_set": list(report.currents_set), "root_identity": report.root_identity, "warnings": list(report.warnings), "notice": notice,
+                                          "signature": {"status": report.signature, "key_id": report.signed_with}}))
         return 0
     for warning in report.warnings:
         print(f"warning: {warning}")
@@ -441,6 +460,8 @@ def _import(args: argparse.Namespace) -> int:
         print(f"{word:<12} {v.ref}{moved}  identity {v.identity[:16]}")
     for text in report.currents_set:
         print(f"current      {text}")
+    if report.signature == "verified":
+        print(f"signature    verified with key id {report.signed_with}")
     if notice:
         print(f"Notice from the bundle: {notice}")
     return 0
@@ -465,6 +486,31 @@ def _copy_store(args: argparse.Namespace) -> int:
         for line in r.lines()[:-1]:
             print(f"  {line}")
     return 0 if report.ok else 1
+
+
+def _signing_key(args: argparse.Namespace):
+    from ..store.signing import signing_key_from
+
+    return signing_key_from(getattr(args, "signing_key", None))
+
+
+def _store_settings(args: argparse.Namespace) -> int:
+    store = _open_store(args, create=False)
+    changed = None
+    if args.require_signatures is not None:
+        changed = store.set_require_signatures(args.require_signatures == "on")
+    settings = store.settings()
+    changes = [e.to_dict() for e in store.audit_log() if e.action == "settings-changed"]
+    if args.json:
+        print_json(tagged("store-settings", {"store": store.location, "settings": settings, "changed": changed, "changes": changes}))
+        return 0
+    if changed is not None:
+        print(f"require_signatures {'changed to' if changed else 'was already'} {args.require_signatures}")
+    for name, value in settings.items():
+        last = next((e for e in reversed(changes) if e["subject"] == name), None)
+        since = f"  (set by {last['actor']} at {_when(last['created_at'])} UTC)" if last else ""
+        print(f"{name:<20} {'on' if value else 'off'}{since}")
+    return 0
 
 
 def _bundle_notice(path: str) -> str | None:

@@ -1,6 +1,6 @@
 """The audit log: who did what to the store and when, each entry chained to the one before.
 
-Every registration, other add, promotion, roll-back, import and copy appends one entry in the
+Every registration, other add, promotion, roll-back, import, copy and settings change appends one entry in the
 same transaction as the change. An entry's digest covers its fields and the digest of the entry
 before it, and ``store_info.audit_head`` names the newest entry, so ``verify`` finds an edited,
 removed or reordered entry (rewriting the whole tail consistently needs write access to the index
@@ -35,9 +35,11 @@ __all__ = [
 ]
 
 ACTOR_ENV_VAR = "KINETOME_USER"
-# version reasons (an add), then changes of current versions, then whole-bundle and whole-store moves
+# version reasons (an add), then changes of current versions, then whole-bundle and whole-store moves,
+# then changes of store settings (``settings.py``)
 AUDIT_ACTIONS = (
     "registered", "revised", "retrained", "initiation-learned", "promoted", "rolled-back", "imported", "copied",
+    "settings-changed",
 )
 _HEAD_KEY = "audit_head"
 _COLUMNS = "seq, actor, created_at, action, name, subject, detail, previous, digest"

@@ -1,7 +1,7 @@
 """Bundles: one tar (optionally gzip) archive of a version, its lineage, notes and artifacts, sealed.
 
 Import never extracts: members are read one by one into a staging folder and checked
-(paths, types, sizes, blob digests, the seal over the manifest, every identity and
+(paths, types, sizes, blob digests, the signature and the seal over the manifest, every identity and
 artifact digest, and that the archive is byte for byte the canonical one) before
 anything touches the store; then blobs are moved into place and the index changes in
 one transaction. Imported versions keep their identity, number and origin.
@@ -47,6 +47,8 @@ from kinetome.library.store.manifest import (
 )
 from kinetome.library.store.metadata import canonical_json, canonical_meta
 from kinetome.library.store.records import ImportReport
+from kinetome.library.store.settings import requires_signatures
+from kinetome.library.store.signing import SIGNATURE_NAME, SignatureCheck, SigningKey, build_signature, check_signature
 from kinetome.library.store.store import Store
 
 __all__ = [
@@ -64,7 +66,7 @@ MAX_MEMBERS = 100_000
 MAX_MANIFEST_BYTES = 16 * 1024**2
 
 _BLOB_MEMBER_RE = re.compile(r"blobs/([0-9a-f]{64})")
-_LAYOUT = f"a bundle holds only {SEAL_NAME}, {MANIFEST_NAME} and blobs/<sha256> as regular files"
+_LAYOUT = f"a bundle holds only {SEAL_NAME}, {SIGNATURE_NAME} (if signed), {MANIFEST_NAME} and blobs/<sha256> as regular files"
 _UNSEALED = (
     "bundle format 1 (made before sealed bundles): its blobs were checked against their digests, but its "
     "metadata (notes, timestamps, meta) carries no seal; export it again from this store to get a sealed bundle"
@@ -81,12 +83,14 @@ def export_bundle(
     *,
     with_lineage: bool = True,
     compress: bool | None = None,
+    signing_key: SigningKey | None = None,
 ) -> Path:
     """Write ``ref`` (and, with lineage, all its ancestors) with their artifacts and notes to one archive.
 
     ``path`` is the archive file, or an existing folder to write ``<name>-<N>.kinetome.tar.gz`` into.
     ``compress=None`` gzips when the file name ends in ``.gz`` or ``.tgz``. Returns the written path.
     Every blob is re-hashed on the way out, so a damaged store cannot produce a bundle.
+    With ``signing_key`` the bundle also carries an HMAC-SHA256 of its manifest under that key.
     """
     version = store.get(ref)
     chain = list(reversed(store.lineage(version.ref))) if with_lineage else [version]
@@ -98,7 +102,10 @@ def export_bundle(
     for owner in [*chain, *artifacts]:
         for e in owner.files:
             users.setdefault(e.digest, (e.size, f"{owner.ref} {e.role}"))
-    members = [bytes_member(SEAL_NAME, build_seal(manifest, version.identity)), bytes_member(MANIFEST_NAME, manifest)]
+    members = [bytes_member(SEAL_NAME, build_seal(manifest, version.identity))]
+    if signing_key is not None:
+        members.append(bytes_member(SIGNATURE_NAME, build_signature(manifest, signing_key)))
+    members.append(bytes_member(MANIFEST_NAME, manifest))
     for digest in sorted(users):
         size, used_by = users[digest]
         data = store._blobs.read(digest, size=size, used_by=used_by)
@@ -141,6 +148,7 @@ def _write_archive(target: Path, members: list, compress: bool | None) -> Path:
 @dataclass
 class _Archive:
     seal: bytes | None
+    signature: bytes | None
     manifest: bytes | None
     staged: dict[str, tuple[Path, int]]  # digest -> (staged file, size)
     tar_sha256: str
@@ -165,7 +173,7 @@ def _read_archive(source: Path, staging: Path, limits: _Limits) -> _Archive:
             raise BundleError(
                 f"{source} is not a readable tar or tar.gz archive ({e}); export it again with `kinetome export`"
             ) from None
-        archive = _Archive(None, None, {}, "")
+        archive = _Archive(None, None, None, {}, "")
         with tar:
             _read_members(source, tar, staging, limits, archive)
         try:
@@ -210,15 +218,13 @@ def _read_members(source: Path, tar: tarfile.TarFile, staging: Path, limits: _Li
 
 def _read_member(tar: tarfile.TarFile, member: tarfile.TarInfo, staging: Path, archive: _Archive) -> None:
     name = member.name
-    if name in (MANIFEST_NAME, SEAL_NAME):
+    if name in (MANIFEST_NAME, SEAL_NAME, SIGNATURE_NAME):
         if member.size > MAX_MANIFEST_BYTES:
             raise BundleError(f"member {name!r} is {member.size} bytes, over the limit of {MAX_MANIFEST_BYTES}; refused")
         buf = io.BytesIO()
         copy_member(tar, member, buf)
-        if name == MANIFEST_NAME:
-            archive.manifest = buf.getvalue()
-        else:
-            archive.seal = buf.getvalue()
+        field = {MANIFEST_NAME: "manifest", SEAL_NAME: "seal", SIGNATURE_NAME: "signature"}[name]
+        setattr(archive, field, buf.getvalue())
     elif match := _BLOB_MEMBER_RE.fullmatch(name):
         digest = match.group(1)
         path = staging / f"{len(archive.staged):06d}"
@@ -251,17 +257,22 @@ def _match_manifest(manifest: Manifest, staged: dict[str, tuple[Path, int]]) -> 
             )
 
 
-def _check_archive(source: Path, archive: _Archive) -> tuple[Manifest, list[str]]:
-    """Seal, manifest, blobs and the canonical form of the whole archive; returns (manifest, warnings)."""
+def _check_archive(source: Path, archive: _Archive, signatures: _Signatures) -> tuple[Manifest, SignatureCheck, list[str]]:
+    """Signature, seal, manifest, blobs and the canonical form of the whole archive;
+    returns (manifest, what the signature check found, warnings)."""
     assert archive.manifest is not None
     sealed = manifest_format(archive.manifest) >= 2
+    for member, content in ((SEAL_NAME, archive.seal), (SIGNATURE_NAME, archive.signature)):
+        if not sealed and content is not None:
+            raise BundleError(f"member {member!r} is not part of a format-1 bundle; the bundle was altered")
+    signed = check_signature(archive.signature, archive.manifest, signatures.key, required=signatures.required)
     if sealed:
         check_seal(archive.seal, archive.manifest)
-    elif archive.seal is not None:
-        raise BundleError(f"member {SEAL_NAME!r} is not part of a format-1 bundle; the bundle was altered")
     manifest = parse_manifest(archive.manifest)
     _match_manifest(manifest, archive.staged)
     members = [bytes_member(SEAL_NAME, archive.seal)] if sealed and archive.seal is not None else []
+    if archive.signature is not None:
+        members.append(bytes_member(SIGNATURE_NAME, archive.signature))
     members.append(bytes_member(MANIFEST_NAME, archive.manifest))
     members += [file_member(f"blobs/{d}", archive.staged[d][0], archive.staged[d][1]) for d in sorted(archive.staged)]
     if canonical_sha256(members) != archive.tar_sha256:
@@ -269,7 +280,14 @@ def _check_archive(source: Path, archive: _Archive) -> tuple[Manifest, list[str]
             f"{source} is not byte for byte the bundle its members describe (a header field, padding, the member "
             "order or trailing bytes were changed); refused: export it again"
         )
-    return manifest, [] if sealed else [_UNSEALED]
+    warnings = ([] if sealed else [_UNSEALED]) + ([signed.warning] if signed.warning else [])
+    return manifest, signed, warnings
+
+
+@dataclass(frozen=True)
+class _Signatures:
+    key: SigningKey | None  # the key to check a signature with
+    required: bool  # the store refuses bundles it cannot verify
 
 
 # -- import: planning and writing ------------------------------------------------------
@@ -321,7 +339,9 @@ def _origin(manifest: Manifest, thing) -> str:
     return canonical_json(origin)
 
 
-def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step], source: str) -> tuple[dict[str, int], list[int]]:
+def _insert_versions(
+    store: Store, manifest: Manifest, steps: list[_Step], source: str, signed: SignatureCheck
+) -> tuple[dict[str, int], list[int]]:
     conn = store._index
     rows: dict[str, int] = {}
     added: list[int] = []
@@ -340,7 +360,10 @@ def _insert_versions(store: Store, manifest: Manifest, steps: list[_Step], sourc
             )
             audit.append_entry(
                 conn, "imported", name=bv.name, subject=f"{bv.name}@{step.number}", created_at=now,
-                detail={"identity": bv.identity, "reason": bv.reason, "origin": json.loads(origin), "bundle": source},
+                detail={
+                    "identity": bv.identity, "reason": bv.reason, "origin": json.loads(origin), "bundle": source,
+                    "signature": signed.to_dict(),
+                },
             )
             for text, created_at in bv.notes:
                 index.insert_note(conn, row, text, created_at)
@@ -382,12 +405,14 @@ def _set_currents(store: Store, manifest: Manifest, rows: dict[str, int]) -> lis
     return done
 
 
-def _commit(store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]], renumber: bool, source: str) -> tuple:
+def _commit(
+    store: Store, manifest: Manifest, staged: dict[str, tuple[Path, int]], renumber: bool, source: str, signed: SignatureCheck
+) -> tuple:
     _plan(store, manifest, renumber)  # refuse conflicts before any blob is written
     for digest, (path, _) in staged.items():
         store._blobs.adopt(path, digest)
     with store._index.write_transaction():
-        rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber), source)
+        rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber), source, signed)
         _insert_artifacts(store, manifest, rows)
         currents = _set_currents(store, manifest, rows)
     return rows, added, currents
@@ -401,19 +426,24 @@ def import_bundle(
     max_member_bytes: int = MAX_MEMBER_BYTES,
     max_total_bytes: int = MAX_TOTAL_BYTES,
     max_members: int = MAX_MEMBERS,
+    signing_key: SigningKey | None = None,
 ) -> ImportReport:
     """Import a bundle; versions already here (same identity) are reused, new ones keep their
     number, identity, reason and origin. A number taken here by another version is refused
-    unless ``renumber`` (then the next free number). Any BundleError leaves the store unchanged.
+    unless ``renumber`` (then the next free number). A signed bundle is checked with ``signing_key``
+    (refused when signed with another key or changed after signing); where the store requires
+    signatures, an unsigned bundle or one without a key to check it is refused (``SignatureError``).
+    Any BundleError leaves the store unchanged.
     """
     source = Path(path).expanduser()
     if not source.is_file():
         raise BundleError(f"bundle {source} must be an existing file, got a missing path; check the path")
     staging = Path(tempfile.mkdtemp(prefix="import-", dir=store._blobs.staging_dir()))
     try:
+        signatures = _Signatures(signing_key, requires_signatures(store._index))
         archive = _read_archive(source, staging, _Limits(max_member_bytes, max_total_bytes, max_members))
-        manifest, warnings = _check_archive(source, archive)
-        rows, added, currents = _commit(store, manifest, archive.staged, renumber, source.name)
+        manifest, signed, warnings = _check_archive(source, archive, signatures)
+        rows, added, currents = _commit(store, manifest, archive.staged, renumber, source.name, signed)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return ImportReport(
@@ -422,4 +452,6 @@ def import_bundle(
         currents_set=tuple(currents),
         root_identity=manifest.root_identity,
         warnings=tuple(warnings),
+        signature=signed.status,
+        signed_with=signed.key_id,
     )

@@ -178,7 +178,7 @@ class ArchiveReader:
                 )
 
 
-_LAYOUT = "a bundle holds only seal.json, manifest.json and blobs/<sha256> as regular files"
+_LAYOUT = "a bundle holds only seal.json, signature.json (if signed), manifest.json and blobs/<sha256> as regular files"
 
 
 def check_member(member: tarfile.TarInfo, max_member_bytes: int) -> None:

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 from kinetome.library.errors import InvalidInputError, StoreIntegrityError
 from kinetome.library.store import audit, index
+from kinetome.library.store.settings import SETTING_NAMES
 from kinetome.library.store.index_backend import IndexBackend
 from kinetome.library.store.store import Store
 from kinetome.library.store.verify import VerifyReport
@@ -136,6 +137,10 @@ def copy_store(source: Store, target: Store) -> CopyReport:
         _check_empty(target)
         counts = _copy_rows(source._index, conn)
         index.set_store_info(conn, "store_id", source.store_id)
+        for key in SETTING_NAMES.values():  # store settings travel with the store
+            value = index.store_info(source._index, key)
+            if value is not None:
+                index.set_store_info(conn, key, value)
         audit.insert_entries(conn, entries)
         audit.append_entry(
             conn, "copied", name=None, subject="store", created_at=index.utc_now(),

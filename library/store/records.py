@@ -251,3 +251,5 @@ class ImportReport:
     currents_set: tuple[str, ...]
     root_identity: str
     warnings: tuple[str, ...] = ()
+    signature: str = "unsigned"  # "verified", "unsigned" or "unchecked" (signed, no key given)
+    signed_with: str | None = None  # the key id the bundle names

@@ -17,6 +17,7 @@ from kinetome.library.store.index_backend import IndexBackend
 from kinetome.library.store.location import check_database_url, is_database_url
 from kinetome.library.store.metadata import canonical_meta
 from kinetome.library.store.names import NOMINAL_TASK, format_ref, parse_pin, parse_ref, validate_name, validate_role, validate_task
+from kinetome.library.store.settings import requires_signatures, set_require_signatures, store_settings
 from kinetome.library.store.records import REASONS, AddResult, FileEntry, Note, SkillSummary, VersionRecord
 from kinetome.library.store.store_artifacts import ArtifactMethods
 from kinetome.library.store.store_currents import CurrentMethods
@@ -398,6 +399,18 @@ class Store(CurrentMethods, ArtifactMethods):
     def audit_log(self, name: str | None = None) -> list[audit.AuditEntry]:
         """The audit log, oldest first: every entry, or those about skill ``name``."""
         return audit.load_entries(self._index, None if name is None else parse_ref(name)[0])
+
+    def settings(self) -> dict[str, bool]:
+        """This store's settings (``require_signatures``: imports must be signed with the team key)."""
+        return store_settings(self._index)
+
+    @property
+    def requires_signatures(self) -> bool:
+        return requires_signatures(self._index)
+
+    def set_require_signatures(self, on: bool) -> bool:
+        """Require signed bundles on import (or stop requiring them); audited. Returns whether it changed."""
+        return set_require_signatures(self._index, bool(on))
 
     def verify(self) -> VerifyReport:
         """Re-hash every blob, recompute every identity and artifact digest from the index rows,
