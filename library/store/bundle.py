@@ -20,7 +20,7 @@ import zlib
 from dataclasses import dataclass
 from pathlib import Path
 
-from kinetome.library.errors import BundleError, InvalidInputError
+from kinetome.library.errors import BundleError, InvalidInputError, SignatureError
 from kinetome.library.file_modes import apply_umask
 from kinetome.library.store import audit, index
 from kinetome.library.store.bundle_tar import (
@@ -412,6 +412,11 @@ def _commit(
     for digest, (path, _) in staged.items():
         store._blobs.adopt(path, digest)
     with store._index.write_transaction():
+        if signed.status != "verified" and requires_signatures(store._index):  # turned on while this import ran
+            raise SignatureError(
+                "this store began requiring signed bundles while the bundle was being checked, and it is "
+                f"{signed.status}: refused; import it again with the team's key (--signing-key FILE)"
+            )
         rows, added = _insert_versions(store, manifest, _plan(store, manifest, renumber), source, signed)
         _insert_artifacts(store, manifest, rows)
         currents = _set_currents(store, manifest, rows)

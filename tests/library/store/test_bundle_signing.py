@@ -279,3 +279,49 @@ def test_copy_store_keeps_the_requirement(tmp_path):
         a.set_require_signatures(True)
         assert copy_store(a, b).ok
         assert b.requires_signatures is True
+
+
+WAVE1_BUNDLE = Path(__file__).resolve().parents[2] / "fixtures" / "wave1" / "arm-reach-tray-2.bundle.tar.gz"
+
+
+def test_old_unsealed_bundles_cannot_pass_as_signed_or_skip_the_requirement(target, keys, tmp_path):
+    """A format-1 bundle (made before seals) is unsigned: refused where signatures are required;
+    a signature added to one is refused too."""
+    target.set_require_signatures(True)
+    _refused(target, WAVE1_BUNDLE, keys["team"], r"not signed and this store requires signed bundles")
+    members = _members(WAVE1_BUNDLE)
+    manifest = dict(members)["manifest.json"]
+    from kinetome.library.store.signing import build_signature
+
+    path = tmp_path / "old-signed.tar"
+    with open(path, "wb") as f:
+        write_canonical_tar(f, [bytes_member("signature.json", build_signature(manifest, keys["team"]))] + [bytes_member(n, d) for n, d in members])
+    before = snapshot(target)
+    with pytest.raises(BundleError, match=r"'signature.json' is not part of a format-1 bundle"):
+        import_bundle(target, path, signing_key=keys["team"])
+    assert snapshot(target) == before
+    target.set_require_signatures(False)
+    assert import_bundle(target, WAVE1_BUNDLE, signing_key=keys["team"]).signature == "unsigned"
+
+
+def test_a_requirement_switched_on_during_an_import_is_honoured(bundles, target, monkeypatch):
+    """The setting is read again inside the import's write transaction (another user may turn it on meanwhile)."""
+    from kinetome.library.store import bundle as bundle_module
+
+    real = bundle_module.requires_signatures
+    calls = []
+
+    def switched_on_after_the_checks(conn):
+        calls.append(1)
+        if len(calls) == 1:
+            return False
+        target._index.execute("SELECT 1")  # the transaction is open here
+        return True
+
+    monkeypatch.setattr(bundle_module, "requires_signatures", switched_on_after_the_checks)
+    rows = target._index.execute("SELECT count(*) FROM versions").fetchone()[0]
+    entries = len(target.audit_log())
+    with pytest.raises(SignatureError, match=r"began requiring signed bundles while the bundle was being checked, and it is unsigned"):
+        import_bundle(target, bundles["unsigned"])
+    assert len(calls) == 2 and real(target._index) is False
+    assert target._index.execute("SELECT count(*) FROM versions").fetchone()[0] == rows and len(target.audit_log()) == entries
