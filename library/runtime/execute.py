@@ -158,12 +158,13 @@ def _run_segment(
     seg.reason[offered[~accepted]] = int(EndReason.REFUSED)
     running = offered[accepted]
     state = take_states(start, accepted)
+    dt = rig.dt  # read once: a property that reads the model
     for t in range(skill.max_steps):
         if running.size == 0:
             break
         draws = noise.draw(running) if noise is not None else None
         sensed = state if streams is None else streams.sense(state, running, _inputs(skill))
-        action = skill.controller.act(sensed, np.full(running.size, t * rig.dt), noise=draws)
+        action = skill.controller.act(sensed, np.full(running.size, t * dt), noise=draws)
         seg.commanded(running, np.asarray(action, dtype=np.float64), t)
         if streams is not None:
             action = streams.command(action, running)
