@@ -22,7 +22,9 @@ torch.nn.functional.linear for this run only (results are then no longer
 batch-size invariant), to show what that kernel costs.
 
 Targets: one thread >= 1.0x the gymnasium loop; two threads >= 1.7x the
-one-thread figure. Prints a markdown table: loop, steps/s, ratio.
+one-thread figure, and >= 90% of the 2-thread scaling of MuJoCo's own rollout module
+on the same model and start states (open loop), measured in the same run. Prints a
+markdown table: loop, steps/s, ratio.
 """
 
 from __future__ import annotations
@@ -138,6 +140,31 @@ def runtime_rate(rig, skill, starts, workers: int) -> tuple[float, int]:
     return steps / wall, steps
 
 
+def rollout_rate(rig, starts, nstep: int, nthread: int) -> float:
+    """MuJoCo's own rollout module on the same model and start states, open loop (zero controls):
+    physics steps/s on ``nthread`` threads (1: the caller's thread only)."""
+    import mujoco
+    from mujoco import rollout
+
+    model = rig.model
+    datas = [mujoco.MjData(model) for _ in range(max(1, nthread))]
+    qpos, qvel = starts
+    spec = mujoco.mjtState.mjSTATE_FULLPHYSICS
+    state = np.zeros((qpos.shape[0], mujoco.mj_stateSize(model, spec)))
+    d = datas[0]
+    for i in range(qpos.shape[0]):
+        mujoco.mj_resetData(model, d)
+        d.qpos[:], d.qvel[:] = qpos[i], qvel[i]
+        mujoco.mj_forward(model, d)
+        mujoco.mj_getState(model, d, state[i], spec)
+    control = np.zeros((qpos.shape[0], nstep, model.nu))
+    with rollout.Rollout(nthread=0 if nthread == 1 else nthread) as r:
+        r.rollout(model, datas, state, control[:, :5])  # warm-up
+        t = time.perf_counter()
+        r.rollout(model, datas, state, control)
+        return qpos.shape[0] * nstep / (time.perf_counter() - t)
+
+
 def profile(rig, skill, starts, workers: int, top: int) -> str:
     from kinetome.library.runtime.execute import run_skill
 
@@ -196,6 +223,14 @@ def main() -> None:
                 p_env, p_kind, p_w = a.profile.rsplit(":", 2)
                 if p_env == env_id and p_kind == kind:
                     print(profile(rig, skill, starts, int(p_w), a.top))
+        if len(workers) > 1 and 1 in workers:  # the scaling reference of issue 18: MuJoCo's rollout module, same run
+            rig, _, starts = build(env_id, kinds[0], a.max_steps, a.episodes)
+            nstep = a.max_steps * rig.frame_skip // 2
+            scaling = {w: rollout_rate(rig, starts, nstep, w) for w in workers}
+            for w in workers:
+                note = "" if w == 1 else f" ({scaling[w] / scaling[1]:.2f}x 1 thread; target for run_skill: >= {0.9 * scaling[w] / scaling[1]:.2f}x)"
+                rows.append((f"{env_id}: mujoco.rollout open loop, {a.episodes} states, {w} thread{'s' if w > 1 else ''} (physics steps/s)",
+                             scaling[w], "-" + note))
         ref = 0.5 * (ref_before + gym_loop(env_id, a.ref_steps))
         rows.append((f"{env_id}: gymnasium env.step, constant action", ref, "1.00"))
         one = {kind: rate for kind, w, rate, _ in results if w == 1}
