@@ -41,7 +41,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
                    help="store the proposal as a new version (lineage reason initiation-learned) current for this task")
     p.add_argument("--out", metavar="DIR", help="write result.json and initiation.png (start states and both boundaries) here")
     p.add_argument("--seed", type=int, default=0, help="seed of the initial states, widening and splits (default 0)")
-    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--threads", type=int, default=1, metavar="N", help="MuJoCo threads in this process (default 1); results are identical")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_learn)
 
@@ -55,7 +55,7 @@ def _learn(args: argparse.Namespace) -> int:
         result = learn_initiation(
             args.ref, store=store, variant=args.variant, initial_states=args.initial_states, widen=args.widen,
             episodes=args.episodes, seed=args.seed, precision=args.precision, confidence=args.confidence,
-            max_clauses=args.max_clauses, adopt=args.adopt, out=args.out, workers=args.workers,
+            max_clauses=args.max_clauses, adopt=args.adopt, out=args.out, workers=args.threads,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

@@ -50,7 +50,9 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
                         "auto (default) searches oscillator (cpg) skills and uses the actor-critic for the rest")
     p.add_argument("--seed", type=int, default=0, help="training and measurement seed (default 0)")
     p.add_argument("--from-scratch", action="store_true", help="re-initialise the parameters instead of starting from the stored values")
-    p.add_argument("--workers", type=int, default=None, help="simulation threads (default 1); with --variants: worker processes, one child each at a time")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="with --variants: N Ray worker processes, one child each at a time (without --variants an old spelling of --threads)")
+    p.add_argument("--threads", type=int, default=None, metavar="N", help="a single retrain: MuJoCo threads in this process (default 1)")
     p.add_argument("--config", metavar="FILE", help="training YAML (configs/training/); defaults suit PD/CPG skills")
     p.add_argument("--out", metavar="DIR", help="folder for the curve and checkpoints (default: a new ./kinetome-retrain/NAME-N/VARIANT/run-K per run)")
     p.add_argument("--resume", action="store_true", help="continue an interrupted run: the one in --out, else the newest unfinished run of this skill, variant and store (named before training)")
@@ -66,7 +68,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     )
     p.add_argument("config", metavar="CONFIG.yaml", help="training YAML with skills: and task: (e.g. configs/training/options_small.yaml)")
     p.add_argument("--seed", type=int, help="training seed (default: the config's seed)")
-    p.add_argument("--workers", type=int, default=1, help="simulation threads (default 1)")
+    p.add_argument("--threads", type=int, default=1, metavar="N", help="MuJoCo threads in this process (default 1)")
+    add_old_option(p, "--workers", "--threads", dest="threads", type=int)
     p.add_argument("--out", metavar="DIR", help="where curves and checkpoints go (default ./kinetome-train/CONFIG)")
     p.add_argument("--json", action="store_true", help=JSON_HELP)
     p.set_defaults(handler=_train)
@@ -103,6 +106,7 @@ def _retrain(args: argparse.Namespace) -> int:
         return _retrain_batch(args)
     if args.address is not None:
         raise InvalidInputError("--address applies to a batch (--variants); a single retrain runs in this process")
+    threads = _single_retrain_threads(args)
     bar, on_update = _bar(f"retrain {args.ref}", args)
     result = retrain(
         args.ref,
@@ -112,7 +116,7 @@ def _retrain(args: argparse.Namespace) -> int:
         deliberation_cost=args.deliberation_cost,
         seed=args.seed,
         from_scratch=args.from_scratch,
-        workers=args.workers or 1,
+        workers=threads,
         config=args.config,
         initial_states=args.initial_states,
         out=args.out,
@@ -138,13 +142,30 @@ def _retrain(args: argparse.Namespace) -> int:
     return 0
 
 
+def _single_retrain_threads(args: argparse.Namespace) -> int:
+    """MuJoCo threads of a single retrain: --threads, or --workers read as its old spelling (with a warning)."""
+    import warnings
+
+    from ..errors import InvalidInputError
+    from ..renamed_keys import RenamedKeyWarning
+
+    if args.workers is None:
+        return args.threads or 1
+    if args.threads is not None:
+        raise InvalidInputError("--workers without --variants is the old spelling of --threads; give only --threads N")
+    warnings.warn(RenamedKeyWarning("'--workers' without --variants is an old spelling; write '--threads' instead "
+                                    "(--workers N means Ray worker processes, for a batch)"), stacklevel=2)
+    return args.workers
+
+
 def _retrain_batch(args: argparse.Namespace) -> int:
     from ..api import open_store
     from ..errors import InvalidInputError
     from ..lineage.batch import retrain_batch
 
-    if args.resume or args.deliberation_cost:
-        raise InvalidInputError("--resume and --deliberation-cost apply to a single retrain (--variant), not to a batch (--variants)")
+    if args.resume or args.deliberation_cost or args.threads is not None:
+        raise InvalidInputError("--resume, --deliberation-cost and --threads apply to a single retrain (--variant), not to a batch "
+                                "(--variants; each child trains on one thread: use --workers N to run several at once)")
     if not args.json:
         print(f"retraining {args.ref} on {len(args.variants)} variants ...", file=sys.stderr)
     result = retrain_batch(
@@ -193,7 +214,7 @@ def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
 
     bar, on_update = _bar(f"train {args.config}", args)
-    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=args.workers, out=args.out, progress=on_update)
+    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=args.threads, out=args.out, progress=on_update)
     bar.close()
     if args.json:
         print_json(result)

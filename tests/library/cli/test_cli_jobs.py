@@ -241,3 +241,32 @@ def test_retrain_of_a_pd_skill_defaults_to_the_actor_critic() -> None:
 
     with pytest.raises(InvalidInputError, match="--method must be auto or one of actor-critic, search"):
         choose_method("cpg", "evolution")
+
+
+def test_threads_and_workers_mean_one_thing_on_retrain_and_train() -> None:
+    import warnings
+
+    from kinetome.library.cli.main import build_parser
+    from kinetome.library.renamed_keys import RenamedKeyWarning
+
+    # --threads: MuJoCo threads in this process; --workers: Ray worker processes (a retrain batch only).
+    # The old --workers of a single retrain and of train (threads) still works, with one warning.
+    from kinetome.library.cli.train_cmds import _single_retrain_threads
+    from kinetome.library.errors import InvalidInputError
+
+    parse = build_parser().parse_args
+    assert _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml", "--threads", "2"])) == 2
+    assert _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml"])) == 1
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        assert _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml", "--workers", "3"])) == 3
+        assert parse(["train", "c.yaml", "--workers", "2"]).threads == 2
+    said = [str(w.message) for w in caught if w.category is RenamedKeyWarning]
+    assert said == ["'--workers' without --variants is an old spelling; write '--threads' instead (--workers N means Ray "
+                    "worker processes, for a batch)", "'--workers' is an old spelling; write '--threads' instead"]
+    with pytest.raises(InvalidInputError, match="give only --threads"):
+        _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml", "--workers", "3", "--threads", "2"]))
+    assert parse(["train", "c.yaml", "--threads", "2"]).threads == 2
+    assert parse(["learn-initiation", "x", "--threads", "2"]).threads == 2
+    with pytest.raises(SystemExit):
+        parse(["learn-initiation", "x", "--workers", "2"])
