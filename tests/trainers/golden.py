@@ -41,6 +41,10 @@ def _array(value: np.ndarray) -> dict[str, Any]:
     if not np.issubdtype(value.dtype, np.floating):
         return {**head, "exact": _exact(np.ascontiguousarray(value).tobytes())}
     flat = value.astype(np.float64).ravel()
+    finite = np.isfinite(flat)
+    if not finite.all():  # NaN/inf kept exactly (where and what), the sums over the finite rest
+        head["nonfinite"] = _exact(np.flatnonzero(~finite).tobytes() + flat[~finite].tobytes())
+        flat = np.where(finite, flat, 0.0)
     weights = np.sin(np.arange(1, flat.size + 1, dtype=np.float64))  # position matters: a shuffle changes this sum
     return {**head, "sum": float(flat.sum()), "abs": float(np.abs(flat).sum()), "weighted": float(flat @ weights)}
 
@@ -108,6 +112,8 @@ def differences(expected: Any, observed: Any, where: str = "") -> list[str]:
     if isinstance(expected, dict) and "abs" in expected and isinstance(observed, dict) and "abs" in observed:
         if (expected["dtype"], expected["shape"]) != (observed["dtype"], observed["shape"]):
             return [f"{where}: {expected['dtype']}{expected['shape']} != {observed['dtype']}{observed['shape']}"]
+        if expected.get("nonfinite") != observed.get("nonfinite"):
+            return [f"{where}: NaN/inf entries differ"]
         allowed = RELATIVE_TOLERANCE * max(expected["abs"], observed["abs"]) + 1e-12
         return [f"{where}.{k}: {expected[k]!r} != {observed[k]!r}" for k in ("sum", "abs", "weighted")
                 if abs(expected[k] - observed[k]) > allowed]
@@ -121,6 +127,8 @@ def differences(expected: Any, observed: Any, where: str = "") -> list[str]:
         return [d for i, (e, o) in enumerate(zip(expected, observed)) for d in differences(e, o, f"{where}[{i}]")]
     both_numbers = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (expected, observed))
     if both_numbers and (isinstance(expected, float) or isinstance(observed, float)):
+        if math.isnan(expected) or math.isnan(observed):  # a NaN never passes a tolerance test: match it exactly
+            return [] if math.isnan(expected) and math.isnan(observed) else [f"{where}: {expected!r} != {observed!r}"]
         ok = math.isclose(expected, observed, rel_tol=RELATIVE_TOLERANCE, abs_tol=1e-9)
         return [] if ok else [f"{where}: {expected!r} != {observed!r}"]
     return [] if expected == observed else [f"{where}: {expected!r} != {observed!r}"]

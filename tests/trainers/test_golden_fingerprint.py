@@ -36,3 +36,11 @@ def test_safetensors_bytes_are_compared_by_tensor():
     b = {"w": a["w"] + 1e-15, "n": a["n"]}
     assert differences(digest(save(a)), digest(save(b))) == []
     assert differences(digest(save(a)), digest(save({**a, "n": np.array([4], dtype=np.int64)})))
+
+
+def test_nan_entries_must_match_and_do_not_blind_the_sums():
+    values = np.array([1.0, np.nan, 3.0, -2.0])
+    assert differences(digest(values), digest(values.copy())) == []
+    assert differences(digest(values), digest(np.array([1.0, np.nan, 3.5, -2.0])))  # a NaN elsewhere still compares the rest
+    assert differences(digest(values), digest(np.array([1.0, 2.0, 3.0, -2.0])))
+    assert differences(digest({"loss": float("nan")}), digest({"loss": 0.5}))
