@@ -153,6 +153,8 @@ def _step(ctx: Any, p: _Particles, i: int, tm: TaskModels, rng: np.random.Genera
     """Run skill ``i`` on the alive particles under its models."""
     skill, models = ctx.skills[i], tm.models
     rows = np.flatnonzero(p.alive)
+    if rows.size == 0:  # every particle failed earlier: nothing to ask the models
+        return
     starts = {k: v[rows] for k, v in p.state.items()}
     outside = ~models.support.inside(starts)
     pred = models.duration.predict(starts)

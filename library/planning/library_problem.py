@@ -18,7 +18,7 @@ import numpy as np
 
 from ..errors import InvalidInputError, Problem
 from .links import FactCache, region_fact
-from .search import BROKEN, IMPOSSIBLE, LinkFact, PlanProblem
+from .search import BROKEN, OPEN, LinkFact, PlanProblem
 from .skill_steps import LibrarySkill
 
 __all__ = ["PlanTask", "LibraryProblem", "build_problem", "parse_goal", "CHECK_RESULT_KIND"]
@@ -158,7 +158,7 @@ def _pair_fact(rig: Any, skills: Mapping[str, LibrarySkill], goal: Any, broken: 
 
     def compute(a: str, b: str | None) -> LinkFact:
         if b is not None and (a, b) in broken:
-            return LinkFact(BROKEN, f"stored check result {broken[(a, b)]} on this task: {a} -> {b} breaks")
+            return screen(a, b)
         sa = skills[a].loaded
         if sa.learned_stop is not None:
             return LinkFact("open", f"{a} has a learned stop (stochastic): measured, not proved")
@@ -171,9 +171,14 @@ def _pair_fact(rig: Any, skills: Mapping[str, LibrarySkill], goal: Any, broken: 
             target, const_b = bind_parameters(sb.starts_when, sb.parameters, state, "_b_")
             name = f"{b} starts_when"
         return region_fact(stop, target, premises=envelope.premises, declare=declare, constants={**const_a, **const_b},
-                           bounds=envelope.bounds, timeout_ms=timeout_ms, source=a, target_name=name)
+                           bounds=envelope.bounds, timeout_ms=timeout_ms, source=a, target_name=name, containment=b is None)
 
-    return FactCache(compute)
+    def screen(a: str, b: str) -> LinkFact:
+        if (a, b) in broken:
+            return LinkFact(BROKEN, f"stored check result {broken[(a, b)]} on this task: {a} -> {b} breaks")
+        return LinkFact(OPEN)
+
+    return FactCache(compute), screen
 
 
 def _explain(skills: Mapping[str, LibrarySkill], goal: Any):
@@ -206,10 +211,11 @@ def build_problem(store: Any, task: PlanTask, *, particles: int = 200, seed: int
     for ref in refs:
         models, why = task_models(store, ref, key)
         skills[ref] = LibrarySkill(load_skill(store, ref, rig=rig), rig, models, why, seed=seed, confidence=confidence)
-    facts = _pair_fact(rig, skills, goal, _broken_pairs(store, refs, key), timeout_ms)
+    facts, screen = _pair_fact(rig, skills, goal, _broken_pairs(store, refs, key), timeout_ms)
     begin = tuple(next(r for r in refs if _base(r) == _base(b)) for b in task.begin_with)
     problem = PlanProblem(
         skills=skills, start=_start_particles(rig, start, particles, seed), in_goal=lambda s: goal.evaluate(s),
         link=lambda a, b: facts(a, b), goal_link=lambda a: facts(a, None), explain=_explain(skills, goal), begin_with=begin,
+        screen=screen,
     )
     return LibraryProblem(problem, rig, start, skills, goal, key, skipped, facts)

@@ -41,21 +41,23 @@ def region_fact(
     timeout_ms: int = 5_000,
     source: str = "A",
     target_name: str = "B starts_when",
+    containment: bool = True,
 ) -> LinkFact:
-    """``proved`` / ``impossible`` / ``open`` for stop region ``stop`` against predicate ``target``."""
+    """``proved`` / ``impossible`` / ``open`` for stop region ``stop`` against predicate ``target``
+    (``containment=False`` asks only whether they can meet: one solver call)."""
     from ..predicates.smt import SmtContext, check_implication
 
     def ask(conclusion: Any) -> Any:
         ctx = SmtContext(dict(declare), constants=dict(constants or {}))
         return check_implication([stop, *premises], conclusion, ctx, bounds=dict(bounds or {}), timeout_ms=timeout_ms)
 
-    inside = ask(target)
-    if inside.status == "proved":
+    inside = ask(target) if containment else None
+    if inside is not None and inside.status == "proved":
         return LinkFact(PROVED, f"z3: every state {source} may stop in satisfies {target_name}")
     outside = ask(negation(target))
     if outside.status == "proved":
         return LinkFact(IMPOSSIBLE, f"z3: no state {source} may stop in satisfies {target_name} (the regions do not meet)")
-    if "unknown" in (inside.status, outside.status):
+    if "unknown" in (getattr(inside, "status", ""), outside.status):
         return LinkFact(OPEN, f"z3 could not decide within {timeout_ms} ms; measured")
     return LinkFact(OPEN, f"some states {source} may stop in satisfy {target_name}, some do not; measured")
 

@@ -20,10 +20,13 @@ queue best first. Children are scored only when they reach the front of the queu
 
 A skill never follows itself (it would start where its own stop put it), and a
 prefix whose last stop region is proved to lie in the goal is not extended (every
-extension is dominated). Pair facts
-prune before any scoring: a handoff A -> B whose stop region and
-initiation set cannot meet (``impossible``), or that stored evidence says breaks
-(``broken``), is never tried; a ``proved`` containment skips the acceptance test.
+extension is dominated). Stored evidence that a handoff A -> B breaks (``broken``) prunes it
+before any scoring. The acceptance test on the particles is cheap, so z3 is asked about a
+handoff only when every particle was refused: a proof that A's stop region and B's
+initiation set never meet (``impossible``) is cached per pair and prunes B after A under
+every later prefix without measuring again. For the goal, z3 decides first: ``proved``
+(every stop state of the last skill lies in the goal: no goal test, and no extension),
+``impossible`` (never tried), else measured.
 """
 
 from __future__ import annotations
@@ -116,6 +119,7 @@ class PlanProblem:
     goal_link: Callable[[str], LinkFact]
     explain: Callable[[str | None, Mapping[str, np.ndarray], int], str] | None = None
     begin_with: tuple[str, ...] = ()  # every candidate starts with these skills, in this order
+    screen: Callable[[str, str], LinkFact] | None = None  # cheap facts asked first (stored check results)
 
 
 @dataclass(frozen=True)
@@ -286,10 +290,13 @@ def score_sequence(problem: PlanProblem, skills: Sequence[str], *, seed: int = 0
     p = start_particles(problem.start)
     prev: str | None = None
     for i, ref in enumerate(skills):
-        fact = LinkFact(OPEN) if prev is None else problem.link(prev, ref)
-        if fact.status in (IMPOSSIBLE, BROKEN):
+        fact = LinkFact(OPEN) if prev is None or problem.screen is None else problem.screen(prev, ref)
+        if fact.status == BROKEN:
             return replace_mass(p, np.zeros_like(p.mass)), Failure(tuple(skills[:i]), (prev or "initial states", ref), fact.reason, p.success)
-        p, _ = _extend(problem, p, ref, fact, _child_rng(seed, skills[: i + 1]))
+        before = p.success
+        p, lost = _extend(problem, p, ref, fact, _child_rng(seed, skills[: i + 1]))
+        if lost:
+            return p, Failure(tuple(skills[:i]), (prev or "initial states", ref), lost, before)
         prev = ref
     fact = problem.goal_link(skills[-1])
     if fact.status == IMPOSSIBLE:
@@ -373,7 +380,11 @@ class _Search:
         if len(e.skills) >= len(fixed) and self.fact(e.skills[-1], GOAL).status == PROVED:
             return  # every extension is dominated: success cannot rise, steps cannot fall
         # a skill never follows itself: it would start where its own stop put it
-        nxt = [fixed[len(e.skills)]] if len(e.skills) < len(fixed) else [r for r in self.problem.skills if r != e.skills[-1]]
+        last = e.skills[-1]
+        nxt = [fixed[len(e.skills)]] if len(e.skills) < len(fixed) else [r for r in self.problem.skills if r != last]
+        known = [r for r in nxt if self.facts.get((last, r), LinkFact(OPEN)).status in (IMPOSSIBLE, BROKEN)]
+        self.pruned += len(known)
+        nxt = [r for r in nxt if r not in known]
         for ref in nxt:
             self.push(e.key, (*e.skills, ref), "prefix", parent=e.particles)
 
@@ -382,7 +393,10 @@ class _Search:
         if len(e.skills) == 1 and target != GOAL:
             return LinkFact(OPEN)
         a = e.skills[-1] if target == GOAL else e.skills[-2]
-        f = self.fact(a, target)
+        if target == GOAL:
+            f = self.fact(a, target)
+        else:  # z3 is asked about a handoff only once its particles are all refused (see score_prefix)
+            f = self.facts.get((a, target)) or (self.problem.screen(a, target) if self.problem.screen else LinkFact(OPEN))
         if f.status in (IMPOSSIBLE, BROKEN):
             self.pruned += 1
             prefix = e.skills if target == GOAL else e.skills[:-1]
@@ -400,6 +414,12 @@ class _Search:
         p, lost = _extend(self.problem, parent, ref, fact, _child_rng(self.settings.seed, e.skills))
         if lost:
             source = e.skills[-2] if len(e.skills) > 1 else "initial states"
+            if lost == "refused" and len(e.skills) > 1:
+                f = self.fact(source, ref)
+                if f.status == IMPOSSIBLE:  # a proof, cached for every later prefix ending in ``source``
+                    self.pruned += 1
+                    self.fail(e.skills[:-1], (source, ref), f.reason, parent.success, pruned=True)
+                    return
             self.fail(e.skills[:-1], (source, ref), self.lost_text(lost, e, parent, p), parent.success)
             return
         self.push(_key(p, len(e.skills), self.settings.success_tolerance), e.skills, "scored", particles=p)

@@ -75,7 +75,11 @@ class LibrarySkill:
 
         models = self.models.models
         pred = models.duration.predict(states)
-        drawn, failed = stopped_end_states(models, self.loaded, dict(states), rng)
+        if models.end_state is None:  # it never stopped while fitted: no stop state to hand over (only the outcome floor)
+            n = len(next(iter(states.values())))
+            drawn, failed = {}, np.ones(n, dtype=bool)
+        else:
+            drawn, failed = stopped_end_states(models, self.loaded, dict(states), rng)
         ends = {k: v for k, v in drawn.items() if k in states}
         return StepResult(
             p_stop=np.asarray(pred["p_stopped"], dtype=np.float64), duration=np.asarray(pred["duration"], dtype=np.float64),
