@@ -24,7 +24,8 @@ extension is dominated). Stored evidence that a handoff A -> B breaks (``broken`
 before any scoring. The acceptance test on the particles is cheap, so z3 is asked about a
 handoff only when every particle was refused: a proof that A's stop region and B's
 initiation set never meet (``impossible``) is cached per pair and prunes B after A under
-every later prefix without measuring again. For the goal, z3 decides first: ``proved``
+every later prefix without measuring again. A skill that would end the chain at the depth
+limit is not tried when its stop region never meets the goal. For the goal, z3 decides first: ``proved``
 (every stop state of the last skill lies in the goal: no goal test, and no extension),
 ``impossible`` (never tried), else measured.
 """
@@ -383,6 +384,9 @@ class _Search:
         last = e.skills[-1]
         nxt = [fixed[len(e.skills)]] if len(e.skills) < len(fixed) else [r for r in self.problem.skills if r != last]
         known = [r for r in nxt if self.facts.get((last, r), LinkFact(OPEN)).status in (IMPOSSIBLE, BROKEN)]
+        if len(e.skills) + 1 == self.settings.max_length and len(e.skills) >= len(fixed):
+            # the child would have to end the chain: one whose stop region never meets the goal is useless
+            known += [r for r in nxt if r not in known and self.fact(r, GOAL).status == IMPOSSIBLE]
         self.pruned += len(known)
         nxt = [r for r in nxt if r not in known]
         for ref in nxt:
