@@ -264,8 +264,8 @@ def main(argv: list[str] | None = None) -> int:
           f"{found.scored / s['search_s']:.1f}/s ({found.scored} scored, {found.pruned} handoffs pruned by z3, {s['search_s']:.1f} s incl. z3 and loading); "
           f"enumeration {e['count'] / e['enum_s']:.0f}/s counting zero-mass subtrees | reported |")
     print(f"| time to a confirmed chain: plan (search + check of the winner) vs model-scored exhaustive enumeration to depth 4 + checks of its best 5, same run | "
-          f"`python tests/bench/bench_plan.py` | {s['total_s']:.1f} s vs {e['total_s']:.1f} s = 1/{1 / ratio:.1f} ({ratio:.3f}); both found "
-          f"{' -> '.join(win.chain.skills) if win else 'none'} | <= 1/20 |")
+          f"`python tests/bench/bench_plan.py` | {s['total_s']:.1f} s vs {e['total_s']:.1f} s = 1/{1 / ratio:.1f} ({ratio:.3f}); plan chose "
+          f"{' -> '.join(win.chain.skills) if win else 'none'}, enumeration {' -> '.join(ewin.chain.skills) if ewin else 'none'} | <= 1/20 |")
     naive = per * total + (e["total_s"] - e["enum_s"])
     print(f"| same, against enumeration that scores each of the {total:,} sequences on its own (no shared prefixes; "
           f"extrapolated from 300 sampled sequences) + the same 5 checks | `python tests/bench/bench_plan.py` | "
