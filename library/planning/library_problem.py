@@ -48,7 +48,6 @@ class LibraryProblem:
     skills: dict[str, LibrarySkill]
     goal: Any
     task_key: dict[str, Any]
-    skipped: list[str] = field(default_factory=list)
     facts: FactCache | None = None
 
 
@@ -69,7 +68,7 @@ def _robot(env: str) -> tuple[str, int]:
     return str(rig.metadata.get("robot")), int(rig.n_act)
 
 
-def _candidate_refs(store: Any, rig: Any, task: PlanTask, skipped: list[str]) -> list[str]:
+def _candidate_refs(store: Any, rig: Any, task: PlanTask) -> list[str]:
     """Refs of the candidate skills: the listed ones, or every stored skill of the task's robot."""
     from ..errors import KinetomeError
 
@@ -202,8 +201,7 @@ def build_problem(store: Any, task: PlanTask, *, particles: int = 200, seed: int
     rig = task_rig(task.env, load_variant_file(task.variant))
     goal = parse_goal(task.goal, rig)
     start = _start_distribution(task, rig)
-    skipped: list[str] = []
-    refs = _candidate_refs(store, rig, task, skipped)
+    refs = _candidate_refs(store, rig, task)
     if not refs:
         raise InvalidInputError([Problem("--skills", None, "skills", f"no stored skill runs the robot of {rig.env_id}", "register skills of this robot first (kinetome register configs/skills/*.yaml)")])
     key = model_task(rig)
@@ -218,4 +216,4 @@ def build_problem(store: Any, task: PlanTask, *, particles: int = 200, seed: int
         link=lambda a, b: facts(a, b), goal_link=lambda a: facts(a, None), explain=_explain(skills, goal), begin_with=begin,
         screen=screen,
     )
-    return LibraryProblem(problem, rig, start, skills, goal, key, skipped, facts)
+    return LibraryProblem(problem, rig, start, skills, goal, key, facts)
