@@ -10,7 +10,7 @@ and from check results stored on this task that say a handoff breaks.
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
 
