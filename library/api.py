@@ -615,7 +615,7 @@ def plan_chain(
     confidence: float = 0.95,
     seed: int = 0,
     name: str = "planned-chain",
-    workers: int = 1,
+    threads: int = 1,
     out: str | Path | None = None,
     progress: Any = None,
 ) -> Any:
@@ -644,7 +644,7 @@ def plan_chain(
     return run_plan(
         store, task, search=SearchSettings(max_length=max_length, time_budget_s=float(time_budget), top=top, seed=seed),
         chain=ChainSettings(name=name, require=require, confidence=confidence, episodes=episodes, seed=seed),
-        particles=particles, workers=workers, out=out, progress=progress,
+        particles=particles, threads=threads, out=out, progress=progress,
     )
 def learn_initiation(ref: str, *, store: Any, **options: Any) -> dict[str, Any]:
     """Run ``ref`` from wide initial states, fit P(success | start state) and propose a ``starts_when``

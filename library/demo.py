@@ -153,7 +153,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
 def _plan(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
     from .planning.demo_plan import demo_plan
 
-    planned = demo_plan(store, configs, out, quick=settings.quick, seed=settings.seed, workers=settings.workers)
+    planned = demo_plan(store, configs, out, quick=settings.quick, seed=settings.seed, threads=settings.workers)
     log.step(f"plan: found {' -> '.join(planned['winner']) or 'no chain'} for the goal {planned['goal']} (listed {', '.join(planned['listed'])}; chosen by the search {', '.join(planned['chosen_by_search']) or 'nothing'})")
     return planned
 

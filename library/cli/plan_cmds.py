@@ -39,7 +39,7 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--confidence", type=float, default=0.95, help="confidence of every bound (default 0.95)")
     p.add_argument("--seed", type=int, default=0, help="seed of the particles and of the checks (default 0)")
     p.add_argument("--name", default="planned-chain", help="name of the chain file written (default planned-chain)")
-    p.add_argument("--workers", type=int, default=1, help="MuJoCo threads per block of episodes (results do not depend on it)")
+    p.add_argument("--threads", type=int, default=1, help="MuJoCo threads per block of episodes in this process (results do not depend on it)")
     p.add_argument("--out", metavar="DIR", default="kinetome-plan", help="folder for the chain file, plan.txt/plan.json and the winner's check report (default kinetome-plan)")
     p.add_argument("--json", action="store_true", help="print the result as JSON (schema kinetome.plan/1)")
     p.set_defaults(handler=_plan)
@@ -55,7 +55,7 @@ def _plan(args: argparse.Namespace) -> int:
             env=args.env, goal=args.goal, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)),
             variant=args.variant, initial_states=args.initial_states, max_length=args.max_length, time_budget=args.time_budget,
             skills=args.skills, begin_with=args.begin_with, top=args.top, particles=args.particles, episodes=args.episodes,
-            require=args.require, confidence=args.confidence, seed=args.seed, name=args.name, workers=args.workers, out=args.out,
+            require=args.require, confidence=args.confidence, seed=args.seed, name=args.name, threads=args.threads, out=args.out,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

@@ -94,12 +94,12 @@ def _goal_counts(ctx: Any, goal: Any) -> tuple[int, int]:
     return int(np.sum(ok & inside)), int(ok.size)
 
 
-def _check(store: Any, chain: Any, *, reuse: bool, workers: int, progress: Any) -> tuple[Any, Any]:
+def _check(store: Any, chain: Any, *, reuse: bool, threads: int, progress: Any) -> tuple[Any, Any]:
     """The checker's own path (stored result reused when allowed, a fresh one kept); the context when it ran."""
     from ..checker import CheckOptions, prepare_context, run_check
     from ..checker.reuse import check_key, find_stored, store_check, stored_about
 
-    ctx = prepare_context(chain, store=store, options=CheckOptions(method="auto", threads=workers, progress=progress))
+    ctx = prepare_context(chain, store=store, options=CheckOptions(method="auto", threads=threads, progress=progress))
     key = check_key(ctx)
     if key is not None and reuse:
         stored = find_stored(store, key)
@@ -114,11 +114,11 @@ def _check(store: Any, chain: Any, *, reuse: bool, workers: int, progress: Any) 
     return result, ctx
 
 
-def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, workers: int, progress: Any) -> Confirmation:
+def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, threads: int, progress: Any) -> Confirmation:
     from ..checker.stats import lower_bound
 
     measured_goal = candidate.goal.status != PROVED
-    result, ctx = _check(store, chain, reuse=not measured_goal, workers=workers, progress=progress)
+    result, ctx = _check(store, chain, reuse=not measured_goal, threads=threads, progress=progress)
     data = result.to_dict()
     whole = data.get("whole_chain") or {}
     success = whole.get("success") or {}
@@ -135,13 +135,13 @@ def _confirm_one(store: Any, candidate: Candidate, chain: Any, goal: Any, *, wor
 
 
 def confirm_candidates(
-    store: Any, candidates: list[Candidate], task: Any, goal: Any, settings: ChainSettings, *, workers: int = 1, progress: Any = None,
+    store: Any, candidates: list[Candidate], task: Any, goal: Any, settings: ChainSettings, *, threads: int = 1, progress: Any = None,
 ) -> list[Confirmation]:
     """Check every candidate; passed ones first by (lower bound desc, duration asc), then the rest in search order."""
     out = []
     for i, cand in enumerate(candidates):
         chain = candidate_chain(cand, task, settings, description=f"found by kinetome plan (candidate {i + 1}) for goal: {task.goal}")
-        out.append(_confirm_one(store, cand, chain, goal, workers=workers, progress=progress))
+        out.append(_confirm_one(store, cand, chain, goal, threads=threads, progress=progress))
     passed = sorted((c for c in out if c.passed), key=lambda c: (-c.lower, c.duration if np.isfinite(c.duration) else float("inf")))
     return passed + [c for c in out if not c.passed]
 

@@ -17,14 +17,14 @@ SETTLED_GOAL = "norm(fingertip - target) < 0.02 and norm(fingertip_vel) < 0.02"
 LISTED = ("arm-lift",)
 
 
-def demo_plan(store: Any, configs: Path, out: Path, *, quick: bool, seed: int, workers: int) -> dict[str, Any]:
+def demo_plan(store: Any, configs: Path, out: Path, *, quick: bool, seed: int, threads: int) -> dict[str, Any]:
     """Run ``plan_chain`` on the demo store; the summary the report and demo.json show."""
     from ..api import plan_chain
 
     result = plan_chain(
         env="kinetome/BenchArm-v0", goal=SETTLED_GOAL, store=store, initial_states=configs / "initial_states" / "arm_home.yaml",
         begin_with=list(LISTED), max_length=4, top=2 if quick else 3, particles=100 if quick else 200,
-        episodes=200, seed=seed, workers=workers, name="pick-and-place-found", out=out / "plan",
+        episodes=200, seed=seed, threads=threads, name="pick-and-place-found", out=out / "plan",
     )
     winner = list(result.winner.chain.skills) if result.winner is not None else []
     data = result.to_dict()

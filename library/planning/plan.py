@@ -109,14 +109,14 @@ def _write(out: Path, winner: Confirmation, goal: str) -> tuple[Path, Path]:
 
 def run_plan(
     store: Any, task: PlanTask, *, search: SearchSettings, chain: ChainSettings, particles: int = 200,
-    workers: int = 1, out: str | Path | None = None, progress: Any = None,
+    threads: int = 1, out: str | Path | None = None, progress: Any = None,
 ) -> PlanResult:
     """Search the library for chains that reach ``task.goal``, confirm the best ones, write the winner."""
     from ..safety import caution_for
 
     lp = build_problem(store, task, particles=particles, seed=chain.seed, confidence=chain.confidence)
     found = search_chains(lp.problem, search)
-    confirmations = confirm_candidates(store, list(found.candidates), task, lp.goal, chain, workers=workers, progress=progress)
+    confirmations = confirm_candidates(store, list(found.candidates), task, lp.goal, chain, threads=threads, progress=progress)
     stored = _stored(confirmations)
     chain_file = report = None
     winner = confirmations[0] if confirmations and confirmations[0].passed else None
