@@ -18,7 +18,7 @@ from typing import Any
 
 from .errors import InvalidInputError
 
-__all__ = ["RetrainRun", "DEFAULT_ROOT", "new_run", "find_run_to_resume", "explicit_run", "mark_finished"]
+__all__ = ["RetrainRun", "DEFAULT_ROOT", "claim_run_folder", "new_run", "find_run_to_resume", "explicit_run", "mark_finished"]
 
 DEFAULT_ROOT = Path("kinetome-retrain")
 RUN_FILE = "run.json"
@@ -49,18 +49,21 @@ def _identity(parent_ref: str, variant: str | Path, store_root: Any) -> dict[str
     return {"parent": parent_ref, "variant": str(Path(str(variant)).resolve()), "store": store}
 
 
-def new_run(parent_ref: str, variant: str | Path, *, store_root: Any, seed: int, root: Path = DEFAULT_ROOT) -> RetrainRun:
-    """Claim ``run-<K>`` (the next free K) for a new retrain and write its ``run.json``."""
-    folder = _runs_folder(parent_ref, variant, root)
+def claim_run_folder(folder: Path) -> Path:
+    """Create and return ``folder/run-<K>`` with the next free K (an exclusive mkdir: two runs never share one)."""
     folder.mkdir(parents=True, exist_ok=True)
     k = 1 + max((int(p.name[4:]) for p in folder.glob("run-*") if p.name[4:].isdigit()), default=0)
     while True:
         try:
             (folder / f"run-{k}").mkdir()
-            break
+            return folder / f"run-{k}"
         except FileExistsError:  # another run claimed it first
             k += 1
-    run = RetrainRun(folder / f"run-{k}", resumed=False)
+
+
+def new_run(parent_ref: str, variant: str | Path, *, store_root: Any, seed: int, root: Path = DEFAULT_ROOT) -> RetrainRun:
+    """Claim ``run-<K>`` (the next free K) for a new retrain and write its ``run.json``."""
+    run = RetrainRun(claim_run_folder(_runs_folder(parent_ref, variant, root)), resumed=False)
     record = {**_identity(parent_ref, variant, store_root), "seed": seed, "started_at": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
     (run.folder / RUN_FILE).write_text(json.dumps(record, indent=2, sort_keys=True) + "\n", encoding="utf-8")
     return run

@@ -150,12 +150,22 @@ def _single_retrain_threads(args: argparse.Namespace) -> int:
     from ..renamed_keys import RenamedKeyWarning
 
     if args.workers is None:
-        return args.threads or 1
-    if args.threads is not None:
+        threads = 1 if args.threads is None else args.threads
+    elif args.threads is not None:
         raise InvalidInputError("--workers without --variants is the old spelling of --threads; give only --threads N")
-    warnings.warn(RenamedKeyWarning("'--workers' without --variants is an old spelling; write '--threads' instead "
-                                    "(--workers N means Ray worker processes, for a batch)"), stacklevel=2)
-    return args.workers
+    else:
+        warnings.warn(RenamedKeyWarning("'--workers' without --variants is an old spelling; write '--threads' instead "
+                                        "(--workers N means Ray worker processes, for a batch)"), stacklevel=2)
+        threads = args.workers
+    return _at_least_one_thread(threads)
+
+
+def _at_least_one_thread(threads: int) -> int:
+    from ..errors import InvalidInputError
+
+    if threads < 1:
+        raise InvalidInputError(f"--threads must be at least 1 (MuJoCo threads in this process), got {threads}")
+    return threads
 
 
 def _retrain_batch(args: argparse.Namespace) -> int:
@@ -214,7 +224,7 @@ def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
 
     bar, on_update = _bar(f"train {args.config}", args)
-    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=args.threads, out=args.out, progress=on_update)
+    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=_at_least_one_thread(args.threads), out=args.out, progress=on_update)
     bar.close()
     if args.json:
         print_json(result)

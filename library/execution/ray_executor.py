@@ -65,7 +65,22 @@ def _loopback_host(address: str) -> str | None:
         return None
 
 
+def _check_reachable(address: str, timeout_s: float = 5.0) -> None:
+    """Refuse at once when nothing listens at ``host:port`` (Ray itself retries for minutes before giving up)."""
+    import socket
+
+    host, sep, port = address.rpartition(":")
+    if not sep or not port.isdigit() or address == "auto":
+        return  # 'auto' and other forms are Ray's to resolve
+    try:
+        socket.create_connection((host, int(port)), timeout=timeout_s).close()
+    except OSError as exc:
+        raise ExecutionError(f"cannot reach the Ray cluster at {address}: nothing answers there ({exc}); start one with "
+                             "`ray start --head` or check the address (host:port of the head node, or 'auto')") from None
+
+
 def _connect(address: str) -> None:
+    _check_reachable(address)
     # a head on a loopback address (nodes of one machine, e.g. tests) is reached from that same address
     local = {"_node_ip_address": _loopback_host(address)} if _loopback_host(address) else {}
     try:

@@ -112,6 +112,21 @@ def comparison_rows(children: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
     return rows
 
 
+def _batch_folder(ref: str, out: str | Path | None) -> Path:
+    """``--out``, which must not hold an earlier batch's checkpoints (a batch is not resumed), else a new run folder
+    ``kinetome-retrain/<name>-<N>-batch/run-<K>``, so the same batch can run again."""
+    from ..errors import InvalidInputError
+    from ..retrain_runs import DEFAULT_ROOT, claim_run_folder
+
+    if out is None:
+        return claim_run_folder(DEFAULT_ROOT / f"{ref.replace('@', '-')}-batch")
+    held = sorted(p.parent.name for p in Path(out).glob("*/checkpoints") if any(p.iterdir()))
+    if held:
+        raise InvalidInputError(f"--out {out} already holds checkpoints of an earlier batch ({', '.join(held)}); a batch is not "
+                                "resumed: choose an empty folder, or leave out --out for a new run folder")
+    return Path(out)
+
+
 def retrain_batch(
     ref: str, *, store: Any, variants: Sequence[str | Path], initial_states: str | Path | None = None, config: str | Path | None = None,
     env_step_budget: int | None = None, seed: int = 0, from_scratch: bool = False, method: str = "auto",
@@ -128,7 +143,7 @@ def retrain_batch(
     from .promotion import DEFAULT_EPISODES
     from .retraining import apply_promotion
 
-    folder = Path(out) if out is not None else Path("kinetome-retrain") / f"{ref.replace('@', '-')}-batch"
+    folder = _batch_folder(ref, out)
     common = {"initial_states": None if initial_states is None else str(Path(initial_states).resolve()),
               "config": None if config is None else str(Path(config).resolve()), "overrides": {"env_step_budget": env_step_budget},
               "seed": int(seed), "from_scratch": bool(from_scratch), "method": method,

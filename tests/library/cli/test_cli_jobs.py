@@ -267,6 +267,8 @@ def test_threads_and_workers_mean_one_thing_on_retrain_and_train() -> None:
     with pytest.raises(InvalidInputError, match="give only --threads"):
         _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml", "--workers", "3", "--threads", "2"]))
     assert parse(["train", "c.yaml", "--threads", "2"]).threads == 2
+    with pytest.raises(InvalidInputError, match="--threads must be at least 1"):
+        _single_retrain_threads(parse(["retrain", "x", "--variant", "v.yaml", "--threads", "0"]))
     assert parse(["learn-initiation", "x", "--threads", "2"]).threads == 2
     with pytest.raises(SystemExit):
         parse(["learn-initiation", "x", "--workers", "2"])

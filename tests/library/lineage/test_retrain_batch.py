@@ -102,3 +102,20 @@ def test_children_are_identical_on_one_and_two_ray_workers(tmp_path, monkeypatch
         identities.append([store.get(c["child"]).identity for c in result["children"]])
     assert identities[0] == identities[1]
     assert not ray.is_initialized()
+
+
+def test_a_batch_can_run_again_in_a_new_folder_and_refuses_an_out_with_checkpoints(tmp_path, monkeypatch):
+    # The same batch twice: each run claims its own run-K folder (the second used to stop at the first's checkpoints).
+    from kinetome.library.errors import InvalidInputError
+    from kinetome.library.lineage.batch import _batch_folder
+
+    monkeypatch.chdir(tmp_path)
+    first, second = _batch_folder("arm-reach-tray@2", None), _batch_folder("arm-reach-tray@2", None)
+    assert first != second and first.parent == second.parent == Path("kinetome-retrain") / "arm-reach-tray-2-batch"
+    assert [first.name, second.name] == ["run-1", "run-2"]
+    out = tmp_path / "mine"
+    assert _batch_folder("arm-reach-tray@2", out) == out  # an empty --out is used as given
+    (out / "heavy_payload" / "checkpoints").mkdir(parents=True)
+    (out / "heavy_payload" / "checkpoints" / "latest.json").write_text("{}")
+    with pytest.raises(InvalidInputError, match="already holds checkpoints of an earlier batch \\(heavy_payload\\)"):
+        _batch_folder("arm-reach-tray@2", out)
