@@ -27,6 +27,8 @@ from ..yaml_source import YamlDocument, load_yaml_file, load_yaml_text
 from .chain_files import check_task_files, close_files, old_spelling_table
 
 __all__ = [
+    "DISTURBANCE_FIELDS",
+    "disturbances_from_yaml",
     "Chain",
     "CHAIN_FIELDS",
     "DEFAULT_EPISODES",
@@ -246,7 +248,8 @@ def _skill_items(doc: YamlDocument, base: Path, raw: Any, problems: list[Problem
     return refs, flags
 
 
-def _disturbances(doc: YamlDocument, raw: Mapping[str, Any], problems: list[Problem]) -> Disturbances:
+def disturbances_from_yaml(doc: YamlDocument, raw: Mapping[str, Any], problems: list[Problem]) -> Disturbances:
+    """A file's ``disturbances:`` mapping as a value object; each bad field becomes a problem at its line."""
     draft = object.__new__(Disturbances)
     for key, default in NO_DISTURBANCES.to_dict().items():
         object.__setattr__(draft, key, raw.get(key, default))
@@ -282,7 +285,7 @@ def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: A
     variant, initial, file_problems = check_task_files(doc, base, task)
     problems += file_problems
     handoff, whole = _require(doc, data, problems)
-    disturbances = _disturbances(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems)
+    disturbances = disturbances_from_yaml(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems)
     handoff_limits = _mapping(doc, data, "handoff_limits", HANDOFF_LIMIT_FIELDS, problems)
     fields = dict(
         name=data.get("name", ""),

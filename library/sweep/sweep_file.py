@@ -22,7 +22,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InvalidInputError, Problem
-from ..runtime.disturbances import NO_DISTURBANCES, Disturbances
+from ..checker.chain import DISTURBANCE_FIELDS, disturbances_from_yaml
 from ..yaml_source import YamlDocument, load_yaml_file
 from .spec import Axis, SweepSpec
 
@@ -31,7 +31,6 @@ __all__ = ["SWEEP_FIELDS", "load_sweep", "sweep_from_document", "parse_axis_opti
 SWEEP_FIELDS = ("name", "description", "skill", "chain", "task", "axes", "samples", "episodes", "seed", "require",
                 "confidence", "correction", "disturbances")
 _TASK_FIELDS = ("variant", "initial_states")
-_DISTURBANCE_FIELDS = ("exploration", "sensor_noise", "action_delay_steps", "gain_spread")
 
 
 def is_sweep_file(path: str | Path) -> bool:
@@ -94,16 +93,6 @@ def _axes(doc: YamlDocument, raw: Any, problems: list[Problem]) -> tuple[Axis, .
     return tuple(axes)
 
 
-def _disturbances(doc: YamlDocument, raw: Mapping[str, Any], problems: list[Problem]) -> Disturbances:
-    draft = object.__new__(Disturbances)
-    for key, default in NO_DISTURBANCES.to_dict().items():
-        object.__setattr__(draft, key, raw.get(key, default))
-    found = draft.problems()
-    for fieldname, message, fix in found:
-        problems.append(doc.problem(("disturbances", fieldname), message, fix))
-    return NO_DISTURBANCES if found else Disturbances.from_mapping({k: raw[k] for k in raw if k in _DISTURBANCE_FIELDS})
-
-
 def _lines(doc: YamlDocument) -> dict[str, int]:
     out = {}
     for path, line in doc.lines.items():
@@ -139,7 +128,7 @@ def sweep_from_document(doc: YamlDocument, *, base: Path) -> SweepSpec:
         axes=_axes(doc, data.get("axes"), problems), samples=data.get("samples"), episodes=data.get("episodes", 200),
         seed=data.get("seed", 0), require=require.get("success"), confidence=data.get("confidence", 0.95),
         correction=data.get("correction", "holm"),
-        disturbances=_disturbances(doc, _mapping(doc, data, "disturbances", _DISTURBANCE_FIELDS, problems), problems),
+        disturbances=disturbances_from_yaml(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems),
         source=doc.source, lines=_lines(doc),
     )
     try:
