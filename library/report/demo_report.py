@@ -85,7 +85,7 @@ def _initiation_section(report: Report, learned: dict[str, Any] | None) -> None:
     if not learned:
         return
     s = report.section("initiation", "Where a skill really starts: a learned starts_when")
-    if "no_region" in learned:
+    if learned.get("no_region"):
         s.text(learned["no_region"])
         return
     s.text(f"{learned['skill']} ran from {learned['episodes']} initial states ({learned['widening_text']}) whatever its starts_when said; "
