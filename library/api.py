@@ -366,7 +366,8 @@ def retrain(
     ``name@N`` (reason ``retrained``, method ``retrain``) holds the variant and initial-states
     files, the config, seed, code and software versions (``record.json``) and its
     evaluation (``evaluation.json``). It becomes current for the variant, and for nominal,
-    only where it is non-inferior to the parent on fresh episodes (``lineage.promotion``);
+    only where it is non-inferior on fresh episodes to the version current for that task (the
+    parent where none is; ``lineage.promotion``);
     the result on the parent's own task is always reported. Its option models are then
     refitted on the variant.
     """
@@ -374,7 +375,7 @@ def retrain(
     from kinetome.trainers.retrain import choose_method, refuse_deliberation_cost
 
     from .lineage.promotion import DEFAULT_EPISODES
-    from .lineage.retraining import TaskFiles, apply_promotion, parent_task_of, run_retrain
+    from .lineage.retraining import TaskFiles, apply_promotion, current_versions, parent_task_of, run_retrain
     from .retrain_runs import explicit_run, find_run_to_resume, mark_finished, new_run
     from .safety import caution_for
     from .stored_meta import current_meta
@@ -396,8 +397,9 @@ def retrain(
     folder = run.folder
     if on_run is not None:
         on_run(run, _budget_note(cfg))
+    current = {task: load(v, store=store) for task, v in current_versions(store, parent.ref, [task_variant.name, "nominal"]).items()}
     draft = run_retrain(
-        parent, parent_version.identity, task=TaskFiles.from_paths(variant, initial_states), config=cfg, seed=seed,
+        parent, parent_version.identity, task=TaskFiles.from_paths(variant, initial_states), config=cfg, seed=seed, current=current,
         workdir=folder, checkpoint_dir=run.checkpoint_dir, resume=run.resumed,
         parent_task=parent_task_of(store, parent_version, folder / "parent-task"), from_scratch=from_scratch,
         workers=workers, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES, method=chosen,

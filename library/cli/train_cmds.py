@@ -202,10 +202,13 @@ def format_batch(result: dict[str, Any]) -> str:
         format_table(result["comparison"], [
             ("variant", "VARIANT"), ("child", "CHILD"), ("parent", "PARENT"), ("own_child", "CHILD ON ITS VARIANT"),
             ("own_parent", "PARENT ON IT"), ("own_bound", "LOWER BOUND"), ("nominal_child", "CHILD ON NOMINAL"),
-            ("nominal_parent", "PARENT ON NOMINAL"), ("nominal_bound", "LOWER BOUND"), ("current_for", "CURRENT FOR")]),
+            ("nominal_parent", "PARENT ON NOMINAL"), ("nominal_compared", "TESTED AGAINST ON NOMINAL"), ("nominal_bound", "LOWER BOUND"), ("current_for", "CURRENT FOR")]),
         "",
     ]
     lines += [f"lineage   {' <- '.join(c['lineage'])}  (trainer {c['trainer']}, {c['env_steps']} env steps)" for c in result["children"]]
+    lines += [f"not current for {', '.join(c['passed_but_taken'])}: {c['child']} passed against the version current before the batch, "
+              "but an earlier child of this batch became current there meanwhile (compare them, then kinetome promote)"
+              for c in result["children"] if c.get("passed_but_taken")]
     lines.append(result["caution"])
     return "\n".join(lines)
 
@@ -216,7 +219,7 @@ def _print_promotion(result: dict[str, Any]) -> None:
 
     p = result["promotion"]
     print(f"\nfresh episodes ({p['episodes']} per version and task; current only if non-inferior, margin {p['margin']}, one-sided alpha {p['alpha']})")
-    print_table(promotion_rows(p), [("task", "TASK"), ("roles", "ROLE"), ("parent", result["parent"]), ("child", result["child"]), ("bound", "LOWER BOUND"), ("verdict", "VERDICT")])
+    print_table(promotion_rows(p), [("task", "TASK"), ("roles", "ROLE"), ("parent", result["parent"]), ("child", result["child"]), ("compared", "TESTED AGAINST"), ("bound", "LOWER BOUND"), ("verdict", "VERDICT")])
     print(f"current   {result['child']} is current for {', '.join(result['current_for'])}" if result["current_for"] else f"current   {result['child']} is current for no task; promote it by hand with kinetome promote {result['child']} --task TASK")
 
 

@@ -47,10 +47,11 @@ def _train_variant(item: dict[str, Any]) -> dict[str, Any]:
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_bytes(item["parent_task"]["data"])
         parent_task = load_variant_file(path)
+    current = {task: _rebuild_skill(entry, default_rig(entry["built_for"])) for task, entry in item["current"].items()}
     draft = run_retrain(
         parent, item["parent_identity"], task=TaskFiles.from_paths(item["variant"], item["initial_states"]),
         config=_train_config(item["config"], item["overrides"]), seed=item["seed"], workdir=folder, parent_task=parent_task,
-        from_scratch=item["from_scratch"], workers=1, promotion_episodes=item["promotion_episodes"],
+        from_scratch=item["from_scratch"], workers=1, promotion_episodes=item["promotion_episodes"], current=current,
         method=choose_method(parent.skill.controller.kind, item["method"]),
     )
     csv_path, png_path = save_curves(draft.result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(item['variant']).stem}")
@@ -58,25 +59,36 @@ def _train_variant(item: dict[str, Any]) -> dict[str, Any]:
             "promotion": draft.promotion, "env_steps": int(draft.result.steps), "curve_csv": str(csv_path), "curve_png": str(png_path)}
 
 
-def _parent_entry(store: Any, ref: str) -> dict[str, Any]:
-    """What a worker needs of the parent: its files (rebuilt there), identity and own task (workers never open the store)."""
+def _skill_entry(store: Any, ref: str) -> dict[str, Any]:
+    """A stored version's files, ref and env, rebuilt in a worker (workers never open the store)."""
     import json as _json
 
     from ..execution.chain_blocks import skill_files
     from ..runtime.files import SPEC_FILE
     from ..runtime.skill import load_skill
+
+    version = store.get(ref)
+    env = _json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))["env"]
+    return {"ref": version.ref, "files": skill_files(load_skill(store, version.ref)), "built_for": env}
+
+
+def _parent_entry(store: Any, ref: str, variant_name: str) -> dict[str, Any]:
+    """What a worker needs of the parent: its files, identity and own task, and the versions current for the
+    variant and nominal (the child is tested against those)."""
+    import json as _json
+
+    from .retraining import current_versions
     from .roles import RECORD_FILE, VARIANT_FILE
 
     version = store.get(ref)
-    loaded = load_skill(store, version.ref)
-    env = _json.loads(store.read_file(version, SPEC_FILE).decode("utf-8"))["env"]
     task = None
     if VARIANT_FILE in version.roles:
         record = _json.loads(store.read_file(version, RECORD_FILE)) if RECORD_FILE in version.roles else {}
         name = Path((record.get("variant") or {}).get("file") or VARIANT_FILE).name
         task = {"name": name, "data": store.read_file(version, VARIANT_FILE)}
-    return {"parent": {"ref": version.ref, "files": skill_files(loaded), "built_for": env}, "parent_identity": version.identity,
-            "parent_task": task}
+    current = {task_name: _skill_entry(store, cur) for task_name, cur in current_versions(store, version.ref, [variant_name, "nominal"]).items()
+               if cur != version.ref}
+    return {"parent": _skill_entry(store, version.ref), "parent_identity": version.identity, "parent_task": task, "current": current}
 
 
 def _items(ref: str, store: Any, variants: Sequence[Path], *, out: Path, common: dict[str, Any]) -> list[dict[str, Any]]:
@@ -91,13 +103,13 @@ def _items(ref: str, store: Any, variants: Sequence[Path], *, out: Path, common:
     if twice:
         raise InvalidInputError(f"--variants: each variant must have its own name (a child becomes current per variant name), "
                                 f"got {', '.join(twice)} more than once; give each variant file a distinct name:")
-    return [{**common, **_parent_entry(store, resolve(ref, store=store, variant=tv)), "variant": str(path.resolve()),
+    return [{**common, **_parent_entry(store, resolve(ref, store=store, variant=tv), tv.name), "variant": str(path.resolve()),
              "workdir": str((out / tv.name).resolve())} for path, tv in zip(variants, loaded)]
 
 
 def comparison_rows(children: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
     """Per child: success on its own variant and on nominal, beside its parent's, and where it became current."""
-    from .view import counts_text
+    from .view import _compared_text, counts_text
 
     rows = []
     for c in children:
@@ -107,7 +119,7 @@ def comparison_rows(children: Sequence[dict[str, Any]]) -> list[dict[str, Any]]:
             "variant": own["task"], "child": c["child"], "parent": c["parent"],
             "own_child": counts_text(own["child"]), "own_parent": counts_text(own["parent"]), "own_bound": f"{own['lower_bound']:+.3f}",
             "nominal_child": counts_text(nominal["child"]), "nominal_parent": counts_text(nominal["parent"]),
-            "nominal_bound": f"{nominal['lower_bound']:+.3f}", "current_for": ", ".join(c["current_for"]) or "-",
+            "nominal_compared": _compared_text(nominal, c["parent"]), "nominal_bound": f"{nominal['lower_bound']:+.3f}", "current_for": ", ".join(c["current_for"]) or "-",
         })
     return rows
 
@@ -161,7 +173,9 @@ def retrain_batch(
         child = added.version.ref
         current_for = apply_promotion(store, child, res["promotion"]) if added.is_new else store.current_tasks(child)
         fitted = fit(child, store=store, episodes=refit_episodes, variant=item["variant"], initial_states=initial_states, seed=seed) if refit_episodes else None
+        passed_but_taken = [t for t in res["promotion"]["current_for"] if added.is_new and t not in current_for]
         children.append({"variant": item["variant"], "parent": res["parent"], "child": child, "is_new": added.is_new,
+                         "passed_but_taken": passed_but_taken,
                          "promotion": res["promotion"], "current_for": current_for, "env_steps": res["env_steps"],
                          "trainer": res["meta"]["trainer"], "curve_png": res["curve_png"], "models": None if fitted is None else fitted["model_ref"],
                          "lineage": [v.ref for v in store.lineage(child)]})

@@ -1,5 +1,6 @@
-"""The retrain promotion rule: a child becomes current for a task only when it is non-inferior
-to its parent there, on fresh episodes.
+"""The retrain promotion rule: a child becomes current for a task only when it is non-inferior, on
+fresh episodes, to the version current for that task (the one it would displace); where no version
+is current for the task yet, to its parent.
 
 Test: one-sided, H0: p_child - p_parent <= -MARGIN, at level ALPHA. The lower confidence
 bound of the difference of success rates is Newcombe's hybrid score bound (Newcombe 1998,
@@ -113,6 +114,14 @@ def _tasks(trained_variant: Any, parent_task: Any) -> list[tuple[str, Any, list[
     return [(name, variant, roles) for name, (variant, roles) in tasks.items()]
 
 
+def _baseline(parent: Any, current: dict[str, Any], name: str, roles: list[str]) -> Any:
+    """The version the child is tested against on a task: the one current for it where the child could
+    become current there (trained task, nominal), else (or when none is current) the parent."""
+    if {"trained", "nominal"} & set(roles) and current.get(name) is not None:
+        return current[name]
+    return parent
+
+
 def compare_on_tasks(
     parent: Any,
     child_values: dict[str, Any],
@@ -123,9 +132,12 @@ def compare_on_tasks(
     episodes: int = DEFAULT_EPISODES,
     seed: int,
     workers: int = 1,
+    current: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
     """Run parent and child (``child_values``: its parameter values) on fresh episodes on the trained
-    task, on nominal and on the parent's own task (a TaskVariant, None for nominal); JSON evidence."""
+    task, on nominal and on the parent's own task (a TaskVariant, None for nominal); JSON evidence.
+    ``current``: task name -> the loaded version current for it (the child is tested against that one
+    there, on the same starts; a task with none is tested against the parent)."""
     from kinetome.library.runtime.skill import skill_from_spec
     from kinetome.library.runtime.starts import sample_starts
     from kinetome.library.tasks import task_rig
@@ -136,8 +148,11 @@ def compare_on_tasks(
     for name, variant, roles in _tasks(trained_variant, parent_task):
         rig = task_rig(parent.skill.env, variant)
         starts = sample_starts(rig, initial_states, episodes, seed=fresh)
+        baseline = _baseline(parent, current or {}, name, roles)
+        parent_successes = _successes(parent, rig, starts, fresh, workers)
+        baseline_successes = parent_successes if baseline.ref == parent.ref else _successes(baseline, rig, starts, fresh, workers)
         test = non_inferiority(
-            parent=(_successes(parent, rig, starts, fresh, workers), episodes),
+            parent=(baseline_successes, episodes),
             child=(_successes(child, rig, starts, fresh, workers), episodes),
         )
         rows.append(
@@ -145,7 +160,9 @@ def compare_on_tasks(
                 "task": name,
                 "variant_digest": variant.digest,
                 "roles": roles,
-                "parent": {"successes": test.parent_successes, "episodes": episodes},
+                "parent": {"successes": parent_successes, "episodes": episodes},
+                "compared_with": baseline.ref,
+                "compared": {"successes": baseline_successes, "episodes": episodes},
                 "child": {"successes": test.child_successes, "episodes": episodes},
                 "difference": test.difference,
                 "lower_bound": test.lower_bound,
@@ -154,7 +171,8 @@ def compare_on_tasks(
         )
     current_for = [r["task"] for r in rows if r["non_inferior"] and {"trained", "nominal"} & set(r["roles"])]
     return {
-        "rule": "one-sided non-inferiority of the success rate: Newcombe hybrid score lower bound > -margin",
+        "rule": "one-sided non-inferiority of the success rate against the version current for the task "
+        "(the parent where none is): Newcombe hybrid score lower bound > -margin",
         "margin": MARGIN,
         "alpha": ALPHA,
         "episodes": episodes,

@@ -20,7 +20,7 @@ from kinetome.library.lineage.promotion import DEFAULT_EPISODES, compare_on_task
 from kinetome.library.lineage.roles import EVALUATION_FILE, INITIAL_STATES_FILE, RECORD_FILE, VARIANT_FILE
 from kinetome.library.store.metadata import canonical_json
 
-__all__ = ["TaskFiles", "ChildDraft", "RECORD_SCHEMA", "TRAIN_RECORD_SCHEMA", "run_retrain", "apply_promotion", "reproduce_retrain", "train_record", "record_bytes"]
+__all__ = ["TaskFiles", "ChildDraft", "RECORD_SCHEMA", "TRAIN_RECORD_SCHEMA", "run_retrain", "apply_promotion", "reproduce_retrain", "current_versions", "train_record", "record_bytes"]
 
 RECORD_SCHEMA = "kinetome.retrain-record/1"
 TRAIN_RECORD_SCHEMA = "kinetome.train-record/1"
@@ -161,10 +161,12 @@ def run_retrain(
     progress: Any = None,
     promotion_episodes: int = DEFAULT_EPISODES,
     method: str = "actor-critic",
+    current: dict[str, Any] | None = None,
 ) -> ChildDraft:
     """Train ``parent`` (a LoadedSkill) on ``task``, test the child against it on fresh episodes,
     and build the child's files. ``parent_task``: the parent's own task (a TaskVariant, None: nominal).
-    ``method``: ``actor-critic`` or ``search`` (see ``trainers.retrain.METHODS``)."""
+    ``method``: ``actor-critic`` or ``search`` (see ``trainers.retrain.METHODS``). ``current``: task name ->
+    the loaded version current for it, which the child must match there (``promotion.compare_on_tasks``)."""
     from kinetome.trainers.retrain import retrain_skill
 
     from kinetome.library.initial_states import skill_initial_states
@@ -185,7 +187,7 @@ def run_retrain(
     )
     promotion = compare_on_tasks(
         parent, result.parameters, trained_variant=variant, parent_task=parent_task,
-        initial_states=states, episodes=promotion_episodes, seed=seed, workers=workers,
+        initial_states=states, episodes=promotion_episodes, seed=seed, workers=workers, current=current,
     )
     record = _record(parent_ref or parent.ref, parent_identity, task, variant, states, result.config, seed, from_scratch)
     training = {"env_steps": result.steps, "updates": result.updates, "completed": result.completed,
@@ -218,14 +220,22 @@ def run_retrain(
 
 
 def apply_promotion(store: Any, child_ref: str, promotion: dict[str, Any]) -> list[str]:
-    """Make the child current for each task the promotion test passed (trained task, nominal)."""
+    """Make the child current for each task the promotion test passed (trained task, nominal), as long as
+    the version it was tested against is still the one current there (else, e.g. an earlier child of the
+    same batch took the task meanwhile, it is left as it is: the child was not tested against that one)."""
     done = []
     rows = {row["task"]: row for row in promotion["tasks"]}
     for task in promotion["current_for"]:
         row = rows[task]
+        compared_with = row.get("compared_with", promotion["parent"])
+        now = store.currents(child_ref).get(task)
+        if now is not None and now.version != compared_with:
+            continue
         evidence = {
             "parent_ref": promotion["parent"],
             "parent": row["parent"],
+            "compared_with": compared_with,
+            "compared": row.get("compared", row["parent"]),
             "child": row["child"],
             "lower_bound": row["lower_bound"],
             "margin": promotion["margin"],
@@ -235,6 +245,12 @@ def apply_promotion(store: Any, child_ref: str, promotion: dict[str, Any]) -> li
         store.promote(child_ref, task=task, reason="non-inferior", evidence=evidence)
         done.append(task)
     return done
+
+
+def current_versions(store: Any, name: str, tasks: list[str]) -> dict[str, str]:
+    """task -> the ref of the version current for it, for those of ``tasks`` that have one."""
+    currents = store.currents(name)
+    return {task: currents[task].version for task in tasks if task in currents}
 
 
 def parent_task_of(store: Any, version: Any, folder: Path) -> Any:
@@ -251,6 +267,14 @@ def parent_task_of(store: Any, version: Any, folder: Path) -> Any:
     path = folder / Path(name).name
     path.write_bytes(store.read_file(version, VARIANT_FILE))
     return load_variant_file(path)
+
+
+def _recorded_baselines(store: Any, promotion: dict[str, Any]) -> dict[str, Any]:
+    """The versions a stored promotion test compared the child with, loaded (tasks compared with the parent left out)."""
+    from kinetome.library.runtime.skill import load_skill
+
+    return {row["task"]: load_skill(store, row["compared_with"]) for row in promotion["tasks"]
+            if row.get("compared_with", promotion["parent"]) != promotion["parent"]}
 
 
 def reproduce_retrain(store: Any, ref: str, *, workdir: str | Path, workers: int = 1) -> dict[str, Any]:
@@ -284,6 +308,7 @@ def reproduce_retrain(store: Any, ref: str, *, workdir: str | Path, workers: int
         seed=int(record["seed"]), workdir=work, parent_task=parent_task_of(store, parent_version, work / "parent-task"),
         parent_ref=record["parent"]["ref"], from_scratch=bool(record["from_scratch"]), workers=workers,
         promotion_episodes=int(evaluation["promotion"]["episodes"]),
+        current=_recorded_baselines(store, evaluation["promotion"]),
     )
     digests = {role: _sha256(data) for role, data in draft.files.items()}
     differences = sorted(r for r in set(digests) | set(child.digests) if digests.get(r) != child.digests.get(r))

@@ -74,6 +74,7 @@ def promotion_rows(promotion: dict[str, Any]) -> list[dict[str, Any]]:
                 "roles": ", ".join(row["roles"]),
                 "parent": counts_text(row["parent"]),
                 "child": counts_text(row["child"]),
+                "compared": _compared_text(row, promotion["parent"]),
                 "bound": f"{row['lower_bound']:+.3f}",
                 "verdict": verdict,
             }
@@ -81,13 +82,19 @@ def promotion_rows(promotion: dict[str, Any]) -> list[dict[str, Any]]:
     return rows
 
 
+def _compared_text(row: dict[str, Any], parent_ref: str) -> str:
+    """Which version the child was tested against on a task (the parent, or the version current there)."""
+    compared_with = row.get("compared_with", parent_ref)
+    return "the parent" if compared_with == parent_ref else f"{compared_with} (current) {counts_text(row.get('compared'))}"
+
+
 def why_current(entry: Any) -> str:
     """One line: why ``entry.version`` is current for ``entry.task``."""
     ev = entry.evidence
     if entry.reason == "non-inferior":
         return (
-            f"retrain non-inferior to {ev.get('parent_ref', 'its parent')} on {entry.task}: "
-            f"{counts_text(ev.get('child'))} vs {counts_text(ev.get('parent'))}, lower bound "
+            f"retrain non-inferior to {ev.get('compared_with', ev.get('parent_ref', 'its parent'))} on {entry.task}: "
+            f"{counts_text(ev.get('child'))} vs {counts_text(ev.get('compared', ev.get('parent')))}, lower bound "
             f"{ev.get('lower_bound', float('nan')):+.3f} > -{ev.get('margin')}"
         )
     if entry.reason == "promoted":

@@ -120,3 +120,65 @@ def test_an_equal_child_becomes_current_for_the_trained_task_and_nominal():
         assert row["parent"] == row["child"]  # same controller, same fresh starts
     assert evidence["current_for"] == [t for t in ("heavy_payload", "nominal") if rows[t]["non_inferior"]]
     assert rows["nominal"]["non_inferior"]  # 60/60 against 60/60: bound above -0.05
+
+
+def _versions_on_heavy_and_nominal(child_gains: float, episodes: int = 60):
+    """A poor parent (@2: no gains), the version current for nominal (@1: the stored gains) and a child
+    with ``child_gains`` times the gains, tested on the heavy payload and nominal."""
+    from kinetome.library.runtime.skill import skill_from_spec
+    from kinetome.library.tasks import load_start_file, load_variant_file
+
+    good, broken = _loaded_pair(0.0)
+    _, child = _loaded_pair(child_gains)
+    poor_parent = skill_from_spec(good.skill, ref="arm-reach-tray@2", parameter_values=broken)
+    return compare_on_tasks(
+        poor_parent, child, trained_variant=load_variant_file(HEAVY), parent_task=None,
+        initial_states=load_start_file(HOME), episodes=episodes, seed=0, current={"nominal": good},
+    )
+
+
+def test_a_child_equal_to_its_poor_parent_but_worse_than_the_current_version_is_not_current():
+    evidence = _versions_on_heavy_and_nominal(0.0)  # the child is as broken as its parent
+    rows = {row["task"]: row for row in evidence["tasks"]}
+    nominal = rows["nominal"]
+    assert nominal["compared_with"] == "arm-reach-tray@1"  # the version it would displace, not its parent
+    assert nominal["parent"]["successes"] == nominal["child"]["successes"] == 0
+    assert nominal["compared"]["successes"] > 50
+    assert not nominal["non_inferior"] and nominal["lower_bound"] < -0.9
+    assert "nominal" not in evidence["current_for"]
+    # no version is current for the heavy payload: there the child is tested against its parent, as before
+    assert rows["heavy_payload"]["compared_with"] == "arm-reach-tray@2"
+    assert rows["heavy_payload"]["compared"] == rows["heavy_payload"]["parent"]
+
+
+def test_a_child_non_inferior_to_the_current_version_is_current():
+    evidence = _versions_on_heavy_and_nominal(1.0)  # the child has the current version's gains back
+    nominal = {row["task"]: row for row in evidence["tasks"]}["nominal"]
+    assert nominal["compared_with"] == "arm-reach-tray@1"
+    assert nominal["parent"]["successes"] == 0 and nominal["child"] == nominal["compared"]
+    assert nominal["non_inferior"] and "nominal" in evidence["current_for"]
+
+
+def test_the_store_records_the_version_compared_with_and_skips_a_task_taken_meanwhile(tmp_path):
+    from kinetome.library.api import open_store, register, spec_version_files
+    from kinetome.library.lineage.retraining import apply_promotion
+    from kinetome.library.lineage.view import lineage_view
+    from kinetome.library.spec_load import load_spec
+
+    worse, better = _versions_on_heavy_and_nominal(0.0), _versions_on_heavy_and_nominal(1.0)
+    with open_store(tmp_path / "store") as store:
+        register(REACH, store=store)
+        for n in (2, 3, 4, 5):
+            files = {**spec_version_files(load_spec(REACH)), "normaliser.safetensors": f"version {n}".encode()}
+            store.add("arm-reach-tray", files, parent="arm-reach-tray@1", reason="retrained")
+        assert apply_promotion(store, "arm-reach-tray@3", worse) == ["heavy_payload"]
+        assert store.currents("arm-reach-tray")["nominal"].version == "arm-reach-tray@1"
+        # @3 took the heavy payload after @4's test ran against its parent there (none was current): not @4's
+        assert apply_promotion(store, "arm-reach-tray@4", better) == ["nominal"]
+        entry = store.currents("arm-reach-tray")["nominal"]
+        assert entry.version == "arm-reach-tray@4" and entry.evidence["compared_with"] == "arm-reach-tray@1"
+        why = {row["task"]: row["why"] for row in lineage_view(store, "arm-reach-tray")["current"]}
+        assert why["nominal"].startswith("retrain non-inferior to arm-reach-tray@1 on nominal: 60/60")
+        # @4 took nominal after @5's test ran against @1: @5 was never tested against @4, so it stays out
+        assert apply_promotion(store, "arm-reach-tray@5", better) == []
+        assert store.currents("arm-reach-tray")["nominal"].version == "arm-reach-tray@4"
