@@ -272,7 +272,9 @@ def fit(
     meta = {"errors": errors, "episodes": episodes, "seed": seed, "env": rig.env_id, "variant": None if variant is None else str(variant)}
     settings = {"episodes": episodes, "seed": seed, "initial_states": None if initial_states is None else str(initial_states)}
     record = attach_models(store, loaded.ref, models, rig=rig, settings=settings, meta=meta)
-    return tagged("fit", {"skill": loaded.ref, "model_ref": record.ref, "episodes": episodes, "errors": errors})
+    from .safety import caution_for
+
+    return tagged("fit", {"skill": loaded.ref, "model_ref": record.ref, "episodes": episodes, "errors": errors, "caution": caution_for(rig)})
 
 
 def load_models(ref: str, *, store: Any) -> Any:

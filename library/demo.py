@@ -138,7 +138,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
     results = []
     for path in sorted((configs / "chains").glob("*.yaml")):
         report_dir = out / "chains" / path.stem
-        with log.progress(f"checking {path.stem}") as bar:
+        with log.progress(f"checking {path.stem}", unit="episodes") as bar:
             result = check_chain(
                 path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed,
                 threads=settings.workers, out=report_dir, progress=lambda done, total: bar.update(done, total=total),

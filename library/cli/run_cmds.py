@@ -143,4 +143,5 @@ def _fit(args: argparse.Namespace) -> int:
     from ..model_headlines import headlines
 
     print_table(headlines(result["errors"]), [("check", "HELD-OUT CHECK"), ("value", "VALUE")])
+    print(result["caution"])
     return 0

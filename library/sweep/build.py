@@ -27,6 +27,8 @@ def build_spec(target: str | Path, *, axes: Sequence[Axis | str] = (), **overrid
         if key in given:
             given[key] = Path(given[key]).resolve()
     text = str(target)
+    if text.endswith((".yaml", ".yml")):
+        _check_yaml_target(text)
     if text.endswith((".yaml", ".yml")) and Path(text).is_file() and is_sweep_file(text):
         spec = load_sweep(text)
         fields = {**given, "axes": _axes(spec.axes, axes)}
@@ -36,6 +38,27 @@ def build_spec(target: str | Path, *, axes: Sequence[Axis | str] = (), **overrid
         return SweepSpec(name=given.pop("name", name), chain=Path(text).resolve(), axes=_axes((), axes), **given)
     name = given.pop("name", Path(text).stem if text.endswith((".yaml", ".yml")) else text.replace("@", "-"))
     return SweepSpec(name=name, skill=text, axes=_axes((), axes), **given)
+
+
+def _check_yaml_target(text: str) -> None:
+    """A YAML target must exist and be a sweep file (axes:), a chain file (skills:) or a skill spec (controller:)."""
+    import difflib
+
+    from ..errors import InvalidInputError
+    from ..yaml_source import load_yaml_file
+
+    if not Path(text).is_file():
+        raise InvalidInputError(f"{text}: file not found; give a sweep file, a chain file, a skill spec file or a stored skill name")
+    data = load_yaml_file(text).data
+    keys = [str(k) for k in data] if isinstance(data, dict) else []
+    if any(k in keys for k in ("axes", "skills", "controller")):
+        return
+    from .sweep_file import SWEEP_FIELDS
+
+    unknown = [k for k in keys if k not in SWEEP_FIELDS]  # 'skill:' is a sweep file's own key, not a typo of 'skills:'
+    near = [m for k in unknown for m in difflib.get_close_matches(k, ["axes", "skills", "controller"], n=1, cutoff=0.6)]
+    guess = f"; did you mean '{near[0]}:'?" if near else ""
+    raise InvalidInputError(f"{text}: not a sweep file (no axes:), a chain file (no skills:) or a skill spec (no controller:){guess}")
 
 
 def _is_chain_file(path: str) -> bool:

@@ -91,3 +91,16 @@ def test_command_line_axes_replace_the_files(tmp_path: Path) -> None:
     spec = build_spec(path, axes=["payload_mass=1.0"], episodes=5)
     assert [a.name for a in spec.axes] == ["actuator_gain", "payload_mass"]
     assert spec.episodes == 5 and spec.axes[1].values == (1.0,)
+
+
+def test_a_yaml_target_that_is_missing_or_of_no_known_kind_is_named(tmp_path):
+    # a missing file or a typo'd key used to surface as "axes: must list at least one axis" or as spec errors
+    from kinetome.library.errors import InvalidInputError
+    from kinetome.library.sweep.build import build_spec
+
+    with pytest.raises(InvalidInputError, match="nosuch.yaml: file not found"):
+        build_spec(str(tmp_path / "nosuch.yaml"))
+    typo = tmp_path / "typo.yaml"
+    typo.write_text("name: t\nskill: arm-reach-tray\naxis:\n  payload_mass: [0.2, 0.6]\n")
+    with pytest.raises(InvalidInputError, match="not a sweep file .* did you mean 'axes:'"):
+        build_spec(str(typo), axes=["payload_mass=0.2,0.6"])
