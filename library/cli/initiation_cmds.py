@@ -51,7 +51,8 @@ def _learn(args: argparse.Namespace) -> int:
 
     store = open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None))
     quiet = bool(getattr(args, "quiet", False) or args.json)
-    with Progress(f"learn-initiation {args.ref} ({args.episodes} episodes)", unit="steps", quiet=quiet) as bar:
+    # the episodes run side by side, so progress counts time steps of the longest possible episode, not episodes
+    with Progress(f"learn-initiation {args.ref} ({args.episodes} episodes stepped together)", unit="time steps", quiet=quiet) as bar:
         result = learn_initiation(
             args.ref, store=store, variant=args.variant, initial_states=args.initial_states, widen=args.widen,
             episodes=args.episodes, seed=args.seed, precision=args.precision, confidence=args.confidence,

@@ -28,8 +28,10 @@ DEFAULT_EPISODES = 3000
 SPLIT_CODES = {"fit": 0, "choose": 1, "report": 2}
 
 
-def _check(episodes: int, precision: float, confidence: float, max_clauses: int) -> None:
+def _check(episodes: int, precision: float, confidence: float, max_clauses: int, workers: int = 1) -> None:
     problems = []
+    if not isinstance(workers, int) or workers < 1:
+        problems.append(f"--threads must be >= 1 (MuJoCo threads in this process), got {workers}; e.g. --threads 1")
     if episodes < 100:
         problems.append(f"--episodes must be >= 100 (three splits of the episodes), got {episodes}")
     if not 0.0 < precision < 1.0:
@@ -110,7 +112,7 @@ def learn_initiation(
     from .propose import propose
     from .sampling import DEFAULT_WIDENING, parse_widening, sample_outcomes
 
-    _check(episodes, precision, confidence, max_clauses)
+    _check(episodes, precision, confidence, max_clauses, workers)
     widening = parse_widening(widen if widen is not None else ([] if initial_states is not None else list(DEFAULT_WIDENING)))
     task_variant = load_variant_file(variant)
     version = store.get(resolve(ref, store=store, variant=task_variant))

@@ -95,6 +95,12 @@ def test_no_region_found_exits_1_and_stores_nothing(coast_store, tmp_path, capsy
     (["--widen", "qpos[3]=0.1"], "qpos has 1 components"),
     (["--episodes", "50"], "--episodes must be >= 100"),
     (["--precision", "1.5"], "--precision must be in (0, 1)"),
+    (["--precision", "0"], "--precision must be in (0, 1)"),
+    (["--precision", "1"], "--precision must be in (0, 1)"),
+    (["--episodes", "0"], "--episodes must be >= 100"),
+    (["--max-clauses", "0"], "--max-clauses must be between 1 and 8"),
+    (["--threads", "0"], "--threads must be >= 1"),
+    (["--threads", "-2"], "--threads must be >= 1"),
 ])
 def test_bad_options_exit_2_with_a_clear_message(coast_store, argv, message, capsys):
     code = main(["--store", str(coast_store.location), "learn-initiation", "coast", *argv, "--quiet"])
