@@ -209,6 +209,8 @@ def format_batch(result: dict[str, Any]) -> str:
     lines += [f"not current for {', '.join(c['passed_but_taken'])}: {c['child']} passed against the version current before the batch, "
               "but an earlier child of this batch became current there meanwhile (compare them, then kinetome promote)"
               for c in result["children"] if c.get("passed_but_taken")]
+    if first.get("hint"):
+        lines.append(f"hint      {first['hint']}")
     lines.append(result["caution"])
     return "\n".join(lines)
 
@@ -220,6 +222,8 @@ def _print_promotion(result: dict[str, Any]) -> None:
     p = result["promotion"]
     print(f"\nfresh episodes ({p['episodes']} per version and task; current only if non-inferior, margin {p['margin']}, one-sided alpha {p['alpha']})")
     print_table(promotion_rows(p), [("task", "TASK"), ("roles", "ROLE"), ("parent", result["parent"]), ("child", result["child"]), ("compared", "TESTED AGAINST"), ("bound", "LOWER BOUND"), ("verdict", "VERDICT")])
+    if p.get("hint"):
+        print(f"hint      {p['hint']}")
     print(f"current   {result['child']} is current for {', '.join(result['current_for'])}" if result["current_for"] else f"current   {result['child']} is current for no task; promote it by hand with kinetome promote {result['child']} --task TASK")
 
 

@@ -27,6 +27,8 @@ __all__ = [
     "NonInferiority",
     "non_inferiority",
     "promotion_seed",
+    "smallest_promotable_episodes",
+    "episodes_hint",
     "compare_on_tasks",
 ]
 
@@ -85,6 +87,27 @@ def non_inferiority(
     low, _ = newcombe_interval(xc, nc, xp, n_p, confidence=1 - 2 * alpha)
     diff = xc / nc - xp / n_p
     return NonInferiority(xp, n_p, xc, nc, diff, low, margin, alpha, low > -margin)
+
+
+def smallest_promotable_episodes(margin: float = MARGIN, alpha: float = ALPHA) -> int:
+    """The fewest episodes at which any child can pass: the best case is a perfect tie (n/n against n/n,
+    or 0/n against 0/n), whose bound is the widest Wilson gap, so fewer episodes can never promote.
+    Found by running the test itself on growing n (no closed form assumed)."""
+    n = 1
+    while not non_inferiority(parent=(n, n), child=(n, n), margin=margin, alpha=alpha).non_inferior:
+        n += 1
+    return n
+
+
+def episodes_hint(episodes: int, margin: float = MARGIN, alpha: float = ALPHA) -> str | None:
+    """A note when ``episodes`` is too few for any child to pass the promotion test, else None."""
+    smallest = smallest_promotable_episodes(margin, alpha)
+    if episodes >= smallest:
+        return None
+    tie = non_inferiority(parent=(episodes, episodes), child=(episodes, episodes), margin=margin, alpha=alpha)
+    return (f"with {episodes} promotion episodes even a perfect tie ({episodes}/{episodes} against {episodes}/{episodes}) has a lower "
+            f"bound of {tie.lower_bound:+.3f}, not above -{margin}, so no child can become current; "
+            f"use --promotion-episodes {smallest} or more (the fewest that can pass at margin {margin}, alpha {alpha})")
 
 
 def promotion_seed(seed: int) -> int:
@@ -180,4 +203,5 @@ def compare_on_tasks(
         "parent": parent.ref,
         "tasks": rows,
         "current_for": current_for,
+        "hint": episodes_hint(episodes),
     }

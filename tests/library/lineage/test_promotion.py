@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import numpy as np
@@ -182,3 +183,20 @@ def test_the_store_records_the_version_compared_with_and_skips_a_task_taken_mean
         # @4 took nominal after @5's test ran against @1: @5 was never tested against @4, so it stays out
         assert apply_promotion(store, "arm-reach-tray@5", better) == []
         assert store.currents("arm-reach-tray")["nominal"].version == "arm-reach-tray@4"
+
+
+def test_the_fewest_promotion_episodes_that_can_promote():
+    from statistics import NormalDist
+
+    from kinetome.library.lineage.promotion import episodes_hint, smallest_promotable_episodes
+
+    # Wilson lower limit of n/n is n / (n + z^2) (Wilson 1927 score interval at p = 1), so a perfect tie
+    # has the bound -z^2 / (n + z^2); it exceeds -margin once n > z^2 (1 - margin) / margin
+    z = NormalDist().inv_cdf(1 - ALPHA)
+    expected = math.floor(z * z * (1 - MARGIN) / MARGIN) + 1
+    assert smallest_promotable_episodes() == expected == 52
+    assert not non_inferiority(parent=(51, 51), child=(51, 51)).non_inferior
+    assert non_inferiority(parent=(52, 52), child=(52, 52)).non_inferior
+    hint = episodes_hint(50)
+    assert "-0.051" in hint and "--promotion-episodes 52" in hint
+    assert episodes_hint(52) is None and episodes_hint(400) is None
