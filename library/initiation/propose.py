@@ -101,25 +101,28 @@ class Proposal:
         }
 
 
-def _support_region(states: Mapping[str, np.ndarray], rows: np.ndarray, quantities: Sequence[str]) -> str:
-    """The sampled box over ``quantities`` (one ``all(abs(Q - c) <= r)`` clause per vector quantity)."""
-    clauses = []
+def _support_region(states: Mapping[str, np.ndarray], rows: np.ndarray, quantities: Sequence[str],
+                    max_clauses: int) -> tuple[str, str]:
+    """The sampled range over ``rows``: one ``lo <= Q[i] <= hi`` clause per component that varied.
+
+    Components that took one value are left out (a zero-width bound would demand that exact
+    value); at most ``max_clauses`` clauses are kept, widest sampled spread first. Returns the
+    text and a sentence saying what was left out.
+    """
+    found = []  # (spread, order, name, lo, hi)
     for q in quantities:
         v = np.asarray(states[q], dtype=np.float64)[rows]
         flat = v.reshape(v.shape[0], -1)
-        if not any(varying(flat[:, i]) for i in range(flat.shape[1])):
-            continue
-        lo, hi = flat.min(axis=0), flat.max(axis=0)
-        spread = np.maximum(hi - lo, 1e-9)
-        lo = [round_bound(a, s, outward="down") for a, s in zip(lo, spread)]
-        hi = [round_bound(b, s, outward="up") for b, s in zip(hi, spread)]
-        if v.ndim == 1:
-            clauses.append(f"{number_text(lo[0])} <= {q} <= {number_text(hi[0])}")
-            continue
-        centre = [float(np.round(0.5 * (a + b), 12)) for a, b in zip(lo, hi)]
-        radius = [round_bound(0.5 * (b - a), s, outward="up") for a, b, s in zip(lo, hi, spread)]
-        clauses.append(f"all(abs({q} - [{', '.join(map(number_text, centre))}]) <= [{', '.join(map(number_text, radius))}])")
-    return " and ".join(clauses)
+        for i in range(flat.shape[1]):
+            if varying(flat[:, i]):
+                lo, hi = float(flat[:, i].min()), float(flat[:, i].max())
+                found.append((hi - lo, len(found), q if v.ndim == 1 else f"{q}[{i}]", lo, hi))
+    kept = sorted(sorted(found, key=lambda f: -f[0])[:max_clauses], key=lambda f: f[1])
+    clauses = [f"{number_text(round_bound(lo, s, outward='down'))} <= {name} <= {number_text(round_bound(hi, s, outward='up'))}"
+               for s, _, name, lo, hi in kept]
+    dropped = len(found) - len(kept)
+    left = f"; {dropped} more varying component(s) left unconstrained by --max-clauses {max_clauses}" if dropped else ""
+    return " and ".join(clauses), left
 
 
 def _candidates(columns, x, p_fit, *, max_clauses: int, alpha: float | None) -> list[Region]:
@@ -282,11 +285,16 @@ def propose(
     if chosen is not None:
         text = chosen.text
         if chosen.size == 0:
-            rows = np.concatenate([splits.fit, splits.choose])
-            text = _support_region(states, rows, support_quantities or quantities)
-            note = ("the skill met the target on the whole sample: the proposal is the sampled box; "
+            rows = np.arange(success.size)
+            text, left = _support_region(states, rows, support_quantities or quantities, max_clauses)
+            note = ("the skill met the target on the whole sample: the proposal is the sampled range of every episode "
+                    f"(all three splits; components that did not vary are left out){left}; "
                     "widen the initial states to find where it stops working")
-        _, prec, rec = _measured(text, states, parameters, success, splits, confidence)
+        if not text:
+            chosen, text, note = None, None, None
+            why = "every sampled start state was the same: widen the initial states (--widen) to learn a region"
+        else:
+            _, prec, rec = _measured(text, states, parameters, success, splits, confidence)
     cur = None
     if current is not None:
         inside = np.asarray(current.evaluate({**parameters, **states}), dtype=bool)

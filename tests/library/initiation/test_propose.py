@@ -142,3 +142,42 @@ def test_bad_targets_are_refused():
         propose(states, success, precision=1.0)
     with pytest.raises(ValueError, match="max_clauses must be >= 1"):
         propose(states, success, max_clauses=0)
+
+
+def _box_states(n: int, seed: int) -> dict[str, np.ndarray]:
+    """qpos has 5 components, two of them held fixed (0 and 1.25); qvel varies in all 3."""
+    rng = np.random.default_rng(seed)
+    qpos = rng.uniform(-1.0, 1.0, size=(n, 5)) * np.array([0.0, 1.0, 0.0, 3.0, 0.5])
+    qpos[:, 2] = 1.25
+    return {"qpos": qpos, "qvel": rng.uniform(-0.2, 0.2, size=(n, 3))}
+
+
+@pytest.mark.parametrize("max_clauses", [1, 2, 4, 8])
+def test_sampled_box_respects_max_clauses_and_leaves_fixed_components_out(max_clauses):
+    states = _box_states(1000, 3)
+    p = propose(states, np.ones(1000, dtype=bool), models=("logistic",), max_clauses=max_clauses)
+    clauses = p.text.split(" and ")
+    assert len(clauses) == min(max_clauses, 6)  # 6 components vary (qpos 1, 3, 4 and qvel 0-2)
+    assert "qpos[0]" not in p.text and "qpos[2]" not in p.text  # never a zero-width bound
+    assert "qpos[3]" in p.text  # the widest spread is kept first
+    if max_clauses < 6:
+        assert "left unconstrained by --max-clauses" in p.note
+    else:
+        assert "left unconstrained" not in p.note
+
+
+def test_sampled_box_contains_every_sampled_start_so_report_recall_is_full():
+    states = _box_states(1000, 4)
+    p = propose(states, np.ones(1000, dtype=bool), models=("logistic",), max_clauses=8)
+    pred = parse_predicate(p.text, {"qpos": (5,), "qvel": (3,)})
+    assert pred.evaluate(states).all()
+    assert p.recall["successes"] == p.recall["episodes"] and "all three splits" in p.note
+    outside = {"qpos": np.array([[0.0, 0.0, 1.25, 3.5, 0.0]]), "qvel": np.zeros((1, 3))}
+    assert not pred.evaluate(outside).any()
+
+
+def test_sampled_box_of_identical_starts_is_no_region():
+    n = 300
+    states = {"qpos": np.full((n, 2), 0.5), "qvel": np.zeros((n, 2))}
+    p = propose(states, np.ones(n, dtype=bool), models=("logistic",))
+    assert p.text is None and "same" in p.why_none
