@@ -18,7 +18,13 @@ def test_promote_and_roll_back_from_the_command_line(tmp_path, capsys):
         register(REACH, store=store)
         files = {**spec_version_files(load_spec(REACH)), "normaliser.safetensors": b"child"}
         store.add("arm-reach-tray", files, parent="arm-reach-tray@1", reason="retrained")
-    assert main(["--store", root, "promote", "arm-reach-tray@2", "--task", "heavy_payload", "--note", "bench test passed"]) == 0
+    # a misspelt task is refused, naming the known ones, and nothing changes
+    assert main(["--store", root, "promote", "arm-reach-tray@2", "--task", "nominl"]) == 2
+    err = capsys.readouterr().err
+    assert "--task 'nominl'" in err and "known tasks: nominal" in err and "variant file" in err
+    # a new task is named by its variant file
+    heavy = str(REACH.parents[1] / "variants" / "heavy_payload.yaml")
+    assert main(["--store", root, "promote", "arm-reach-tray@2", "--task", heavy, "--note", "bench test passed"]) == 0
     assert "arm-reach-tray@2 is now current for heavy_payload" in capsys.readouterr().out
     assert main(["--store", root, "promote", "arm-reach-tray@1", "--task", "heavy_payload", "--json"]) == 0
     out = json.loads(capsys.readouterr().out)

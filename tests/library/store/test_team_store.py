@@ -226,7 +226,8 @@ def test_copy_store_and_the_log_from_the_command_line(pg_url, tmp_path, capsys, 
     spec = Path(__file__).parents[3] / "configs" / "skills" / "arm-reach-tray.yaml"
     local, team = str(tmp_path / "local"), pg_url()
     assert main(["--store", local, "register", str(spec)]) == 0
-    assert main(["--store", local, "promote", "arm-reach-tray@1", "--task", "heavy_payload"]) == 0
+    heavy = str(spec.parents[1] / "variants" / "heavy_payload.yaml")  # a new task: named by its variant file
+    assert main(["--store", local, "promote", "arm-reach-tray@1", "--task", heavy]) == 0
     capsys.readouterr()
     assert main(["--store", local, "copy-store", team, "--target-blobs", str(tmp_path / "shared")]) == 0
     out = capsys.readouterr().out
