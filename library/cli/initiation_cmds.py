@@ -111,6 +111,9 @@ def format_learned(result: dict[str, Any]) -> str:
     if result["adopted"]:
         a = result["adopted"]
         lines.append(f"adopted   {a['version']} (lineage reason initiation-learned), current for {a['current_for']}")
+        lines.append(f"          starts_when {a['starts_when']}")
+        lines.append("          kept from the current starts_when (quantities the proposal does not constrain): "
+                     + ("; ".join(a["kept"]) if a["kept"] else "none"))
     else:
         lines.append("adopt it with --adopt (a new version; lineage reason initiation-learned)")
     if result.get("plot"):

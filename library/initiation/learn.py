@@ -63,6 +63,18 @@ def read_samples(data: bytes) -> tuple[dict[str, np.ndarray], np.ndarray, np.nda
     return starts, arrays["success"].astype(bool), arrays["split"]
 
 
+def adopted_starts_when(proposed: Any, current: Any) -> tuple[str, list[str]]:
+    """The proposal conjoined with every clause of ``current`` over quantities the proposal does not name.
+
+    Why: the proposal constrains only the quantities it learned about; dropping the hand-written
+    clauses on the others would admit states far outside the sample. Returns (text, kept clauses).
+    """
+    if current is None:
+        return str(proposed), []
+    kept = [c for c in current.clauses() if not (c.names & proposed.names)]
+    return str(type(proposed).conjunction([proposed, *kept])), [str(c) for c in kept]
+
+
 def _adopt(store: Any, version: Any, text: str, result: dict[str, Any], task: str) -> dict[str, Any]:
     """Store the proposal as a child version (reason ``initiation-learned``) and make it current for ``task``."""
     from ..runtime.files import SPEC_FILE
@@ -140,7 +152,12 @@ def learn_initiation(
     record = store.attach_artifact(version.ref, ARTIFACT_KIND, files, task=model_task(rig), settings=settings, software=software_versions())
     result["artifact"] = record.ref
     if adopt:
-        result["adopted"] = _adopt(store, version, proposal.text, result, getattr(task_variant, "name", "nominal"))
+        from .propose import _measured
+
+        proposed, _, _ = _measured(proposal.text, samples.starts, loaded.parameters, samples.success, proposal.splits, confidence)
+        text, kept = adopted_starts_when(proposed, loaded.starts_when)
+        result["adopted"] = _adopt(store, version, text, result, getattr(task_variant, "name", "nominal"))
+        result["adopted"].update({"starts_when": text, "kept": kept})
         store.attach_artifact(result["adopted"]["version"], ARTIFACT_KIND, files, computed_on=[version.identity], task=model_task(rig),
                               settings=settings, software=software_versions())
     if out is not None:

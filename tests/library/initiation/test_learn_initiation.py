@@ -58,12 +58,15 @@ def test_cli_prints_both_sets_and_adopt_stores_a_child_the_checker_proves_agains
     child = coast_store.get("coast@2")
     assert child.reason == "initiation-learned" and child.parent == "coast@1"
     assert coast_store.get("coast").ref == "coast@2"  # current for nominal
-    learned = api.load("coast@2", store=coast_store).skill.starts_when
-    low, high = _bounds(learned)
+    learned = str(api.load("coast@2", store=coast_store).skill.starts_when)
+    # the hand-written clause over qvel (which the proposal does not constrain) is kept, conjoined
+    proposed_text, kept = learned.split(" and ")
+    assert kept == "abs(qvel[0]) < 1" and "kept from the current starts_when (quantities the proposal does not constrain): abs(qvel[0]) < 1" in text
+    low, high = _bounds(proposed_text)
     assert abs(low - TRUE_LOW) < 0.05 and abs(high - TRUE_HIGH) < 0.05
     assert coast_store.artifacts("coast@2", kind=ARTIFACT_KIND) and (tmp_path / "out" / "initiation.png").stat().st_size > 10_000
     # A skill that stops inside the learned region hands over; the solver proves containment.
-    api.register(write_coast_spec(tmp_path, name="coast-in", stops_when="qpos[0] >= 0.7 and qpos[0] <= 0.8"), store=coast_store)
+    api.register(write_coast_spec(tmp_path, name="coast-in", stops_when="qpos[0] >= 0.7 and qpos[0] <= 0.8 and abs(qvel[0]) <= 0.5"), store=coast_store)
     chain = tmp_path / "chain.yaml"
     chain.write_text(f"name: coast-chain\ntask: {{env: {COAST}}}\nskills: [coast-in, coast@2]\n", encoding="utf-8")
     result = api.check_chain(chain, store=coast_store, method="static")
@@ -71,7 +74,7 @@ def test_cli_prints_both_sets_and_adopt_stores_a_child_the_checker_proves_agains
     assert handoff.handoff.target == "coast@2"
     assert handoff.evidence_of("static").details["containment"] == "proved"  # liveness is left to simulation
     # and not against a region that misses part of the stop set (both directions)
-    api.register(write_coast_spec(tmp_path, name="coast-out", stops_when="qpos[0] >= 0.3 and qpos[0] <= 0.8"), store=coast_store)
+    api.register(write_coast_spec(tmp_path, name="coast-out", stops_when="qpos[0] >= 0.3 and qpos[0] <= 0.8 and abs(qvel[0]) <= 0.5"), store=coast_store)
     chain.write_text(f"name: coast-chain\ntask: {{env: {COAST}}}\nskills: [coast-out, coast@2]\n", encoding="utf-8")
     refused = api.check_chain(chain, store=coast_store, method="static").handoffs[-1]
     assert refused.evidence_of("static").details["containment"] in ("counterexample", "candidate")
@@ -113,3 +116,19 @@ def test_json_output_carries_schema_and_caution(coast_store, capsys):
     assert data["schema"] == "kinetome.learn-initiation/1" and "ISO 12100" in data["caution"]
     assert data["widening"] == ["qpos=0.1"] and data["classifier"]["model"] in ("logistic", "boosted-trees")
     assert data["calibration"]["reliability"] and data["current"]["starts_when"] == "abs(qvel[0]) < 1"
+
+
+def test_adopted_starts_when_keeps_hand_written_clauses_over_other_quantities():
+    from kinetome.library.initiation.learn import adopted_starts_when
+    from kinetome.library.predicates import parse_predicate
+
+    shapes = {"qpos": (3,), "torso_height": ()}
+    proposed = parse_predicate("1.1 <= qpos[2] <= 1.3", shapes)
+    current = parse_predicate("torso_height > 0.3 and abs(qpos[2] - 1.2) < 0.5", shapes)
+    text, kept = adopted_starts_when(proposed, current)
+    assert kept == ["torso_height > 0.3"]  # the qpos clause is replaced by the proposal, the other kept
+    adopted = parse_predicate(text, shapes)
+    fallen = {"qpos": np.array([[0.0, 0.0, 1.2]]), "torso_height": np.array([0.1])}
+    standing = {"qpos": np.array([[0.0, 0.0, 1.2]]), "torso_height": np.array([0.9])}
+    assert not adopted.evaluate(fallen).any() and adopted.evaluate(standing).all()
+    assert adopted_starts_when(proposed, None) == (str(proposed), [])
