@@ -69,6 +69,12 @@ def test_report_is_self_contained_with_every_section(demo: Path) -> None:
     assert html.count("data:image/png;base64,") >= 5  # handoff plots, timelines, curve, filmstrips
     assert "ISO 12100" in html
     assert "verdict-breaks" in html and "verdict-composes" in html
+    # the learned-initiation section shows the proposal (or why there is none), never an empty "-"
+    learned = json.loads((demo / "demo.json").read_text()).get("initiation") or {}
+    section = html[html.index('id="initiation"'):].split("</section>", 1)[0]
+    assert "<p>-</p>" not in section
+    if learned.get("proposed"):
+        assert learned["proposed"].split(" ")[0] in section
 
 
 @pytest.mark.skipif(chromium_path() is None, reason="Chromium is not installed (optional: apt-get install chromium chromium-driver)")
