@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Mapping
 
 import yaml
 
@@ -17,7 +17,7 @@ from kinetome.envs.yaml_limits import YamlTooLarge, compose_within_limits
 
 from .errors import InvalidInputError, Problem
 
-__all__ = ["YamlDocument", "load_yaml_text", "load_yaml_file", "field_path"]
+__all__ = ["YamlDocument", "load_yaml_text", "load_yaml_file", "field_path", "field_lines", "unknown_keys"]
 
 PathKey = tuple[str | int, ...]
 
@@ -104,3 +104,30 @@ def load_yaml_file(path: str | Path) -> YamlDocument:
     except (OSError, UnicodeDecodeError) as exc:
         raise InvalidInputError([Problem(str(path), None, "", f"cannot read file: {exc}")]) from None
     return load_yaml_text(text, str(path))
+
+
+def field_lines(doc: YamlDocument) -> dict[str, int]:
+    """Line of every field, keyed by its dotted path (``skills[1].skill``), as value objects record them."""
+    lines: dict[str, int] = {}
+    for path, line in doc.lines.items():
+        if not path:
+            continue
+        text = str(path[0])
+        for part in path[1:]:
+            text += f"[{part}]" if isinstance(part, int) else f".{part}"
+        lines[text] = line
+    return lines
+
+
+def unknown_keys(doc: YamlDocument, data: Mapping[str, Any], where: tuple, known: tuple[str, ...]) -> list[Problem]:
+    """One problem per key of ``data`` not in ``known``, at its line, with the closest valid name."""
+    import difflib
+
+    out = []
+    for key in data:
+        if key not in known:
+            close = difflib.get_close_matches(str(key), known, n=1)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            label = ".".join(str(p) for p in where)
+            out.append(doc.problem((*where, key), "unknown field", f"{hint}valid fields{' of ' + label if where else ''}: {', '.join(known)}"))
+    return out

@@ -23,7 +23,7 @@ from typing import Any, Mapping
 from ..errors import InvalidInputError, KinetomeError, Problem
 from ..runtime.disturbances import NO_DISTURBANCES, Disturbances
 from ..store.names import REF_PATTERN
-from ..yaml_source import YamlDocument, load_yaml_file, load_yaml_text
+from ..yaml_source import YamlDocument, field_lines, load_yaml_file, load_yaml_text, unknown_keys
 from .chain_files import check_task_files, close_files, old_spelling_table
 
 __all__ = [
@@ -188,29 +188,6 @@ def _value_problems(c: Chain) -> list[Problem]:
 # YAML
 
 
-def _field_lines(doc: YamlDocument) -> dict[str, int]:
-    lines: dict[str, int] = {}
-    for path, line in doc.lines.items():
-        if not path:
-            continue
-        text = str(path[0])
-        for part in path[1:]:
-            text += f"[{part}]" if isinstance(part, int) else f".{part}"
-        lines[text] = line
-    return lines
-
-
-def _unknown_keys(doc: YamlDocument, data: Mapping[str, Any], where: tuple, known: tuple[str, ...]) -> list[Problem]:
-    out = []
-    for key in data:
-        if key not in known:
-            close = difflib.get_close_matches(str(key), known, n=1)
-            hint = f"did you mean {close[0]!r}? " if close else ""
-            label = ".".join(str(p) for p in where) + ("." if where else "")
-            out.append(doc.problem((*where, key), "unknown field", f"{hint}valid fields{' of ' + label.rstrip('.') if where else ''}: {', '.join(known)}"))
-    return out
-
-
 def _mapping(doc: YamlDocument, data: Mapping[str, Any], key: str, known: tuple[str, ...], problems: list[Problem]) -> dict[str, Any]:
     raw = data.get(key)
     if raw is None:
@@ -218,7 +195,7 @@ def _mapping(doc: YamlDocument, data: Mapping[str, Any], key: str, known: tuple[
     if not isinstance(raw, Mapping):
         problems.append(doc.problem((key,), f"must be a mapping of {', '.join(known)}, got {raw!r}", f"write e.g. {key}: {{{known[0]}: ...}}"))
         return {}
-    problems += _unknown_keys(doc, raw, (key,), known)
+    problems += unknown_keys(doc, raw, (key,), known)
     return dict(raw)
 
 
@@ -232,7 +209,7 @@ def _skill_items(doc: YamlDocument, base: Path, raw: Any, problems: list[Problem
     for i, item in enumerate(raw):
         flag: Any = False
         if isinstance(item, Mapping):
-            problems += _unknown_keys(doc, item, ("skills", i), SKILL_ITEM_FIELDS)
+            problems += unknown_keys(doc, item, ("skills", i), SKILL_ITEM_FIELDS)
             if "skill" not in item:
                 problems.append(doc.problem(("skills", i), "a mapping item needs 'skill'", "write {skill: arm-place, may_time_out: true}"))
             flag = item.get("may_time_out", False)
@@ -274,7 +251,7 @@ def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: A
     data = doc.data
     if not isinstance(data, Mapping):
         raise InvalidInputError([doc.problem((), f"a chain file must be a mapping of field: value, got {type(data).__name__}", "start with 'name: <name>'")])
-    problems: list[Problem] = _unknown_keys(doc, data, (), CHAIN_FIELDS)
+    problems: list[Problem] = unknown_keys(doc, data, (), CHAIN_FIELDS)
     for key in _REQUIRED:
         if key not in data:
             problems.append(Problem(doc.source, 1, key, "is required but missing", _FIXES[key]))
@@ -303,7 +280,7 @@ def chain_from_document(doc: YamlDocument, *, base: Path | None = None, store: A
         disturbances=disturbances,
         command_jump=handoff_limits.get("command_jump"),
         source=doc.source,
-        lines=_field_lines(doc),
+        lines=field_lines(doc),
     )
     draft = object.__new__(Chain)
     for k, v in fields.items():

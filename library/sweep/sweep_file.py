@@ -17,13 +17,12 @@ Every problem is reported at once as ``FILE:LINE: field: what; fix`` (exit 2).
 
 from __future__ import annotations
 
-import difflib
 from pathlib import Path
 from typing import Any, Mapping
 
 from ..errors import InvalidInputError, Problem
 from ..checker.chain import DISTURBANCE_FIELDS, disturbances_from_yaml
-from ..yaml_source import YamlDocument, load_yaml_file
+from ..yaml_source import YamlDocument, field_lines, load_yaml_file, unknown_keys
 from .spec import Axis, SweepSpec
 
 __all__ = ["SWEEP_FIELDS", "load_sweep", "sweep_from_document", "parse_axis_option", "is_sweep_file"]
@@ -39,16 +38,6 @@ def is_sweep_file(path: str | Path) -> bool:
     return isinstance(doc.data, Mapping) and "axes" in doc.data
 
 
-def _unknown(doc: YamlDocument, data: Mapping[str, Any], where: tuple, known: tuple[str, ...]) -> list[Problem]:
-    out = []
-    for key in data:
-        if key not in known:
-            close = difflib.get_close_matches(str(key), known, n=1)
-            hint = f"did you mean {close[0]!r}? " if close else ""
-            out.append(doc.problem((*where, key), "unknown field", f"{hint}valid fields: {', '.join(known)}"))
-    return out
-
-
 def _mapping(doc: YamlDocument, data: Mapping[str, Any], key: str, known: tuple[str, ...] | None, problems: list[Problem]) -> dict[str, Any]:
     raw = data.get(key)
     if raw is None:
@@ -57,7 +46,7 @@ def _mapping(doc: YamlDocument, data: Mapping[str, Any], key: str, known: tuple[
         problems.append(doc.problem((key,), f"must be a mapping, got {raw!r}", f"write e.g. {key}: {{...}}"))
         return {}
     if known is not None:
-        problems.extend(_unknown(doc, raw, (key,), known))
+        problems.extend(unknown_keys(doc, raw, (key,), known))
     return dict(raw)
 
 
@@ -86,22 +75,11 @@ def _axes(doc: YamlDocument, raw: Any, problems: list[Problem]) -> tuple[Axis, .
         if isinstance(value, list):
             axes.append(Axis(str(name), tuple(value)))
         elif isinstance(value, Mapping):
-            problems.extend(_unknown(doc, value, ("axes", name), ("low", "high")))
+            problems.extend(unknown_keys(doc, value, ("axes", name), ("low", "high")))
             axes.append(Axis(str(name), (), value.get("low"), value.get("high")))
         else:
             problems.append(doc.problem(("axes", name), f"must be a list of values or {{low, high}}, got {value!r}", "write e.g. [0.2, 0.6, 1.0]"))
     return tuple(axes)
-
-
-def _lines(doc: YamlDocument) -> dict[str, int]:
-    out = {}
-    for path, line in doc.lines.items():
-        if path:
-            text = str(path[0])
-            for part in path[1:]:
-                text += f"[{part}]" if isinstance(part, int) else f".{part}"
-            out[text] = line
-    return out
 
 
 def sweep_from_document(doc: YamlDocument, *, base: Path) -> SweepSpec:
@@ -109,7 +87,7 @@ def sweep_from_document(doc: YamlDocument, *, base: Path) -> SweepSpec:
     data = doc.data
     if not isinstance(data, Mapping):
         raise InvalidInputError([doc.problem((), f"a sweep file must be a mapping, got {type(data).__name__}", "start with 'name: <name>'")])
-    problems = _unknown(doc, data, (), SWEEP_FIELDS)
+    problems = unknown_keys(doc, data, (), SWEEP_FIELDS)
     task = _mapping(doc, data, "task", _TASK_FIELDS, problems)
     require = _mapping(doc, data, "require", ("success",), problems)
     skill = data.get("skill")
@@ -129,7 +107,7 @@ def sweep_from_document(doc: YamlDocument, *, base: Path) -> SweepSpec:
         seed=data.get("seed", 0), require=require.get("success"), confidence=data.get("confidence", 0.95),
         correction=data.get("correction", "holm"),
         disturbances=disturbances_from_yaml(doc, _mapping(doc, data, "disturbances", DISTURBANCE_FIELDS, problems), problems),
-        source=doc.source, lines=_lines(doc),
+        source=doc.source, lines=field_lines(doc),
     )
     try:
         spec = SweepSpec(**fields)
