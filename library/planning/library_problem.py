@@ -58,7 +58,8 @@ def parse_goal(text: str, rig: Any) -> Any:
     try:
         return parse_predicate(text, rig.layout.shapes(), what="goal")
     except PredicateError as exc:
-        raise InvalidInputError([Problem("--goal", None, "goal", str(exc), "write a predicate over named state, e.g. norm(fingertip - target) < 0.02")]) from None
+        # The predicate error names its field and fix itself; the option is the source.
+        raise InvalidInputError([Problem("--goal", None, "", str(exc))]) from None
 
 
 def _robot(env: str) -> tuple[str, int]:

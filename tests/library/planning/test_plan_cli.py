@@ -82,7 +82,7 @@ def test_no_chain_found_names_the_closest_candidate(store, tmp_path, capsys):
     "args, message",
     [
         (["--goal", SETTLED, "--max-length", "0"], "--max-length: must be a whole number >= 1, got 0"),
-        (["--goal", "norm(fingertip - ", "--max-length", "2"], "--goal"),
+        (["--goal", "norm(fingertip - ", "--max-length", "2"], "--goal: goal: invalid syntax"),
         (["--goal", "norm(elbow) < 1"], "unknown name 'elbow'"),
         (["--goal", SETTLED, "--skills", "arm-nothing"], "arm-nothing"),
         (["--goal", SETTLED, "--skills", "walker-walk"], "another robot"),
@@ -96,3 +96,4 @@ def test_bad_input_is_exit_2_naming_the_option(store, args, message, capsys):
     err = capsys.readouterr().err
     assert code == 2, err
     assert message in err and "Traceback" not in err
+    assert "goal: goal: goal:" not in err and err.count("write one Python-style expression") <= 1  # each part said once
