@@ -176,13 +176,15 @@ def _retrain_batch(args: argparse.Namespace) -> int:
     if args.resume or args.deliberation_cost or args.threads is not None:
         raise InvalidInputError("--resume, --deliberation-cost and --threads apply to a single retrain (--variant), not to a batch "
                                 "(--variants; each child trains on one thread: use --workers N to run several at once)")
-    if not args.json:
-        print(f"retraining {args.ref} on {len(args.variants)} variants ...", file=sys.stderr)
+    def announce(count: int) -> None:  # only once the skill and every variant file have been read
+        if not args.json:
+            print(f"retraining {args.ref} on {count} variant{'s' if count != 1 else ''} ...", file=sys.stderr)
+
     result = retrain_batch(
         args.ref, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), variants=args.variants,
         initial_states=args.initial_states, config=args.config, env_step_budget=args.env_step_budget, seed=args.seed,
         from_scratch=args.from_scratch, method=args.method, promotion_episodes=args.promotion_episodes, workers=args.workers,
-        address=args.address, out=args.out,
+        address=args.address, out=args.out, on_start=announce,
     )
     if args.json:
         print_json(result)

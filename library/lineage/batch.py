@@ -9,7 +9,7 @@ order the variants were given, so version numbers do not depend on which worker 
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
 __all__ = ["train_variant", "retrain_batch", "comparison_rows"]
 
@@ -143,9 +143,12 @@ def retrain_batch(
     ref: str, *, store: Any, variants: Sequence[str | Path], initial_states: str | Path | None = None, config: str | Path | None = None,
     env_step_budget: int | None = None, seed: int = 0, from_scratch: bool = False, method: str = "auto",
     promotion_episodes: int | None = None, refit_episodes: int = 200, workers: int | None = None, address: str | None = None,
-    out: str | Path | None = None,
+    out: str | Path | None = None, on_start: Callable[[int], None] | None = None,
 ) -> dict[str, Any]:
-    """Retrain ``ref`` on every variant; store the children in the order given and apply the promotion rule per variant."""
+    """Retrain ``ref`` on every variant; store the children in the order given and apply the promotion rule per variant.
+
+    ``on_start(n)`` is called once every input has been validated, just before the ``n`` trainings start.
+    """
     from ..api import fit
     from ..execution import executor_for
     from ..output_schema import tagged
@@ -162,6 +165,8 @@ def retrain_batch(
               "promotion_episodes": int(promotion_episodes or DEFAULT_EPISODES)}
     items = _items(ref, store, [Path(v) for v in variants], out=folder, common=common)
     executor = executor_for(workers, address)
+    if on_start is not None:
+        on_start(len(items))
     try:
         trained = executor.map(train_variant, items)
     finally:

@@ -85,6 +85,12 @@ def test_bad_batches_are_refused(tmp_path, capsys) -> None:
         assert info.value.code == 2
     assert main([*s, "--variants", str(VARIANTS[0]), "--resume"]) == 2 and "not to a batch" in capsys.readouterr().err
     assert main([*s, "--variant", str(VARIANTS[0]), "--address", "auto"]) == 2
+    bad = tmp_path / "misspelt.yaml"
+    bad.write_text("name: misspelt\npayload: 5\n")
+    capsys.readouterr()
+    assert main([*s, "--variants", str(VARIANTS[0]), str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert "payload: unknown field" in err and "retraining" not in err  # refused before any 'retraining ...' banner
 
 
 def test_children_are_identical_on_one_and_two_ray_workers(tmp_path, monkeypatch) -> None:
