@@ -200,3 +200,46 @@ def test_short_segments_still_measure_every_mean(rig):
     meta = result.metadata()
     json.dumps(meta, allow_nan=False)  # what the store demands
     assert meta["stop_rate"] == result.termination_rate and meta["env_steps"] == 32 and "steps" not in meta
+
+
+def test_the_termination_step_follows_the_option_critic_update_on_the_arrival_state(rig):
+    # Option-critic termination update with a deliberation cost (Bacon, Harb & Precup 2017; Harb et al. 2018,
+    # from memory): theta <- theta - alpha * sum_i dbeta(s'_i, w_i)/dtheta * (A(s'_i, w_i) + eta) / n, over the
+    # learned decisions only, with s'_i the state after step i, w_i the skill that ran it and A = Q(s', w) - max Q(s', .).
+    # For a linear sigmoid head the gradient of row w is sum_i beta_i (1 - beta_i) (A_i + eta) [f(s'_i), 1] / n.
+    # A plain gradient step (SGD, lr 1) on the trainer's termination step must move the head by exactly that.
+    from kinetome.trainers.update import _samples, _termination_step
+
+    eta = 0.5
+    cfg = quick_config(env_step_budget=16 * 32, stop_mode="learned", stop_init_logit=0.3, standardise_observations=False,
+                       skill_epsilon=0.3, deliberation_cost=eta)
+    trainer = OptionCriticTrainer(_twin_skills(rig, gain=1.0, max_steps=6), rig, cfg, episode_per_skill=False)
+    _fix_critic(trainer, [10.0, -10.0])
+    with torch.no_grad():  # a head that depends on the state, so the features matter
+        trainer.heads.net[-1].weight.copy_(torch.tensor([[0.7, -0.4, 0.2, 0.1], [-0.3, 0.5, 0.0, -0.2]], dtype=torch.float64))
+    trainer.collector.start()
+    r = trainer.collector.collect()
+    # s' is the state after the step: the next row's state where the episode went on
+    went_on = ~r.dones[:-1]
+    np.testing.assert_array_equal(r.term_features[:-1][went_on], r.features[1:][went_on])
+    # forced stops (the 6-step timeout) and episode ends are not learned decisions
+    steps_run = np.rint(r.skill_time / rig.dt) + 1
+    assert np.all(r.term_weight[steps_run >= 6] == 0) and np.all(r.term_weight[r.dones] == 0)
+    assert r.term_weight.sum() > 0 and (r.term_weight == 0).any()
+    np.testing.assert_array_equal(r.term_advantage, np.where(r.skill == 0, 0.0, -20.0))
+
+    f = r.term_features.reshape(-1, r.term_features.shape[-1])
+    w, m, a = r.skill.reshape(-1), r.term_weight.reshape(-1), r.term_advantage.reshape(-1)
+    weight0 = trainer.heads.net[-1].weight.detach().numpy().copy()
+    bias0 = trainer.heads.net[-1].bias.detach().numpy().copy()
+    beta = 1.0 / (1.0 + np.exp(-(np.sum(f * weight0[w], axis=1) + bias0[w])))
+    g = m * beta * (1 - beta) * (a + eta) / m.sum()
+    expected_w = np.stack([np.sum((g * (w == k))[:, None] * f, axis=0) for k in range(2)])
+    expected_b = np.array([np.sum(g * (w == k)) for k in range(2)])
+    assert expected_b[0] > 0 > expected_b[1]  # a is the best skill: eta keeps it running; b is 20 worse: it stops
+
+    s = _samples(r, np.zeros_like(r.rewards), np.zeros_like(r.rewards), with_terminations=True)
+    sgd = torch.optim.SGD(trainer.heads.parameters(), lr=1.0)
+    _termination_step(trainer.heads, sgd, s, torch.arange(s.size), eta=eta, update_index=1)
+    np.testing.assert_allclose(weight0 - trainer.heads.net[-1].weight.detach().numpy(), expected_w, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(bias0 - trainer.heads.net[-1].bias.detach().numpy(), expected_b, rtol=1e-9, atol=1e-12)
