@@ -337,7 +337,7 @@ def _budget_note(cfg: Any) -> str | None:
     )
 
 
-@renamed_arguments({"start": "initial_states", "out_dir": "out", "steps": "env_step_budget"})
+@renamed_arguments({"start": "initial_states", "out_dir": "out", "steps": "env_step_budget", "workers": "threads"})
 def retrain(
     ref: str,
     *,
@@ -347,7 +347,7 @@ def retrain(
     deliberation_cost: float | None = None,
     seed: int = 0,
     from_scratch: bool = False,
-    workers: int = 1,
+    threads: int = 1,
     config: str | Path | None = None,
     initial_states: str | Path | None = None,
     out: str | Path | None = None,
@@ -359,6 +359,8 @@ def retrain(
     method: str = "auto",
 ) -> dict[str, Any]:
     """Retrain a stored skill on a task variant and store the child version with its record.
+
+    ``threads``: MuJoCo threads in this process (``workers=`` is its old spelling and warns).
 
     ``method``: ``actor-critic``, ``search`` (CMA-ES over the skill's bounded parameters) or
     ``auto`` (search for the kinds in ``trainers.retrain.SEARCH_BY_DEFAULT``, else the actor-critic);
@@ -404,7 +406,7 @@ def retrain(
         parent, parent_version.identity, task=TaskFiles.from_paths(variant, initial_states), config=cfg, seed=seed, current=current,
         workdir=folder, checkpoint_dir=run.checkpoint_dir, resume=run.resumed,
         parent_task=parent_task_of(store, parent_version, folder / "parent-task"), from_scratch=from_scratch,
-        workers=workers, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES, method=chosen,
+        workers=threads, progress=progress, promotion_episodes=promotion_episodes or DEFAULT_EPISODES, method=chosen,
     )
     result = draft.result
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"retrain {parent.ref} on {Path(variant).stem}")
@@ -413,7 +415,7 @@ def retrain(
     child = added.version.ref
     current_for = apply_promotion(store, child, draft.promotion) if added.is_new else store.current_tasks(child)
     mark_finished(run, child)
-    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, threads=workers) if refit_episodes else None
+    fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, threads=threads) if refit_episodes else None
     return tagged("retrain", {
         "parent": parent.ref,
         "child": child,
@@ -438,9 +440,11 @@ def retrain(
     })
 
 
-@renamed_arguments({"out_dir": "out"})
-def train(config_path: str | Path, *, store: Any, seed: int | None = None, workers: int = 1, out: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
-    """Train stored skills together with a policy over them; store the refined skills as children (method ``train``)."""
+@renamed_arguments({"out_dir": "out", "workers": "threads"})
+def train(config_path: str | Path, *, store: Any, seed: int | None = None, threads: int = 1, out: str | Path | None = None, progress: Any = None) -> dict[str, Any]:
+    """Train stored skills together with a policy over them; store the refined skills as children (method ``train``).
+
+    ``threads``: MuJoCo threads in this process (``workers=`` is its old spelling and warns)."""
     from kinetome.trainers.config import TrainTask, load_train_file
     from kinetome.trainers.curves import save_curves
     from kinetome.trainers.train_set import train_skills
@@ -462,7 +466,7 @@ def train(config_path: str | Path, *, store: Any, seed: int | None = None, worke
     skills = [load(s.ref, store=store, rig=rig) for s in skills]
     folder = Path(out) if out is not None else Path("kinetome-train") / Path(config_path).stem
     folder.mkdir(parents=True, exist_ok=True)
-    result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=workers, progress=progress, checkpoint_dir=folder / "checkpoints")
+    result = train_skills(skills, rig, cfg, start=load_start_file(task.initial_states), seed=seed, workers=threads, progress=progress, checkpoint_dir=folder / "checkpoints")
     csv_path, png_path = save_curves(result.curve, folder, stem="curve", title=f"train {Path(config_path).stem}")
     shared = current_meta({**result.metadata(), "method": "train", "variant": variant_record(task.variant, variant), "initial_states": task.initial_states, "trained_with": list(loaded.skills)})
     from .lineage.retraining import train_record
@@ -650,6 +654,7 @@ def plan_chain(
         chain=ChainSettings(name=name, require=require, confidence=confidence, episodes=episodes, seed=seed),
         particles=particles, threads=threads, out=out, progress=progress,
     )
+@renamed_arguments({"workers": "threads"})
 def learn_initiation(ref: str, *, store: Any, **options: Any) -> dict[str, Any]:
     """Run ``ref`` from wide initial states, fit P(success | start state) and propose a ``starts_when``
     with exact precision and recall intervals; ``adopt=True`` stores it as a new version (lineage

@@ -31,7 +31,7 @@ class DemoSettings:
     check_episodes: int = 2000
     retrain_config: str = "arm_heavy_payload.yaml"
     seed: int = 0
-    workers: int = 2
+    threads: int = 2  # MuJoCo threads in this process
     sweep_payloads: tuple[float, ...] = (0.2, 0.4, 0.6, 0.8, 1.0)  # kg
     sweep_gains: tuple[float, ...] = (0.6, 0.7, 0.8, 0.9, 1.0)
     sweep_episodes: int = 100  # per cell
@@ -109,7 +109,7 @@ def _fit_from_chains(store: Any, configs: Path, settings: DemoSettings, log: _Lo
         starts = sample_starts(rig, start, settings.fit_episodes, seed=settings.seed)
         with log.progress(f"rollouts of {path.stem} for fitting") as bar:
             rollout = run_chain(
-                skills, rig, starts=starts, seed=settings.seed, workers=settings.workers,
+                skills, rig, starts=starts, seed=settings.seed, workers=settings.threads,
                 progress=lambda done, total: bar.update(done, total=total),
             )
         for k, skill in enumerate(skills):
@@ -141,7 +141,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
         with log.progress(f"checking {path.stem}", unit="episodes") as bar:
             result = check_chain(
                 path, store=store, method="auto", episodes=settings.check_episodes, seed=settings.seed,
-                threads=settings.workers, out=report_dir, progress=lambda done, total: bar.update(done, total=total),
+                threads=settings.threads, out=report_dir, progress=lambda done, total: bar.update(done, total=total),
             )
         data = result.to_dict()
         results.append({"file": f"configs/chains/{path.name}", "name": path.stem, "result": data, "text": result.format_text(), "report_dir": report_dir, "exit_code": result.exit_code})
@@ -153,7 +153,7 @@ def _check_chains(store: Any, configs: Path, out: Path, settings: DemoSettings, 
 def _plan(store: Any, configs: Path, out: Path, settings: DemoSettings, log: _Log) -> dict[str, Any]:
     from .planning.demo_plan import demo_plan
 
-    planned = demo_plan(store, configs, out, quick=settings.quick, seed=settings.seed, threads=settings.workers)
+    planned = demo_plan(store, configs, out, quick=settings.quick, seed=settings.seed, threads=settings.threads)
     log.step(f"plan: found {' -> '.join(planned['winner']) or 'no chain'} for the goal {planned['goal']} (listed {', '.join(planned['listed'])}; chosen by the search {', '.join(planned['chosen_by_search']) or 'nothing'})")
     return planned
 
@@ -174,7 +174,7 @@ def _retrain(store: Any, configs: Path, out: Path, settings: DemoSettings, log: 
         config=configs / "training" / settings.retrain_config,
         initial_states=configs / "initial_states" / "arm_clearance.yaml",  # where arm-lift hands over
         seed=settings.seed,
-        workers=settings.workers,
+        threads=settings.threads,
         out=out / "retrain",
         refit_episodes=settings.fit_episodes,
         progress=on_update,
@@ -194,7 +194,7 @@ def _learn_initiation(store: Any, out: Path, settings: DemoSettings, log: _Log) 
     with log.progress(f"learning where walker-stand works ({episodes} episodes)") as bar:
         try:
             result = learn_initiation("walker-stand", store=store, widen=["torso_pitch=0.5", "qvel=0.5"], episodes=episodes, precision=0.9,
-                                      seed=settings.seed, out=out / "initiation", workers=settings.workers,
+                                      seed=settings.seed, out=out / "initiation", threads=settings.threads,
                                       progress=lambda d, t: bar.update(d, total=t))
         except NoRegionFoundError as exc:
             log.step(str(exc))

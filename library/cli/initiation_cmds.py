@@ -56,7 +56,7 @@ def _learn(args: argparse.Namespace) -> int:
         result = learn_initiation(
             args.ref, store=store, variant=args.variant, initial_states=args.initial_states, widen=args.widen,
             episodes=args.episodes, seed=args.seed, precision=args.precision, confidence=args.confidence,
-            max_clauses=args.max_clauses, adopt=args.adopt, out=args.out, workers=args.threads,
+            max_clauses=args.max_clauses, adopt=args.adopt, out=args.out, threads=args.threads,
             progress=lambda done, total: bar.update(done, total=total),
         )
     if args.json:

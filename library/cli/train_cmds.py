@@ -116,7 +116,7 @@ def _retrain(args: argparse.Namespace) -> int:
         deliberation_cost=args.deliberation_cost,
         seed=args.seed,
         from_scratch=args.from_scratch,
-        workers=threads,
+        threads=threads,
         config=args.config,
         initial_states=args.initial_states,
         out=args.out,
@@ -233,7 +233,7 @@ def _train(args: argparse.Namespace) -> int:
     from ..api import open_store, train
 
     bar, on_update = _bar(f"train {args.config}", args)
-    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, workers=_at_least_one_thread(args.threads), out=args.out, progress=on_update)
+    result = train(args.config, store=open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None)), seed=args.seed, threads=_at_least_one_thread(args.threads), out=args.out, progress=on_update)
     bar.close()
     if args.json:
         print_json(result)

@@ -28,10 +28,10 @@ DEFAULT_EPISODES = 3000
 SPLIT_CODES = {"fit": 0, "choose": 1, "report": 2}
 
 
-def _check(episodes: int, precision: float, confidence: float, max_clauses: int, workers: int = 1) -> None:
+def _check(episodes: int, precision: float, confidence: float, max_clauses: int, threads: int = 1) -> None:
     problems = []
-    if not isinstance(workers, int) or workers < 1:
-        problems.append(f"--threads must be >= 1 (MuJoCo threads in this process), got {workers}; e.g. --threads 1")
+    if not isinstance(threads, int) or threads < 1:
+        problems.append(f"--threads must be >= 1 (MuJoCo threads in this process), got {threads}; e.g. --threads 1")
     if episodes < 100:
         problems.append(f"--episodes must be >= 100 (three splits of the episodes), got {episodes}")
     if not 0.0 < precision < 1.0:
@@ -111,7 +111,7 @@ def learn_initiation(
     max_clauses: int = 4,
     adopt: bool = False,
     out: str | Path | None = None,
-    workers: int = 1,
+    threads: int = 1,
     progress: Any = None,
 ) -> dict[str, Any]:
     """Learn where ``ref`` succeeds and propose a ``starts_when`` (see the module docstring)."""
@@ -124,14 +124,14 @@ def learn_initiation(
     from .propose import propose
     from .sampling import DEFAULT_WIDENING, parse_widening, sample_outcomes
 
-    _check(episodes, precision, confidence, max_clauses, workers)
+    _check(episodes, precision, confidence, max_clauses, threads)
     widening = parse_widening(widen if widen is not None else ([] if initial_states is not None else list(DEFAULT_WIDENING)))
     task_variant = load_variant_file(variant)
     version = store.get(resolve(ref, store=store, variant=task_variant))
     rig = task_rig(version_env(store, version), task_variant)
     loaded = load(version.ref, store=store, rig=rig)
     start = initial_states_for(loaded.skill, initial_states)
-    samples = sample_outcomes(loaded, rig, start=start, widening=widening, episodes=episodes, seed=seed, workers=workers, progress=progress)
+    samples = sample_outcomes(loaded, rig, start=start, widening=widening, episodes=episodes, seed=seed, workers=threads, progress=progress)
     at_rest = [q.name for q in rig.layout.quantities if "/s" in q.unit]
     proposal = propose(samples.starts, samples.success, seed=seed, precision=precision, confidence=confidence, max_clauses=max_clauses,
                        at_rest=at_rest, current=loaded.starts_when, parameters=loaded.parameters,

@@ -132,3 +132,23 @@ def test_adopted_starts_when_keeps_hand_written_clauses_over_other_quantities():
     standing = {"qpos": np.array([[0.0, 0.0, 1.2]]), "torso_height": np.array([0.9])}
     assert not adopted.evaluate(fallen).any() and adopted.evaluate(standing).all()
     assert adopted_starts_when(proposed, None) == (str(proposed), [])
+
+
+def test_api_threads_keyword_and_its_old_spelling(coast_store):
+    """``threads=`` is the MuJoCo thread count in api.learn_initiation / retrain / train; ``workers=`` there is
+    its old spelling: it still works with a warning naming the new one (``workers=`` elsewhere means Ray processes)."""
+    import inspect
+
+    from kinetome.library.errors import InvalidInputError
+    from kinetome.library.renamed_keys import RenamedKeyWarning
+
+    with pytest.raises(InvalidInputError, match="--threads must be >= 1"):
+        api.learn_initiation("coast", store=coast_store, widen=["none"], threads=0)
+    with pytest.warns(RenamedKeyWarning, match="'workers' is an old spelling; write 'threads'"):
+        with pytest.raises(InvalidInputError, match="--threads must be >= 1"):  # the old keyword reaches the same check
+            api.learn_initiation("coast", store=coast_store, widen=["none"], workers=0)
+    for fn in (api.retrain, api.train):
+        params = inspect.signature(fn).parameters
+        assert "threads" in params and "workers" not in params, fn.__name__
+        with pytest.raises(TypeError, match="pass only 'threads'"):
+            fn("x", store=coast_store, variant="v.yaml", threads=1, workers=1) if fn is api.retrain else fn("x", store=coast_store, threads=1, workers=1)
