@@ -2,7 +2,7 @@
 
 Run by hand (not collected by pytest):
 
-    python tests/bench/bench_runtime.py [--episodes 128] [--workers 1,2] [--envs kinetome/BenchArm-v0,Hopper-v5]
+    python tests/bench/bench_runtime.py [--episodes 128] [--rounds 7] [--envs kinetome/BenchArm-v0,Hopper-v5]
                                         [--kinds pd,mlp] [--max-steps 250] [--ref-steps 5000] [--profile ENV:KIND:W]
                                         [--torch-threads N] [--blas-matvec]
 
@@ -12,8 +12,13 @@ threads. ``stops_when`` is made unreachable so episodes run ``--max-steps`` step
 ``starts_when`` and ``stops_when`` are still evaluated every step; Hopper may
 still terminate when it falls, so throughput counts only the steps actually
 simulated (sum of per-episode steps). The reference is
-``gymnasium.make(env).step(constant action)`` in the same process, measured
-before and after the runtime loops (the machine is shared) and averaged.
+``gymnasium.make(env).step(constant action)`` in the same process.
+
+The machine is shared and noisy, so every loop (run_skill per kind on 1 and 2
+threads, MuJoCo's rollout module on 1 and 2 threads, the gymnasium loop, and the
+raw simulator in one and in two OS processes: the machine's own parallel ceiling,
+tests/bench/rounds.py) runs once per round, the order rotated each round, and the
+table gives medians of per-round ratios with their min-max over ``--rounds`` rounds.
 
 ``--torch-threads N`` runs torch on N intra-op threads (default: torch's own
 choice, what run_skill callers get today). ``--blas-matvec`` is a what-if: it
@@ -23,8 +28,8 @@ batch-size invariant), to show what that kernel costs.
 
 Targets: one thread >= 1.0x the gymnasium loop; two threads >= 1.7x the
 one-thread figure, and >= 90% of the 2-thread scaling of MuJoCo's own rollout module
-on the same model and start states (open loop), measured in the same run. Prints a
-markdown table: loop, steps/s, ratio.
+on the same model and start states (open loop), measured in the same round (median
+over rounds of the per-round share). Prints markdown tables.
 """
 
 from __future__ import annotations
@@ -35,12 +40,16 @@ import io
 import os
 import pstats
 import re
+import sys
 import time
 from pathlib import Path
 
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from rounds import RawSimulator, load, median, run_rounds, summary  # noqa: E402
+
 ARM_PD_SPEC = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
 NEVER = "norm(qvel) < -1.0"  # a norm is never negative: episodes run max_steps (or until the env terminates)
 
@@ -177,6 +186,54 @@ def profile(rig, skill, starts, workers: int, top: int) -> str:
     return buf.getvalue()
 
 
+def configs_for(env_id: str, a, kinds: list[str], workers: list[int]) -> dict[str, object]:
+    """The timed loops of one env, each returning steps/s, keyed 'ENV|what|threads'."""
+    out: dict[str, object] = {}
+    for kind in kinds:
+        rig, skill, starts = build(env_id, kind, a.max_steps, a.episodes)
+        runtime_rate(rig, skill, (starts[0][:8], starts[1][:8]), 1)  # warm-up (torch, thread pool)
+        for w in workers:
+            out[f"{env_id}|{kind}|{w}"] = (lambda rig=rig, skill=skill, starts=starts, w=w: runtime_rate(rig, skill, starts, w)[0])
+    rig, _, starts = build(env_id, kinds[0], a.max_steps, a.episodes)
+    nstep = a.max_steps * rig.frame_skip // 2
+    for w in workers:
+        out[f"{env_id}|rollout|{w}"] = (lambda rig=rig, starts=starts, w=w: rollout_rate(rig, starts, nstep, w))
+    out[f"{env_id}|gym|1"] = lambda: gym_loop(env_id, a.ref_steps)
+    return out
+
+
+def report(runs: list[dict], envs: list[str], kinds: list[str], workers: list[int], a) -> None:
+    col = lambda k: [m[k] for m in runs]  # noqa: E731
+    per = lambda num, den: [m[num] / m[den] for m in runs]  # noqa: E731
+    top = max(workers)
+    print("| loop | steps/s (median) | vs gymnasium, median [min-max] | vs 1 thread, median [min-max] |")
+    print("| --- | ---: | ---: | ---: |")
+    for env_id in envs:
+        print(f"| {env_id}: gymnasium env.step, constant action | {median(col(f'{env_id}|gym|1')):,.0f} | 1.00 | - |")
+        for what in ("rollout", *kinds):
+            for w in workers:
+                key = f"{env_id}|{what}|{w}"
+                label = (f"{env_id}: mujoco.rollout open loop, {a.episodes} states (physics steps/s)" if what == "rollout"
+                         else f"{env_id}: run_skill {what}, {a.episodes} episodes")
+                vs_gym = "-" if what == "rollout" else summary(per(key, f"{env_id}|gym|1"))
+                vs_one = "-" if w == 1 else summary(per(key, f"{env_id}|{what}|1"))
+                print(f"| {label}, {w} thread{'s' if w > 1 else ''} | {median(col(key)):,.0f} | {vs_gym} | {vs_one} |")
+    if "raw1" in runs[0]:
+        print(f"| ceiling: raw simulator ({envs[0]}), 2 OS processes vs 1 | - | - | {summary(per('raw2', 'raw1'))} |")
+    if top == 1:
+        return
+    print()
+    print(f"Scaling target (issue 18): run_skill's {top}-thread scaling >= 90% of mujoco.rollout's, same round:")
+    for env_id in envs:
+        roll = per(f"{env_id}|rollout|{top}", f"{env_id}|rollout|1")
+        for kind in kinds:
+            own = per(f"{env_id}|{kind}|{top}", f"{env_id}|{kind}|1")
+            share = [o / r for o, r in zip(own, roll)]
+            verdict = "met" if median(share) >= 0.9 else "missed"
+            print(f"- {env_id} {kind}: {summary(own)}x vs rollout {summary(roll)}x = {summary(share)} of it "
+                  f"({verdict} at the median; met in {sum(x >= 0.9 for x in share)} of {len(share)} rounds)")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--envs", default="kinetome/BenchArm-v0,Hopper-v5")
@@ -185,8 +242,9 @@ def main() -> None:
     ap.add_argument("--episodes", type=int, default=128)
     ap.add_argument("--max-steps", type=int, default=250)
     ap.add_argument("--ref-steps", type=int, default=5000)
-    ap.add_argument("--repeat", type=int, default=1, help="runs per runtime case; the best is reported")
-    ap.add_argument("--profile", default="", help="ENV:KIND:WORKERS to print a cProfile of, e.g. Hopper-v5:mlp:1")
+    ap.add_argument("--rounds", type=int, default=7, help="interleaved rounds (>= 5 advised); medians of per-round ratios")
+    ap.add_argument("--no-ceiling", action="store_true", help="skip the raw simulator in one and two OS processes")
+    ap.add_argument("--profile", default="", help="ENV:KIND:WORKERS to print a cProfile of (after the rounds), e.g. Hopper-v5:mlp:1")
     ap.add_argument("--top", type=int, default=25)
     ap.add_argument("--torch-threads", type=int, default=0, help="torch intra-op threads (0: leave torch's default)")
     ap.add_argument("--blas-matvec", action="store_true", help="what-if: mlp layers via F.linear (see above)")
@@ -201,52 +259,45 @@ def main() -> None:
         import kinetome.library.controllers.mlp as mlp
 
         mlp.matvec = lambda x, w: F.linear(x, w)
-    load_before = os.getloadavg()[0]
+    load_before = load()
     envs = [e for e in a.envs.split(",") if e]
     kinds = [k for k in a.kinds.split(",") if k]
     workers = [int(w) for w in a.workers.split(",") if w]
     bad = [k for k in kinds if k not in ("pd", "mlp")]
-    if bad:
-        raise SystemExit(f"--kinds must be pd and/or mlp, got {bad}")
+    if bad or 1 not in workers:
+        raise SystemExit(f"--kinds must be pd and/or mlp (got {kinds}); --workers must include 1 (got {workers})")
 
-    rows: list[tuple[str, float, str]] = []
+    configs: dict[str, object] = {}
     for env_id in envs:
-        ref_before = gym_loop(env_id, a.ref_steps)
-        results = []
-        for kind in kinds:
-            rig, skill, starts = build(env_id, kind, a.max_steps, a.episodes)
-            runtime_rate(rig, skill, (starts[0][:8], starts[1][:8]), 1)  # warm-up (torch, thread pool)
-            for w in workers:
-                best = max(runtime_rate(rig, skill, starts, w) for _ in range(a.repeat))
-                results.append((kind, w, *best))
-            if a.profile:
-                p_env, p_kind, p_w = a.profile.rsplit(":", 2)
-                if p_env == env_id and p_kind == kind:
-                    print(profile(rig, skill, starts, int(p_w), a.top))
-        if len(workers) > 1 and 1 in workers:  # the scaling reference of issue 18: MuJoCo's rollout module, same run
-            rig, _, starts = build(env_id, kinds[0], a.max_steps, a.episodes)
-            nstep = a.max_steps * rig.frame_skip // 2
-            scaling = {w: rollout_rate(rig, starts, nstep, w) for w in workers}
-            for w in workers:
-                note = "" if w == 1 else f" ({scaling[w] / scaling[1]:.2f}x 1 thread; target for run_skill: >= {0.9 * scaling[w] / scaling[1]:.2f}x)"
-                rows.append((f"{env_id}: mujoco.rollout open loop, {a.episodes} states, {w} thread{'s' if w > 1 else ''} (physics steps/s)",
-                             scaling[w], "-" + note))
-        ref = 0.5 * (ref_before + gym_loop(env_id, a.ref_steps))
-        rows.append((f"{env_id}: gymnasium env.step, constant action", ref, "1.00"))
-        one = {kind: rate for kind, w, rate, _ in results if w == 1}
-        for kind, w, rate, steps in results:
-            label = f"{env_id}: run_skill {kind}, {a.episodes} episodes, {w} thread{'s' if w > 1 else ''} ({steps:,} steps)"
-            ratio = f"{rate / ref:.2f}"
-            if w != 1 and kind in one:
-                ratio += f" ({rate / one[kind]:.2f}x 1 thread)"
-            rows.append((label, rate, ratio))
+        configs.update(configs_for(env_id, a, kinds, workers))
+    raw = None if a.no_ceiling else RawSimulator(envs[0], seconds=1.0)
+    if raw is not None:
+        configs.update(raw1=raw.one, raw2=raw.two)
+    loads: list[float] = []
+
+    def progress(r: int, m: dict) -> None:
+        loads.append(os.getloadavg()[0])
+        top = max(workers)
+        parts = [f"{e.split('/')[-1]} {k} {m[f'{e}|{k}|{top}'] / m[f'{e}|{k}|1']:.2f}x" for e in envs for k in ("rollout", *kinds)]
+        if raw is not None:
+            parts.append(f"raw 2 processes {m['raw2'] / m['raw1']:.2f}x")
+        print(f"round {r + 1}: {', '.join(parts)}; load {loads[-1]:.2f}", file=sys.stderr, flush=True)
+
+    try:
+        runs = run_rounds(configs, a.rounds, on_round=progress)
+    finally:
+        if raw is not None:
+            raw.close()
     print(f"torch intra-op threads {torch.get_num_threads()}{', BLAS matvec (what-if)' if a.blas_matvec else ''}; "
-          f"1-min load average {load_before:.1f} before, {os.getloadavg()[0]:.1f} after, on {os.cpu_count()} CPUs")
+          f"1-min / 5-min / 15-min load average {load_before} before, {load()} after; per round (1-min) "
+          f"{', '.join(f'{x:.2f}' for x in loads)}; {os.cpu_count()} CPUs; {a.rounds} rounds, order rotated each round")
     print()
-    print("| loop | steps/s | ratio vs gymnasium (vs 1 thread) |")
-    print("| --- | ---: | ---: |")
-    for label, rate, ratio in rows:
-        print(f"| {label} | {rate:,.0f} | {ratio} |")
+    report(runs, envs, kinds, workers, a)
+    if a.profile:
+        p_env, p_kind, p_w = a.profile.rsplit(":", 2)
+        rig, skill, starts = build(p_env, p_kind, a.max_steps, a.episodes)
+        runtime_rate(rig, skill, (starts[0][:8], starts[1][:8]), 1)
+        print(profile(rig, skill, starts, int(p_w), a.top))
 
 
 if __name__ == "__main__":

@@ -1,36 +1,50 @@
-"""Benchmark: episodes/s of a 1,000-episode simulation check in one process and on Ray workers.
+"""Benchmark: episodes/s of a 1,000-episode simulation check in one process and on Ray workers, in interleaved rounds.
 
 Run by hand (not collected by pytest):
 
-    python tests/bench/bench_scaleout.py [--episodes 1000] [--repeat 2] [--block-size 256]
+    python tests/bench/bench_scaleout.py [--episodes 1000] [--rounds 7] [--block-size 256]
 
 The check is the bench arm's lift -> reach -> place chain (spec files, no store),
-``--method sim``, fixed plan, blocks of ``--block-size`` episodes. Rows:
+``--method sim``, fixed plan, blocks of ``--block-size`` episodes. Configurations:
 
-- one process, 1 MuJoCo thread (the reference, measured before and after the others);
+- one process, 1 MuJoCo thread (the reference);
 - one process, 2 MuJoCo threads (``--threads 2``);
-- 1 and 2 Ray workers, one thread each, warm (Ray started and every worker's skills built
-  before the clock starts; Ray's start-up is timed separately).
+- 2 Ray workers, one thread each, warm (Ray started and both workers' skills built before
+  the clock starts; Ray's start-up is timed separately);
+- the same check on 2 plain OS processes (multiprocessing, spawned and warm; no Ray): what
+  the check's blocks give on two workers without Ray's machinery;
+- the raw simulator (``mujoco.rollout``, one thread, the same model) in one OS process and in
+  two at once: the machine's own parallel ceiling in that round (tests/bench/rounds.py);
+- the check's blocks alone (no check around them) in this process and on one warm Ray worker:
+  the difference per block is Ray's cost per block.
 
-The raw simulator (``mujoco.rollout``, 1 thread, the same model and physics steps per
-env step) is measured in the same run. Results are identical in every row (checked).
-Target: 2 Ray workers >= 1.8x one process on one thread. Also prints the per-block cost
-and the bytes sent and returned per block, for the scale-out note in README.
+Every configuration runs once per round, the order rotated each round, so the ratios of a
+round compare runs made under the same conditions; the report gives the median of the
+per-round ratios and their min-max. Results are identical in every check (checked each
+round). Target: 2 Ray workers >= 1.8x one process on one thread (median of rounds).
+Also prints the per-block cost and the bytes sent and returned per block, for the
+scale-out note in README, and the load average before, after and per round.
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
+import multiprocessing
 import os
 import pickle
+import sys
 import tempfile
 import time
 from pathlib import Path
-
-import numpy as np
+from typing import Any, Callable, Iterable, Iterator
 
 ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from rounds import RawSimulator, load, median, run_rounds, summary  # noqa: E402
+
 SKILLS = ("arm-lift", "arm-reach-tray", "arm-place")
+ENV = "kinetome/BenchArm-v0"
 
 
 def write_chain(folder: Path, episodes: int) -> Path:
@@ -38,7 +52,7 @@ def write_chain(folder: Path, episodes: int) -> Path:
 
     data = {
         "name": "bench-scaleout",
-        "task": {"env": "kinetome/BenchArm-v0", "initial_states": str(ROOT / "configs" / "initial_states" / "arm_home.yaml")},
+        "task": {"env": ENV, "initial_states": str(ROOT / "configs" / "initial_states" / "arm_home.yaml")},
         "skills": [str(ROOT / "configs" / "skills" / f"{s}.yaml") for s in SKILLS],
         "episodes": episodes,
         "seed": 0,
@@ -59,38 +73,61 @@ def timed_check(path: Path, block_size: int, **where) -> tuple[float, dict]:
     return wall, d
 
 
-def raw_simulator(physics_steps: int) -> float:
-    """mujoco.rollout physics steps/s on the bench arm model, 1 thread, zero controls (16 states at once)."""
-    import mujoco
-    from mujoco import rollout
+class PlainProcesses:
+    """The executor interface on a multiprocessing pool (spawned, one thread per library): no Ray involved."""
 
-    from kinetome.envs import make_rig
+    def __init__(self, workers: int):
+        from kinetome.library.execution.worker import prepare_worker
 
-    model = make_rig("kinetome/BenchArm-v0").model
-    data = mujoco.MjData(model)
-    batch, nstep = 16, max(1, physics_steps // 16)
-    state = np.zeros((batch, mujoco.mj_stateSize(model, mujoco.mjtState.mjSTATE_FULLPHYSICS)))
-    for i in range(batch):
-        mujoco.mj_getState(model, data, state[i], mujoco.mjtState.mjSTATE_FULLPHYSICS)
-    control = np.zeros((batch, nstep, model.nu))
-    with rollout.Rollout(nthread=0) as r:
-        r.rollout(model, data, state[:, :], control[:, :10])  # warm-up
-        t = time.perf_counter()
-        r.rollout(model, data, state, control)
-        return batch * nstep / (time.perf_counter() - t)
+        self.workers = workers
+        self.where = f"{workers} plain processes"
+        self._pool = multiprocessing.get_context("spawn").Pool(workers, initializer=prepare_worker)
+
+    def map(self, fn: Callable[[Any], Any], items: Iterable[Any]) -> list[Any]:
+        return list(self.imap(fn, items))
+
+    def imap(self, fn: Callable[[Any], Any], items: Iterable[Any]) -> Iterator[Any]:
+        return self._pool.imap(fn, items, chunksize=1)
+
+    def close(self) -> None:
+        """Kept warm between checks; ``shutdown`` ends it."""
+
+    def shutdown(self) -> None:
+        self._pool.terminate()
+        self._pool.join()
 
 
-def block_traffic(path: Path, block_size: int) -> dict[str, float]:
-    """Bytes of one block's work item and of its result, and its compute time in this process (1 thread)."""
+@contextlib.contextmanager
+def checks_on(executor: Any) -> Iterator[None]:
+    """Checks run meanwhile send their blocks to ``executor`` (a what-if for this benchmark only)."""
+    import kinetome.library.execution as execution
+
+    saved = execution.executor_for
+    execution.executor_for = lambda *a, **k: executor
+    try:
+        yield
+    finally:
+        execution.executor_for = saved
+
+
+def check_blocks(path: Path, block_size: int):
+    """(job, blocks, starts) of the check's simulation, as the checker builds them."""
     from kinetome.library.checker.chain import load_chain
     from kinetome.library.checker.context import CheckOptions, prepare_context
-    from kinetome.library.execution import Block
-    from kinetome.library.execution.chain_blocks import chain_job, run_chain_block
+    from kinetome.library.execution import plan_blocks
+    from kinetome.library.execution.chain_blocks import chain_job
 
     ctx = prepare_context(load_chain(path, store=None), store=None, options=CheckOptions(method="sim"))
     job = chain_job(list(ctx.skills), ctx.rig, seed=ctx.seed, disturbances=ctx.chain.disturbances, may_time_out=ctx.chain.may_time_out)
-    qpos, qvel = ctx.block_starts(0, block_size)
-    item = {"job": job, "block": Block(0, 0, block_size).to_dict(), "qpos": qpos, "qvel": qvel}
+    return job, plan_blocks(ctx.episodes, block_size), lambda b: ctx.block_starts(b.first, b.stop)
+
+
+def block_traffic(job: dict, blocks: list, starts: Callable) -> dict[str, float]:
+    """Bytes of one block's work item and of its result, and its compute time in this process (1 thread)."""
+    from kinetome.library.execution.chain_blocks import run_chain_block
+
+    qpos, qvel = starts(blocks[0])
+    item = {"job": job, "block": blocks[0].to_dict(), "qpos": qpos, "qvel": qvel}
     run_chain_block(item)  # builds the job once, as a warm worker has
     t = time.perf_counter()
     result = run_chain_block(item)
@@ -99,91 +136,105 @@ def block_traffic(path: Path, block_size: int) -> dict[str, float]:
             "steps": int(sum(s.steps.sum() for s in result.segments))}
 
 
-def blocks_only(path: Path, block_size: int, repeat: int) -> tuple[float, float]:
-    """Wall time of the check's blocks alone (no check around them): in this process (1 thread), and on
-    one warm Ray worker (Ray running). The difference per block is Ray's cost per block."""
-    from kinetome.library.checker.chain import load_chain
-    from kinetome.library.checker.context import CheckOptions, prepare_context
-    from kinetome.library.execution import InProcessExecutor, plan_blocks
-    from kinetome.library.execution.chain_blocks import chain_job, run_chain_blocks
-    from kinetome.library.execution.ray_executor import RayExecutor
-
-    ctx = prepare_context(load_chain(path, store=None), store=None, options=CheckOptions(method="sim"))
-    job = chain_job(list(ctx.skills), ctx.rig, seed=ctx.seed, disturbances=ctx.chain.disturbances, may_time_out=ctx.chain.may_time_out)
-    blocks = plan_blocks(ctx.episodes, block_size)
-    starts = lambda b: ctx.block_starts(b.first, b.stop)  # noqa: E731
-    out = []
-    for executor in (InProcessExecutor(), RayExecutor(workers=1, address=None)):
-        list(run_chain_blocks(executor, job, blocks[:1], starts))  # warm
-        walls = []
-        for _ in range(repeat):
-            t = time.perf_counter()
-            list(run_chain_blocks(executor, job, blocks, starts))
-            walls.append(time.perf_counter() - t)
-        out.append(min(walls))
-    return out[0], out[1]
-
-
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--episodes", type=int, default=1000)
     ap.add_argument("--block-size", type=int, default=256)
-    ap.add_argument("--repeat", type=int, default=2, help="runs per row; the best is reported")
+    ap.add_argument("--rounds", type=int, default=7, help="interleaved rounds (>= 5 advised); medians of per-round ratios")
     a = ap.parse_args()
     os.environ.setdefault("OMP_NUM_THREADS", "1")
-    load_before = os.getloadavg()[0]
+    load_before = load()
     folder = Path(tempfile.mkdtemp(prefix="kinetome-bench-scaleout-"))
     path = write_chain(folder, a.episodes)
     n_blocks = -(-a.episodes // a.block_size)
 
-    def best(**where) -> tuple[float, dict]:
-        runs = [timed_check(path, a.block_size, **where) for _ in range(a.repeat)]
-        return min(w for w, _ in runs), runs[0][1]
+    from kinetome.library.execution import InProcessExecutor, executor_for
+    from kinetome.library.execution.chain_blocks import run_chain_blocks
+    from kinetome.library.execution.ray_executor import RayExecutor
 
-    timed_check(path, a.block_size)  # warm-up: imports, model compile
-    one_before, reference = best(threads=1)
-    two_threads, d2 = best(threads=2)
-
-    from kinetome.library.execution import executor_for
-
+    _, reference = timed_check(path, a.block_size)  # warm-up: imports, model compile
     t = time.perf_counter()
     owner = executor_for(2)  # a local Ray with 2 CPUs; check() reuses it
     ray_start = time.perf_counter() - t
     timed_check(path, a.block_size, workers=2)  # warm: both workers import and build the chain's skills
-    ray_two, dr2 = best(workers=2)
-    here_blocks, ray_blocks = blocks_only(path, a.block_size, a.repeat)
+    ray_one = RayExecutor(workers=1, address=None)
+    plain = PlainProcesses(2)
+    with checks_on(plain):
+        timed_check(path, a.block_size)  # warm: both processes import and build the skills
+    raw = RawSimulator(ENV, seconds=1.0)
+    job, blocks, starts = check_blocks(path, a.block_size)
+    traffic = block_traffic(job, blocks, starts)
+    list(run_chain_blocks(ray_one, job, blocks[:1], starts))
+
+    def check(**where) -> Callable[[], float]:
+        def run() -> float:
+            wall, d = timed_check(path, a.block_size, **where)
+            assert d == reference, f"results differ from one process, 1 thread ({where})"
+            return wall
+        return run
+
+    def on_plain() -> float:
+        with checks_on(plain):
+            return check()()
+
+    def blocks_on(executor: Any) -> Callable[[], float]:
+        def run() -> float:
+            t = time.perf_counter()
+            list(run_chain_blocks(executor, job, blocks, starts))
+            return time.perf_counter() - t
+        return run
+
+    configs = {
+        "one": check(threads=1), "threads2": check(threads=2), "ray2": check(workers=2), "plain2": on_plain,
+        "raw1": raw.one, "raw2": raw.two, "blocks_here": blocks_on(InProcessExecutor()), "blocks_ray1": blocks_on(ray_one),
+    }
+    loads: list[float] = []
+
+    def progress(r: int, m: dict) -> None:
+        loads.append(os.getloadavg()[0])
+        print(f"round {r + 1}: 2 Ray workers {m['one'] / m['ray2']:.2f}x, 2 plain processes {m['one'] / m['plain2']:.2f}x, "
+              f"2 threads {m['one'] / m['threads2']:.2f}x, raw simulator 2 processes {m['raw2'] / m['raw1']:.2f}x; "
+              f"load {loads[-1]:.2f}", file=sys.stderr, flush=True)
+
+    runs = run_rounds(configs, a.rounds, on_round=progress)
+    raw.close()
+    plain.shutdown()
     owner.close()
-    one_after, d1b = best(threads=1)
-    assert reference == d2 == dr2 == d1b, "results differ between rows"
-    traffic = block_traffic(path, a.block_size)
-    one = 0.5 * (one_before + one_after)
-    env_steps = traffic["steps"] * a.episodes / a.block_size
+    report(a, runs, traffic, ray_start, load_before, loads, n_blocks)
+
+
+def report(a: Any, runs: list[dict], traffic: dict, ray_start: float, load_before: str, loads: list[float], n_blocks: int) -> None:
     from kinetome.envs import make_rig
 
-    frame_skip = make_rig("kinetome/BenchArm-v0").frame_skip
-    raw = raw_simulator(int(env_steps * frame_skip) // 4) / frame_skip  # env steps/s
-    rows = [
-        ("one process, 1 thread", one, f"before {a.episodes / one_before:,.0f}, after {a.episodes / one_after:,.0f}"),
-        ("one process, 2 threads (--threads 2)", two_threads, ""),
-        ("blocks only, this process, 1 thread (no check around them)", here_blocks, ""),
-        ("blocks only, 1 Ray worker (warm)", ray_blocks, ""),
-        ("2 Ray workers, 1 thread each (warm)", ray_two, ""),
-    ]
-    print(f"1-min load average {load_before:.1f} before, {os.getloadavg()[0]:.1f} after, on {os.cpu_count()} CPUs; "
-          f"{a.episodes} episodes in {n_blocks} blocks of {a.block_size}; results identical in every row")
-    print(f"raw simulator (mujoco.rollout, 1 thread): {raw:,.0f} env steps/s; one process 1 thread simulates "
-          f"{env_steps / one:,.0f} env steps/s ({env_steps / one / raw:.2f}x raw)")
+    frame_skip = make_rig(ENV).frame_skip
+    env_steps = traffic["steps"] * a.episodes / a.block_size
+    col = lambda k: [m[k] for m in runs]  # noqa: E731
+    ratio = lambda num, den: [m[num] / m[den] for m in runs]  # noqa: E731
+    ceiling = [m["raw2"] / m["raw1"] for m in runs]
+    ray_vs_one = ratio("one", "ray2")
+    print(f"1-min / 5-min / 15-min load average {load_before} before, {load()} after; per round (1-min) "
+          f"{', '.join(f'{x:.2f}' for x in loads)}; {os.cpu_count()} CPUs")
+    print(f"{a.episodes} episodes in {n_blocks} blocks of {a.block_size}; {a.rounds} rounds, order rotated each round; "
+          f"results identical in every check of every round")
     print(f"Ray start-up (local, 2 CPUs, first version check): {ray_start:.1f} s (not in the rows)")
+    print(f"one process 1 thread simulates {summary([env_steps / w for w in col('one')], '{:,.0f}')} env steps/s = "
+          f"{summary([env_steps / m['one'] / (m['raw1'] / frame_skip) for m in runs])}x the raw simulator in the same round")
     print()
-    print("| how | wall s | episodes/s | vs one process 1 thread | note |")
-    print("| --- | ---: | ---: | ---: | --- |")
-    for label, wall, note in rows:
-        print(f"| {label} | {wall:.2f} | {a.episodes / wall:,.0f} | {one / wall:.2f}x | {note} |")
-    overhead = (ray_blocks - here_blocks) / n_blocks
+    print("| how | wall s, median [min-max] | episodes/s (median) | vs one process 1 thread, median of per-round ratios [min-max] |")
+    print("| --- | ---: | ---: | ---: |")
+    for key, label in (("one", "one process, 1 thread"), ("threads2", "one process, 2 threads (--threads 2)"),
+                       ("ray2", "2 Ray workers, 1 thread each (warm)"), ("plain2", "2 plain processes (multiprocessing, no Ray; what-if)")):
+        print(f"| {label} | {summary(col(key))} | {a.episodes / median(col(key)):,.0f} | {summary(ratio('one', key))}x |")
+    print(f"| ceiling: raw simulator, 2 OS processes vs 1 (same rounds) | - | - | {summary(ceiling)}x |")
     print()
-    print(f"per block of {a.block_size} episodes: compute {traffic['block_s']:.3f} s (1 thread, {traffic['steps']:,} env steps), "
+    print(f"2 Ray workers vs one process 1 thread: {summary(ray_vs_one)}x (target >= 1.8x: "
+          f"{'met' if median(ray_vs_one) >= 1.8 else 'missed'}); as a share of the same round's ceiling "
+          f"{summary([r / c for r, c in zip(ray_vs_one, ceiling)])}; vs 2 plain processes {summary(ratio('plain2', 'ray2'))}x")
+    overhead = [(m["blocks_ray1"] - m["blocks_here"]) / n_blocks for m in runs]
+    print(f"per block of {a.block_size} episodes: compute {traffic['block_s']:.3f} s (1 thread, {traffic['steps']:,} env steps; "
+          f"blocks only in this process {summary(col('blocks_here'))} s for all {n_blocks}), "
           f"work item {traffic['item_bytes'] / 1024:.1f} KiB, result {traffic['result_bytes'] / 1024:.1f} KiB, "
-          f"Ray's cost about {overhead:+.3f} s per block (1 Ray worker minus this process, blocks only)")
+          f"Ray's cost {summary(overhead, '{:+.3f}')} s per block (1 warm Ray worker minus this process, blocks only)")
 
 
 if __name__ == "__main__":
