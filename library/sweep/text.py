@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
-__all__ = ["format_sweep", "format_region", "cell_label"]
+__all__ = ["format_sweep", "format_region", "cell_label", "lower_text"]
 
 
 def cell_label(values: Mapping[str, Any]) -> str:
@@ -25,6 +25,15 @@ def format_region(region: Mapping[str, Any], *, indent: str = "  ") -> list[str]
     return lines
 
 
+def lower_text(cell: Mapping[str, Any], require: float) -> str:
+    """A cell's corrected lower bound as shown. Under Holm's step-down a cell after the first failing one
+    is never tested, so a bound at or above the requirement there does not make it pass: say so."""
+    text = f"{cell['corrected_lower']:.3f}"
+    if cell["mark"] != "pass" and cell["corrected_lower"] >= require:
+        text += " (not tested: the step-down stopped at an earlier cell)"
+    return text
+
+
 def format_sweep(result: Mapping[str, Any]) -> str:
     from ..cli.output import format_table
 
@@ -41,7 +50,8 @@ def format_sweep(result: Mapping[str, Any]) -> str:
         low, high = c["interval"]
         row = {"index": c["index"], **{a: c["values"][a] for a in axes}}
         row.update(success=f"{c['successes']}/{c['episodes']} = {c['success_rate']:.3f}" if c["episodes"] else "0/0",
-                   interval=f"{low:.3f} to {high:.3f}", lower=f"{c['corrected_lower']:.3f}", run=c["episodes_run"], mark=c["mark"])
+                   interval=f"{low:.3f} to {high:.3f}", lower=lower_text(c, result["region"]["require"]), run=c["episodes_run"],
+                   mark=c["mark"])
         rows.append(row)
     columns = [("index", "#"), *[(a, a.upper()) for a in axes], ("success", "SUCCESS (DISTINCT)"),
                ("interval", f"{conf:.0%} EXACT INTERVAL"), ("lower", "CORRECTED LOWER"), ("run", "EPISODES RUN"), ("mark", "MARK")]

@@ -74,3 +74,18 @@ def test_same_task_compares_values_up_to_round_off() -> None:
     assert same_task({"payload_mass": 0.6, "gravity": [0, 0, -9.81]}, {"payload_mass": 0.6000000000001, "gravity": (0.0, 0.0, -9.81)})
     assert not same_task({"payload_mass": 0.6}, {"payload_mass": 0.61})
     assert not same_task({"payload_mass": 0.6}, {"payload_mass": 0.6, "actuator_gain": 1.0})
+
+
+def test_holm_cell_after_the_stop_shows_its_bound_as_not_tested() -> None:
+    """Two cells of 30/30 against 0.9: each p-value is 0.9**30 = 0.042 (> 0.05/2, < 0.05). Holm tests the
+    first at 0.025 (fails) and stops, so the second is never tested although its bound at 0.05 clears 0.9;
+    the table must not show a bound above the requirement beside 'unsure' without saying why."""
+    from kinetome.library.sweep.text import lower_text
+
+    first, second = (m.to_dict() for m in mark_cells([(30, 30), (30, 30)], require=0.9, confidence=0.95, correction="holm"))
+    assert first["mark"] == second["mark"] == "unsure"
+    assert first["corrected_lower"] < 0.9 <= second["corrected_lower"]
+    assert lower_text(first, 0.9) == f"{first['corrected_lower']:.3f}"
+    assert "not tested" in lower_text(second, 0.9)
+    passed = mark_cells([(100, 100)], require=0.9, confidence=0.95, correction="holm")[0].to_dict()
+    assert passed["mark"] == "pass" and "not tested" not in lower_text(passed, 0.9)
