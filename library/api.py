@@ -339,24 +339,10 @@ def _budget_note(cfg: Any) -> str | None:
 
 @renamed_arguments({"start": "initial_states", "out_dir": "out", "steps": "env_step_budget", "workers": "threads"})
 def retrain(
-    ref: str,
-    *,
-    store: Any,
-    variant: str | Path,
-    env_step_budget: int | None = None,
-    deliberation_cost: float | None = None,
-    seed: int = 0,
-    from_scratch: bool = False,
-    threads: int = 1,
-    config: str | Path | None = None,
-    initial_states: str | Path | None = None,
-    out: str | Path | None = None,
-    resume: bool = False,
-    refit_episodes: int = 200,
-    promotion_episodes: int | None = None,
-    progress: Any = None,
-    on_run: Any = None,
-    method: str = "auto",
+    ref: str, *, store: Any, variant: str | Path, env_step_budget: int | None = None, deliberation_cost: float | None = None,
+    seed: int = 0, from_scratch: bool = False, threads: int = 1, config: str | Path | None = None,
+    initial_states: str | Path | None = None, out: str | Path | None = None, resume: bool = False, refit_episodes: int = 200,
+    promotion_episodes: int | None = None, progress: Any = None, on_run: Any = None, method: str = "auto",
 ) -> dict[str, Any]:
     """Retrain a stored skill on a task variant and store the child version with its record.
 
@@ -380,7 +366,7 @@ def retrain(
 
     from .lineage.promotion import DEFAULT_EPISODES
     from .lineage.retraining import TaskFiles, apply_promotion, current_versions, parent_task_of, run_retrain
-    from .retrain_runs import explicit_run, find_run_to_resume, mark_finished, new_run
+    from .retrain_runs import mark_finished, open_run
     from .safety import caution_for
     from .stored_meta import current_meta
     from .tasks import load_variant_file, task_rig
@@ -391,13 +377,8 @@ def retrain(
     parent_version = store.get(resolve(ref, store=store, variant=task_variant))
     parent = load(parent_version.ref, store=store)
     chosen = choose_method(parent.skill.controller.kind, method)
-    rig = task_rig(parent.skill.env, task_variant)
-    if out is not None:
-        run = explicit_run(out, resume=resume)
-    elif resume:
-        run = find_run_to_resume(parent.ref, variant, store_root=store.location)
-    else:
-        run = new_run(parent.ref, variant, store_root=store.location, seed=seed)
+    rig = task_rig(parent.skill.env, task_variant)  # built before training: a variant the env cannot take fails now
+    run = open_run(parent.ref, variant, store_root=store.location, out=out, resume=resume, seed=seed)
     folder = run.folder
     if on_run is not None:
         on_run(run, _budget_note(cfg))
@@ -417,26 +398,12 @@ def retrain(
     mark_finished(run, child)
     fitted = fit(child, store=store, episodes=refit_episodes, variant=variant, initial_states=initial_states, seed=seed, threads=threads) if refit_episodes else None
     return tagged("retrain", {
-        "parent": parent.ref,
-        "child": child,
-        "is_new": added.is_new,
-        "variant": str(variant),
-        "before": meta["metrics_before"],
-        "after": meta["metrics_after"],
-        "env_steps": result.steps,
-        "trainer": meta["trainer"],
+        "parent": parent.ref, "child": child, "is_new": added.is_new, "variant": str(variant),
+        "before": meta["metrics_before"], "after": meta["metrics_after"], "env_steps": result.steps, "trainer": meta["trainer"],
         "method_choice": f"default for {parent.skill.controller.kind} skills" if method == "auto" else "chosen with --method",
-        "wall_time_s": result.wall_time,
-        "curve_csv": str(csv_path),
-        "curve_png": str(png_path),
-        "promotion": draft.promotion,
-        "current_for": current_for,
-        "models": fitted,
-        "lineage": [v.ref for v in store.lineage(child)],
-        "caution": caution_for(rig),
-        "run_folder": str(folder),
-        "resumed": run.resumed,
-        "budget_note": _budget_note(cfg),
+        "wall_time_s": result.wall_time, "curve_csv": str(csv_path), "curve_png": str(png_path),
+        "promotion": draft.promotion, "current_for": current_for, "models": fitted, "lineage": [v.ref for v in store.lineage(child)],
+        "caution": caution_for(rig), "run_folder": str(folder), "resumed": run.resumed, "budget_note": _budget_note(cfg),
     })
 
 

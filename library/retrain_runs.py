@@ -18,7 +18,7 @@ from typing import Any
 
 from .errors import InvalidInputError
 
-__all__ = ["RetrainRun", "DEFAULT_ROOT", "claim_run_folder", "new_run", "find_run_to_resume", "explicit_run", "mark_finished"]
+__all__ = ["RetrainRun", "DEFAULT_ROOT", "claim_run_folder", "new_run", "find_run_to_resume", "explicit_run", "open_run", "mark_finished"]
 
 DEFAULT_ROOT = Path("kinetome-retrain")
 RUN_FILE = "run.json"
@@ -100,6 +100,15 @@ def explicit_run(out_dir: str | Path, *, resume: bool) -> RetrainRun:
         )
     folder.mkdir(parents=True, exist_ok=True)
     return RetrainRun(folder, resumed=resume)
+
+
+def open_run(parent_ref: str, variant: str | Path, *, store_root: Any, out: str | Path | None, resume: bool, seed: int) -> RetrainRun:
+    """The run folder of one retrain: ``out`` when given, else the latest unfinished run to resume, else a new one."""
+    if out is not None:
+        return explicit_run(out, resume=resume)
+    if resume:
+        return find_run_to_resume(parent_ref, variant, store_root=store_root)
+    return new_run(parent_ref, variant, store_root=store_root, seed=seed)
 
 
 def mark_finished(run: RetrainRun, child_ref: str) -> None:
