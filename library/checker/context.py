@@ -153,19 +153,22 @@ class CheckContext:
         return self.cache[key]
 
 
-def _load_step(step: str, store: Any, rig: Any) -> Any:
+def _load_step(step: str, store: Any, rig: Any, spec: Any = None) -> Any:
+    """The step built for ``rig``; ``spec``: the step's spec file already read (a spec-file step)."""
     from ..runtime.skill import load_skill, skill_from_spec
     from ..spec_load import load_spec
 
     if skill_is_spec_file(step):
-        return skill_from_spec(load_spec(step), ref=Path(step).name, rig=rig)
+        return skill_from_spec(spec if spec is not None else load_spec(step), ref=Path(step).name, rig=rig)
     return load_skill(store, step, rig=rig)
 
 
-def _spec_env(step: str, store: Any) -> str:
+def _spec_env(step: str, store: Any, spec: Any = None) -> str:
     """The env a step's spec names, without building its controller."""
     import json
 
+    if spec is not None:
+        return spec.env
     if skill_is_spec_file(step):
         from ..spec_load import load_spec
 
@@ -183,6 +186,7 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
     (or has another number of actuators) is built for its own env instead; the
     structural check then reports the mismatch as ``breaks``.
     """
+    from ..spec_load import load_spec
     from ..tasks import load_start_file, load_variant_file, task_rig
     from .chain import resolve_skills
 
@@ -207,13 +211,14 @@ def prepare_context(chain: Chain, *, store: Any, options: CheckOptions) -> Check
     skills, envs, built_for = [], [], []
     own_rigs: dict[str, Any] = {rig.env_id: rig}
     for step in chain.skills:
-        env = _spec_env(step, store)
+        spec = load_spec(step) if skill_is_spec_file(step) else None  # read and validated once per step
+        env = _spec_env(step, store, spec)
         envs.append(env)
         if env not in own_rigs:
             own_rigs[env] = task_rig(env)
         own = own_rigs[env]
         fits = own.metadata.get("robot") == rig.metadata.get("robot") and own.n_act == rig.n_act
         # A skill of another robot is built for its own env; the structural check reports the mismatch.
-        skills.append(_load_step(step, store, rig if fits else own))
+        skills.append(_load_step(step, store, rig if fits else own, spec))
         built_for.append(rig.env_id if fits else own.env_id)
     return CheckContext(chain, options, rig, tuple(skills), tuple(envs), start, store, built_for=tuple(built_for))

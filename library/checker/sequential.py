@@ -38,10 +38,15 @@ DEFAULT_BLOCK = 256
 
 
 def split_blocks(first: int, count: int, size: int) -> tuple[tuple[int, int], ...]:
-    """[first, first + count) as consecutive (start, stop) blocks of at most ``size`` episodes."""
+    """[first, first + count) as consecutive (start, stop) blocks of at most ``size`` episodes, as even as
+    possible (``execution.plan_blocks``: blocks on workers finish together)."""
     if size < 1:
         raise ValueError(f"block size must be >= 1, got {size}")
-    return tuple((a, min(a + size, first + count)) for a in range(first, first + count, size))
+    if count < 1:
+        return ()
+    from ..execution.blocks import plan_blocks
+
+    return tuple((b.first, b.stop) for b in plan_blocks(count, size, first=first))
 
 
 @dataclass(frozen=True)

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Block", "plan_blocks", "DEFAULT_BLOCK_SIZE"]
+__all__ = ["Block", "plan_blocks", "block_counts", "DEFAULT_BLOCK_SIZE"]
 
 DEFAULT_BLOCK_SIZE = 256  # episodes per block: one MuJoCo batch per block (the checker's block too)
 
@@ -66,7 +66,7 @@ class Block:
 
 
 def plan_blocks(episodes: int, block_size: int = DEFAULT_BLOCK_SIZE, *, first: int = 0) -> list[Block]:
-    """Episodes ``first`` .. ``first + episodes - 1`` as consecutive blocks of at most ``block_size``.
+    """Episodes ``first`` .. ``first + episodes - 1`` as consecutive blocks of at most ``block_size``, as even as possible.
 
     The plan depends only on these numbers: never on how many workers will run it.
     """
@@ -74,5 +74,19 @@ def plan_blocks(episodes: int, block_size: int = DEFAULT_BLOCK_SIZE, *, first: i
         raise ValueError(f"episodes must be a whole number >= 1, got {episodes!r}")
     if isinstance(block_size, bool) or not isinstance(block_size, (int, np.integer)) or block_size < 1:
         raise ValueError(f"block size must be a whole number >= 1, got {block_size!r}")
-    starts = range(first, first + episodes, block_size)
-    return [Block(i, a, min(block_size, first + episodes - a)) for i, a in enumerate(starts)]
+    blocks, a = [], first
+    for i, count in enumerate(block_counts(episodes, block_size)):
+        blocks.append(Block(i, a, count))
+        a += count
+    return blocks
+
+
+def block_counts(episodes: int, block_size: int) -> list[int]:
+    """Episodes per block: the fewest blocks of at most ``block_size``, sizes differing by at most one.
+
+    Even blocks finish together: 1,000 episodes at 256 are 4 x 250, not 3 x 256 + 232, whose short
+    last block would leave a worker idle while the others finish theirs.
+    """
+    k = -(-episodes // block_size)
+    q, r = divmod(episodes, k)
+    return [q + 1] * r + [q] * (k - r)

@@ -14,12 +14,20 @@ def test_blocks_cover_every_episode_once_in_order(episodes, size) -> None:
     ids = np.concatenate([b.episode_ids for b in blocks])
     np.testing.assert_array_equal(ids, np.arange(episodes))
     assert [b.index for b in blocks] == list(range(len(blocks)))
-    assert all(b.count == size for b in blocks[:-1]) and 1 <= blocks[-1].count <= size
+    assert len(blocks) == -(-episodes // size)  # the fewest blocks of at most ``size``
+    counts = [b.count for b in blocks]
+    assert max(counts) <= size and max(counts) - min(counts) <= 1  # even: blocks on workers finish together
+
+
+def test_blocks_are_even_not_a_short_last_one() -> None:
+    assert [b.count for b in plan_blocks(1000, 256)] == [250, 250, 250, 250]
+    assert [b.count for b in plan_blocks(7, 3)] == [3, 2, 2]
 
 
 def test_first_offsets_the_episode_ids() -> None:
     blocks = plan_blocks(5, 2, first=59)
     assert [(b.first, b.stop) for b in blocks] == [(59, 61), (61, 63), (63, 64)]
+    assert [(b.first, b.stop) for b in plan_blocks(6, 4, first=59)] == [(59, 62), (62, 65)]
 
 
 def test_block_streams_are_reproducible_and_distinct() -> None:
