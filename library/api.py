@@ -42,12 +42,16 @@ __all__ = [
 ]
 
 
-def open_store(root: str | Path | None = None, *, blobs: str | Path | None = None, create: bool = True) -> Any:
+def open_store(
+    root: str | Path | None = None, *, blobs: str | Path | None = None, create: bool = True, read_only: bool = False
+) -> Any:
     """The store at ``root`` (a folder or a postgresql:// URL), else $KINETOME_STORE, else the user
-    data dir; its blobs at ``blobs``, else $KINETOME_BLOBS, else where the store recorded them."""
+    data dir; its blobs at ``blobs``, else $KINETOME_BLOBS, else where the store recorded them.
+    ``read_only``: the caller only reads (lighter on a PostgreSQL store; changes raise)."""
     from .store import Store, resolve_blobs, resolve_store_root
 
-    return Store(resolve_store_root(None if root is None else str(root)), blobs=resolve_blobs(blobs), create=create)
+    store_root = resolve_store_root(None if root is None else str(root))
+    return Store(store_root, blobs=resolve_blobs(blobs), create=create, read_only=read_only)
 
 
 def version_files(loaded: Any) -> dict[str, bytes]:

@@ -108,13 +108,13 @@ def store_places(backend, tmp_path, request) -> StorePlaces:
 
 @pytest.fixture
 def new_store(store_places) -> Iterator[Callable[..., Any]]:
-    """``new_store(name="store", create=True)``: open the store called ``name`` on this test's backend."""
+    """``new_store(name="store", create=True, read_only=False)``: open the store called ``name`` on this test's backend."""
     from kinetome.library.store import Store
 
     opened: list[Store] = []
 
-    def open_store(name: str = "store", *, create: bool = True) -> Store:
-        store = Store(store_places.location(name), blobs=store_places.blobs(name), create=create)
+    def open_store(name: str = "store", *, create: bool = True, read_only: bool = False) -> Store:
+        store = Store(store_places.location(name), blobs=store_places.blobs(name), create=create, read_only=read_only)
         opened.append(store)
         return store
 

@@ -15,10 +15,10 @@ JSON_HELP = "print machine-readable JSON (with a schema field) instead of text"
 SIGNING_KEY_HELP = "{what} with the team's shared key in FILE (HMAC-SHA256; default: the file named by $KINETOME_SIGNING_KEY_FILE)"
 
 
-def _open_store(args: argparse.Namespace, *, create: bool = True):
+def _open_store(args: argparse.Namespace, *, create: bool = True, read_only: bool = False):
     from ..api import open_store
 
-    return open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None), create=create)
+    return open_store(getattr(args, "store", None), blobs=getattr(args, "blobs", None), create=create, read_only=read_only)
 
 
 def _register_parser(p: argparse.ArgumentParser, handler: Any) -> None:
@@ -151,7 +151,7 @@ def _add_old_name(args: argparse.Namespace) -> int:
 
 
 def _list(args: argparse.Namespace) -> int:
-    store = _open_store(args)
+    store = _open_store(args, read_only=True)
     rows = [
         {
             "name": s.name,
@@ -249,7 +249,7 @@ def _fmt_value(value: Any) -> str:
 def _show(args: argparse.Namespace) -> int:
     from ..stored_meta import success_text
 
-    store = _open_store(args)
+    store = _open_store(args, read_only=True)
     view = _version_view(store, args.ref)
     if args.json:
         print_json(tagged("show", view))

@@ -3,7 +3,8 @@ content-addressed blobs (a folder, or S3), with lineage, current versions, conte
 artifacts (stored evidence), an audit log and sealed bundles.
 
 Standard library and platformdirs only, so ``kinetome list/show/lineage`` stay light; the database
-driver loads only for a ``postgresql://`` store and the S3 client only for ``s3://`` blobs.
+driver loads only for a ``postgresql://`` store (read-only stores reach libpq through ctypes, without
+psycopg) and the S3 client only for ``s3://`` blobs.
 """
 
 from kinetome.library.store.identity import artifact_digest, lookup_key, version_identity

@@ -443,6 +443,7 @@ def import_bundle(
     source = Path(path).expanduser()
     if not source.is_file():
         raise BundleError(f"bundle {source} must be an existing file, got a missing path; check the path")
+    store.check_writable()
     staging = Path(tempfile.mkdtemp(prefix="import-", dir=store._blobs.staging_dir()))
     try:
         signatures = _Signatures(signing_key, requires_signatures(store._index))

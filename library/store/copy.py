@@ -130,6 +130,7 @@ def copy_store(source: Store, target: Store) -> CopyReport:
     """
     if source.location == target.location:
         raise InvalidInputError(f"copy-store needs two different stores, got {source.location} twice")
+    target.check_writable()
     _check_empty(target)
     blobs, total = _copy_blobs(source, target)
     entries = audit.load_entries(source._index)

@@ -2,6 +2,7 @@
 
 ``index.py`` writes its SQL once, with ``?`` placeholders, against this interface; a backend
 runs it, takes the store's write lock in ``write_transaction`` and reports its own damage.
+A connection marked ``read_only`` refuses to start a write transaction.
 """
 
 from __future__ import annotations
@@ -9,7 +10,9 @@ from __future__ import annotations
 from abc import ABC, abstractmethod
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import AbstractContextManager
-from typing import Any
+from typing import Any, NoReturn
+
+from kinetome.library.errors import InvalidInputError
 
 __all__ = ["IndexBackend"]
 
@@ -21,6 +24,8 @@ class IndexBackend(ABC):
     dialect: str
     #: where the index is, for messages (never holds a password)
     location: str
+    #: set once a store opened for reading only is open: every write transaction is refused
+    read_only: bool = False
 
     @abstractmethod
     def execute(self, sql: str, params: Sequence[Any] = ()) -> Any:
@@ -34,10 +39,23 @@ class IndexBackend(ABC):
     def insert(self, sql: str, params: Sequence[Any]) -> int:
         """Run an INSERT into a table with an ``id`` column and return the new row's id."""
 
-    @abstractmethod
     def write_transaction(self) -> AbstractContextManager[IndexBackend]:
         """One transaction holding the store's write lock from its first statement: version numbers,
         revisions and audit entries read inside it cannot be taken by another writer before the commit."""
+        if self.read_only:
+            self.refuse_writes()
+        return self._write_transaction()
+
+    def refuse_writes(self) -> NoReturn:
+        """The error for a write through a connection opened for reading only."""
+        raise InvalidInputError(
+            f"the store at {self.location} was opened for reading only and cannot be changed; "
+            "open it without read_only=True to write to it"
+        )
+
+    @abstractmethod
+    def _write_transaction(self) -> AbstractContextManager[IndexBackend]:
+        """The backend's write transaction (see ``write_transaction``)."""
 
     @abstractmethod
     def json_text(self, column: str, key: str) -> str:

@@ -2,7 +2,8 @@
 
 Connection details come from the URL and, as libpq reads them, from ``PGHOST``/``PGUSER``/...,
 a service file (``?service=NAME``) and a password file (``~/.pgpass``). A store is one database
-(or the first schema on the URL's ``search_path``). Imported only for ``postgresql://`` stores.
+(or the first schema on the URL's ``search_path``). Imported only for ``postgresql://`` stores
+that may be written (read-only ones use ``pg_reader``, unless it cannot read here).
 """
 
 from __future__ import annotations
@@ -14,33 +15,29 @@ from typing import Any
 
 import psycopg
 
-from kinetome.library.errors import NotFoundError, StoreIntegrityError, StoreUnavailableError
-from kinetome.library.store.index_backend import IndexBackend
+from kinetome.library.errors import StoreIntegrityError, StoreUnavailableError
+from kinetome.library.store.pg_common import (
+    CONNECTION_SETTINGS,
+    SCHEMA_EXISTS_SQL,
+    SCHEMA_VERSION_SQL,
+    SETTINGS_FIX as _SETTINGS_FIX,
+    PostgresDialect,
+    check_schema_version,
+    first_line as _first_line,
+)
 from kinetome.library.store.schema import SCHEMA_VERSION, schema_statements
 
-__all__ = ["PostgresIndex", "CONNECT_TIMEOUT_S"]
-
-CONNECT_TIMEOUT_S = 20
-_SETTINGS_FIX = (
-    "check that the server runs and the connection settings: the URL, PGHOST/PGPORT/PGUSER/PGDATABASE, "
-    "the password file (~/.pgpass or $PGPASSFILE) or the service file ($PGSERVICEFILE)"
-)
+__all__ = ["PostgresIndex"]
 
 
-def _first_line(error: BaseException) -> str:
-    return (str(error).strip().splitlines() or [type(error).__name__])[0]
-
-
-class PostgresIndex(IndexBackend):
+class PostgresIndex(PostgresDialect):
     """The index of a store in a PostgreSQL database (schema version in ``store_info``)."""
-
-    dialect = "postgresql"
 
     def __init__(self, url: str, *, create: bool, info: Mapping[str, str] | None = None):
         self.location = url
         self._sql: dict[str, str] = {}
         try:
-            self.conn = psycopg.connect(url, autocommit=True, connect_timeout=CONNECT_TIMEOUT_S, application_name="kinetome")
+            self.conn = psycopg.connect(url, autocommit=True, **CONNECTION_SETTINGS)
         except psycopg.Error as e:
             raise StoreUnavailableError(f"cannot connect to the store at {url}: {_first_line(e)}; {_SETTINGS_FIX}") from None
         try:
@@ -53,35 +50,19 @@ class PostgresIndex(IndexBackend):
             raise
 
     def _schema_version(self) -> int | None:
-        # an MVCC read of the catalog: a name lookup (to_regclass) would cache "no such table"
-        # for this session and miss the tables another process created meanwhile
-        (exists,) = self.conn.execute(
-            "SELECT EXISTS (SELECT 1 FROM pg_catalog.pg_class c JOIN pg_catalog.pg_namespace n ON n.oid = c.relnamespace"
-            " WHERE c.relname = 'store_info' AND n.nspname = current_schema())"
-        ).fetchone()
+        (exists,) = self.conn.execute(SCHEMA_EXISTS_SQL).fetchone()
         if not exists:
             return None
-        row = self.conn.execute("SELECT value FROM store_info WHERE key = 'schema'").fetchone()
+        row = self.conn.execute(SCHEMA_VERSION_SQL).fetchone()
         return None if row is None else int(row[0])
 
     def _prepare(self, *, create: bool, info: Mapping[str, str]) -> None:
-        version = self._schema_version()
-        if version is None:
-            if not create:
-                raise NotFoundError(
-                    f"no kinetome store at {self.location} (the database has no kinetome tables); "
-                    "check --store / $KINETOME_STORE, or register a skill to create one"
-                )
+        if check_schema_version(self.location, self._schema_version(), create=create):
             with self.conn.transaction():
                 # several processes may create the store at once: only the first builds the schema
                 self.conn.execute("SELECT pg_advisory_xact_lock(hashtext('kinetome store ' || coalesce(current_schema(), '')))")
                 if self._schema_version() is None:
                     self._create_schema(info)
-        elif version != SCHEMA_VERSION:
-            raise StoreIntegrityError(
-                f"{self.location} has index schema {version}, which this kinetome does not understand ({SCHEMA_VERSION}); "
-                "use the kinetome that wrote it"
-            )
 
     def _create_schema(self, info: Mapping[str, str]) -> None:
         for statement in schema_statements(self.dialect):
@@ -126,20 +107,13 @@ class PostgresIndex(IndexBackend):
         return int(self.execute(sql + " RETURNING id", params).fetchone()[0])
 
     @contextmanager
-    def write_transaction(self) -> Iterator[PostgresIndex]:
+    def _write_transaction(self) -> Iterator[PostgresIndex]:
         """A transaction that first locks the ``store_id`` row of ``store_info``: writers to one
         store take turns, so what they read after the lock (the highest number, the current
         version, the audit head) stays true until they commit. A dropped connection rolls back."""
         with self._clean_errors(), self.conn.transaction():
             self.conn.execute("SELECT value FROM store_info WHERE key = 'store_id' FOR UPDATE")
             yield self
-
-    def json_text(self, column: str, key: str) -> str:
-        return f"(CASE WHEN jsonb_typeof(({column})::jsonb -> '{key}') = 'string' THEN ({column})::jsonb ->> '{key}' END)"
-
-    def integrity_problems(self) -> list[str]:
-        # the server enforces every foreign key and check; there is no page check to run from here
-        return []
 
     def close(self) -> None:
         self.conn.close()

@@ -80,7 +80,7 @@ class SqliteIndex(IndexBackend):
         return int(self.conn.execute(sql, tuple(params)).lastrowid)
 
     @contextmanager
-    def write_transaction(self) -> Iterator[SqliteIndex]:
+    def _write_transaction(self) -> Iterator[SqliteIndex]:
         """``BEGIN IMMEDIATE``: the write lock is taken up front, so version numbers read
         inside the transaction cannot be taken by another process before the commit."""
         self.conn.execute("BEGIN IMMEDIATE")

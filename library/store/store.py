@@ -82,8 +82,20 @@ def _open_folder(root: Path, *, blobs: object, create: bool) -> IndexBackend:
     return found
 
 
-def _open_database(url: str, *, blobs: object, create: bool) -> IndexBackend:
-    """The PostgreSQL index at ``url``; creating one records its blob location, so it needs one."""
+def _open_database(url: str, *, blobs: object, create: bool, read_only: bool = False) -> IndexBackend:
+    """The PostgreSQL index at ``url``; creating one records its blob location, so it needs one.
+    For reading only, the light connection (``pg_reader``) where it can read as the full driver does."""
+    if read_only:
+        from kinetome.library.store.pg_reader import open_reader
+
+        try:
+            reader = open_reader(url)
+        except NotFoundError:
+            if not create:
+                raise
+            reader = None  # no store there yet: the full driver creates it (or explains what is missing)
+        if reader is not None:
+            return reader
     from kinetome.library.store.pg_index import PostgresIndex
 
     try:
@@ -115,13 +127,25 @@ class Store(CurrentMethods, ArtifactMethods):
     Versions, artifacts and current-version events are only ever added. Each add
     writes its blobs first (atomically) and then its index rows in one transaction,
     so a killed add leaves at most unused blobs, never a partial version.
+
+    ``read_only=True`` is for callers that only read (``list``, ``show``): every change
+    raises InvalidInputError, and a PostgreSQL index is read through libpq directly
+    instead of the full driver, which is much slower to import. Opening still creates a
+    missing store when ``create`` says so.
     """
 
-    def __init__(self, location: str | os.PathLike, *, blobs: str | os.PathLike | None = None, create: bool = True):
+    def __init__(
+        self,
+        location: str | os.PathLike,
+        *,
+        blobs: str | os.PathLike | None = None,
+        create: bool = True,
+        read_only: bool = False,
+    ):
         self.root: Path | None = None
         if is_database_url(location):
             self.location = check_database_url(str(location))
-            self._index = _open_database(self.location, blobs=blobs, create=create)
+            self._index = _open_database(self.location, blobs=blobs, create=create, read_only=read_only)
         else:
             self.root = Path(location).expanduser()
             self.location = str(self.root)
@@ -134,6 +158,7 @@ class Store(CurrentMethods, ArtifactMethods):
         except BaseException:
             self._index.close()
             raise
+        self._index.read_only = self._index.read_only or read_only
 
     @property
     def index_path(self) -> Path:
@@ -286,7 +311,13 @@ class Store(CurrentMethods, ArtifactMethods):
 
     # -- adding ------------------------------------------------------------------------
 
+    def check_writable(self) -> None:
+        """Raise InvalidInputError if this store was opened with ``read_only=True`` (before any blob is written)."""
+        if self._index.read_only:
+            self._index.refuse_writes()
+
     def _store_files(self, payload: dict[str, bytes]) -> tuple[FileEntry, ...]:
+        self.check_writable()
         entries = tuple(FileEntry(role, self._blobs.put(data), len(data)) for role, data in sorted(payload.items()))
         fault_point("store.blobs-written")  # blobs in place, no index row yet
         return entries

@@ -13,7 +13,7 @@ import pytest
 
 from kinetome.library.cli.main import main
 from kinetome.library.errors import InvalidInputError, NotFoundError, StoreIntegrityError, StoreUnavailableError
-from kinetome.library.store import Store, index, resolve_store_root
+from kinetome.library.store import Store, copy_store, index, resolve_store_root
 
 SPEC = {"spec.json": b'{"reach": 1}', "params.safetensors": b"P" * 300}
 
@@ -145,23 +145,38 @@ def test_a_failed_blob_write_leaves_no_row(new_store, monkeypatch):
 # -- light read commands ---------------------------------------------------------------
 
 
+def _imported_by(store_args: list[str], command: list[str]) -> tuple[int, list[str], str]:
+    """(exit code, every module loaded, output) of a kinetome command run in a fresh interpreter."""
+    code = (
+        "import json, sys, io, contextlib\n"
+        "from kinetome.library.cli.main import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()) as out:\n"
+        f"    code = main([*{store_args!r}, *{command!r}])\n"
+        "print(json.dumps([code, sorted(sys.modules), out.getvalue()]))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    return tuple(json.loads(done.stdout))
+
+
 def test_list_and_show_on_a_database_store_import_only_the_driver(pg_url, tmp_path):
     url = pg_url()
     spec = Path(__file__).parents[3] / "configs" / "skills" / "arm-reach-tray.yaml"
     assert main(["--store", url, "--blobs", str(tmp_path / "shared"), "register", str(spec)]) == 0
-    heavy = ("torch", "mujoco", "z3", "gymnasium", "fsspec", "s3fs", "botocore", "aiobotocore", "boto3")
+    with Store(url, create=False) as team:
+        copy_store(team, Store(tmp_path / "embedded"))
+    heavy = ("torch", "mujoco", "z3", "gymnasium", "fsspec", "s3fs", "botocore", "aiobotocore", "boto3", "asyncio", "psycopg")
     for command in (["list"], ["show", "arm-reach-tray"]):
-        code = (
-            "import json, sys, io, contextlib\n"
-            "from kinetome.library.cli.main import main\n"
-            "with contextlib.redirect_stdout(io.StringIO()) as out:\n"
-            f"    code = main(['--store', {url!r}, *{command!r}])\n"
-            f"print(json.dumps([code, sorted(m for m in {heavy!r} if m in sys.modules), 'psycopg' in sys.modules, out.getvalue()]))\n"
-        )
-        done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-        rc, loaded, driver, text = json.loads(done.stdout)
-        assert (rc, loaded, driver) == (0, [], True), (command, loaded)
-        assert "arm-reach-tray" in text
+        rc, modules, text = _imported_by(["--store", url], command)
+        assert rc == 0 and "arm-reach-tray" in text
+        assert [m for m in heavy if m in modules] == [], command
+        # beyond what the same command loads for an embedded store: libpq through ctypes, nothing else
+        _, embedded, embedded_text = _imported_by(["--store", str(tmp_path / "embedded")], command)
+        extra = {m.split(".")[0] for m in set(modules) - set(embedded) if not m.startswith("kinetome.library.store.")}
+        assert extra <= {"ctypes", "_ctypes", "glob", "fnmatch", "select"}, (command, extra)
+        assert {m for m in set(modules) - set(embedded) if m.startswith("kinetome.")} == {
+            "kinetome.library.store.libpq", "kinetome.library.store.pg_common", "kinetome.library.store.pg_reader"
+        }
+        assert text == embedded_text  # the same output from either store
 
 
 # -- S3-compatible blobs (moto's emulator stands in for the service) --------------------

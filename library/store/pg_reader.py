@@ -1,0 +1,137 @@
+"""The light PostgreSQL index connection for read commands: libpq through ``libpq.py``, no full driver.
+
+``list`` and ``show`` open a store for reading only; on a PostgreSQL store that connection runs
+the same SQL as ``PostgresIndex`` (autocommit, one transaction per statement) and reports the same
+errors, but skips importing psycopg. ``open_reader`` returns None where it cannot read exactly as
+the full driver would (no loadable libpq, a client encoding other than UTF-8); the caller then
+uses ``PostgresIndex``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
+from typing import Any, NoReturn
+
+from kinetome.library.errors import StoreIntegrityError, StoreUnavailableError
+from kinetome.library.store import libpq
+from kinetome.library.store.pg_common import (
+    CONNECT_TIMEOUT_S,
+    CONNECTION_SETTINGS,
+    SCHEMA_EXISTS_SQL,
+    SCHEMA_VERSION_SQL,
+    SETTINGS_FIX,
+    PostgresDialect,
+    check_schema_version,
+    first_line,
+)
+
+__all__ = ["PostgresReader", "Rows", "open_reader"]
+
+
+class Rows:
+    """A finished query's rows, read like a cursor: ``fetchone``, ``fetchall``, iteration."""
+
+    def __init__(self, rows: list[tuple]):
+        self._rows = rows
+        self._next = 0
+
+    def fetchone(self) -> tuple | None:
+        if self._next >= len(self._rows):
+            return None
+        self._next += 1
+        return self._rows[self._next - 1]
+
+    def fetchall(self) -> list[tuple]:
+        rest, self._next = self._rows[self._next :], len(self._rows)
+        return rest
+
+    def __iter__(self) -> Iterator[tuple]:
+        return iter(self.fetchall())
+
+
+def _numbered(sql: str) -> str:
+    """``?`` placeholders -> libpq's ``$1``, ``$2`` ... (the index's SQL has no ``?`` elsewhere)."""
+    parts = sql.split("?")
+    return parts[0] + "".join(f"${i}{part}" for i, part in enumerate(parts[1:], start=1))
+
+
+class PostgresReader(PostgresDialect):
+    """A read-only connection to a store's index in a PostgreSQL database."""
+
+    read_only = True
+
+    def __init__(self, url: str, conn: libpq.Connection):
+        self.location = url
+        self._conn = conn
+        self._sql: dict[str, str] = {}
+
+    @contextmanager
+    def _clean_errors(self) -> Iterator[None]:
+        """The same clean errors as the full driver's connection gives."""
+        try:
+            yield
+        except libpq.LibpqError as e:
+            if e.unavailable:
+                raise StoreUnavailableError(
+                    f"the store at {self.location} stopped answering: {first_line(e)}; {SETTINGS_FIX}"
+                ) from None
+            raise StoreIntegrityError(
+                f"the index at {self.location} refused a statement: {first_line(e)}; run `kinetome verify`, "
+                "and restore the database from a backup if it was changed outside kinetome"
+            ) from None
+
+    def execute(self, sql: str, params: Sequence[Any] = ()) -> Rows:
+        text = self._sql.get(sql)
+        if text is None:
+            text = self._sql[sql] = _numbered(sql)
+        with self._clean_errors():
+            return Rows(self._conn.query(text, tuple(params)))
+
+    def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
+        self.refuse_writes()
+
+    def insert(self, sql: str, params: Sequence[Any]) -> int:
+        self.refuse_writes()
+
+    def _write_transaction(self) -> NoReturn:
+        self.refuse_writes()
+
+    def schema_version(self) -> int | None:
+        (exists,) = self._conn.query(SCHEMA_EXISTS_SQL)[0]
+        if not exists:
+            return None
+        rows = self._conn.query(SCHEMA_VERSION_SQL)
+        return None if not rows else int(rows[0][0])
+
+    def close(self) -> None:
+        self._conn.close()
+
+
+def open_reader(url: str) -> PostgresReader | None:
+    """A read-only connection to the store at ``url``, or None where the full driver must be used.
+
+    Raises as ``PostgresIndex`` does: StoreUnavailableError (cannot connect), NotFoundError
+    (no kinetome tables), StoreIntegrityError (unknown schema or a refused statement).
+    """
+    lib = libpq.load_libpq()
+    if lib is None:
+        return None
+    try:
+        conn = libpq.connect(lib, url, CONNECTION_SETTINGS, timeout_s=CONNECT_TIMEOUT_S)
+    except libpq.LibpqError as e:
+        raise StoreUnavailableError(f"cannot connect to the store at {url}: {first_line(e)}; {SETTINGS_FIX}") from None
+    reader = PostgresReader(url, conn)
+    try:
+        if conn.parameter("client_encoding") != "UTF8":
+            reader.close()  # the full driver decodes other encodings
+            return None
+        try:
+            version = reader.schema_version()
+        except libpq.LibpqError as e:
+            raise StoreIntegrityError(f"the store at {url} cannot be opened: {first_line(e)}; {SETTINGS_FIX}") from None
+        check_schema_version(url, version, create=False)
+    except BaseException:
+        reader.close()
+        raise
+    return reader
