@@ -146,7 +146,6 @@ def main() -> None:
     load_before = load()
     folder = Path(tempfile.mkdtemp(prefix="kinetome-bench-scaleout-"))
     path = write_chain(folder, a.episodes)
-    n_blocks = -(-a.episodes // a.block_size)
 
     from kinetome.library.execution import InProcessExecutor, executor_for
     from kinetome.library.execution.chain_blocks import run_chain_blocks
@@ -200,21 +199,22 @@ def main() -> None:
     raw.close()
     plain.shutdown()
     owner.close()
-    report(a, runs, traffic, ray_start, load_before, loads, n_blocks)
+    report(a, runs, traffic, ray_start, load_before, loads, [b.count for b in blocks])
 
 
-def report(a: Any, runs: list[dict], traffic: dict, ray_start: float, load_before: str, loads: list[float], n_blocks: int) -> None:
+def report(a: Any, runs: list[dict], traffic: dict, ray_start: float, load_before: str, loads: list[float], counts: list[int]) -> None:
     from kinetome.envs import make_rig
 
     frame_skip = make_rig(ENV).frame_skip
-    env_steps = traffic["steps"] * a.episodes / a.block_size
+    env_steps = traffic["steps"] * a.episodes / counts[0]
+    n_blocks = len(counts)
     col = lambda k: [m[k] for m in runs]  # noqa: E731
     ratio = lambda num, den: [m[num] / m[den] for m in runs]  # noqa: E731
     ceiling = [m["raw2"] / m["raw1"] for m in runs]
     ray_vs_one = ratio("one", "ray2")
     print(f"1-min / 5-min / 15-min load average {load_before} before, {load()} after; per round (1-min) "
           f"{', '.join(f'{x:.2f}' for x in loads)}; {os.cpu_count()} CPUs")
-    print(f"{a.episodes} episodes in {n_blocks} blocks of {a.block_size}; {a.rounds} rounds, order rotated each round; "
+    print(f"{a.episodes} episodes in {n_blocks} blocks of at most {a.block_size} ({'/'.join(map(str, counts))}); {a.rounds} rounds, order rotated each round; "
           f"results identical in every check of every round")
     print(f"Ray start-up (local, 2 CPUs, first version check): {ray_start:.1f} s (not in the rows)")
     print(f"one process 1 thread simulates {summary([env_steps / w for w in col('one')], '{:,.0f}')} env steps/s = "
@@ -231,7 +231,7 @@ def report(a: Any, runs: list[dict], traffic: dict, ray_start: float, load_befor
           f"{'met' if median(ray_vs_one) >= 1.8 else 'missed'}); as a share of the same round's ceiling "
           f"{summary([r / c for r, c in zip(ray_vs_one, ceiling)])}; vs 2 plain processes {summary(ratio('plain2', 'ray2'))}x")
     overhead = [(m["blocks_ray1"] - m["blocks_here"]) / n_blocks for m in runs]
-    print(f"per block of {a.block_size} episodes: compute {traffic['block_s']:.3f} s (1 thread, {traffic['steps']:,} env steps; "
+    print(f"per block of {counts[0]} episodes: compute {traffic['block_s']:.3f} s (1 thread, {traffic['steps']:,} env steps; "
           f"blocks only in this process {summary(col('blocks_here'))} s for all {n_blocks}), "
           f"work item {traffic['item_bytes'] / 1024:.1f} KiB, result {traffic['result_bytes'] / 1024:.1f} KiB, "
           f"Ray's cost {summary(overhead, '{:+.3f}')} s per block (1 warm Ray worker minus this process, blocks only)")
