@@ -17,6 +17,7 @@ __all__ = [
     "utc_now",
     "content_key",
     "store_info",
+    "store_infos",
     "set_store_info",
     "version_id",
     "numbers_of",
@@ -58,6 +59,12 @@ def utc_now() -> str:
 def store_info(conn: IndexBackend, key: str) -> str | None:
     row = conn.execute("SELECT value FROM store_info WHERE key = ?", (key,)).fetchone()
     return None if row is None else str(row[0])
+
+
+def store_infos(conn: IndexBackend, *keys: str) -> dict[str, str]:
+    """The ``store_info`` values of those ``keys`` that are set, in one query."""
+    marks = ",".join("?" * len(keys))
+    return {str(k): str(v) for k, v in conn.execute(f"SELECT key, value FROM store_info WHERE key IN ({marks})", keys)}
 
 
 def set_store_info(conn: IndexBackend, key: str, value: str) -> None:

@@ -151,10 +151,10 @@ class Store(CurrentMethods, ArtifactMethods):
             self.location = str(self.root)
             self._index = _open_folder(self.root, blobs=blobs, create=create)
         try:
-            recorded = index.store_info(self._index, "blobs")
-            self._blobs: BlobStore = open_blobs(blobs if blobs is not None else recorded or self.root)
+            info = index.store_infos(self._index, "blobs", "store_id")
+            self._blobs: BlobStore = open_blobs(blobs if blobs is not None else info.get("blobs") or self.root)
             self._blobs.create()
-            self.store_id = index.store_info(self._index, "store_id") or ""
+            self.store_id = info.get("store_id", "")
         except BaseException:
             self._index.close()
             raise
@@ -210,7 +210,8 @@ class Store(CurrentMethods, ArtifactMethods):
             hint = "the store is empty; register a skill first"
         return NotFoundError(f"no skill named {name!r} in the store at {self.location}; {hint}")
 
-    def _row(self, ref: str, task: str | None = None) -> tuple[int, VersionRecord]:
+    def _row_id(self, ref: str, task: str | None = None) -> int:
+        """The index row of ``ref`` (see ``get``), without loading the version."""
         pin = parse_pin(ref)
         if pin.identity is not None:
             row_id = self._identity_row(pin.name, pin.identity)
@@ -220,6 +221,17 @@ class Store(CurrentMethods, ArtifactMethods):
             row_id = self._current_or_latest(pin.name, task)
         if row_id is None:
             raise self._not_found(pin.name, pin.number)
+        return row_id
+
+    def _row(self, ref: str, task: str | None = None) -> tuple[int, VersionRecord]:
+        """(row, version) of ``ref``; ``name@N`` is looked up and loaded in one go (fewer round trips to a server)."""
+        pin = parse_pin(ref)
+        if pin.number is not None:
+            found = index.load_versions(self._index, "v.name = ? AND v.number = ?", (pin.name, pin.number))
+            if not found:
+                raise self._not_found(pin.name, pin.number)
+            return found[0]
+        row_id = self._row_id(ref, task)
         return row_id, self._load_id(row_id)
 
     def _identity_row(self, name: str, prefix: str) -> int:
@@ -251,7 +263,7 @@ class Store(CurrentMethods, ArtifactMethods):
 
     def exists(self, ref: str) -> bool:
         try:
-            self._row(ref)
+            self._row_id(ref)
         except NotFoundError:
             return False
         return True
@@ -306,7 +318,7 @@ class Store(CurrentMethods, ArtifactMethods):
 
     def children(self, ref: str) -> list[VersionRecord]:
         """Versions whose parent is ``ref`` (any name)."""
-        row_id, _ = self._row(ref)
+        row_id = self._row_id(ref)
         return [r for _, r in index.load_versions(self._index, "v.parent_id = ?", (row_id,))]
 
     # -- adding ------------------------------------------------------------------------
@@ -373,7 +385,7 @@ class Store(CurrentMethods, ArtifactMethods):
         meta_json = canonical_meta(meta)
         payload = check_files(files, what="files")
         # Versions are never deleted, so a parent found now still exists at commit time.
-        parent_id = None if parent is None else self._row(parent)[0]
+        parent_id = None if parent is None else self._row_id(parent)
         entries = self._store_files(payload)
         key = index.content_key({e.role: e.digest for e in entries})
         with self._index.write_transaction() as conn:

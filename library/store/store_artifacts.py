@@ -73,7 +73,7 @@ def provenance(
 
 
 class ArtifactMethods:
-    """Mixed into ``Store``: needs ``_index``, ``_row``, ``_blobs`` and ``_store_files``."""
+    """Mixed into ``Store``: needs ``_index``, ``_row``, ``_row_id``, ``_blobs`` and ``_store_files``."""
 
     def attach_artifact(
         self,
@@ -113,7 +113,7 @@ class ArtifactMethods:
 
     def artifacts(self, ref: str, *, kind: str | None = None, all_revisions: bool = False) -> list[ArtifactRecord]:
         """Artifacts attached to a version: the latest revision of each kind, or every revision."""
-        row_id, _ = self._row(ref)
+        row_id = self._row_id(ref)
         where, params = "a.version_id = ?", (row_id,)
         if kind is not None:
             where, params = where + " AND a.kind = ?", (row_id, validate_kind(kind))

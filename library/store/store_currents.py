@@ -18,7 +18,7 @@ CURRENT_REASONS = ("registered", "revised", "non-inferior", "promoted", "importe
 
 
 class CurrentMethods:
-    """Mixed into ``Store``: needs ``_index`` and ``_row``."""
+    """Mixed into ``Store``: needs ``_index``, ``_row`` and ``_row_id``."""
 
     def currents(self, name: str) -> dict[str, CurrentEntry]:
         """task -> the current entry, for every task that has one."""
@@ -32,8 +32,7 @@ class CurrentMethods:
 
     def current_tasks(self, ref: str) -> list[str]:
         """The tasks for which the version ``ref`` is current now."""
-        row_id, _ = self._row(ref)
-        return index.current_tasks(self._index, row_id)
+        return index.current_tasks(self._index, self._row_id(ref))
 
     def promote(
         self,

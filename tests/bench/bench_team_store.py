@@ -8,7 +8,9 @@ Run by hand (not collected by pytest); needs PostgreSQL (``apt-get install postg
    versions over ``--names`` more skill names (the filler of bench_store.py), then copied with ``copy_store`` into a PostgreSQL
    store whose blobs are in a separate folder (standing in for a shared mount).
 2. ``kinetome --store S list`` and ``kinetome --store S show arm-reach-tray`` run as whole processes
-   on both stores, ``--runs`` times each, interleaved; medians are compared.
+   on both stores: one warm-up round (it writes the bytecode caches: PYTHONDONTWRITEBYTECODE is
+   dropped from the commands' environment, as on a user's machine), then ``--runs`` rounds with
+   both stores in an order rotated per round; medians are compared.
    Target: PostgreSQL at most 1.5x SQLite for each command.
 3. ``--writers`` processes add ``--adds`` distinct versions each to one skill name of a new
    empty store at the same moment, on each backend; adds per second over the wall time from
@@ -25,7 +27,6 @@ import argparse
 import os
 import resource
 import shutil
-import statistics
 import subprocess
 import sys
 import tempfile
@@ -37,7 +38,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parents[1]))
 
-from bench_store import SKILL, SPEC, _filler, console_script, time_process  # noqa: E402
+from bench_store import SKILL, SPEC, _filler, console_script  # noqa: E402
+from rounds import load, median, run_rounds, summary  # noqa: E402
 
 from tests.pg_server import find_bin_dir, server_from_env, start_server, stop_server  # noqa: E402
 
@@ -71,25 +73,43 @@ def _children_cpu() -> float:
     return usage.ru_utime + usage.ru_stime
 
 
+def _child_env() -> dict[str, str]:
+    """The commands' environment: no $KINETOME_STORE, and bytecode caches written as on a user's machine."""
+    return {k: v for k, v in os.environ.items() if k not in ("KINETOME_STORE", "PYTHONDONTWRITEBYTECODE")}
+
+
+def _timed(argv: list[str], env: dict[str, str], cpu: list[float]) -> float:
+    """Wall seconds of one whole process; its CPU seconds (user + system) go to ``cpu``."""
+    before, t = _children_cpu(), time.perf_counter()
+    done = subprocess.run(argv, capture_output=True, env=env, stdin=subprocess.DEVNULL)
+    wall = time.perf_counter() - t
+    cpu.append(_children_cpu() - before)
+    if done.returncode != 0:
+        raise SystemExit(f"{' '.join(argv)} exited {done.returncode}: {done.stderr.decode(errors='replace')[-2000:]}")
+    return wall
+
+
 def read_rows(stores: dict[str, list[str]], name: str, runs: int) -> list[str]:
-    """Median wall time (the target) and CPU time (less skewed by other jobs on a shared machine) per command."""
-    exe = console_script()
-    wall: dict[tuple[str, str], list[float]] = {}
-    cpu: dict[tuple[str, str], list[float]] = {}
-    for _ in range(runs):
-        for command in (["list"], ["show", name]):
-            for backend, store_args in stores.items():
-                before = _children_cpu()
-                wall.setdefault((command[0], backend), []).append(time_process([exe, *store_args, *command]))
-                cpu.setdefault((command[0], backend), []).append(_children_cpu() - before)
+    """Per command: one warm-up round, then ``runs`` rounds of both stores in rotated order. Median wall
+    time (the target), the median of the per-round ratios [min-max], and median CPU time (less skewed
+    by other jobs on a shared machine); the load average before and after."""
+    exe, env = console_script(), _child_env()
     rows = []
-    for command in ("list", "show"):
-        lite, pg = statistics.median(wall[(command, "sqlite")]), statistics.median(wall[(command, "postgresql")])
-        lite_cpu, pg_cpu = statistics.median(cpu[(command, "sqlite")]), statistics.median(cpu[(command, "postgresql")])
+    for command in (["list"], ["show", name]):
+        cpu: dict[str, list[float]] = {backend: [] for backend in stores}
+        configs = {b: (lambda b=b: _timed([exe, *stores[b], *command], env, cpu[b])) for b in stores}
+        run_rounds(configs, 1)  # bytecode caches written, files and server caches warm
+        for values in cpu.values():
+            values.clear()
+        load_before = load()
+        measured = run_rounds(configs, runs)
+        lite, pg = median([m["sqlite"] for m in measured]), median([m["postgresql"] for m in measured])
+        lite_cpu, pg_cpu = median(cpu["sqlite"]), median(cpu["postgresql"])
         verdict = "met" if pg / lite <= TARGET else "MISSED"
         rows.append(
-            f"| `kinetome {command}` | {lite:.3f} s | {pg:.3f} s | {pg / lite:.2f}x | <= {TARGET}x {verdict} "
-            f"| CPU {lite_cpu:.3f} s / {pg_cpu:.3f} s = {pg_cpu / lite_cpu:.2f}x |"
+            f"| `kinetome {command[0]}` | {lite:.3f} s | {pg:.3f} s | {pg / lite:.2f}x "
+            f"| {summary([m['postgresql'] / m['sqlite'] for m in measured])} | <= {TARGET}x {verdict} "
+            f"| CPU {lite_cpu:.3f} s / {pg_cpu:.3f} s = {pg_cpu / lite_cpu:.2f}x | {load_before} -> {load()} |"
         )
     return rows
 
@@ -162,8 +182,11 @@ def main() -> None:
             copy_store(source, team)
         print(f"filled both stores with {args.versions} versions in {time.perf_counter() - t:.1f} s\n")
         stores = {"sqlite": ["--store", str(tmp / "embedded")], "postgresql": ["--store", url]}
-        print("| command, whole process, %d versions | SQLite | PostgreSQL + shared folder | ratio | target | CPU time |" % args.versions)
-        print("| --- | --- | --- | --- | --- | --- |")
+        print(
+            f"| command, whole process, {args.versions} versions | SQLite | PostgreSQL + shared folder | ratio of medians "
+            "| per-round ratio, median [min-max] | target | CPU time | load average before -> after |"
+        )
+        print("| --- | --- | --- | --- | --- | --- | --- | --- |")
         for row in read_rows(stores, SKILL, args.runs):
             print(row)
         print(f"\n| {args.writers} concurrent writers x {args.adds} adds | adds/s |\n| --- | --- |")
