@@ -5,7 +5,8 @@ once per (eta, seed), then measures with action noise off and greedy choice
 (stop heads stay stochastic): mean skill duration (a skill's turn runs from
 its selection to its own stop or a switch; choosing it again after a forced
 stop continues it), stop rate and mean return. Reports per eta the mean and
-95% t-interval over seeds, Page's trend test of duration on eta (seeds as blocks),
+95% t-interval over seeds, the paired rise over the first eta (per-seed
+differences, 95% t-interval), Page's trend test of duration on eta (seeds as blocks),
 and whether each eta's mean return stays within the band (default 10%) of
 eta 0. Writes ``runs.csv`` (one row per run; finished runs are skipped on a
 rerun), ``table.md`` and ``deliberation.png`` to ``--out``.
@@ -68,16 +69,23 @@ def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> t
     grid = {(r["eta"], int(r["seed"])): r["mean_skill_duration"] for r in rows}
     blocks = [[grid[(eta, s)] for eta in etas] for s in seeds if all((eta, s) in grid for eta in etas)]
     page = stats.page_trend_test(blocks) if len(blocks) >= 2 and len(etas) >= 3 else None
+    for k, t in enumerate(table):  # rise over the first eta within each seed: paired, so seed-to-seed spread cancels
+        diff = np.array([b[k] - b[0] for b in blocks])
+        half = stats.t.ppf(0.975, len(diff) - 1) * diff.std(ddof=1) / np.sqrt(len(diff)) if len(diff) > 1 else float("nan")
+        t.update(rise=diff.mean() if len(diff) else float("nan"), rise_low=diff.mean() - half, rise_high=diff.mean() + half,
+                 rise_seeds=int(np.sum(diff > 0)))
     tau = stats.kendalltau([r["eta"] for r in rows], [r["mean_skill_duration"] for r in rows], alternative="greater")
     return table, {"L": float(page.statistic) if page else float("nan"), "p": float(page.pvalue) if page else float("nan"),
                    "tau": float(tau.statistic), "p_tau": float(tau.pvalue), "seeds": len(blocks), "runs": len(rows)}
 
 
 def markdown(table: list[dict], trend: dict, band: float) -> str:
-    lines = ["| eta | seeds | mean skill duration (95% CI) | mean return (min to max) | within "
-             f"{band:.0%} of eta 0 |", "| --- | --- | --- | --- | --- |"]
-    for t in table:
-        lines.append(f"| {t['eta']:g} | {t['seeds']} | {t['duration']:.1f} ({t['low']:.1f} to {t['high']:.1f}) | "
+    first = f"{table[0]['eta']:g}"
+    lines = [f"| eta | seeds | mean skill duration (95% CI) | rise over eta {first}, paired (95% CI; seeds longer) | "
+             f"mean return (min to max) | within {band:.0%} of eta {first} |", "| --- | --- | --- | --- | --- | --- |"]
+    for k, t in enumerate(table):
+        rise = "-" if k == 0 else f"{t['rise']:+.1f} ({t['rise_low']:+.1f} to {t['rise_high']:+.1f}; {t['rise_seeds']} of {t['seeds']})"
+        lines.append(f"| {t['eta']:g} | {t['seeds']} | {t['duration']:.1f} ({t['low']:.1f} to {t['high']:.1f}) | {rise} | "
                      f"{t['return']:.1f} ({t['return_low']:.1f} to {t['return_high']:.1f}) | {'yes' if t['within_band'] else 'NO'} |")
     lines.append(f"\nTrend in duration (Page's L test, {trend['seeds']} seeds as blocks, etas in order): "
                  f"L = {trend['L']:.1f}, p = {trend['p']:.2g}; Kendall's tau over {trend['runs']} runs: "
