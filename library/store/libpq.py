@@ -195,21 +195,27 @@ class Connection:
         values = (ctypes.c_char_p * n)(*(v for _, v in typed))
         if not lib.PQsendQueryParams(conn, sql.encode("utf-8"), n, oids, values, None, None, 0):
             raise self._error(None)
-        while lib.PQflush(conn) == 1:
-            self._wait(True, None)
-        while lib.PQisBusy(conn):
-            self._wait(False, None)
-            if not lib.PQconsumeInput(conn):
-                raise self._error(None)
+        try:
+            while lib.PQflush(conn) == 1:
+                self._wait(True, None)
+            while lib.PQisBusy(conn):
+                self._wait(False, None)
+                if not lib.PQconsumeInput(conn):
+                    raise self._error(None)
+        except BaseException:
+            self.close()  # interrupted mid-statement (Ctrl-C, a lost link): no half-read reply left behind
+            raise
         rows: list[tuple] = []
-        failure: LibpqError | None = None
-        while (result := lib.PQgetResult(conn)) is not None:
+        failure: Exception | None = None
+        while (result := lib.PQgetResult(conn)) is not None:  # read every result, so the connection is idle again
             try:
                 status = lib.PQresultStatus(result)
-                if status == _TUPLES_OK:
+                if status == _TUPLES_OK and failure is None:
                     rows = self._rows(result)
-                elif status != _COMMAND_OK and failure is None:
+                elif status not in (_TUPLES_OK, _COMMAND_OK) and failure is None:
                     failure = self._error(result)
+            except (TypeError, UnicodeDecodeError, ValueError) as e:
+                failure = failure or e
             finally:
                 lib.PQclear(result)
         if failure is not None:

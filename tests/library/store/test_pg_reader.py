@@ -143,6 +143,9 @@ def test_parameters_travel_apart_from_the_sql(pg_url, tmp_path):
             reader.execute("SELECT ?::text", ("a\x00b",))
         with pytest.raises(StoreIntegrityError, match=r"refused a statement: .*syntax error"):
             reader.execute("SELEC 1")
+        with pytest.raises(TypeError, match="type oid 1184, which this reader does not convert"):
+            reader.execute("SELECT now()")  # a type the index never returns: refused, not guessed
+        assert reader.execute("SELECT 1").fetchone() == (1,)  # the connection is idle and usable again
     finally:
         reader.close()
 
