@@ -17,7 +17,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from ..errors import InvalidInputError, Problem
-from .links import FactCache, region_fact
+from .links import FactCache, SolverMemo, bounds_fact, region_fact
 from .search import BROKEN, OPEN, LinkFact, PlanProblem
 from .skill_steps import LibrarySkill
 
@@ -49,6 +49,7 @@ class LibraryProblem:
     goal: Any
     task_key: dict[str, Any]
     facts: FactCache | None = None
+    memo: SolverMemo | None = None  # z3 answers of this run, and how many were asked and reused
 
 
 def parse_goal(text: str, rig: Any) -> Any:
@@ -150,35 +151,55 @@ def _broken_pairs(store: Any, refs: list[str], task_key: Mapping[str, Any]) -> d
 
 
 def _pair_fact(rig: Any, skills: Mapping[str, LibrarySkill], goal: Any, broken: Mapping, timeout_ms: int):
+    """Pair facts: a handoff from stored breaks and region bounds only (its acceptance test on the particles is
+    cheap, so a solver proof would save little); the goal from region bounds, then z3 (answers kept per question).
+    Each skill's bound predicates and region atoms are built once."""
+    from functools import lru_cache
+
     from ..checker.envelope import physical_envelope
     from ..checker.static_method import bind_parameters
+    from .region_bounds import atoms_of, fixed_values, with_bounds
 
     state = set(rig.layout.names)
     declare = {n: s for n, s in rig.layout.shapes().items() if n in ("qpos", "qvel")}
+    memo = SolverMemo()
+    # the layout's premise bounds hold in every question (each skill's envelope only adds declared limits):
+    # stop regions lie inside them, and a quantity they pin (a fixed target) is a constant
+    layout = physical_envelope(rig, None, owner="the layout").bounds
+    fixed = fixed_values(layout)
 
-    def compute(a: str, b: str | None) -> LinkFact:
+    @lru_cache(maxsize=None)
+    def region(ref: str, which: str) -> tuple[Any, dict, Any]:
+        s = skills[ref].loaded
+        pred, const = bind_parameters(s.stops_when if which == "stop" else s.starts_when, s.parameters, state,
+                                      "_a_" if which == "stop" else "_b_")
+        atoms = atoms_of(pred, {**fixed, **const})
+        return pred, const, with_bounds(atoms, layout) if which == "stop" else atoms
+
+    goal_atoms = atoms_of(goal, fixed)
+
+    def fact(a: str, b: str | None, solver: bool) -> LinkFact:
         if b is not None and (a, b) in broken:
             return screen(a, b)
-        sa = skills[a].loaded
-        if sa.learned_stop is not None:
+        if skills[a].loaded.learned_stop is not None:
             return LinkFact("open", f"{a} has a learned stop (stochastic): measured, not proved")
-        envelope = physical_envelope(rig, sa.skill.limits, owner=a)
-        stop, const_a = bind_parameters(sa.stops_when, sa.parameters, state, "_a_")
-        if b is None:
-            target, const_b, name = goal, {}, "the goal"
-        else:
-            sb = skills[b].loaded
-            target, const_b = bind_parameters(sb.starts_when, sb.parameters, state, "_b_")
-            name = f"{b} starts_when"
-        return region_fact(stop, target, premises=envelope.premises, declare=declare, constants={**const_a, **const_b},
-                           bounds=envelope.bounds, timeout_ms=timeout_ms, source=a, target_name=name, containment=b is None)
+        stop, const_a, stop_atoms = region(a, "stop")
+        if b is not None:
+            return bounds_fact(stop_atoms, region(b, "start")[2], a, f"{b} starts_when")
+        quick = bounds_fact(stop_atoms, goal_atoms, a, "the goal")
+        if quick.status != OPEN or not solver:
+            return quick
+        envelope = physical_envelope(rig, skills[a].loaded.skill.limits, owner=a)
+        return region_fact(stop, goal, premises=envelope.premises, declare=declare, constants=const_a, bounds=envelope.bounds,
+                           timeout_ms=timeout_ms, source=a, target_name="the goal", memo=memo)
 
     def screen(a: str, b: str) -> LinkFact:
         if (a, b) in broken:
             return LinkFact(BROKEN, f"stored check result {broken[(a, b)]} on this task: {a} -> {b} breaks")
         return LinkFact(OPEN)
 
-    return FactCache(compute), screen
+    quick = FactCache(lambda a, b: fact(a, b, False))
+    return FactCache(lambda a, b: fact(a, b, True)), screen, quick, memo
 
 
 def _explain(skills: Mapping[str, LibrarySkill], goal: Any):
@@ -210,11 +231,11 @@ def build_problem(store: Any, task: PlanTask, *, particles: int = 200, seed: int
     for ref in refs:
         models, why = task_models(store, ref, key)
         skills[ref] = LibrarySkill(load_skill(store, ref, rig=rig), rig, models, why, seed=seed, confidence=confidence)
-    facts, screen = _pair_fact(rig, skills, goal, _broken_pairs(store, refs, key), timeout_ms)
+    facts, screen, quick, memo = _pair_fact(rig, skills, goal, _broken_pairs(store, refs, key), timeout_ms)
     begin = tuple(next(r for r in refs if _base(r) == _base(b)) for b in task.begin_with)
     problem = PlanProblem(
         skills=skills, start=_start_particles(rig, start, particles, seed), in_goal=lambda s: goal.evaluate(s),
         link=lambda a, b: facts(a, b), goal_link=lambda a: facts(a, None), explain=_explain(skills, goal), begin_with=begin,
-        screen=screen,
+        screen=screen, quick_goal_link=lambda a: quick(a, None),
     )
-    return LibraryProblem(problem, rig, start, skills, goal, key, facts)
+    return LibraryProblem(problem, rig, start, skills, goal, key, facts, memo)

@@ -20,14 +20,13 @@ queue best first. Children are scored only when they reach the front of the queu
 
 A skill never follows itself (it would start where its own stop put it), and a
 prefix whose last stop region is proved to lie in the goal is not extended (every
-extension is dominated). Stored evidence that a handoff A -> B breaks (``broken``) prunes it
-before any scoring. The acceptance test on the particles is cheap, so z3 is asked about a
-handoff only when every particle was refused: a proof that A's stop region and B's
-initiation set never meet (``impossible``) is cached per pair and prunes B after A under
-every later prefix without measuring again. A skill that would end the chain at the depth
-limit is not tried when its stop region never meets the goal. For the goal, z3 decides first: ``proved``
-(every stop state of the last skill lies in the goal: no goal test, and no extension),
-``impossible`` (never tried), else measured.
+extension is dominated). The pair fact of a handoff (``link``: stored evidence that it
+breaks, or a proof that A's stop region lies inside B's initiation set or never meets
+it) is asked before the child is queued and prunes it; facts are kept per pair for the
+run. A skill that would end the chain at the depth limit is not tried when its stop
+region never meets the goal (``quick_goal_link``: a fact that needs no solver). For the
+goal, the pair fact decides first: ``proved`` (every stop state of the last skill lies
+in the goal: no goal test, and no extension), ``impossible`` (never tried), else measured.
 """
 
 from __future__ import annotations
@@ -35,7 +34,7 @@ from __future__ import annotations
 import heapq
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Callable, Mapping, Protocol, Sequence
 
 import numpy as np
@@ -107,8 +106,9 @@ class SkillModel(Protocol):
 class PlanProblem:
     """Skills (ref -> model, in order), start states, the goal test and the pair facts.
 
-    ``link(a, b)`` gives the fact about handoff a -> b; ``goal_link(a)`` about a's stop
-    region and the goal. ``explain(target, states, row)`` (optional) says why ``target``
+    ``link(a, b)`` gives the fact about handoff a -> b, asked for every handoff the search
+    scores (keep it cheap); ``goal_link(a)`` about a's stop region and the goal, asked once
+    per skill that ends a scored prefix. ``explain(target, states, row)`` (optional) says why ``target``
     (a skill ref, or None for the goal) refuses one state. ``begin_with``: skills every
     candidate must start with (the search adds the rest).
     """
@@ -121,6 +121,7 @@ class PlanProblem:
     explain: Callable[[str | None, Mapping[str, np.ndarray], int], str] | None = None
     begin_with: tuple[str, ...] = ()  # every candidate starts with these skills, in this order
     screen: Callable[[str, str], LinkFact] | None = None  # cheap facts asked first (stored check results)
+    quick_goal_link: Callable[[str], LinkFact] | None = None  # goal facts that never call a solver (default: goal_link)
 
 
 @dataclass(frozen=True)
@@ -322,7 +323,7 @@ class _Entry:
     key: tuple
     order: int
     skills: tuple[str, ...] = field(compare=False)
-    kind: str = field(compare=False)  # "prefix" (unscored), "scored" (a scored prefix), "goal" (unscored), "candidate"
+    kind: str = field(compare=False)  # "prefix" (unscored), "scored" (a scored prefix), "candidate"
     parent: Particles | None = field(compare=False, default=None)
     particles: Particles | None = field(compare=False, default=None)
     fact: LinkFact | None = field(compare=False, default=None)
@@ -351,18 +352,27 @@ class _Search:
         self.counter += 1
         heapq.heappush(self.queue, _Entry(key, self.counter, skills, kind, **kw))
 
-    def fail(self, skills: tuple[str, ...], link: tuple[str, str], reason: str, before: float, *, pruned: bool = False) -> None:
+    def fail(self, skills: tuple[str, ...], link: tuple[str, str], reason: str | Callable[[], str], before: float, *,
+             pruned: bool = False) -> None:
         """Remember the closest failure: measured at the goal, then measured at a handoff, then pruned by a
-        pair fact; within a tier the most mass before the failing link, then the shortest prefix."""
+        pair fact; within a tier the most mass before the failing link, then the shortest prefix. ``reason``
+        may be a function: it is called only for a failure that becomes the closest (explaining costs time)."""
         tier = 0 if pruned else (2 if link[1] == GOAL else 1)
         rank = (tier, before, -len(skills))
         if self.closest is None or rank > self._closest_rank:
-            self.closest, self._closest_rank = Failure(skills, link, reason, before), rank
+            text = reason() if callable(reason) else reason
+            self.closest, self._closest_rank = Failure(skills, link, text, before), rank
 
     def fact(self, a: str, b: str) -> LinkFact:
         if (a, b) not in self.facts:
             self.facts[(a, b)] = self.problem.link(a, b) if b != GOAL else self.problem.goal_link(a)
         return self.facts[(a, b)]
+
+    def quick_goal(self, a: str) -> LinkFact:
+        """The goal fact when known, else the one that needs no solver (when the problem has one)."""
+        if (a, GOAL) in self.facts or self.problem.quick_goal_link is None:
+            return self.fact(a, GOAL)
+        return self.problem.quick_goal_link(a)
 
     def why_refused(self, target: str | None, p: Particles, mask: np.ndarray) -> str:
         rows = np.flatnonzero(mask)
@@ -371,22 +381,19 @@ class _Search:
         return self.problem.explain(target, p.states, int(rows[0]))
 
     def children(self, e: _Entry) -> None:
-        """Queue the goal test and every next skill of a scored prefix, unscored, with the parent's key
-        (pair facts are asked only when a child reaches the front)."""
+        """Test the goal on a scored prefix (a candidate is queued with its own key), then queue every next
+        skill, unscored, with the parent's key (they are scored only when they reach the front)."""
         fixed = self.problem.begin_with
-        if len(e.skills) >= len(fixed):
-            self.push(e.key, e.skills, "goal", parent=e.particles)
-        if len(e.skills) >= self.settings.max_length:
-            return
-        if len(e.skills) >= len(fixed) and self.fact(e.skills[-1], GOAL).status == PROVED:
-            return  # every extension is dominated: success cannot rise, steps cannot fall
+        dominated = len(e.skills) >= len(fixed) and self.score_goal(_Entry(e.key, 0, e.skills, "goal", parent=e.particles))
+        if len(e.skills) >= self.settings.max_length or dominated:
+            return  # every extension of a prefix whose particles all end in the goal is dominated
         # a skill never follows itself: it would start where its own stop put it
         last = e.skills[-1]
         nxt = [fixed[len(e.skills)]] if len(e.skills) < len(fixed) else [r for r in self.problem.skills if r != last]
-        known = [r for r in nxt if self.facts.get((last, r), LinkFact(OPEN)).status in (IMPOSSIBLE, BROKEN)]
+        known = [r for r in nxt if self.fact(last, r).status in (IMPOSSIBLE, BROKEN)]
         if len(e.skills) + 1 == self.settings.max_length and len(e.skills) >= len(fixed):
             # the child would have to end the chain: one whose stop region never meets the goal is useless
-            known += [r for r in nxt if r not in known and self.fact(r, GOAL).status == IMPOSSIBLE]
+            known += [r for r in nxt if r not in known and self.quick_goal(r).status == IMPOSSIBLE]
         self.pruned += len(known)
         nxt = [r for r in nxt if r not in known]
         for ref in nxt:
@@ -397,10 +404,10 @@ class _Search:
         if len(e.skills) == 1 and target != GOAL:
             return LinkFact(OPEN)
         a = e.skills[-1] if target == GOAL else e.skills[-2]
-        if target == GOAL:
-            f = self.fact(a, target)
-        else:  # z3 is asked about a handoff only once its particles are all refused (see score_prefix)
-            f = self.facts.get((a, target)) or (self.problem.screen(a, target) if self.problem.screen else LinkFact(OPEN))
+        f = self.quick_goal(a) if target == GOAL else self.fact(a, target)
+        if target != GOAL and f.status not in (IMPOSSIBLE, BROKEN) and self.problem.screen is not None:
+            screened = self.problem.screen(a, target)
+            f = screened if screened.status == BROKEN else f
         if f.status in (IMPOSSIBLE, BROKEN):
             self.pruned += 1
             prefix = e.skills if target == GOAL else e.skills[:-1]
@@ -418,13 +425,7 @@ class _Search:
         p, lost = _extend(self.problem, parent, ref, fact, _child_rng(self.settings.seed, e.skills))
         if lost:
             source = e.skills[-2] if len(e.skills) > 1 else "initial states"
-            if lost == "refused" and len(e.skills) > 1:
-                f = self.fact(source, ref)
-                if f.status == IMPOSSIBLE:  # a proof, cached for every later prefix ending in ``source``
-                    self.pruned += 1
-                    self.fail(e.skills[:-1], (source, ref), f.reason, parent.success, pruned=True)
-                    return
-            self.fail(e.skills[:-1], (source, ref), self.lost_text(lost, e, parent, p), parent.success)
+            self.fail(e.skills[:-1], (source, ref), lambda: self.lost_text(lost, e, parent, p), parent.success)
             return
         self.push(_key(p, len(e.skills), self.settings.success_tolerance), e.skills, "scored", particles=p)
 
@@ -436,18 +437,23 @@ class _Search:
             return f"{ref} refused all {n} states it was offered" + (f"; first: {why}" if why else "")
         return f"{ref} accepted its start states but never stopped in time ({p.scored_by[-1] if p.scored_by else ''})"
 
-    def score_goal(self, e: _Entry) -> None:
+    def score_goal(self, e: _Entry) -> bool:
+        """Queue the prefix as a candidate when some particles end in the goal; True when all of them do (or the
+        goal is proved): its extensions can only lose success and add steps, so they are not searched."""
         fact = self.allowed(e, GOAL)
         if fact is None:
-            return
+            return False
         self.scored += 1
         p = _goal(self.problem, e.parent, fact)
         if p.success <= 0:
-            why = self.why_refused(None, e.parent, e.parent.mass > 0)
-            text = f"none of the end states of {e.skills[-1]} satisfies the goal" + (f"; first: {why}" if why else "")
+            def text() -> str:
+                why = self.why_refused(None, e.parent, e.parent.mass > 0)
+                return f"none of the end states of {e.skills[-1]} satisfies the goal" + (f"; first: {why}" if why else "")
+
             self.fail(e.skills, (e.skills[-1], GOAL), text, e.parent.success)
-            return
+            return False
         self.push(_key(p, len(e.skills), self.settings.success_tolerance), e.skills, "candidate", particles=p, fact=fact)
+        return fact.status == PROVED or bool(np.array_equal(p.mass, e.parent.mass))
 
     def roots(self) -> None:
         p = start_particles(self.problem.start)
@@ -465,8 +471,6 @@ class _Search:
             e = heapq.heappop(self.queue)
             if e.kind == "prefix":
                 self.score_prefix(e)
-            elif e.kind == "goal":
-                self.score_goal(e)
             elif e.kind == "scored":
                 self.children(e)
             else:
@@ -489,5 +493,20 @@ def search_chains(problem: PlanProblem, settings: SearchSettings | None = None) 
     s = _Search(problem, settings)
     complete = s.run()
     return SearchResult(
-        tuple(s.found), s.closest if not s.found else None, s.scored, s.pruned, time.monotonic() - t0, complete, dict(s.facts)
+        _goal_proofs(problem, s.found), s.closest if not s.found else None, s.scored, s.pruned, time.monotonic() - t0, complete,
+        dict(s.facts),
     )
+
+
+def _goal_proofs(problem: PlanProblem, found: list[Candidate]) -> tuple[Candidate, ...]:
+    """The search tests the goal with facts that need no solver; the few candidates it returns ask the full
+    ``goal_link`` (z3 where the predicates allow), so a proved goal reaches the confirmation."""
+    if problem.quick_goal_link is None:
+        return tuple(found)
+    out = []
+    for c in found:
+        if c.goal.status != PROVED:
+            fact = problem.goal_link(c.skills[-1])
+            c = replace(c, goal=fact) if fact.status == PROVED else c
+        out.append(c)
+    return tuple(out)

@@ -1,11 +1,13 @@
 """A stored skill as the chain search sees it: option models where they are valid, simulation elsewhere.
 
-Option models answer a step only when they were fitted on this task (env and
-variant digest, this version: ``checker.model_method.task_models``) and at least
-95% of the starts lie inside their fitted support (the checker's rule); starts
-outside count as failures, and the step's stated error is the models' held-out
-error on the same question (does the skill end well?). Elsewhere the step is
-measured: the skill runs in MuJoCo from the particles' own states.
+Option models answer a step whenever they were fitted on this task (env and
+variant digest, this version: ``checker.model_method.task_models``); starts outside
+their fitted support are not answered and count as failures (the checker's rule for
+the lower bound), so the search never runs MuJoCo for a skill whose models are valid
+here: simulation is the confirmation's job. The step's stated error is the models'
+held-out error on the same question (does the skill end well?). A skill without
+valid models is measured: it runs in MuJoCo from the particles' own states, once per
+distinct set of start states (the result is kept for the run).
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ class LibrarySkill:
     confidence: float = 0.95
     gamma: float = 0.99
     _error: float | None = field(default=None, repr=False)
+    _measured: dict[bytes, StepResult] = field(default_factory=dict, repr=False)
     simulated_steps: int = 0
 
     @property
@@ -52,15 +55,12 @@ class LibrarySkill:
         return np.asarray(self.loaded.starts_when.evaluate({**states, **self.loaded.parameters}), dtype=bool)
 
     def step(self, states: Mapping[str, np.ndarray], rng: np.random.Generator) -> StepResult:
+        if self.models is not None and all(q in states for q in self.models.models.features):
+            return self._model_step(states, ~self.models.models.support.inside(states), rng)
+        why = self.why_no_models or "no option models fitted on this task"
         if self.models is not None:
-            from ..checker.model_method import MAX_UNSUPPORTED
-
-            outside = ~self.models.models.support.inside(states)
-            if float(np.mean(outside)) <= MAX_UNSUPPORTED and all(q in states for q in self.models.models.features):
-                return self._model_step(states, outside, rng)
-            why = f"simulation ({100 * np.mean(outside):.0f}% of its starts lie outside the support of {self.models.artifact})"
-            return self._sim_step(states, why)
-        return self._sim_step(states, f"simulation ({self.why_no_models or 'no option models fitted on this task'})")
+            why = f"the particles lack quantities {self.models.artifact} reads"
+        return self._sim_step(states, f"simulation ({why})")
 
     def held_out_error(self, rng: np.random.Generator) -> float:
         """The models' error on "does this skill stop?", replayed on their held-out episodes (checker's rule)."""
@@ -71,23 +71,44 @@ class LibrarySkill:
         return self._error
 
     def _model_step(self, states: Mapping[str, np.ndarray], outside: np.ndarray, rng: np.random.Generator) -> StepResult:
+        """Models on the starts inside their support; the others are unknown (failures), never simulated."""
         from ..checker.model_method import stopped_end_states
 
         models = self.models.models
-        pred = models.duration.predict(states)
-        if models.end_state is None:  # it never stopped while fitted: no stop state to hand over (only the outcome floor)
-            n = len(next(iter(states.values())))
-            drawn, failed = {}, np.ones(n, dtype=bool)
-        else:
-            drawn, failed = stopped_end_states(models, self.loaded, dict(states), rng)
-        ends = {k: v for k, v in drawn.items() if k in states}
+        n = outside.size
+        rows = np.flatnonzero(~outside)
+        p_stop, duration, discount = np.zeros(n), np.zeros(n), np.zeros(n)
+        unknown = outside.copy()
+        ends: dict[str, np.ndarray] = {}
+        if rows.size:
+            inside = {k: np.asarray(v)[rows] for k, v in states.items()}
+            pred = models.duration.predict(inside)
+            p_stop[rows], duration[rows], discount[rows] = pred["p_stopped"], pred["duration"], pred["stop_discount"]
+            if models.end_state is None:  # it never stopped while fitted: no stop state to hand over (only the outcome floor)
+                unknown[rows] = True
+            else:
+                drawn, failed = stopped_end_states(models, self.loaded, inside, rng)
+                unknown[rows] = failed
+                for k, v in drawn.items():
+                    if k in states:
+                        ends[k] = np.array(states[k], dtype=np.float64, copy=True)
+                        ends[k][rows] = v
+        share = f"; {100 * np.mean(outside):.0f}% of its starts outside their support count as failures" if outside.any() else ""
         return StepResult(
-            p_stop=np.asarray(pred["p_stopped"], dtype=np.float64), duration=np.asarray(pred["duration"], dtype=np.float64),
-            stop_discount=np.asarray(pred["stop_discount"], dtype=np.float64), ends=ends, unknown=outside | failed,
-            error=self.held_out_error(np.random.default_rng([self.seed, 104729])), scored_by=f"option models {self.models.artifact}",
+            p_stop=p_stop, duration=duration, stop_discount=discount, ends=ends, unknown=unknown,
+            error=self.held_out_error(np.random.default_rng([self.seed, 104729])), scored_by=f"option models {self.models.artifact}{share}",
         )
 
     def _sim_step(self, states: Mapping[str, np.ndarray], why: str) -> StepResult:
+        """Run the skill in MuJoCo from these states; the same states are run once per skill (kept by content)."""
+        import hashlib
+
+        digest = hashlib.sha256(b"".join(np.ascontiguousarray(states[k], dtype=np.float64).tobytes() + k.encode() for k in sorted(states))).digest()
+        if digest not in self._measured:
+            self._measured[digest] = self._simulate(states, why)
+        return self._measured[digest]
+
+    def _simulate(self, states: Mapping[str, np.ndarray], why: str) -> StepResult:
         from ..runtime.execute import run_chain
         from ..runtime.records import EndReason
 

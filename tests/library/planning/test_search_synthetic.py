@@ -7,12 +7,14 @@ Clopper-Pearson intervals from ``scipy.stats.binomtest`` for the simulated succe
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from planning_synthetic import Interval, SyntheticLibrary, SyntheticSkill, best_by_enumeration, one_step_score, random_library, second_best_gap
 from scipy.stats import binomtest
 
-from kinetome.library.planning import IMPOSSIBLE, PROVED, SearchSettings, score_sequence, search_chains
+from kinetome.library.planning import IMPOSSIBLE, OPEN, PROVED, LinkFact, SearchSettings, score_sequence, search_chains
 
 MAX_LENGTH = 4
 SEEDS = range(4)
@@ -109,3 +111,25 @@ def test_settings_refuse_bad_limits():
     for bad in ({"max_length": 0}, {"time_budget_s": 0}, {"top": 0}, {"success_tolerance": 1.0}):
         with pytest.raises(ValueError):
             SearchSettings(**bad)
+
+
+def test_goal_facts_without_a_solver_in_the_search_and_z3_for_the_candidates_it_returns():
+    # the goal contains a's stop region: the full goal fact proves it, the search's own goal facts do not decide it
+    a = SyntheticSkill("a", Interval(0, 1), Interval(2.2, 2.8), 0.5, 10)
+    b = SyntheticSkill("b", Interval(2, 3), Interval(2.3, 2.7), 0.5, 10)
+    lib = SyntheticLibrary((a, b), Interval(0, 1), Interval(2.0, 3.0), ())
+    full = lib.problem(particles=500)
+    asked = []
+
+    def quick(ref):
+        asked.append(ref)
+        return LinkFact(OPEN, "not decided without a solver")
+
+    problem = replace(full, quick_goal_link=quick)
+    result = search_chains(problem, SearchSettings(max_length=3, top=1))
+    assert asked and result.candidates[0].skills == ("a",)
+    assert result.candidates[0].goal.status == PROVED  # asked again, in full, for the returned candidate
+    # every particle of ("a",) ended in the goal (measured): its extensions were not searched
+    assert result.scored <= 3
+    found = search_chains(problem, SearchSettings(max_length=3, top=2)).candidates
+    assert [c.skills for c in found] == [("a",)]  # ("a", "b") is dominated and never queued
