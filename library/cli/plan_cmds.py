@@ -18,8 +18,8 @@ def add_parsers(sub: Any, common: argparse.ArgumentParser) -> None:
         description=(
             "Best-first search over the stored skills of the env's robot (current versions for the task, or the ones "
             "listed): the first skill must accept the initial states, each handoff must compose and the last stop region "
-            "must reach the goal (proved by z3 where the predicates allow, else measured). Candidates are scored by option "
-            "models fitted on this task, by simulation where there are none; the best are checked in simulation "
+            "must reach the goal (proved where the predicates allow, else measured). Candidates are scored by option "
+            "models fitted on this task (starts outside their support count as failures), by simulation where there are none; the best are checked in simulation "
             "(kinetome check's method auto) and ranked by the lower bound of measured whole-chain success, then duration. "
             + CAUTION
         ),

@@ -80,7 +80,7 @@ def _scored_by(lp: Any) -> dict[str, str]:
     out = {}
     for ref, skill in lp.skills.items():
         if skill.models is not None:
-            out[ref] = f"option models {skill.models.artifact} (simulation where starts leave their support)"
+            out[ref] = f"option models {skill.models.artifact} (starts outside their support count as failures)"
         else:
             out[ref] = f"simulation ({skill.why_no_models or 'no option models fitted on this task'})"
     return out

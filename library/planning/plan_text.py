@@ -30,7 +30,7 @@ def _head(r: Any) -> list[str]:
     state = "searched every sequence that could still win" if s.complete else "stopped by the time budget (best found so far)"
     lines.append(
         f"search: {s.scored} sequences scored in {s.seconds:.1f} s ({s.scored_per_second:.1f} per second), "
-        f"{s.pruned} handoffs pruned by z3 or stored check results, up to {r.settings.max_length} skills; {state}"
+        f"{s.pruned} handoffs pruned by proofs or stored check results, up to {r.settings.max_length} skills; {state}"
     )
     return lines
 

@@ -18,7 +18,7 @@ def plan_section(report: Report, plan: dict[str, Any]) -> None:
     listed = ", ".join(plan["listed"]) or "nothing"
     s.text(
         f"The engineer gives a goal, {plan['goal']} (the part settled over the tray), and lists only the first skill ({listed}). "
-        "The search tries the stored skills of the bench arm best first: z3 rules out handoffs whose regions cannot meet, option "
+        "The search tries the stored skills of the bench arm best first: proofs over the regions rule out handoffs that cannot meet, option "
         "models fitted on this task score the rest (simulation where there are none), and the best candidates are checked in "
         "simulation and ranked by the lower bound of measured whole-chain success, then duration."
     )
