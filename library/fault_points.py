@@ -28,5 +28,8 @@ def fault_point(name: str) -> None:
     if point != name:
         return
     if ready:
-        Path(ready).write_text(name, encoding="utf-8")
+        # Written whole, then renamed: the waiting test never reads a half-written file.
+        partial = Path(f"{ready}.partial")
+        partial.write_text(name, encoding="utf-8")
+        os.replace(partial, ready)
     time.sleep(3600)
