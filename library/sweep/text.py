@@ -28,8 +28,10 @@ def format_region(region: Mapping[str, Any], *, indent: str = "  ") -> list[str]
 def lower_text(cell: Mapping[str, Any], require: float) -> str:
     """A cell's corrected lower bound as shown. Under Holm's step-down a cell after the first failing one
     is never tested, so a bound at or above the requirement there does not make it pass: say so."""
+    from .region import PASS
+
     text = f"{cell['corrected_lower']:.3f}"
-    if cell["mark"] != "pass" and cell["corrected_lower"] >= require:
+    if cell["mark"] != PASS and cell["corrected_lower"] >= require:
         text += " (not tested: the step-down stopped at an earlier cell)"
     return text
 
