@@ -134,10 +134,6 @@ def _unbounded(name: str, shapes: Mapping[str, tuple[int, ...]]) -> Box:
     return Box(name, np.full(size, -np.inf), np.full(size, np.inf), np.zeros(size, dtype=bool), np.zeros(size, dtype=bool))
 
 
-def _pairs(node: Compare) -> list[tuple[Node, str, Node]]:
-    return [(node.operands[i], node.ops[i], node.operands[i + 1]) for i in range(len(node.ops))]
-
-
 def _read_compare(left: Node, op: str, right: Node, shapes, constants) -> Ball | Box | tuple[Node, str, float] | None:
     """One comparison as a ball, a box, or a generic ``expr < bound``; None if none of these."""
     if op not in _FLIP:
@@ -189,7 +185,7 @@ def atoms_of(pred: Any, constants: Mapping[str, Any] | None = None) -> Atoms:
     for item in items:
         read: list[Any] = []
         if isinstance(item, Compare):
-            read = [_read_compare(a, op, b, shapes, constants) for a, op, b in _pairs(item)]
+            read = [_read_compare(a, op, b, shapes, constants) for a, op, b in item.links()]
         elif isinstance(item, Call) and item.func == "all":
             read = [_read_all_abs(item, shapes, constants)]
         if not read or any(r is None for r in read):
