@@ -17,7 +17,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from ..errors import InvalidInputError, Problem
-from .links import FactCache, SolverMemo, bounds_fact, region_fact
+from .links import FactCache, SolverMemo, bounds_fact, solver_fact
 from .search import BROKEN, OPEN, LinkFact, PlanProblem
 from .skill_steps import LibrarySkill
 
@@ -178,19 +178,26 @@ def _pair_fact(rig: Any, skills: Mapping[str, LibrarySkill], goal: Any, broken: 
 
     goal_atoms = atoms_of(goal, fixed)
 
-    def fact(a: str, b: str | None, solver: bool) -> LinkFact:
+    def bounds_only(a: str, b: str | None) -> LinkFact:
         if b is not None and (a, b) in broken:
             return screen(a, b)
         if skills[a].loaded.learned_stop is not None:
-            return LinkFact("open", f"{a} has a learned stop (stochastic): measured, not proved")
-        stop, const_a, stop_atoms = region(a, "stop")
+            return LinkFact(OPEN, f"{a} has a learned stop (stochastic): measured, not proved")
+        stop_atoms = region(a, "stop")[2]
         if b is not None:
             return bounds_fact(stop_atoms, region(b, "start")[2], a, f"{b} starts_when")
-        quick = bounds_fact(stop_atoms, goal_atoms, a, "the goal")
-        if quick.status != OPEN or not solver:
-            return quick
+        return bounds_fact(stop_atoms, goal_atoms, a, "the goal")
+
+    quick = FactCache(bounds_only)
+
+    def with_solver(a: str, b: str | None) -> LinkFact:
+        """The bounds fact; z3 only for a goal fact the bounds left open (never for a learned stop)."""
+        known = quick(a, b)
+        if b is not None or known.status != OPEN or skills[a].loaded.learned_stop is not None:
+            return known
+        stop, const_a, _ = region(a, "stop")
         envelope = physical_envelope(rig, skills[a].loaded.skill.limits, owner=a)
-        return region_fact(stop, goal, premises=envelope.premises, declare=declare, constants=const_a, bounds=envelope.bounds,
+        return solver_fact(stop, goal, premises=envelope.premises, declare=declare, constants=const_a, bounds=envelope.bounds,
                            timeout_ms=timeout_ms, source=a, target_name="the goal", memo=memo)
 
     def screen(a: str, b: str) -> LinkFact:
@@ -198,8 +205,7 @@ def _pair_fact(rig: Any, skills: Mapping[str, LibrarySkill], goal: Any, broken: 
             return LinkFact(BROKEN, f"stored check result {broken[(a, b)]} on this task: {a} -> {b} breaks")
         return LinkFact(OPEN)
 
-    quick = FactCache(lambda a, b: fact(a, b, False))
-    return FactCache(lambda a, b: fact(a, b, True)), screen, quick, memo
+    return FactCache(with_solver), screen, quick, memo
 
 
 def _explain(skills: Mapping[str, LibrarySkill], goal: Any):

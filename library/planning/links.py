@@ -1,11 +1,11 @@
 """Pair facts from z3: does A's stop region imply B's initiation set (or the goal), or can they never meet?
 
 Cheap sound reasoning over balls and boxes (``region_bounds``) answers first; z3 is
-asked only when it leaves the pair undecided (or never, with ``solver=False``), and
-its answer is kept in a ``SolverMemo`` keyed by everything the question contains
-(both predicates, constants, premises, bounds, declared shapes, timeout), so pairs
-that ask the same question (skills sharing a stop region or an initiation set) ask
-it once. Two questions per pair, each one solver call (z3 imported lazily):
+asked only when it leaves the pair undecided (``solver_fact`` alone, for a caller that
+asked the bounds itself), and its answer is kept in a ``SolverMemo`` keyed by
+everything the question contains (both predicates, constants, premises, bounds,
+declared shapes, timeout), so pairs that ask the same question (skills sharing a stop
+region or an initiation set) ask it once. Two questions per pair, each one solver call (z3 imported lazily):
 
 - containment: stop region of A and the premises imply the target predicate
   (UNSAT of stop and premises and not target) -> ``proved``;
@@ -27,7 +27,7 @@ import numpy as np
 
 from .search import IMPOSSIBLE, OPEN, PROVED, LinkFact
 
-__all__ = ["negation", "region_fact", "bounds_fact", "FactCache", "SolverMemo", "question_key"]
+__all__ = ["negation", "region_fact", "solver_fact", "bounds_fact", "FactCache", "SolverMemo", "question_key"]
 
 
 def negation(pred: Any) -> Any:
@@ -49,17 +49,35 @@ def region_fact(
     source: str = "A",
     target_name: str = "B starts_when",
     containment: bool = True,
-    solver: bool = True,
     memo: "SolverMemo | None" = None,
 ) -> LinkFact:
-    """``proved`` / ``impossible`` / ``open`` for stop region ``stop`` against predicate ``target``
-    (``containment=False`` asks only whether they can meet: one solver call; ``solver=False``:
-    region bounds only, undecided is ``open``)."""
+    """``proved`` / ``impossible`` / ``open`` for stop region ``stop`` against predicate ``target``: region
+    bounds first, then ``solver_fact`` (``containment=False`` asks z3 only whether they can meet: one call)."""
     from .region_bounds import atoms_of
 
     quick = bounds_fact(atoms_of(stop, constants), atoms_of(target, constants), source, target_name)
-    if quick.status != OPEN or not solver:  # a proof is free, so handoffs get containment too
+    if quick.status != OPEN:  # a proof is free, so handoffs get containment too
         return quick
+    return solver_fact(stop, target, premises=premises, declare=declare, constants=constants, bounds=bounds,
+                       timeout_ms=timeout_ms, source=source, target_name=target_name, containment=containment, memo=memo)
+
+
+def solver_fact(
+    stop: Any,
+    target: Any,
+    *,
+    premises: Sequence[Any],
+    declare: Mapping[str, tuple[int, ...]],
+    constants: Mapping[str, Any] | None,
+    bounds: Mapping[str, Any] | None,
+    timeout_ms: int,
+    source: str,
+    target_name: str,
+    containment: bool = True,
+    memo: "SolverMemo | None" = None,
+) -> LinkFact:
+    """z3's fact for a pair region bounds left open (for callers that asked the bounds themselves); the
+    answer is kept in ``memo`` and reused for the very same question."""
     key = question_key(stop, target, premises, declare, constants, bounds, timeout_ms, containment)
     if memo is not None and key in memo.answers:
         memo.reused += 1
