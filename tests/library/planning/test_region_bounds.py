@@ -83,6 +83,20 @@ def test_regions_that_touch_are_never_proved_apart(stop, target):
     assert region_verdict(atoms_of(_pred(stop)), atoms_of(_pred(target))) != IMPOSSIBLE
 
 
+@pytest.mark.parametrize("stop, target", [
+    ("norm(v) < 1", "norm(v - [1, 0]) < 1"),  # balls that overlap in a lens
+    ("all(abs(v) <= 1)", "all(abs(v - [1.5, 0.5]) <= 1)"),  # boxes that share a corner patch
+    ("norm(v) < 1", "v[0] > 0.5"),  # a ball cut by a half-plane
+    ("v[0] >= -0.5 and v[0] <= 0.5 and v[1] >= -0.5 and v[1] <= 0.5", "norm(v - [0.5, 0.5]) < 0.5"),  # box and ball
+])
+def test_regions_that_overlap_are_neither_proved_inside_nor_apart(stop, target):
+    s, t = _pred(stop), _pred(target)
+    pts = _sample(s)  # brute force: the overlap is real, and S reaches outside T
+    held = t.evaluate({"v": pts})
+    assert held.any() and not held.all()
+    assert region_verdict(atoms_of(s), atoms_of(t)) is None
+
+
 @pytest.mark.parametrize("stop, target, expected", [
     ("norm(v) < 1", "norm(v) < 1", PROVED),
     ("norm(v) < 1", "norm(v) <= 1", PROVED),

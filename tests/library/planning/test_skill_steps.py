@@ -56,3 +56,28 @@ def test_starts_outside_the_models_support_count_as_failures_and_are_never_simul
     assert skill.simulated_steps == 0
     assert res.unknown.all() and not res.p_stop.any()
     assert "100% of its starts outside their support count as failures" in res.scored_by
+
+
+def test_starts_inside_the_models_support_are_answered_by_the_models_alone(tmp_path):
+    asked = []
+
+    class _HalfSupport:
+        @staticmethod
+        def inside(states):
+            return np.arange(len(states["qpos"])) % 2 == 0
+
+    class _Duration:
+        @staticmethod
+        def predict(states):
+            n = len(states["qpos"])
+            asked.append(n)
+            return {"p_stopped": np.full(n, 0.75), "duration": np.full(n, 12.0), "stop_discount": np.full(n, 0.9)}
+
+    models = SimpleNamespace(models=SimpleNamespace(support=_HalfSupport(), features=("qpos", "qvel"), duration=_Duration(), end_state=None),
+                             artifact="arm-lift@1/option-models#1")
+    skill, states = _skill(tmp_path, models=models, _error=0.0)
+    inside = _HalfSupport.inside(states)
+    res = skill.step(states, np.random.default_rng(0))
+    assert skill.simulated_steps == 0 and asked == [int(inside.sum())]  # the models see only the starts they support
+    assert np.all(res.p_stop[inside] == 0.75) and np.all(res.duration[inside] == 12.0) and not res.p_stop[~inside].any()
+    assert res.scored_by.startswith("option models") and f"{100 * np.mean(~inside):.0f}% of its starts outside" in res.scored_by
