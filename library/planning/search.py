@@ -369,8 +369,8 @@ class _Search:
         return self.facts[(a, b)]
 
     def quick_goal(self, a: str) -> LinkFact:
-        """The goal fact when known, else the one that needs no solver (when the problem has one)."""
-        if (a, GOAL) in self.facts or self.problem.quick_goal_link is None:
+        """The goal fact that needs no solver when the problem has one, else the full one (kept per skill)."""
+        if self.problem.quick_goal_link is None:
             return self.fact(a, GOAL)
         return self.problem.quick_goal_link(a)
 
