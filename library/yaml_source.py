@@ -108,15 +108,7 @@ def load_yaml_file(path: str | Path) -> YamlDocument:
 
 def field_lines(doc: YamlDocument) -> dict[str, int]:
     """Line of every field, keyed by its dotted path (``skills[1].skill``), as value objects record them."""
-    lines: dict[str, int] = {}
-    for path, line in doc.lines.items():
-        if not path:
-            continue
-        text = str(path[0])
-        for part in path[1:]:
-            text += f"[{part}]" if isinstance(part, int) else f".{part}"
-        lines[text] = line
-    return lines
+    return {field_path(path): line for path, line in doc.lines.items() if path}
 
 
 def unknown_keys(doc: YamlDocument, data: Mapping[str, Any], where: tuple, known: tuple[str, ...]) -> list[Problem]:

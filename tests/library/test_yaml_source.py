@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from kinetome.library.errors import InvalidInputError
-from kinetome.library.yaml_source import field_path, load_yaml_file, load_yaml_text
+from kinetome.library.yaml_source import field_lines, field_path, load_yaml_file, load_yaml_text, unknown_keys
 
 
 def test_lines_of_nested_fields() -> None:
@@ -18,6 +18,15 @@ def test_lines_of_nested_fields() -> None:
 
 def test_field_path_format() -> None:
     assert field_path(("controller", "parameters", "kp", 1)) == "controller.parameters.kp[1]"
+
+
+def test_field_lines_and_unknown_keys_as_chain_and_sweep_files_use_them() -> None:
+    doc = load_yaml_text("name: a\nskills:\n  - arm-lift\n  - {skill: arm-place, may_time_ot: true}\n")
+    assert field_lines(doc) == {"name": 1, "skills": 2, "skills[0]": 3, "skills[1]": 4, "skills[1].skill": 4, "skills[1].may_time_ot": 4}
+    (problem,) = unknown_keys(doc, doc.data["skills"][1], ("skills", 1), ("skill", "may_time_out"))
+    assert (problem.line, problem.field) == (4, "skills[1].may_time_ot")
+    assert "did you mean 'may_time_out'?" in problem.fix and "valid fields of skills.1: skill, may_time_out" in problem.fix
+    assert unknown_keys(doc, doc.data, (), ("name", "skills")) == []  # every key known: no problem
 
 
 @pytest.mark.parametrize(
