@@ -153,26 +153,21 @@ class CheckContext:
         return self.cache[key]
 
 
-def _load_step(step: str, store: Any, rig: Any, spec: Any = None) -> Any:
-    """The step built for ``rig``; ``spec``: the step's spec file already read (a spec-file step)."""
+def _load_step(step: str, store: Any, rig: Any, spec: Any) -> Any:
+    """The step built for ``rig``; ``spec``: a spec-file step's spec, already read (None for a stored skill)."""
     from ..runtime.skill import load_skill, skill_from_spec
-    from ..spec_load import load_spec
 
-    if skill_is_spec_file(step):
-        return skill_from_spec(spec if spec is not None else load_spec(step), ref=Path(step).name, rig=rig)
+    if spec is not None:
+        return skill_from_spec(spec, ref=Path(step).name, rig=rig)
     return load_skill(store, step, rig=rig)
 
 
-def _spec_env(step: str, store: Any, spec: Any = None) -> str:
-    """The env a step's spec names, without building its controller."""
+def _spec_env(step: str, store: Any, spec: Any) -> str:
+    """The env a step's spec names, without building its controller (``spec`` as for ``_load_step``)."""
     import json
 
     if spec is not None:
         return spec.env
-    if skill_is_spec_file(step):
-        from ..spec_load import load_spec
-
-        return load_spec(step).env
     from ..runtime.skill import SPEC_FILE
 
     doc = json.loads(store.read_file(store.get(step), SPEC_FILE).decode("utf-8"))
