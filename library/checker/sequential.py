@@ -27,6 +27,7 @@ from typing import Callable, Iterator
 
 import numpy as np
 
+from ..execution.blocks import DEFAULT_BLOCK_SIZE, plan_blocks
 from .decision import Decision, decide
 from .stats import episodes_for_zero_failures, lower_bound
 from .trials import Trials, distinct_rows
@@ -34,7 +35,7 @@ from .verdict import Estimate, Verdict
 
 __all__ = ["Stage", "SimPlan", "PlanRun", "fixed_plan", "auto_plan", "split_blocks", "run_plan", "DEFAULT_BLOCK"]
 
-DEFAULT_BLOCK = 256
+DEFAULT_BLOCK = DEFAULT_BLOCK_SIZE  # the execution layer's block: one size for every spread run
 
 
 def split_blocks(first: int, count: int, size: int) -> tuple[tuple[int, int], ...]:
@@ -44,8 +45,6 @@ def split_blocks(first: int, count: int, size: int) -> tuple[tuple[int, int], ..
         raise ValueError(f"block size must be >= 1, got {size}")
     if count < 1:
         return ()
-    from ..execution.blocks import plan_blocks
-
     return tuple((b.first, b.stop) for b in plan_blocks(count, size, first=first))
 
 
