@@ -48,7 +48,7 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from rounds import RawSimulator, load, median, run_rounds, summary  # noqa: E402
+from rounds import RawSimulator, load, median, rollout_seconds, rollout_states, run_rounds, summary  # noqa: E402
 
 ARM_PD_SPEC = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
 NEVER = "norm(qvel) < -1.0"  # a norm is never negative: episodes run max_steps (or until the env terminates)
@@ -152,26 +152,8 @@ def runtime_rate(rig, skill, starts, workers: int) -> tuple[float, int]:
 def rollout_rate(rig, starts, nstep: int, nthread: int) -> float:
     """MuJoCo's own rollout module on the same model and start states, open loop (zero controls):
     physics steps/s on ``nthread`` threads (1: the caller's thread only)."""
-    import mujoco
-    from mujoco import rollout
-
-    model = rig.model
-    datas = [mujoco.MjData(model) for _ in range(max(1, nthread))]
     qpos, qvel = starts
-    spec = mujoco.mjtState.mjSTATE_FULLPHYSICS
-    state = np.zeros((qpos.shape[0], mujoco.mj_stateSize(model, spec)))
-    d = datas[0]
-    for i in range(qpos.shape[0]):
-        mujoco.mj_resetData(model, d)
-        d.qpos[:], d.qvel[:] = qpos[i], qvel[i]
-        mujoco.mj_forward(model, d)
-        mujoco.mj_getState(model, d, state[i], spec)
-    control = np.zeros((qpos.shape[0], nstep, model.nu))
-    with rollout.Rollout(nthread=0 if nthread == 1 else nthread) as r:
-        r.rollout(model, datas, state, control[:, :5])  # warm-up
-        t = time.perf_counter()
-        r.rollout(model, datas, state, control)
-        return qpos.shape[0] * nstep / (time.perf_counter() - t)
+    return qpos.shape[0] * nstep / rollout_seconds(rig.model, rollout_states(rig.model, qpos, qvel), nstep, nthread, warm=True)
 
 
 def profile(rig, skill, starts, workers: int, top: int) -> str:

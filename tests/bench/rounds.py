@@ -74,24 +74,42 @@ def _prepare(env_id: str) -> None:
     _MODEL = make_rig(env_id).model
 
 
-def _raw_steps(physics_steps: int) -> tuple[int, float]:
-    """(pid, seconds) for ``physics_steps`` physics steps of the model, 16 states at once, one thread."""
+def rollout_states(model, qpos: np.ndarray, qvel: np.ndarray) -> np.ndarray:
+    """(rows, state size) full physics states of the rows of (qpos, qvel), as ``mujoco.rollout`` takes them."""
+    import mujoco
+
+    data = mujoco.MjData(model)
+    spec = mujoco.mjtState.mjSTATE_FULLPHYSICS
+    state = np.zeros((qpos.shape[0], mujoco.mj_stateSize(model, spec)))
+    for i in range(qpos.shape[0]):
+        mujoco.mj_resetData(model, data)
+        data.qpos[:], data.qvel[:] = qpos[i], qvel[i]
+        mujoco.mj_forward(model, data)
+        mujoco.mj_getState(model, data, state[i], spec)
+    return state
+
+
+def rollout_seconds(model, state: np.ndarray, nstep: int, nthread: int = 1, *, warm: bool = False) -> float:
+    """Seconds of ``mujoco.rollout`` open loop (zero controls) from ``state``, ``nstep`` physics steps per row,
+    on ``nthread`` threads (1: the caller's thread only); ``warm``: a short untimed rollout first."""
     import mujoco
     from mujoco import rollout
 
-    model = _MODEL
-    data = mujoco.MjData(model)
-    batch = 16
-    nstep = max(1, physics_steps // batch)
-    spec = mujoco.mjtState.mjSTATE_FULLPHYSICS
-    state = np.zeros((batch, mujoco.mj_stateSize(model, spec)))
-    for i in range(batch):
-        mujoco.mj_getState(model, data, state[i], spec)
-    control = np.zeros((batch, nstep, model.nu))
-    with rollout.Rollout(nthread=0) as r:
+    datas = [mujoco.MjData(model) for _ in range(max(1, nthread))]
+    control = np.zeros((state.shape[0], nstep, model.nu))
+    with rollout.Rollout(nthread=0 if nthread == 1 else nthread) as r:
+        if warm:
+            r.rollout(model, datas, state, control[:, :5])
         t = time.perf_counter()
-        r.rollout(model, data, state, control)
-        return os.getpid(), time.perf_counter() - t
+        r.rollout(model, datas, state, control)
+        return time.perf_counter() - t
+
+
+def _raw_steps(physics_steps: int) -> tuple[int, float]:
+    """(pid, seconds) for ``physics_steps`` physics steps of the model, 16 states at once, one thread."""
+    model, batch = _MODEL, 16
+    state = rollout_states(model, np.tile(model.qpos0, (batch, 1)), np.zeros((batch, model.nv)))
+    return os.getpid(), rollout_seconds(model, state, max(1, physics_steps // batch))
 
 
 class RawSimulator:
