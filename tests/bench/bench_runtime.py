@@ -48,7 +48,7 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from rounds import RawSimulator, load, median, rollout_seconds, rollout_states, run_rounds, summary  # noqa: E402
+from rounds import RawSimulator, column, load, load_line, median, ratios, rollout_seconds, rollout_states, run_rounds, summary  # noqa: E402
 
 ARM_PD_SPEC = ROOT / "configs" / "skills" / "arm-reach-tray.yaml"
 NEVER = "norm(qvel) < -1.0"  # a norm is never negative: episodes run max_steps (or until the env terminates)
@@ -185,8 +185,8 @@ def configs_for(env_id: str, a, kinds: list[str], workers: list[int]) -> dict[st
 
 
 def report(runs: list[dict], envs: list[str], kinds: list[str], workers: list[int], a) -> None:
-    col = lambda k: [m[k] for m in runs]  # noqa: E731
-    per = lambda num, den: [m[num] / m[den] for m in runs]  # noqa: E731
+    col = lambda k: column(runs, k)  # noqa: E731
+    per = lambda num, den: ratios(runs, num, den)  # noqa: E731
     top = max(workers)
     print("| loop | steps/s (median) | vs gymnasium, median [min-max] | vs 1 thread, median [min-max] |")
     print("| --- | ---: | ---: | ---: |")
@@ -271,8 +271,7 @@ def main() -> None:
         if raw is not None:
             raw.close()
     print(f"torch intra-op threads {torch.get_num_threads()}{', BLAS matvec (what-if)' if a.blas_matvec else ''}; "
-          f"1-min / 5-min / 15-min load average {load_before} before, {load()} after; per round (1-min) "
-          f"{', '.join(f'{x:.2f}' for x in loads)}; {os.cpu_count()} CPUs; {a.rounds} rounds, order rotated each round")
+          f"{load_line(load_before, loads)}; {a.rounds} rounds, order rotated each round")
     print()
     report(runs, envs, kinds, workers, a)
     if a.profile:

@@ -41,7 +41,7 @@ from typing import Any, Callable, Iterable, Iterator
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from rounds import RawSimulator, load, median, run_rounds, summary  # noqa: E402
+from rounds import RawSimulator, column, load, load_line, median, ratios, run_rounds, summary  # noqa: E402
 
 SKILLS = ("arm-lift", "arm-reach-tray", "arm-place")
 ENV = "kinetome/BenchArm-v0"
@@ -208,12 +208,11 @@ def report(a: Any, runs: list[dict], traffic: dict, ray_start: float, load_befor
     frame_skip = make_rig(ENV).frame_skip
     env_steps = traffic["steps"] * a.episodes / counts[0]
     n_blocks = len(counts)
-    col = lambda k: [m[k] for m in runs]  # noqa: E731
-    ratio = lambda num, den: [m[num] / m[den] for m in runs]  # noqa: E731
-    ceiling = [m["raw2"] / m["raw1"] for m in runs]
+    col = lambda k: column(runs, k)  # noqa: E731
+    ratio = lambda num, den: ratios(runs, num, den)  # noqa: E731
+    ceiling = ratio("raw2", "raw1")
     ray_vs_one = ratio("one", "ray2")
-    print(f"1-min / 5-min / 15-min load average {load_before} before, {load()} after; per round (1-min) "
-          f"{', '.join(f'{x:.2f}' for x in loads)}; {os.cpu_count()} CPUs")
+    print(load_line(load_before, loads))
     print(f"{a.episodes} episodes in {n_blocks} blocks of at most {a.block_size} ({'/'.join(map(str, counts))}); {a.rounds} rounds, order rotated each round; "
           f"results identical in every check of every round")
     print(f"Ray start-up (local, 2 CPUs, first version check): {ray_start:.1f} s (not in the rows)")

@@ -39,7 +39,7 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parents[1]))
 
 from bench_store import SKILL, SPEC, _filler, console_script  # noqa: E402
-from rounds import load, median, run_rounds, summary  # noqa: E402
+from rounds import column, load, median, ratios, run_rounds, summary  # noqa: E402
 
 from tests.pg_server import find_bin_dir, server_from_env, start_server, stop_server  # noqa: E402
 
@@ -103,12 +103,12 @@ def read_rows(stores: dict[str, list[str]], name: str, runs: int) -> list[str]:
             values.clear()
         load_before = load()
         measured = run_rounds(configs, runs)
-        lite, pg = median([m["sqlite"] for m in measured]), median([m["postgresql"] for m in measured])
+        lite, pg = median(column(measured, "sqlite")), median(column(measured, "postgresql"))
         lite_cpu, pg_cpu = median(cpu["sqlite"]), median(cpu["postgresql"])
         verdict = "met" if pg / lite <= TARGET else "MISSED"
         rows.append(
             f"| `kinetome {command[0]}` | {lite:.3f} s | {pg:.3f} s | {pg / lite:.2f}x "
-            f"| {summary([m['postgresql'] / m['sqlite'] for m in measured])} | <= {TARGET}x {verdict} "
+            f"| {summary(ratios(measured, 'postgresql', 'sqlite'))} | <= {TARGET}x {verdict} "
             f"| CPU {lite_cpu:.3f} s / {pg_cpu:.3f} s = {pg_cpu / lite_cpu:.2f}x | {load_before} -> {load()} |"
         )
     return rows

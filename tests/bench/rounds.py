@@ -58,6 +58,22 @@ def median(values: list[float]) -> float:
     return float(statistics.median(values))
 
 
+def column(runs: list[dict[str, float]], key: str) -> list[float]:
+    """One configuration's measure in every round."""
+    return [m[key] for m in runs]
+
+
+def ratios(runs: list[dict[str, float]], num: str, den: str) -> list[float]:
+    """``num`` over ``den`` inside each round (both measured under the same conditions)."""
+    return [m[num] / m[den] for m in runs]
+
+
+def load_line(before: str, per_round: list[float]) -> str:
+    """The load averages before and after, and the 1-minute one after each round, for a report's header."""
+    return (f"1-min / 5-min / 15-min load average {before} before, {load()} after; per round (1-min) "
+            f"{', '.join(f'{x:.2f}' for x in per_round)}; {os.cpu_count()} CPUs")
+
+
 # --- the ceiling: the raw simulator in one and in two OS processes --------------------------------------------------
 
 _MODEL = None
