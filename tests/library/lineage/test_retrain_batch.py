@@ -69,7 +69,9 @@ def test_comparison_table_shows_own_variant_and_nominal(batch) -> None:
 
 def test_repeating_the_batch_stores_nothing_new(batch) -> None:
     store, result, tmp = batch
-    again = retrain_batch("arm-reach-tray@1", store=store, variants=VARIANTS, out=tmp / "again", **TINY)
+    started: list[int] = []
+    again = retrain_batch("arm-reach-tray@1", store=store, variants=VARIANTS, out=tmp / "again", on_start=started.append, **TINY)
+    assert started == [len(VARIANTS)]  # told once, with the number of trainings (the CLI's 'retraining ...' line)
     assert [c["child"] for c in again["children"]] == [c["child"] for c in result["children"]]
     assert not any(c["is_new"] for c in again["children"])
 
