@@ -50,6 +50,17 @@ def train_once(config_path: Path, eta: float, seed: int, budget: int | None) -> 
             "wall_s": round(time.perf_counter() - t0, 1)}
 
 
+def t_interval(values: np.ndarray) -> tuple[float, float, float]:
+    """(mean, low, high): the 95% t-interval of the mean (Student t, scipy.stats.t); nan bounds below two values."""
+    from scipy import stats
+
+    if len(values) == 0:
+        return float("nan"), float("nan"), float("nan")
+    mean = float(values.mean())
+    half = stats.t.ppf(0.975, len(values) - 1) * values.std(ddof=1) / np.sqrt(len(values)) if len(values) > 1 else float("nan")
+    return mean, mean - half, mean + half
+
+
 def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> tuple[list[dict], dict]:
     from scipy import stats
 
@@ -58,9 +69,8 @@ def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> t
     for eta in etas:
         d = np.array([r["mean_skill_duration"] for r in rows if r["eta"] == eta])
         ret = np.array([r["mean_return"] for r in rows if r["eta"] == eta])
-        # 95% t-interval of the mean over seeds (Student t, scipy.stats.t)
-        half = stats.t.ppf(0.975, len(d) - 1) * d.std(ddof=1) / np.sqrt(len(d)) if len(d) > 1 else float("nan")
-        table.append({"eta": eta, "seeds": len(d), "duration": d.mean(), "low": d.mean() - half, "high": d.mean() + half,
+        duration, low, high = t_interval(d)  # over seeds
+        table.append({"eta": eta, "seeds": len(d), "duration": duration, "low": low, "high": high,
                       "return": ret.mean(), "return_low": ret.min(), "return_high": ret.max(),
                       "within_band": bool(abs(ret.mean() - base) <= band * abs(base))})
     # Trend: seeds are blocks fixed in advance, etas the ordered treatments: Page's L test for a rising
@@ -71,9 +81,8 @@ def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> t
     page = stats.page_trend_test(blocks) if len(blocks) >= 2 and len(etas) >= 3 else None
     for k, t in enumerate(table):  # rise over the first eta within each seed: paired, so seed-to-seed spread cancels
         diff = np.array([b[k] - b[0] for b in blocks])
-        half = stats.t.ppf(0.975, len(diff) - 1) * diff.std(ddof=1) / np.sqrt(len(diff)) if len(diff) > 1 else float("nan")
-        t.update(rise=diff.mean() if len(diff) else float("nan"), rise_low=diff.mean() - half, rise_high=diff.mean() + half,
-                 rise_seeds=int(np.sum(diff > 0)))
+        rise, rise_low, rise_high = t_interval(diff)
+        t.update(rise=rise, rise_low=rise_low, rise_high=rise_high, rise_seeds=int(np.sum(diff > 0)))
     tau = stats.kendalltau([r["eta"] for r in rows], [r["mean_skill_duration"] for r in rows], alternative="greater")
     return table, {"L": float(page.statistic) if page else float("nan"), "p": float(page.pvalue) if page else float("nan"),
                    "tau": float(tau.statistic), "p_tau": float(tau.pvalue), "seeds": len(blocks), "runs": len(rows)}
