@@ -82,7 +82,7 @@ def summarise(rows: list[dict[str, float]], etas: list[float], band: float) -> t
     for k, t in enumerate(table):  # rise over the first eta within each seed: paired, so seed-to-seed spread cancels
         diff = np.array([b[k] - b[0] for b in blocks])
         rise, rise_low, rise_high = t_interval(diff)
-        t.update(rise=rise, rise_low=rise_low, rise_high=rise_high, rise_seeds=int(np.sum(diff > 0)))
+        t.update(rise=rise, rise_low=rise_low, rise_high=rise_high, rise_seeds=int(np.sum(diff > 0)), rise_pairs=len(diff))
     tau = stats.kendalltau([r["eta"] for r in rows], [r["mean_skill_duration"] for r in rows], alternative="greater")
     return table, {"L": float(page.statistic) if page else float("nan"), "p": float(page.pvalue) if page else float("nan"),
                    "tau": float(tau.statistic), "p_tau": float(tau.pvalue), "seeds": len(blocks), "runs": len(rows)}
@@ -93,7 +93,7 @@ def markdown(table: list[dict], trend: dict, band: float) -> str:
     lines = [f"| eta | seeds | mean skill duration (95% CI) | rise over eta {first}, paired (95% CI; seeds longer) | "
              f"mean return (min to max) | within {band:.0%} of eta {first} |", "| --- | --- | --- | --- | --- | --- |"]
     for k, t in enumerate(table):
-        rise = "-" if k == 0 else f"{t['rise']:+.1f} ({t['rise_low']:+.1f} to {t['rise_high']:+.1f}; {t['rise_seeds']} of {t['seeds']})"
+        rise = "-" if k == 0 else f"{t['rise']:+.1f} ({t['rise_low']:+.1f} to {t['rise_high']:+.1f}; {t['rise_seeds']} of {t['rise_pairs']})"
         lines.append(f"| {t['eta']:g} | {t['seeds']} | {t['duration']:.1f} ({t['low']:.1f} to {t['high']:.1f}) | {rise} | "
                      f"{t['return']:.1f} ({t['return_low']:.1f} to {t['return_high']:.1f}) | {'yes' if t['within_band'] else 'NO'} |")
     lines.append(f"\nTrend in duration (Page's L test, {trend['seeds']} seeds as blocks, etas in order): "
