@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
+from .region import PASS
+
 __all__ = ["format_sweep", "format_region", "cell_label", "lower_text"]
 
 
@@ -28,8 +30,6 @@ def format_region(region: Mapping[str, Any], *, indent: str = "  ") -> list[str]
 def lower_text(cell: Mapping[str, Any], require: float) -> str:
     """A cell's corrected lower bound as shown. Under Holm's step-down a cell after the first failing one
     is never tested, so a bound at or above the requirement there does not make it pass: say so."""
-    from .region import PASS
-
     text = f"{cell['corrected_lower']:.3f}"
     if cell["mark"] != PASS and cell["corrected_lower"] >= require:
         text += " (not tested: the step-down stopped at an earlier cell)"
