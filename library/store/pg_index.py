@@ -15,15 +15,15 @@ from typing import Any
 
 import psycopg
 
-from kinetome.library.errors import StoreIntegrityError, StoreUnavailableError
 from kinetome.library.store.pg_common import (
     CONNECTION_SETTINGS,
-    SCHEMA_EXISTS_SQL,
-    SCHEMA_VERSION_SQL,
-    SETTINGS_FIX as _SETTINGS_FIX,
     PostgresDialect,
+    cannot_connect,
+    cannot_open,
     check_schema_version,
-    first_line as _first_line,
+    read_schema_version,
+    refused_statement,
+    stopped_answering,
 )
 from kinetome.library.store.schema import SCHEMA_VERSION, schema_statements
 
@@ -39,22 +39,18 @@ class PostgresIndex(PostgresDialect):
         try:
             self.conn = psycopg.connect(url, autocommit=True, **CONNECTION_SETTINGS)
         except psycopg.Error as e:
-            raise StoreUnavailableError(f"cannot connect to the store at {url}: {_first_line(e)}; {_SETTINGS_FIX}") from None
+            raise cannot_connect(url, e) from None
         try:
             self._prepare(create=create, info=info or {})
         except psycopg.Error as e:
             self.conn.close()
-            raise StoreIntegrityError(f"the store at {url} cannot be opened: {_first_line(e)}; {_SETTINGS_FIX}") from None
+            raise cannot_open(url, e) from None
         except BaseException:
             self.conn.close()
             raise
 
     def _schema_version(self) -> int | None:
-        (exists,) = self.conn.execute(SCHEMA_EXISTS_SQL).fetchone()
-        if not exists:
-            return None
-        row = self.conn.execute(SCHEMA_VERSION_SQL).fetchone()
-        return None if row is None else int(row[0])
+        return read_schema_version(lambda sql: self.conn.execute(sql).fetchall())
 
     def _prepare(self, *, create: bool, info: Mapping[str, str]) -> None:
         if check_schema_version(self.location, self._schema_version(), create=create):
@@ -86,12 +82,9 @@ class PostgresIndex(PostgresDialect):
         try:
             yield
         except psycopg.OperationalError as e:
-            raise StoreUnavailableError(f"the store at {self.location} stopped answering: {_first_line(e)}; {_SETTINGS_FIX}") from None
+            raise stopped_answering(self.location, e) from None
         except psycopg.DatabaseError as e:
-            raise StoreIntegrityError(
-                f"the index at {self.location} refused a statement: {_first_line(e)}; run `kinetome verify`, "
-                "and restore the database from a backup if it was changed outside kinetome"
-            ) from None
+            raise refused_statement(self.location, e) from None
 
     def execute(self, sql: str, params: Sequence[Any] = ()) -> psycopg.Cursor:
         with self._clean_errors():

@@ -13,17 +13,17 @@ from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any, NoReturn
 
-from kinetome.library.errors import StoreIntegrityError, StoreUnavailableError
 from kinetome.library.store import libpq
 from kinetome.library.store.pg_common import (
     CONNECT_TIMEOUT_S,
     CONNECTION_SETTINGS,
-    SCHEMA_EXISTS_SQL,
-    SCHEMA_VERSION_SQL,
-    SETTINGS_FIX,
     PostgresDialect,
+    cannot_connect,
+    cannot_open,
     check_schema_version,
-    first_line,
+    read_schema_version,
+    refused_statement,
+    stopped_answering,
 )
 
 __all__ = ["PostgresReader", "Rows", "open_reader"]
@@ -72,14 +72,8 @@ class PostgresReader(PostgresDialect):
         try:
             yield
         except libpq.LibpqError as e:
-            if e.unavailable:
-                raise StoreUnavailableError(
-                    f"the store at {self.location} stopped answering: {first_line(e)}; {SETTINGS_FIX}"
-                ) from None
-            raise StoreIntegrityError(
-                f"the index at {self.location} refused a statement: {first_line(e)}; run `kinetome verify`, "
-                "and restore the database from a backup if it was changed outside kinetome"
-            ) from None
+            clean = stopped_answering(self.location, e) if e.unavailable else refused_statement(self.location, e)
+            raise clean from None
 
     def execute(self, sql: str, params: Sequence[Any] = ()) -> Rows:
         text = self._sql.get(sql)
@@ -98,11 +92,7 @@ class PostgresReader(PostgresDialect):
         self.refuse_writes()
 
     def schema_version(self) -> int | None:
-        (exists,) = self._conn.query(SCHEMA_EXISTS_SQL)[0]
-        if not exists:
-            return None
-        rows = self._conn.query(SCHEMA_VERSION_SQL)
-        return None if not rows else int(rows[0][0])
+        return read_schema_version(self._conn.query)
 
     def close(self) -> None:
         self._conn.close()
@@ -120,7 +110,7 @@ def open_reader(url: str) -> PostgresReader | None:
     try:
         conn = libpq.connect(lib, url, CONNECTION_SETTINGS, timeout_s=CONNECT_TIMEOUT_S)
     except libpq.LibpqError as e:
-        raise StoreUnavailableError(f"cannot connect to the store at {url}: {first_line(e)}; {SETTINGS_FIX}") from None
+        raise cannot_connect(url, e) from None
     reader = PostgresReader(url, conn)
     try:
         if conn.parameter("client_encoding") != "UTF8":
@@ -129,7 +119,7 @@ def open_reader(url: str) -> PostgresReader | None:
         try:
             version = reader.schema_version()
         except libpq.LibpqError as e:
-            raise StoreIntegrityError(f"the store at {url} cannot be opened: {first_line(e)}; {SETTINGS_FIX}") from None
+            raise cannot_open(url, e) from None
         check_schema_version(url, version, create=False)
     except BaseException:
         reader.close()
