@@ -42,9 +42,13 @@ class IndexBackend(ABC):
     def write_transaction(self) -> AbstractContextManager[IndexBackend]:
         """One transaction holding the store's write lock from its first statement: version numbers,
         revisions and audit entries read inside it cannot be taken by another writer before the commit."""
+        self.check_writable()
+        return self._write_transaction()
+
+    def check_writable(self) -> None:
+        """Raise (``refuse_writes``) if this connection is marked ``read_only``."""
         if self.read_only:
             self.refuse_writes()
-        return self._write_transaction()
 
     def refuse_writes(self) -> NoReturn:
         """The error for a write through a connection opened for reading only."""

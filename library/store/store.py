@@ -325,8 +325,7 @@ class Store(CurrentMethods, ArtifactMethods):
 
     def check_writable(self) -> None:
         """Raise InvalidInputError if this store was opened with ``read_only=True`` (before any blob is written)."""
-        if self._index.read_only:
-            self._index.refuse_writes()
+        self._index.check_writable()
 
     def _store_files(self, payload: dict[str, bytes]) -> tuple[FileEntry, ...]:
         self.check_writable()
