@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
+from functools import lru_cache
 from typing import Any, NoReturn
 
 from kinetome.library.store import libpq
@@ -33,23 +34,19 @@ class Rows:
     """A finished query's rows, read like a cursor: ``fetchone``, ``fetchall``, iteration."""
 
     def __init__(self, rows: list[tuple]):
-        self._rows = rows
-        self._next = 0
+        self._rows = iter(rows)
 
     def fetchone(self) -> tuple | None:
-        if self._next >= len(self._rows):
-            return None
-        self._next += 1
-        return self._rows[self._next - 1]
+        return next(self._rows, None)
 
     def fetchall(self) -> list[tuple]:
-        rest, self._next = self._rows[self._next :], len(self._rows)
-        return rest
+        return list(self._rows)
 
     def __iter__(self) -> Iterator[tuple]:
-        return iter(self.fetchall())
+        return self._rows
 
 
+@lru_cache(maxsize=1024)  # the index runs the same few statements over and over
 def _numbered(sql: str) -> str:
     """``?`` placeholders -> libpq's ``$1``, ``$2`` ... (the index's SQL has no ``?`` elsewhere)."""
     parts = sql.split("?")
@@ -64,7 +61,6 @@ class PostgresReader(PostgresDialect):
     def __init__(self, url: str, conn: libpq.Connection):
         self.location = url
         self._conn = conn
-        self._sql: dict[str, str] = {}
 
     @contextmanager
     def _clean_errors(self) -> Iterator[None]:
@@ -76,11 +72,8 @@ class PostgresReader(PostgresDialect):
             raise clean from None
 
     def execute(self, sql: str, params: Sequence[Any] = ()) -> Rows:
-        text = self._sql.get(sql)
-        if text is None:
-            text = self._sql[sql] = _numbered(sql)
         with self._clean_errors():
-            return Rows(self._conn.query(text, tuple(params)))
+            return Rows(self._conn.query(_numbered(sql), tuple(params)))
 
     def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
         self.refuse_writes()
