@@ -57,8 +57,7 @@ def utc_now() -> str:
 
 
 def store_info(conn: IndexBackend, key: str) -> str | None:
-    row = conn.execute("SELECT value FROM store_info WHERE key = ?", (key,)).fetchone()
-    return None if row is None else str(row[0])
+    return store_infos(conn, key).get(key)
 
 
 def store_infos(conn: IndexBackend, *keys: str) -> dict[str, str]:
