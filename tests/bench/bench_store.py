@@ -162,9 +162,10 @@ def _env() -> dict[str, str]:
     return env
 
 
-def time_process(argv: list[str]) -> float:
+def time_process(argv: list[str], env: dict[str, str] | None = None) -> float:
+    """Wall seconds of one whole process (environment: ``env``, else this one without $KINETOME_STORE)."""
     t = time.perf_counter()
-    done = subprocess.run(argv, capture_output=True, env=_env(), stdin=subprocess.DEVNULL)
+    done = subprocess.run(argv, capture_output=True, env=_env() if env is None else env, stdin=subprocess.DEVNULL)
     wall = time.perf_counter() - t
     if done.returncode != 0:
         raise SystemExit(f"{' '.join(argv)} exited {done.returncode}: {done.stderr.decode(errors='replace')[-2000:]}")

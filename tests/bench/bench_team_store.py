@@ -38,7 +38,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parents[1]))
 
-from bench_store import SKILL, SPEC, _filler, console_script  # noqa: E402
+from bench_store import SKILL, SPEC, _filler, console_script, time_process  # noqa: E402
 from rounds import column, load, median, ratios, run_rounds, summary  # noqa: E402
 
 from tests.pg_server import find_bin_dir, server_from_env, start_server, stop_server  # noqa: E402
@@ -80,12 +80,9 @@ def _child_env() -> dict[str, str]:
 
 def _timed(argv: list[str], env: dict[str, str], cpu: list[float]) -> float:
     """Wall seconds of one whole process; its CPU seconds (user + system) go to ``cpu``."""
-    before, t = _children_cpu(), time.perf_counter()
-    done = subprocess.run(argv, capture_output=True, env=env, stdin=subprocess.DEVNULL)
-    wall = time.perf_counter() - t
+    before = _children_cpu()
+    wall = time_process(argv, env)
     cpu.append(_children_cpu() - before)
-    if done.returncode != 0:
-        raise SystemExit(f"{' '.join(argv)} exited {done.returncode}: {done.stderr.decode(errors='replace')[-2000:]}")
     return wall
 
 
