@@ -4,12 +4,15 @@ the SQL, writes refused on every backend."""
 
 from __future__ import annotations
 
+import re
+
 import pytest
 
 from kinetome.library.errors import InvalidInputError, NotFoundError, StoreIntegrityError, StoreUnavailableError
 from kinetome.library.store import Store, copy_store, export_bundle, import_bundle, libpq
 from kinetome.library.store.pg_index import PostgresIndex
 from kinetome.library.store.pg_reader import PostgresReader, _numbered, open_reader
+from kinetome.library.store.schema import SCHEMA_VERSION
 from tests.store_backends import snapshot
 
 SPEC = {"spec.json": b'{"reach": 1}', "params.safetensors": b"P" * 300}
@@ -115,6 +118,42 @@ def test_without_a_loadable_libpq_the_full_driver_reads(pg_url, tmp_path, monkey
         assert isinstance(store._index, PostgresIndex) and _reads(store) == expected
         with pytest.raises(InvalidInputError, match="opened for reading only"):
             store.add_note("reach@1", "x")
+
+
+def _reader_with_psycopg_impl(monkeypatch, impl: str, url: str) -> Store:
+    """A read-only store opened with ``$PSYCOPG_IMPL`` = ``impl`` (libpq looked up afresh)."""
+    monkeypatch.setenv("PSYCOPG_IMPL", impl)
+    libpq.load_libpq.cache_clear()
+    try:
+        return Store(url, read_only=True)
+    finally:
+        libpq.load_libpq.cache_clear()  # later tests look libpq up without the variable
+
+
+def test_psycopg_impl_chooses_the_libpq_or_leaves_reading_to_the_full_driver(pg_url, tmp_path, monkeypatch):
+    url = pg_url()
+    with Store(url, blobs=tmp_path / "b") as store:
+        _fill(store)
+        expected = _reads(store)
+    # psycopg's c and python implementations use the system's libpq: so does the light connection
+    with _reader_with_psycopg_impl(monkeypatch, "python", url) as store:
+        assert isinstance(store._index, PostgresReader) and _reads(store) == expected
+        assert "psycopg_binary" not in store._index._conn._lib._name
+    # an implementation this module does not know: which libpq it means is psycopg's business
+    with _reader_with_psycopg_impl(monkeypatch, "some-future-impl", url) as store:
+        assert isinstance(store._index, PostgresIndex) and _reads(store) == expected
+
+
+def test_an_index_schema_this_kinetome_does_not_know_is_refused_by_either_connection(pg_url, tmp_path):
+    url = pg_url()
+    with Store(url, blobs=tmp_path / "b") as store:
+        store._index.execute("UPDATE store_info SET value = ? WHERE key = 'schema'", (str(SCHEMA_VERSION + 1),))
+    message = re.escape(f"has index schema {SCHEMA_VERSION + 1}, which this kinetome does not understand ({SCHEMA_VERSION})")
+    for read_only in (False, True):
+        with pytest.raises(StoreIntegrityError, match=message):
+            Store(url, read_only=read_only)
+    with pytest.raises(StoreIntegrityError, match=message):
+        open_reader(url)
 
 
 def test_a_client_encoding_other_than_utf8_goes_through_the_full_driver(pg_url, tmp_path):
