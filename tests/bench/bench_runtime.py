@@ -171,12 +171,14 @@ def profile(rig, skill, starts, workers: int, top: int) -> str:
 def configs_for(env_id: str, a, kinds: list[str], workers: list[int]) -> dict[str, object]:
     """The timed loops of one env, each returning steps/s, keyed 'ENV|what|threads'."""
     out: dict[str, object] = {}
+    first = None  # the first kind's rig and start states: the rollout reference runs on them
     for kind in kinds:
         rig, skill, starts = build(env_id, kind, a.max_steps, a.episodes)
+        first = first or (rig, starts)
         runtime_rate(rig, skill, (starts[0][:8], starts[1][:8]), 1)  # warm-up (torch, thread pool)
         for w in workers:
             out[f"{env_id}|{kind}|{w}"] = (lambda rig=rig, skill=skill, starts=starts, w=w: runtime_rate(rig, skill, starts, w)[0])
-    rig, _, starts = build(env_id, kinds[0], a.max_steps, a.episodes)
+    rig, starts = first
     nstep = a.max_steps * rig.frame_skip // 2
     for w in workers:
         out[f"{env_id}|rollout|{w}"] = (lambda rig=rig, starts=starts, w=w: rollout_rate(rig, starts, nstep, w))
